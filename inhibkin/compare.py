@@ -1,0 +1,255 @@
+"""Model comparison: information criteria, nested F-tests and the verdict.
+
+The verdict follows the nesting of the models (see :func:`decide`):
+
+1. *Is there inhibition at all?* The extra sum-of-squares F-test of ``none`` against
+   ``mixed`` (2 extra parameters). One test at level ``alpha``, so a non-inhibitor is
+   called an inhibitor at most at the nominal rate.
+2. *Is the general model needed?* Each one-constant mechanism (competitive,
+   uncompetitive, noncompetitive) is F-tested against ``mixed``. Those not rejected at
+   ``alpha`` are *adequate*. When none is adequate the verdict is ``mixed``; calling
+   mixed when the truth nests in it therefore happens at most at rate ``alpha``.
+3. *Which adequate mechanism?* The adequate models have the same number of parameters
+   and do not nest in each other, so the F-test cannot choose; AICc does. The best is
+   the verdict when it leads the next adequate model by at least ``min_delta_aicc``;
+   otherwise the verdict is ``ambiguous`` and names the adequate models within that
+   margin.
+
+An Akaike-weight threshold alone would leave every nested truth ``ambiguous``: a model
+that differs from mixed by one parameter can never lead it by more than about 2 AICc
+units, which is why the F-test, not the weights, decides between nested pairs.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from .models import nested_pairs
+
+__all__ = [
+    "VerdictOptions",
+    "Verdict",
+    "information_criteria",
+    "akaike_weights",
+    "f_test",
+    "comparison_table",
+    "f_test_table",
+    "decide",
+]
+
+ONE_CONSTANT_MODELS = ("competitive", "uncompetitive", "noncompetitive")
+
+
+@dataclass(frozen=True)
+class VerdictOptions:
+    """Thresholds of the verdict; all are documented options of ``fit_mechanisms``.
+
+    Parameters
+    ----------
+    alpha : float
+        Level of the nested F-tests (default 0.05).
+    min_delta_aicc : float
+        AICc lead the best adequate one-constant model needs over the next one to be
+        called (default 2.0; common practice for "substantial support").
+    """
+
+    alpha: float = 0.05
+    min_delta_aicc: float = 2.0
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """The outcome of a comparison.
+
+    Attributes
+    ----------
+    verdict : str
+        A mechanism name, ``"ambiguous"`` or ``"failed"``.
+    best : str or None
+        The model whose parameters the verdict reports (for ``ambiguous``, the best by
+        AICc among the candidates; None for ``failed``).
+    candidates : tuple of str
+        The models that could not be told apart (one entry when decided).
+    reason : str
+        One sentence on why.
+    """
+
+    verdict: str
+    best: str | None
+    candidates: tuple[str, ...]
+    reason: str
+
+
+def information_criteria(ssr: float, n_obs: int, n_params: int, sum_log_weights: float = 0.0):
+    """Gaussian log-likelihood, AIC, AICc and BIC of a least-squares fit.
+
+    Parameters
+    ----------
+    ssr : float
+        Weighted sum of squared residuals, sum((w*(y - f))**2).
+    n_obs : int
+        Number of observations.
+    n_params : int
+        Number of fitted parameters of the mean (the variance is profiled out, as in
+        statsmodels' OLS/WLS ``llf``, ``aic`` and ``bic``).
+    sum_log_weights : float
+        sum(log w) for residual multipliers w = 1/σ_rel; zero for uniform weights.
+
+    Returns
+    -------
+    dict
+        ``loglik``, ``aic``, ``aicc``, ``bic``. AICc = AIC + 2k(k+1)/(n-k-1), infinite
+        when n ≤ k + 1.
+    """
+    n, k = n_obs, n_params
+    if ssr <= 0:
+        # A perfect fit: the likelihood is unbounded; keep the criteria finite and ordered.
+        ssr = np.finfo(float).tiny
+    loglik = -0.5 * n * (np.log(2 * np.pi) + np.log(ssr / n) + 1) + sum_log_weights
+    aic = -2 * loglik + 2 * k
+    aicc = aic + 2 * k * (k + 1) / (n - k - 1) if n > k + 1 else np.inf
+    bic = -2 * loglik + k * np.log(n)
+    return {"loglik": loglik, "aic": aic, "aicc": aicc, "bic": bic}
+
+
+def akaike_weights(aicc) -> np.ndarray:
+    """Akaike weights exp(-Δ/2)/Σ exp(-Δ/2) from AICc values (NaN entries get weight 0)."""
+    a = np.asarray(aicc, dtype=float)
+    ok = np.isfinite(a)
+    w = np.zeros_like(a)
+    if ok.any():
+        rel = np.exp(-0.5 * (a[ok] - a[ok].min()))
+        w[ok] = rel / rel.sum()
+    return w
+
+
+def f_test(ssr_reduced, df_reduced, ssr_full, df_full):
+    """Extra sum-of-squares F-test of a nested pair.
+
+    Parameters
+    ----------
+    ssr_reduced, df_reduced : float, int
+        Residual sum of squares and residual degrees of freedom of the smaller model.
+    ssr_full, df_full : float, int
+        The same for the larger model.
+
+    Returns
+    -------
+    f_value, p_value : float
+    df_num, df_den : int
+        As statsmodels' ``compare_f_test`` (F, p, df difference) plus the denominator df.
+    """
+    df_num = df_reduced - df_full
+    if df_num <= 0 or df_full <= 0:
+        return np.nan, np.nan, df_num, df_full
+    # A reduced model cannot fit better than the model it nests in; a tiny negative
+    # difference is optimiser noise and means "no improvement".
+    gain = max(ssr_reduced - ssr_full, 0.0)
+    if ssr_full <= 0:
+        f_value = np.inf if gain > 0 else 0.0
+    else:
+        f_value = (gain / df_num) / (ssr_full / df_full)
+    p_value = float(stats.f.sf(f_value, df_num, df_full))
+    return float(f_value), p_value, int(df_num), int(df_full)
+
+
+def comparison_table(fits) -> pd.DataFrame:
+    """One row per model: n, k, SSR, AIC, AICc, BIC, ΔAICc, Akaike weight, converged.
+
+    Parameters
+    ----------
+    fits : mapping of str to ModelFit
+    """
+    rows = []
+    for name, fit in fits.items():
+        rows.append(
+            {
+                "model": name,
+                "n_obs": fit.n_obs,
+                "n_params": fit.n_params,
+                "ssr": fit.ssr if fit.converged else np.nan,
+                "aic": fit.aic if fit.converged else np.nan,
+                "aicc": fit.aicc if fit.converged else np.nan,
+                "bic": fit.bic if fit.converged else np.nan,
+                "converged": fit.converged,
+            }
+        )
+    table = pd.DataFrame(rows).set_index("model")
+    table["delta_aicc"] = table["aicc"] - table["aicc"].min()
+    table["akaike_weight"] = akaike_weights(table["aicc"].to_numpy())
+    columns = ["n_obs", "n_params", "ssr", "aic", "aicc", "bic", "delta_aicc", "akaike_weight",
+               "converged"]
+    return table[columns]
+
+
+def f_test_table(fits) -> pd.DataFrame:
+    """Extra sum-of-squares F-tests for every nested pair among the converged fits."""
+    rows = []
+    for small, large in nested_pairs(tuple(fits)):
+        a, b = fits[small], fits[large]
+        if not (a.converged and b.converged):
+            f_value, p_value = np.nan, np.nan
+            df_num, df_den = b.n_params - a.n_params, b.n_obs - b.n_params
+        else:
+            f_value, p_value, df_num, df_den = f_test(
+                a.ssr, a.n_obs - a.n_params, b.ssr, b.n_obs - b.n_params
+            )
+        rows.append(
+            {"reduced": small, "full": large, "f_value": f_value, "df_num": df_num,
+             "df_den": df_den, "p_value": p_value}
+        )
+    return pd.DataFrame(rows, columns=["reduced", "full", "f_value", "df_num", "df_den",
+                                       "p_value"])
+
+
+def _p(ftests: pd.DataFrame, reduced: str, full: str) -> float:
+    row = ftests[(ftests["reduced"] == reduced) & (ftests["full"] == full)]
+    return float(row["p_value"].iloc[0]) if len(row) else np.nan
+
+
+def decide(comparison: pd.DataFrame, ftests: pd.DataFrame,
+           options: VerdictOptions = VerdictOptions()) -> Verdict:
+    """The verdict from a comparison table and its F-tests (rules in the module docstring)."""
+    converged = comparison.index[comparison["converged"]].tolist()
+    if "mixed" not in converged or "none" not in converged:
+        missing = [m for m in ("none", "mixed") if m not in converged]
+        return Verdict("failed", None, (), f"the {' and '.join(missing)} fit did not converge")
+    p_any = _p(ftests, "none", "mixed")
+    if not p_any < options.alpha:
+        return Verdict(
+            "none", "none", ("none",),
+            f"no inhibition detected: F-test of none against mixed p = {p_any:.3g} "
+            f"≥ {options.alpha:g}",
+        )
+    adequate = [
+        m for m in ONE_CONSTANT_MODELS
+        if m in converged and not _p(ftests, m, "mixed") < options.alpha
+    ]
+    if not adequate:
+        worst = max((_p(ftests, m, "mixed") for m in ONE_CONSTANT_MODELS if m in converged),
+                    default=np.nan)
+        return Verdict(
+            "mixed", "mixed", ("mixed",),
+            f"every one-constant mechanism is rejected against mixed (largest p = {worst:.3g} "
+            f"< {options.alpha:g})",
+        )
+    aicc = comparison.loc[adequate, "aicc"].sort_values()
+    best = aicc.index[0]
+    close = [m for m in aicc.index if aicc[m] - aicc.iloc[0] < options.min_delta_aicc]
+    if len(close) == 1:
+        if len(aicc) == 1:
+            why = "the only one-constant mechanism not rejected against mixed"
+        else:
+            why = (f"leads {aicc.index[1]} by {aicc.iloc[1] - aicc.iloc[0]:.1f} AICc units "
+                   f"(≥ {options.min_delta_aicc:g})")
+        return Verdict(best, best, (best,), f"{best}: {why}")
+    return Verdict(
+        "ambiguous", best, tuple(close),
+        f"{', '.join(close)} fit within {options.min_delta_aicc:g} AICc units of each other and "
+        "none is rejected against mixed",
+    )
+

@@ -1,0 +1,244 @@
+"""Which reversible mechanism, and how tight: every model fitted, compared, decided.
+
+:func:`fit_mechanisms` fits all five rate laws of :mod:`inhibkin.models` globally to one
+compound's substrate × inhibitor grid, compares them (:mod:`inhibkin.compare`) and
+returns a :class:`MechanismFit` holding the verdict and every table that justified it.
+"""
+
+from __future__ import annotations
+
+import html
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from .compare import Verdict, VerdictOptions, comparison_table, decide, f_test_table
+from .errors import DataError
+from .fitting import ModelFit, fit_model, format_estimate
+from .models import MODEL_NAMES, MODELS
+from .starts import log_bounds, starting_values
+from .validate import check_grid
+
+__all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "relative_weights"]
+
+WEIGHTINGS = ("uniform", "relative", "sd")
+
+# Iterations of the reweighting that sets the constant-CV weights.
+_REWEIGHT_ITERATIONS = 3
+# Fitted rates below this fraction of the largest are floored before weighting, so a
+# fully inhibited point does not receive an unbounded weight.
+_WEIGHT_FLOOR = 1e-3
+
+
+@dataclass(frozen=True)
+class MechanismFit:
+    """Every mechanism fitted to one compound, compared, and the verdict.
+
+    Attributes
+    ----------
+    verdict : str
+        A mechanism name, ``"ambiguous"`` or ``"failed"``.
+    best : str or None
+        The model whose parameters stand for the compound (for ``ambiguous`` the best
+        of the candidates by AICc).
+    candidates : tuple of str
+        Models that could not be told apart (one entry when decided).
+    reason : str
+        Why this verdict.
+    models : dict of str to ModelFit
+        Every model's fit.
+    comparison : pandas.DataFrame
+        n, k, SSR, AIC, AICc, BIC, ΔAICc and Akaike weight per model.
+    ftests : pandas.DataFrame
+        Extra sum-of-squares F-test of every nested pair.
+    data : pandas.DataFrame
+        The points fitted (columns substrate, inhibitor, rate, weight).
+    weighting : str
+    options : VerdictOptions
+    """
+
+    verdict: str
+    best: str | None
+    candidates: tuple[str, ...]
+    reason: str
+    models: dict[str, ModelFit] = field(repr=False)
+    comparison: pd.DataFrame = field(repr=False)
+    ftests: pd.DataFrame = field(repr=False)
+    data: pd.DataFrame = field(repr=False)
+    weighting: str = "uniform"
+    options: VerdictOptions = VerdictOptions()
+
+    @property
+    def params(self) -> pd.DataFrame:
+        """Tidy parameter table of every model: model, parameter, estimate, se, ci_low,
+        ci_high, determined."""
+        return pd.concat([fit.to_frame() for fit in self.models.values()], ignore_index=True)
+
+    @property
+    def best_fit(self) -> ModelFit | None:
+        """The ModelFit of :attr:`best`."""
+        return self.models.get(self.best) if self.best else None
+
+    def constants(self) -> pd.DataFrame:
+        """The inhibition constants of the best model (kic, kiu, ki, alpha where present)."""
+        fit = self.best_fit
+        if fit is None or self.best == "none":
+            return pd.DataFrame(columns=["estimate", "se", "ci_low", "ci_high", "determined"])
+        keep = [p for p in fit.params.index if p not in ("vmax", "km")]
+        return fit.params.loc[keep]
+
+    def to_frame(self) -> pd.DataFrame:
+        """The tidy parameter table with a column saying which row is the verdict's model."""
+        out = self.params
+        out.insert(1, "is_best", out["model"] == self.best)
+        return out
+
+    def summary(self) -> str:
+        """Plain-text report: verdict, comparison, F-tests and the best model's parameters."""
+        width = 78
+        lines = ["=" * width, f"Verdict: {self.verdict}", f"  {self.reason}"]
+        if self.verdict == "ambiguous":
+            lines.append(f"  candidates: {', '.join(self.candidates)}")
+        lines += ["-" * width, f"Model comparison ({self.weighting} weighting)",
+                  self.comparison.to_string(float_format=lambda x: f"{x:.4g}"),
+                  "-" * width, "Nested F-tests",
+                  self.ftests.to_string(index=False, float_format=lambda x: f"{x:.4g}")]
+        if self.best_fit is not None:
+            lines += ["-" * width, self.best_fit.summary()]
+        lines.append("=" * width)
+        return "\n".join(lines)
+
+    def _repr_html_(self) -> str:
+        parts = [f"<div><p><b>Verdict: {html.escape(self.verdict)}</b> — "
+                 f"{html.escape(self.reason)}</p>"]
+        parts.append(self.comparison.to_html(float_format="%.4g"))
+        if self.best_fit is not None:
+            table = self.best_fit.params.copy()
+            table.insert(0, "reported", [format_estimate(r) for _, r in table.iterrows()])
+            parts.append(f"<p>Parameters of <b>{html.escape(self.best)}</b>:</p>")
+            parts.append(table.to_html(float_format="%.4g"))
+        parts.append("</div>")
+        return "".join(parts)
+
+
+def relative_weights(s, i, v) -> np.ndarray:
+    """Residual multipliers 1/v̂ for constant-CV noise, v̂ from the mixed model.
+
+    The weights are set once, from a reweighted fit of the most general model, and then
+    shared by every model: that keeps the SSRs of all models on one scale, so the
+    F-tests and information criteria compare like with like.
+    """
+    w = np.ones_like(v)
+    for _ in range(_REWEIGHT_ITERATIONS):
+        fit = fit_model("mixed", s, i, v, w, intervals="wald")
+        if not fit.converged:
+            break
+        scale = np.maximum(fit.fitted, _WEIGHT_FLOOR * np.max(fit.fitted))
+        w = 1.0 / scale
+    return w / np.exp(np.mean(np.log(w)))
+
+
+def _mixed_starts(fits, s, i, v, w) -> list[dict]:
+    """Starting points for mixed: the automatic one and each nested model's solution.
+
+    Starting from the nested solutions guarantees the mixed SSR is no larger than any
+    model nested in it, which the F-tests rely on.
+    """
+    starts = [starting_values("mixed", s, i, v, w)]
+    far = float(np.exp(log_bounds("mixed", s, i, v)["kic"][1])) / 10
+    for name, fit in fits.items():
+        if not fit.converged or name == "none":
+            continue
+        p = fit.best_values
+        starts.append({
+            "vmax": p["vmax"], "km": p["km"],
+            "kic": p.get("kic", p.get("ki", far)),
+            "kiu": p.get("kiu", p.get("ki", far)),
+        })
+    return starts
+
+
+def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
+                   weighting="uniform", models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
+                   intervals="profile", level=0.95, determination_factor=10.0,
+                   context=None) -> MechanismFit:
+    """Fit every reversible mechanism to one compound's grid and decide between them.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        One row per observed initial rate (replicates as separate rows).
+    substrate, inhibitor, rate : str
+        Column names. Concentrations in any one unit per column; km comes out in the
+        substrate's unit, the inhibition constants in the inhibitor's, vmax in the rate's.
+    sd : str, optional
+        Column of the standard deviation of each rate; required for ``weighting="sd"``.
+    weighting : {"uniform", "relative", "sd"}
+        ``uniform``: equal weights. ``relative``: constant coefficient of variation
+        (weights 1/v̂, see :func:`relative_weights`). ``sd``: weights 1/sd.
+    models : sequence of str
+        Models to fit; the verdict needs ``none`` and ``mixed`` among them.
+    alpha : float
+        Level of the nested F-tests behind the verdict.
+    min_delta_aicc : float
+        AICc lead needed to pick one of the one-constant mechanisms.
+    intervals : {"profile", "wald"}
+        Interval method (see :mod:`inhibkin.fitting`).
+    level : float
+        Confidence level of the intervals.
+    determination_factor : float
+        A constant above this multiple of the largest tested concentration is reported
+        as a bound, "not determined within the tested range".
+    context : str, optional
+        Name of the compound, used in error messages.
+
+    Returns
+    -------
+    MechanismFit
+
+    Raises
+    ------
+    DataError
+        When the table cannot be fitted (missing column, text, NaN, negative values,
+        too few points or levels, all-zero rates); the message names column, row, value.
+
+    Examples
+    --------
+    >>> import inhibkin as ik
+    >>> data = ik.simulate_grid("competitive", vmax=10, km=2, kic=0.5, cv=0.02, seed=1)
+    >>> ik.fit_mechanisms(data).verdict
+    'competitive'
+    """
+    if weighting not in WEIGHTINGS:
+        raise DataError(f"weighting must be one of {WEIGHTINGS}, got {weighting!r}", context)
+    if weighting == "sd" and sd is None:
+        raise DataError("weighting='sd' needs the sd= column of standard deviations", context)
+    unknown = [m for m in models if m not in MODELS]
+    if unknown:
+        raise DataError(f"unknown models {unknown}; known: {', '.join(MODELS)}", context)
+    need_inhibition = any(m != "none" for m in models)
+    s, i, v, sigma = check_grid(df, substrate=substrate, inhibitor=inhibitor, rate=rate,
+                                sd=sd if weighting == "sd" else None,
+                                need_inhibition=need_inhibition, context=context)
+    if weighting == "sd":
+        w = 1.0 / sigma
+    elif weighting == "relative":
+        w = relative_weights(s, i, v)
+    else:
+        w = np.ones_like(v)
+    options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc)
+    fits: dict[str, ModelFit] = {}
+    common = dict(intervals=intervals, level=level, determination_factor=determination_factor)
+    for name in models:
+        starts = _mixed_starts(fits, s, i, v, w) if name == "mixed" else None
+        fits[name] = fit_model(name, s, i, v, w, starts=starts, **common)
+    # The table order is the models' own order, whatever order they were fitted in.
+    fits = {name: fits[name] for name in MODEL_NAMES if name in fits}
+    comparison = comparison_table(fits)
+    ftests = f_test_table(fits)
+    verdict: Verdict = decide(comparison, ftests, options)
+    data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},
+                        index=df.index)
+    return MechanismFit(verdict.verdict, verdict.best, verdict.candidates, verdict.reason,
+                        fits, comparison, ftests, data, weighting, options)

@@ -1,0 +1,155 @@
+"""Input checks at the public boundary.
+
+Each check collects every problem it finds (column, row label, value, what is wrong)
+and raises one :class:`~inhibkin.errors.DataError` listing them all. Code past these
+checks trusts its inputs.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from .errors import DataError, Problem
+
+__all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_menten"]
+
+# How many bad rows of one kind a message lists before it summarises the rest.
+_MAX_ROWS_LISTED = 5
+
+
+def check_columns(df, columns, context=None) -> None:
+    """Raise when ``df`` is not a DataFrame or lacks any of ``columns``."""
+    if not isinstance(df, pd.DataFrame):
+        raise DataError(f"expected a pandas DataFrame, got {type(df).__name__}", context)
+    missing = [c for c in columns if c not in df.columns]
+    if missing:
+        have = ", ".join(map(repr, df.columns[:20]))
+        raise DataError(
+            [Problem(c, None, None, f"column is missing; the table has: {have}") for c in missing],
+            context,
+        )
+
+
+def _listed(problems, column, rows, values, message):
+    for row, value in list(zip(rows, values))[:_MAX_ROWS_LISTED]:
+        problems.append(Problem(column, row, value, message))
+    extra = len(rows) - _MAX_ROWS_LISTED
+    if extra > 0:
+        problems.append(Problem(column, None, None, f"and {extra} more rows: {message}"))
+
+
+def numeric_column(df, column, problems, *, allow_negative=False, allow_nan=False):
+    """The column as a float array; appends a Problem for every bad entry.
+
+    Text that is not a number, NaN/inf (unless ``allow_nan``) and negative values
+    (unless ``allow_negative``) are problems.
+    """
+    raw = df[column]
+    values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+    labels = df.index.to_numpy()
+    text = np.isnan(values) & raw.notna().to_numpy()
+    if text.any():
+        _listed(problems, column, labels[text], raw.to_numpy()[text], "not a number")
+    missing = np.isnan(values) & ~text
+    if missing.any() and not allow_nan:
+        _listed(problems, column, labels[missing], values[missing], "missing value (NaN)")
+    infinite = np.isinf(values)
+    if infinite.any():
+        _listed(problems, column, labels[infinite], values[infinite], "infinite value")
+    if not allow_negative:
+        negative = values < 0
+        if negative.any():
+            _listed(problems, column, labels[negative], values[negative],
+                    "negative value; concentrations and rates must be ≥ 0")
+    return values
+
+
+def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True, context=None):
+    """Validate one compound's substrate × inhibitor table.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        One row per observed rate.
+    substrate, inhibitor, rate : str
+        Column names.
+    sd : str, optional
+        Column of standard deviations of the rates (must be > 0).
+    need_inhibition : bool
+        When True, at least two inhibitor levels (one of them may be 0) are required.
+    context : str, optional
+        Put in front of the message (e.g. the compound).
+
+    Returns
+    -------
+    s, i, v, sd : numpy.ndarray (sd is None when not given)
+
+    Raises
+    ------
+    DataError
+        Listing every problem found.
+    """
+    columns = [substrate, inhibitor, rate] + ([sd] if sd is not None else [])
+    check_columns(df, columns, context)
+    problems: list[Problem] = []
+    if len(df) == 0:
+        raise DataError("the table has no rows", context)
+    s = numeric_column(df, substrate, problems)
+    i = numeric_column(df, inhibitor, problems)
+    v = numeric_column(df, rate, problems)
+    sigma = None
+    if sd is not None:
+        sigma = numeric_column(df, sd, problems)
+        labels = df.index.to_numpy()
+        zero = sigma == 0
+        if zero.any():
+            _listed(problems, sd, labels[zero], sigma[zero], "standard deviation must be > 0")
+    if problems:
+        raise DataError(problems, context)
+    if np.unique(s).size < 2:
+        problems.append(Problem(substrate, None, float(s[0]),
+                                "need at least two substrate concentrations"))
+    if need_inhibition and np.unique(i).size < 2:
+        problems.append(Problem(inhibitor, None, float(i[0]),
+                                "only one inhibitor level; inhibition models need at least two "
+                                "(include the uninhibited rate, I = 0)"))
+    if np.all(v == 0):
+        problems.append(Problem(rate, None, 0.0, "all rates are zero; nothing to fit"))
+    if np.all(s == 0):
+        problems.append(Problem(substrate, None, 0.0, "all substrate concentrations are zero"))
+    n_params = 4 if need_inhibition else 2
+    if len(v) <= n_params:
+        problems.append(Problem(None, None, len(v),
+                                f"{len(v)} points; the largest model has {n_params} parameters "
+                                f"and needs more points than that"))
+    if problems:
+        raise DataError(problems, context)
+    return s, i, v, sigma
+
+
+def check_michaelis_menten(s, v, weights=None):
+    """Validate arrays for a Michaelis–Menten fit; return float arrays (s, v, weights)."""
+    table = {"s": np.atleast_1d(np.asarray(s, dtype=object)),
+             "v": np.atleast_1d(np.asarray(v, dtype=object))}
+    if table["s"].shape != table["v"].shape:
+        raise DataError(f"s and v differ in length: {table['s'].size} and {table['v'].size}")
+    if weights is not None:
+        table["weights"] = np.atleast_1d(np.asarray(weights, dtype=object))
+        if table["weights"].shape != table["s"].shape:
+            raise DataError("weights must have one entry per point")
+    frame = pd.DataFrame(table)
+    problems: list[Problem] = []
+    s_arr = numeric_column(frame, "s", problems)
+    v_arr = numeric_column(frame, "v", problems)
+    w_arr = None if weights is None else numeric_column(frame, "weights", problems)
+    if problems:
+        raise DataError(problems)
+    if len(s_arr) < 3:
+        raise DataError(Problem("s", None, len(s_arr), "need at least 3 points for 2 parameters"))
+    if np.unique(s_arr).size < 2:
+        raise DataError(Problem("s", None, float(s_arr[0]),
+                                "need at least two substrate concentrations"))
+    if np.all(v_arr == 0):
+        raise DataError(Problem("v", None, 0.0, "all rates are zero; nothing to fit"))
+    return s_arr, v_arr, w_arr
