@@ -1,0 +1,213 @@
+"""Concentration and time units in and out; inside inhibkin everything is molar and seconds.
+
+Units are always declared, never guessed: either in a column header (``inhibitor_nM``,
+``substrate_uM``) or by an explicit option (``units={"inhibitor": "nM"}``). A table whose
+concentration columns carry no unit is refused with a message that says how to declare one.
+"""
+
+from __future__ import annotations
+
+import re
+
+import numpy as np
+
+from .errors import Problem, UnitsError
+
+__all__ = [
+    "CONCENTRATION_UNITS",
+    "TIME_UNITS",
+    "to_molar",
+    "from_molar",
+    "to_seconds",
+    "split_unit",
+    "resolve_units",
+    "normalise_unit",
+]
+
+# Factor that turns one of each unit into molar. Both the micro sign (U+00B5) and the
+# Greek small mu (U+03BC) are accepted because keyboards and spreadsheets produce either.
+CONCENTRATION_UNITS = {
+    "M": 1.0,
+    "mM": 1e-3,
+    "uM": 1e-6,
+    "µM": 1e-6,
+    "μM": 1e-6,
+    "nM": 1e-9,
+    "pM": 1e-12,
+}
+
+# Factor that turns one of each unit into seconds.
+TIME_UNITS = {
+    "s": 1.0,
+    "ms": 1e-3,
+    "min": 60.0,
+    "h": 3600.0,
+}
+
+_HOW_TO_DECLARE = (
+    "declare the unit in the column header (e.g. 'inhibitor_nM', 'substrate_uM') or pass it "
+    "as an option (units={{'{name}': 'nM'}}, or --units {name}=nM on the command line); "
+    "known units: " + ", ".join(CONCENTRATION_UNITS)
+)
+
+_SUFFIX = re.compile(r"^(?P<base>.+?)[_ ]\(?(?P<unit>[A-Za-zµμ]+)\)?$")
+
+
+def normalise_unit(unit, *, kind="concentration"):
+    """The canonical spelling of ``unit`` (``"µM"`` and ``"μM"`` become ``"uM"``).
+
+    Parameters
+    ----------
+    unit : str
+        A unit as written by the user.
+    kind : {"concentration", "time"}
+        Which family of units to look in.
+
+    Raises
+    ------
+    UnitsError
+        When the unit is not known; the message lists the known ones.
+    """
+    table = CONCENTRATION_UNITS if kind == "concentration" else TIME_UNITS
+    text = str(unit).strip() if unit is not None else ""
+    if text in table:
+        return "uM" if text in ("µM", "μM") else text
+    raise UnitsError(Problem(None, None, unit,
+                             f"unknown {kind} unit; use one of: {', '.join(table)}"))
+
+
+def to_molar(values, unit):
+    """Concentrations in ``unit`` converted to molar.
+
+    Parameters
+    ----------
+    values : float or array_like
+        Concentrations in ``unit``.
+    unit : str
+        One of :data:`CONCENTRATION_UNITS`.
+
+    Returns
+    -------
+    numpy.ndarray or float
+        Concentrations in M (a float when ``values`` is a scalar).
+    """
+    factor = CONCENTRATION_UNITS[normalise_unit(unit)]
+    out = np.asarray(values, dtype=float) * factor
+    return float(out) if out.ndim == 0 else out
+
+
+def from_molar(values, unit):
+    """Molar concentrations expressed in ``unit`` (the inverse of :func:`to_molar`)."""
+    factor = CONCENTRATION_UNITS[normalise_unit(unit)]
+    out = np.asarray(values, dtype=float) / factor
+    return float(out) if out.ndim == 0 else out
+
+
+def to_seconds(values, unit):
+    """Times in ``unit`` (s, ms, min, h) converted to seconds."""
+    factor = TIME_UNITS[normalise_unit(unit, kind="time")]
+    out = np.asarray(values, dtype=float) * factor
+    return float(out) if out.ndim == 0 else out
+
+
+def split_unit(column_name, *, kind="concentration"):
+    """Split a header into its base name and declared unit.
+
+    Parameters
+    ----------
+    column_name : str
+        A header such as ``"inhibitor_nM"``, ``"substrate uM"`` or ``"time_min"``.
+    kind : {"concentration", "time"}
+        Which family of units the suffix must belong to.
+
+    Returns
+    -------
+    (str, str or None)
+        The base name and the unit as written, or ``(column_name, None)`` when the
+        header carries no known unit.
+
+    Examples
+    --------
+    >>> split_unit("inhibitor_nM")
+    ('inhibitor', 'nM')
+    >>> split_unit("rate")
+    ('rate', None)
+    """
+    table = CONCENTRATION_UNITS if kind == "concentration" else TIME_UNITS
+    match = _SUFFIX.match(str(column_name))
+    if match and match.group("unit") in table:
+        return match.group("base"), match.group("unit")
+    return str(column_name), None
+
+
+def resolve_units(columns, names, *, units=None, context=None):
+    """Find the column and the declared unit of each named concentration.
+
+    Parameters
+    ----------
+    columns : iterable of str
+        The headers of the table (e.g. ``df.columns``).
+    names : iterable of str
+        Base names of the concentration columns to resolve, e.g.
+        ``["substrate", "inhibitor"]``.
+    units : dict, optional
+        Units declared as an option, ``{base name: unit}``. The column is then the plain
+        header (``"inhibitor"``) or a header that carries the same unit; a header that
+        carries a different unit is a contradiction and is refused.
+    context : str, optional
+        Put in front of error messages (e.g. the file name).
+
+    Returns
+    -------
+    dict
+        ``{base name: (column, canonical unit)}``.
+
+    Raises
+    ------
+    UnitsError
+        Listing every concentration whose unit is missing, unknown, ambiguous or
+        contradictory, each with how to declare it.
+    """
+    columns = [str(c) for c in columns]
+    units = dict(units or {})
+    problems = []
+    found = {}
+    for name in names:
+        with_unit = [c for c in columns if split_unit(c)[0] == name and split_unit(c)[1]]
+        plain = name in columns
+        declared = units.get(name)
+        if declared is not None:
+            try:
+                canonical = normalise_unit(declared)
+            except UnitsError as err:
+                problems.extend(err.problems)
+                continue
+            header_units = {normalise_unit(split_unit(c)[1]) for c in with_unit}
+            if header_units - {canonical}:
+                problems.append(Problem(with_unit[0], None, declared,
+                                        f"unit given as an option ({declared}) contradicts the "
+                                        f"header {with_unit[0]!r}"))
+            elif plain:
+                found[name] = (name, canonical)
+            elif with_unit:
+                found[name] = (with_unit[0], canonical)
+            else:
+                problems.append(Problem(name, None, None,
+                                        f"no column {name!r} (nor {name}_<unit>) in the table"))
+            continue
+        if len(with_unit) > 1:
+            problems.append(Problem(name, None, None,
+                                    f"several columns declare {name!r}: {with_unit}; keep one"))
+        elif with_unit:
+            found[name] = (with_unit[0], normalise_unit(split_unit(with_unit[0])[1]))
+        elif plain:
+            problems.append(Problem(name, None, None,
+                                    "concentration unit not declared; "
+                                    + _HOW_TO_DECLARE.format(name=name)))
+        else:
+            problems.append(Problem(name, None, None,
+                                    f"no column {name!r} or {name}_<unit> in the table; "
+                                    + _HOW_TO_DECLARE.format(name=name)))
+    if problems:
+        raise UnitsError(problems, context)
+    return found
