@@ -186,8 +186,17 @@ def comparison_table(fits) -> pd.DataFrame:
     return table[columns]
 
 
-def f_test_table(fits) -> pd.DataFrame:
-    """Extra sum-of-squares F-tests for every nested pair among the converged fits."""
+def f_test_table(fits, *, exact_ssr=0.0) -> pd.DataFrame:
+    """Extra sum-of-squares F-tests for every nested pair among the converged fits.
+
+    Parameters
+    ----------
+    fits : mapping of str to ModelFit
+    exact_ssr : float
+        An SSR at or below this counts as an exact fit (zero). Without it, noise-free
+        data would compare rounding errors: two exact fits would give an F statistic of
+        0/0 decided by the last bits of the optimiser.
+    """
     rows = []
     for small, large in nested_pairs(tuple(fits)):
         a, b = fits[small], fits[large]
@@ -195,8 +204,10 @@ def f_test_table(fits) -> pd.DataFrame:
             f_value, p_value = np.nan, np.nan
             df_num, df_den = b.n_params - a.n_params, b.n_obs - b.n_params
         else:
+            ssr_a = a.ssr if a.ssr > exact_ssr else 0.0
+            ssr_b = b.ssr if b.ssr > exact_ssr else 0.0
             f_value, p_value, df_num, df_den = f_test(
-                a.ssr, a.n_obs - a.n_params, b.ssr, b.n_obs - b.n_params
+                ssr_a, a.n_obs - a.n_params, ssr_b, b.n_obs - b.n_params
             )
         rows.append(
             {"reduced": small, "full": large, "f_value": f_value, "df_num": df_num,

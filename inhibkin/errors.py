@@ -23,6 +23,12 @@ __all__ = [
 _MAX_VALUE_CHARS = 40
 
 
+def _plain(x):
+    """A numpy scalar as the Python value it holds, so messages read 2, not np.int64(2)."""
+    item = getattr(x, "item", None)
+    return item() if callable(item) and getattr(x, "ndim", 1) == 0 else x
+
+
 @dataclass(frozen=True)
 class Problem:
     """One thing wrong with one input.
@@ -49,8 +55,8 @@ class Problem:
         if self.column is not None:
             where.append(f"column {self.column!r}")
         if self.row is not None:
-            where.append(f"row {self.row!r}")
-        text = repr(self.value)
+            where.append(f"row {_plain(self.row)!r}")
+        text = repr(_plain(self.value))
         if len(text) > _MAX_VALUE_CHARS:
             text = text[: _MAX_VALUE_CHARS - 3] + "..."
         prefix = ", ".join(where)

@@ -271,7 +271,7 @@ def _profile_limit(problem, theta_hat, ssr_target, j, direction, first_step, con
             start = inner_theta
             if excess(inner, start)[0] >= 0:
                 return inner
-            return optimize.brentq(lambda c: excess(c, start)[0], inner, outer,
+            return optimize.brentq(lambda c, s0=start: excess(c, s0)[0], inner, outer,
                                    xtol=_PROFILE_XTOL)
         if outer == limit:
             return direction * np.inf

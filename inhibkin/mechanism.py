@@ -26,6 +26,10 @@ WEIGHTINGS = ("uniform", "relative", "sd")
 
 # Iterations of the reweighting that sets the constant-CV weights.
 _REWEIGHT_ITERATIONS = 3
+# An SSR below this fraction of the total weighted sum of squares of the rates is an
+# exact fit (relative residuals of about 1e-9): noise-free data, where the F-tests
+# would otherwise compare rounding errors.
+_EXACT_FIT_RTOL = 1e-18
 # Fitted rates below this fraction of the largest are floored before weighting, so a
 # fully inhibited point does not receive an unbounded weight.
 _WEIGHT_FLOOR = 1e-3
@@ -236,7 +240,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     # The table order is the models' own order, whatever order they were fitted in.
     fits = {name: fits[name] for name in MODEL_NAMES if name in fits}
     comparison = comparison_table(fits)
-    ftests = f_test_table(fits)
+    ftests = f_test_table(fits, exact_ssr=_EXACT_FIT_RTOL * float(np.sum((w * v) ** 2)))
     verdict: Verdict = decide(comparison, ftests, options)
     data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},
                         index=df.index)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from .errors import DataError
 from .models import MODELS, get_model
 
 __all__ = ["simulate_grid", "standard_design"]
@@ -36,7 +37,7 @@ def _true_params(law, vmax, km, kic, kiu):
         values["ki"] = kic if kic is not None else kiu
     missing = [p for p in law.param_names if values.get(p) is None]
     if missing:
-        raise ValueError(f"{law.name} needs {', '.join(missing)}")
+        raise DataError(f"{law.name} needs {', '.join(missing)}")
     return [float(values[p]) for p in law.param_names]
 
 

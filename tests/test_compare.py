@@ -1,0 +1,106 @@
+"""Information criteria and F-tests against statsmodels and scipy; the verdict rules."""
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from scipy import stats
+from statsmodels.tools import eval_measures
+
+from inhibkin.compare import (
+    VerdictOptions,
+    akaike_weights,
+    decide,
+    f_test,
+    information_criteria,
+)
+
+CRITERIA_RTOL = 1e-10
+
+
+@pytest.fixture
+def nested_linear(rng):
+    x = np.linspace(0, 10, 40)
+    y = 1.0 + 0.5 * x + 0.03 * x**2 + rng.normal(0, 0.4, x.size)
+    small = sm.OLS(y, sm.add_constant(x)).fit()
+    large = sm.OLS(y, sm.add_constant(np.column_stack([x, x**2]))).fit()
+    return small, large
+
+
+def test_criteria_match_statsmodels_ols(nested_linear):
+    # Independent reference: statsmodels OLS results' llf, aic and bic, and
+    # statsmodels.tools.eval_measures.aicc.
+    for res in nested_linear:
+        k = int(res.df_model + 1)
+        ours = information_criteria(res.ssr, int(res.nobs), k)
+        assert ours["loglik"] == pytest.approx(res.llf, rel=CRITERIA_RTOL)
+        assert ours["aic"] == pytest.approx(res.aic, rel=CRITERIA_RTOL)
+        assert ours["bic"] == pytest.approx(res.bic, rel=CRITERIA_RTOL)
+        assert ours["aicc"] == pytest.approx(eval_measures.aicc(res.llf, res.nobs, k),
+                                             rel=CRITERIA_RTOL)
+
+
+def test_weighted_loglik_matches_statsmodels_wls(rng):
+    # statsmodels WLS (weights = 1/σ²) includes ½Σlog(weights); ours takes w = 1/σ.
+    x = np.linspace(1, 10, 30)
+    sigma = 0.1 * x
+    y = 2 + 3 * x + rng.normal(0, sigma)
+    res = sm.WLS(y, sm.add_constant(x), weights=1 / sigma**2).fit()
+    w = 1 / sigma
+    ssr = float(np.sum((w * res.resid) ** 2))
+    ours = information_criteria(ssr, 30, 2, float(np.sum(np.log(w))))
+    assert ours["loglik"] == pytest.approx(res.llf, rel=CRITERIA_RTOL)
+    assert ours["aic"] == pytest.approx(res.aic, rel=CRITERIA_RTOL)
+
+
+def test_f_test_matches_statsmodels_and_scipy(nested_linear):
+    # statsmodels RegressionResults.compare_f_test returns (F, p, df_diff).
+    small, large = nested_linear
+    f_sm, p_sm, df_sm = large.compare_f_test(small)
+    f_value, p_value, df_num, df_den = f_test(small.ssr, small.df_resid, large.ssr,
+                                              large.df_resid)
+    assert f_value == pytest.approx(f_sm, rel=CRITERIA_RTOL)
+    assert p_value == pytest.approx(p_sm, rel=1e-8)
+    assert df_num == df_sm == 1
+    # scipy.stats.f survival function, the textbook definition of the p-value.
+    assert p_value == pytest.approx(stats.f.sf(f_value, 1, large.df_resid), rel=1e-12)
+
+
+def test_akaike_weights_by_hand():
+    # w_i = exp(-Δ_i/2) / Σ exp(-Δ_j/2) (Burnham & Anderson 2002, Model Selection and
+    # Multimodel Inference, §2.9).
+    w = akaike_weights([10.0, 12.0, np.nan, 20.0])
+    expected = np.exp(-0.5 * np.array([0.0, 2.0, 10.0]))
+    expected /= expected.sum()
+    np.testing.assert_allclose(w[[0, 1, 3]], expected, rtol=1e-12)
+    assert w[2] == 0.0
+
+
+def _tables(aicc, p):
+    comparison = pd.DataFrame({"aicc": aicc, "converged": True})
+    rows = [{"reduced": a, "full": b, "p_value": v} for (a, b), v in p.items()]
+    return comparison, pd.DataFrame(rows)
+
+
+def test_decide_follows_the_nesting():
+    aicc = {"none": 50.0, "competitive": 0.0, "uncompetitive": 30.0, "noncompetitive": 1.0,
+            "mixed": 1.5}
+    p = {("none", "mixed"): 1e-9, ("competitive", "mixed"): 0.4,
+         ("uncompetitive", "mixed"): 1e-6, ("noncompetitive", "mixed"): 0.2}
+    v = decide(*_tables(aicc, p))
+    assert v.verdict == "ambiguous" and set(v.candidates) == {"competitive", "noncompetitive"}
+    v = decide(*_tables(aicc, p), VerdictOptions(min_delta_aicc=0.5))
+    assert v.verdict == "competitive"
+    p[("noncompetitive", "mixed")] = 1e-3
+    assert decide(*_tables(aicc, p)).verdict == "competitive"
+    p[("competitive", "mixed")] = 1e-3
+    assert decide(*_tables(aicc, p)).verdict == "mixed"
+    p[("none", "mixed")] = 0.3
+    assert decide(*_tables(aicc, p)).verdict == "none"
+
+
+def test_decide_fails_without_the_general_model():
+    comparison = pd.DataFrame({"aicc": [1.0, 2.0], "converged": [True, False]},
+                              index=["none", "mixed"])
+    v = decide(comparison, pd.DataFrame(columns=["reduced", "full", "p_value"]))
+    assert v.verdict == "failed" and "mixed" in v.reason

@@ -1,0 +1,175 @@
+"""fit_mechanisms: recovery, verdicts on seeded noisy data, results and bad input."""
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+import inhibkin as ik
+from inhibkin.models import MODEL_NAMES, MODELS
+
+RECOVERY_RTOL = 1e-6
+TRUE = {"vmax": 10.0, "km": 2.0}
+CONSTANTS = {
+    "none": {},
+    "competitive": {"kic": 0.5},
+    "uncompetitive": {"kiu": 0.5},
+    "noncompetitive": {"kic": 0.5},
+    "mixed": {"kic": 0.5, "kiu": 2.0},
+}
+N_DATA_SETS = 24
+NOMINAL_ALPHA = 0.05
+# A wrong mechanism of the same size, or "none" for an inhibitor, contradicts the truth.
+CONTRADICTING = {
+    "none": {"competitive", "uncompetitive", "noncompetitive"},
+    "competitive": {"none", "uncompetitive", "noncompetitive"},
+    "uncompetitive": {"none", "competitive", "noncompetitive"},
+    "noncompetitive": {"none", "competitive", "uncompetitive"},
+    "mixed": {"none", "competitive", "uncompetitive"},
+}
+
+
+def _simulate(mechanism, **kw):
+    return ik.simulate_grid(mechanism, **TRUE, **CONSTANTS[mechanism], **kw)
+
+
+@pytest.mark.parametrize("mechanism", MODEL_NAMES)
+def test_noise_free_data_recovered_and_called(mechanism):
+    fit = ik.fit_mechanisms(_simulate(mechanism), intervals="wald")
+    assert fit.verdict == mechanism
+    est = fit.models[mechanism].best_values
+    truth = {**TRUE, **CONSTANTS[mechanism]}
+    if mechanism == "noncompetitive":
+        truth = {**TRUE, "ki": CONSTANTS[mechanism]["kic"]}
+    for name in MODELS[mechanism].param_names:
+        assert est[name] == pytest.approx(truth[name], rel=RECOVERY_RTOL)
+
+
+@pytest.fixture(scope="module")
+def noisy_verdicts():
+    """Verdicts on N_DATA_SETS seeded 5 % CV data sets per mechanism, standard design
+    (S 0.2–10 × km, I 0–4 × Ki, duplicates), fitted with the matching constant-CV weights."""
+    out = {}
+    for k, mechanism in enumerate(MODEL_NAMES):
+        out[mechanism] = [
+            ik.fit_mechanisms(_simulate(mechanism, cv=0.05, seed=1000 * k + j),
+                              weighting="relative", intervals="wald").verdict
+            for j in range(N_DATA_SETS)
+        ]
+    return out
+
+
+def test_noisy_calls_are_right_or_ambiguous_never_contradicting(noisy_verdicts):
+    for mechanism, verdicts in noisy_verdicts.items():
+        wrong = [v for v in verdicts if v in CONTRADICTING[mechanism]]
+        assert not wrong, f"{mechanism} data called {wrong}"
+
+
+def test_mixed_is_called_for_nested_truths_at_most_at_the_nominal_rate(noisy_verdicts):
+    # The F-test of each one-constant model against mixed is run at alpha = 0.05, so
+    # nested truths are called mixed at about 5 %. One-sided exact binomial test of the
+    # pooled count against that rate (scipy.stats.binomtest).
+    nested = [m for m in MODEL_NAMES if m != "mixed"]
+    n_mixed = sum(v == "mixed" for m in nested for v in noisy_verdicts[m])
+    n_total = N_DATA_SETS * len(nested)
+    result = stats.binomtest(n_mixed, n_total, NOMINAL_ALPHA, alternative="greater")
+    print(f"mixed called for nested truths: {n_mixed}/{n_total}")
+    assert result.pvalue > 0.01
+
+
+def test_most_noisy_data_sets_get_the_right_call(noisy_verdicts):
+    fractions = {m: float(np.mean([v == m for v in vs])) for m, vs in noisy_verdicts.items()}
+    print("fraction called correctly:", {m: round(f, 3) for m, f in fractions.items()})
+    for mechanism, fraction in fractions.items():
+        assert fraction >= 0.8, f"{mechanism}: only {fraction:.0%} called correctly"
+
+
+def test_result_tables_and_reports():
+    fit = ik.fit_mechanisms(_simulate("mixed", cv=0.03, seed=9), weighting="relative")
+    assert fit.verdict == "mixed" and fit.best == "mixed"
+    assert list(fit.comparison.index) == list(MODEL_NAMES)
+    assert {"ssr", "aic", "aicc", "bic", "delta_aicc", "akaike_weight"} <= set(fit.comparison)
+    assert fit.comparison["akaike_weight"].sum() == pytest.approx(1.0)
+    assert len(fit.ftests) == 7
+    params = fit.params
+    assert list(params.columns) == ["model", "parameter", "estimate", "se", "ci_low", "ci_high",
+                                    "determined"]
+    alpha = params[(params.model == "mixed") & (params.parameter == "alpha")].iloc[0]
+    kic = fit.models["mixed"].best_values["kic"]
+    kiu = fit.models["mixed"].best_values["kiu"]
+    assert alpha["estimate"] == pytest.approx(kiu / kic)
+    assert alpha["ci_low"] < alpha["estimate"] < alpha["ci_high"]
+    assert (params["ci_low"] <= params["estimate"]).all()
+    assert (params["estimate"] <= params["ci_high"]).all()
+    assert fit.to_frame()["is_best"].sum() == 5
+    text = fit.summary()
+    assert "Verdict: mixed" in text and "Nested F-tests" in text and "profile" in text
+    assert "<table" in fit._repr_html_()
+
+
+def test_weak_inhibitor_constant_reported_as_bound():
+    data = ik.simulate_grid("competitive", **TRUE, kic=200.0, s=2 * np.geomspace(0.2, 10, 8),
+                            i=np.linspace(0, 2, 6), cv=0.03, seed=21)
+    fit = ik.fit_mechanisms(data, weighting="relative")
+    kic = fit.models["competitive"].params.loc["kic"]
+    assert not kic["determined"]
+
+
+def test_sd_weighting_uses_the_column():
+    data = _simulate("competitive", cv=0.05, seed=2)
+    data["rate_sd"] = 0.05 * data["true_rate"]
+    fit = ik.fit_mechanisms(data, sd="rate_sd", weighting="sd", intervals="wald")
+    np.testing.assert_allclose(fit.data["weight"], 1 / data["rate_sd"])
+    with pytest.raises(ik.DataError, match="needs the sd= column"):
+        ik.fit_mechanisms(data, weighting="sd")
+
+
+def test_non_convergence_is_recorded_not_raised():
+    data = _simulate("competitive", cv=0.05, seed=3)
+    fit = ik.fit_mechanisms(data, models=("none", "competitive"), intervals="wald")
+    assert fit.verdict == "failed" and "mixed" in fit.reason
+    assert fit.models["competitive"].converged
+
+
+@pytest.mark.parametrize(
+    ("edit", "pattern"),
+    [
+        (lambda d: d.drop(columns="rate"), "column 'rate'.*missing"),
+        (lambda d: d.assign(rate=d["rate"].astype(object).where(d.index != 4, "fast")),
+         r"column 'rate', row 4 \(value 'fast'\): not a number"),
+        (lambda d: d.assign(rate=d["rate"].where(d.index != 7, np.nan)),
+         r"column 'rate', row 7.*missing value"),
+        (lambda d: d.assign(substrate=d["substrate"].where(d.index != 3, np.inf)),
+         r"column 'substrate', row 3.*infinite"),
+        (lambda d: d.assign(inhibitor=d["inhibitor"].where(d.index != 5, -1.0)),
+         r"column 'inhibitor', row 5 \(value -1.0\): negative"),
+        (lambda d: d.assign(rate=d["rate"].where(d.index != 6, -1.0)),
+         r"column 'rate', row 6 \(value -1.0\): negative"),
+        (lambda d: d[d["inhibitor"] == 0], "only one inhibitor level"),
+        (lambda d: d.assign(rate=0.0), "all rates are zero"),
+        (lambda d: d.iloc[:4], "4 points"),
+    ],
+    ids=["missing", "text", "nan", "inf", "negative-conc", "negative-rate", "one-level",
+         "all-zero", "too-few"],
+)
+def test_bad_input_names_column_row_value(edit, pattern):
+    data = _simulate("competitive", cv=0.05, seed=1)
+    with pytest.raises(ik.DataError, match=pattern):
+        ik.fit_mechanisms(edit(data))
+
+
+def test_every_problem_is_listed_not_only_the_first():
+    data = _simulate("competitive", cv=0.05, seed=1)
+    data.loc[2, "rate"] = np.nan
+    data.loc[3, "substrate"] = -1
+    with pytest.raises(ik.DataError) as info:
+        ik.fit_mechanisms(data)
+    assert len(info.value.problems) == 2
+    assert "2 problems" in str(info.value)
+
+
+def test_replicates_are_kept_as_points():
+    data = _simulate("competitive", cv=0.05, seed=1, replicates=3)
+    fit = ik.fit_mechanisms(data, intervals="wald")
+    assert fit.models["competitive"].n_obs == len(data) == 8 * 6 * 3
+    assert isinstance(fit.data, pd.DataFrame)
