@@ -211,7 +211,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     --------
     >>> import inhibkin as ik
     >>> data = ik.simulate_grid("competitive", vmax=10, km=2, kic=0.5, cv=0.02, seed=1)
-    >>> ik.fit_mechanisms(data).verdict
+    >>> ik.fit_mechanisms(data, weighting="relative").verdict
     'competitive'
     """
     if weighting not in WEIGHTINGS:
