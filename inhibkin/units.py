@@ -149,7 +149,8 @@ def resolve_units(columns, names, *, units=None, context=None):
         The headers of the table (e.g. ``df.columns``).
     names : iterable of str
         Base names of the concentration columns to resolve, e.g.
-        ``["substrate", "inhibitor"]``.
+        ``["substrate", "inhibitor"]`` (a full header such as ``"inhibitor_nM"`` is
+        taken as it stands).
     units : dict, optional
         Units declared as an option, ``{base name: unit}``. The column is then the plain
         header (``"inhibitor"``) or a header that carries the same unit; a header that
@@ -173,6 +174,11 @@ def resolve_units(columns, names, *, units=None, context=None):
     problems = []
     found = {}
     for name in names:
+        own_unit = split_unit(name)[1]
+        if own_unit and name in columns and name not in units:
+            # The caller named the full header, unit included ("inhibitor_nM").
+            found[name] = (name, normalise_unit(own_unit))
+            continue
         with_unit = [c for c in columns if split_unit(c)[0] == name and split_unit(c)[1]]
         plain = name in columns
         declared = units.get(name)

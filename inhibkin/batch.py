@@ -1,0 +1,601 @@
+"""Campaigns: many compounds fitted in isolation, on one core, many, or a Dask cluster.
+
+:func:`fit_campaign` splits a tidy table by compound, fits each compound on its own
+(one bad compound never stops the others), and gathers one ranked table with one row
+per input compound. The work travels in chunks of ``chunk_size`` compounds, so the
+same code runs serially, on local processes (``workers=N``) or on a
+``dask.distributed`` cluster (``client=``) and gives the same table, row for row: the
+per-compound computation is identical and the results are put back in input order
+before ranking.
+
+Ranking
+-------
+``status`` is one of
+
+``determined``
+    the inhibition constant is determined within the tested range; ranked by pKi,
+    most potent first;
+``bound``
+    the constant lies beyond what the data can set; reported as "Ki > x"
+    (``ki_low_M`` = x, ``ki_M`` and ``pki`` empty), ranked after every determined
+    value by that lower limit;
+``inactive``
+    no inhibition detected (the verdict is ``none``);
+``failed``
+    the data could not be used or the fit gave no answer; ``reason`` says why.
+
+Bounds and failures never appear as numbers in ``ki_M`` or ``pki``. For the mixed
+mechanism the reported Ki is the tighter (smaller) of kic and kiu, and
+``ki_parameter`` says which.
+
+Intervals
+---------
+Campaign fits use log-scale Wald intervals (``intervals="wald"``) by default: about
+ten times faster than profile-likelihood intervals, and close to them when a constant
+is well determined. Ask for ``intervals="profile"`` when the intervals themselves are
+the result.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+import multiprocessing
+import sys
+import time
+import warnings
+from collections.abc import Callable, Mapping
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import dataclass, field
+from types import MappingProxyType
+
+import numpy as np
+import pandas as pd
+
+from .errors import DataError, InhibkinError, Problem
+from .mechanism import MechanismFit, fit_mechanisms
+from .simulate import simulate_grid
+from .units import from_molar, resolve_units, to_molar
+from .validate import check_columns, check_grid
+
+__all__ = [
+    "Campaign",
+    "fit_campaign",
+    "fit_grid_compound",
+    "simulate_campaign",
+    "RANKING_COLUMNS",
+    "STATUSES",
+    "LE_KCAL_PER_PKI",
+]
+
+STATUSES = ("determined", "bound", "inactive", "failed")
+
+# Ligand efficiency LE = 1.37 * pKi / heavy atoms, in kcal/mol per heavy atom: 1.37 is
+# 2.303·R·T at 298 K in kcal/mol (Hopkins, Groom & Alex 2004, Drug Discov. Today 9:430).
+LE_KCAL_PER_PKI = 1.37
+
+RANKING_COLUMNS = (
+    "rank", "compound", "status", "verdict", "mechanism", "ki_parameter", "ki_M", "ki_low_M",
+    "ki_high_M", "pki", "pki_low", "pki_high", "ki_reported", "kic_M", "kiu_M", "alpha",
+    "ic50_M", "ic50_low_M", "ic50_high_M", "pic50", "hill", "ki_source", "flags", "reason",
+)
+_EFFICIENCY_COLUMNS = ("heavy_atoms", "logp", "le", "lipe")
+
+# A chunk closes at this many compounds (the ``chunk_size`` default) or this many rows,
+# whichever comes first, so no single task carries a large slice of the table.
+_DEFAULT_CHUNK_SIZE = 32
+_MAX_ROWS_PER_CHUNK = 50_000
+# Rows shown by Campaign.summary() and _repr_html_().
+_SUMMARY_ROWS = 10
+# The constant that ranks a compound, by mechanism (mixed: the tighter of two).
+_RANKING_CONSTANT = {"competitive": ("kic",), "uncompetitive": ("kiu",),
+                     "noncompetitive": ("ki",), "mixed": ("kic", "kiu")}
+
+
+@dataclass(frozen=True)
+class _GridSettings:
+    """Everything a worker needs to fit one compound's grid (picklable)."""
+
+    engine: Callable
+    substrate: str
+    inhibitor: str
+    rate: str
+    sd: str | None
+    substrate_unit: str
+    inhibitor_unit: str
+    fit_options: tuple
+
+
+def fit_grid_compound(frame, settings: _GridSettings, *, context=None) -> MechanismFit:
+    """Validate one compound's rows, convert concentrations to molar, call the engine.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        The compound's rows, columns as named in ``settings``.
+    settings : _GridSettings
+        Column names, declared units, the engine and its options.
+    context : str, optional
+        The compound, for error messages.
+
+    Returns
+    -------
+    MechanismFit
+        With substrate and inhibitor in M, so every constant is in M.
+    """
+    s, i, v, sigma = check_grid(frame, substrate=settings.substrate,
+                                inhibitor=settings.inhibitor, rate=settings.rate,
+                                sd=settings.sd, context=context)
+    data = pd.DataFrame({"substrate": to_molar(s, settings.substrate_unit),
+                         "inhibitor": to_molar(i, settings.inhibitor_unit), "rate": v},
+                        index=frame.index)
+    options = dict(settings.fit_options)
+    if sigma is not None:
+        data["sd"] = sigma
+        options["sd"] = "sd"
+    return settings.engine(data, substrate="substrate", inhibitor="inhibitor", rate="rate",
+                           context=context, **options)
+
+
+def _empty_row(compound) -> dict:
+    row = dict.fromkeys(RANKING_COLUMNS, np.nan)
+    row.update(compound=compound, rank=pd.NA, verdict="", mechanism="", ki_parameter="",
+               ki_reported="", ki_source="", flags="", reason="")
+    return row
+
+
+def _failed_row(compound, reason, flags="") -> dict:
+    row = _empty_row(compound)
+    row.update(status="failed", verdict="failed", reason=reason, flags=flags)
+    return row
+
+
+def _pick_constant(constants: pd.DataFrame, mechanism: str) -> str:
+    """The parameter whose value ranks the compound (see the module docstring)."""
+    names = [n for n in _RANKING_CONSTANT[mechanism] if n in constants.index]
+    determined = [n for n in names if bool(constants.loc[n, "determined"])]
+    if determined:
+        return min(determined, key=lambda n: constants.loc[n, "estimate"])
+    # None set: the weakest claim ("Ki > smallest lower limit") holds for every one.
+    return min(names, key=lambda n: np.nan_to_num(constants.loc[n, "ci_low"], nan=np.inf))
+
+
+def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
+    """One ranking row from one compound's mechanism fit (constants in M)."""
+    flags = list(caught)
+    flags += [f"{name} fit did not converge" for name, m in fit.models.items()
+              if not m.converged]
+    row = _empty_row(compound)
+    row.update(verdict=fit.verdict, reason=fit.reason, ki_source="grid fit")
+    if fit.verdict == "failed":
+        row.update(status="failed", verdict="failed", flags="; ".join(flags))
+        return row
+    if fit.verdict == "none" or fit.best == "none":
+        i_max = float(fit.data["inhibitor"].max())
+        row.update(status="inactive", mechanism="none",
+                   ki_reported=f"no inhibition detected up to {i_max:.3g} M")
+        row["flags"] = "; ".join(flags)
+        return row
+    if fit.verdict == "ambiguous":
+        flags.append(f"mechanism ambiguous between {', '.join(fit.candidates)}; "
+                     f"constants from {fit.best} (lowest AICc)")
+    constants = fit.constants()
+    mechanism = fit.best
+    chosen = _pick_constant(constants, mechanism)
+    # noncompetitive has one constant, ki = kic = kiu.
+    for column, names in (("kic_M", ("kic", "ki")), ("kiu_M", ("kiu", "ki"))):
+        for name in names:
+            if name not in constants.index:
+                continue
+            if bool(constants.loc[name, "determined"]):
+                row[column] = float(constants.loc[name, "estimate"])
+            else:
+                flags.append(f"{name} not determined within the tested range")
+    if "alpha" in constants.index and bool(constants.loc["alpha", "determined"]):
+        row["alpha"] = float(constants.loc["alpha", "estimate"])
+    estimate, low, high, determined = constants.loc[
+        chosen, ["estimate", "ci_low", "ci_high", "determined"]]
+    row.update(mechanism=mechanism, ki_parameter=chosen)
+    if bool(determined):
+        row.update(status="determined", ki_M=float(estimate), ki_low_M=float(low),
+                   ki_high_M=float(high), pki=-math.log10(estimate),
+                   pki_low=-math.log10(high), pki_high=-math.log10(low),
+                   ki_reported=f"{estimate:.3g} M [{low:.3g}, {high:.3g}]")
+    elif np.isfinite(low) and low > 0:
+        row.update(status="bound", ki_low_M=float(low), ki_high_M=np.inf,
+                   pki_high=-math.log10(low), ki_reported=f"> {low:.3g} M")
+    else:
+        row.update(status="bound", ki_reported="not determined within the tested range")
+    row["flags"] = "; ".join(dict.fromkeys(flags))
+    return row
+
+
+def _fit_chunk(chunk, settings: _GridSettings, keep_fits: bool):
+    """Fit every compound of one chunk; each failure is caught and recorded.
+
+    Returns a list of (compound, row, fit or None) in the chunk's order.
+    """
+    out = []
+    for compound, frame in chunk:
+        context = f"compound {compound!r}"
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            try:
+                fit = fit_grid_compound(frame, settings, context=context)
+                row = _grid_row(compound, fit, [str(w.message) for w in caught])
+            except InhibkinError as err:
+                fit, row = None, _failed_row(compound, str(err))
+            except Exception as err:  # isolation: an unforeseen error fails one compound only
+                fit, row = None, _failed_row(
+                    compound, f"unexpected error ({type(err).__name__}): {err}")
+        out.append((compound, row, fit if keep_fits else None))
+    return out
+
+
+def _chunks(groups, chunk_size):
+    """Consecutive chunks of at most ``chunk_size`` compounds and about
+    ``_MAX_ROWS_PER_CHUNK`` rows."""
+    chunk, rows = [], 0
+    for compound, frame in groups:
+        if chunk and (len(chunk) >= chunk_size or rows + len(frame) > _MAX_ROWS_PER_CHUNK):
+            yield chunk
+            chunk, rows = [], 0
+        chunk.append((compound, frame))
+        rows += len(frame)
+    if chunk:
+        yield chunk
+
+
+def _progress(total, quiet):
+    from tqdm.auto import tqdm
+
+    silent = quiet or not (hasattr(sys.stderr, "isatty") and sys.stderr.isatty())
+    return tqdm(total=total, disable=silent, unit="compound", desc="fitting", leave=False)
+
+
+def _run(chunks, settings, keep_fits, *, workers, client, quiet, total):
+    """Run ``_fit_chunk`` on every chunk; the results in chunk order, whatever ran them."""
+    results = [None] * len(chunks)
+    with _progress(total, quiet) as bar:
+        if client is not None:
+            from distributed import as_completed as dask_completed
+
+            futures = {client.submit(_fit_chunk, chunk, settings, keep_fits, pure=False): k
+                       for k, chunk in enumerate(chunks)}
+            for future in dask_completed(futures):
+                k = futures[future]
+                results[k] = future.result()
+                bar.update(len(chunks[k]))
+        elif workers is not None and workers > 1:
+            # spawn: a fresh interpreter per worker, safe beside threads (dask, BLAS) and
+            # the same on Linux, macOS and Windows.
+            context = multiprocessing.get_context("spawn")
+            with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
+                futures = {pool.submit(_fit_chunk, chunk, settings, keep_fits): k
+                           for k, chunk in enumerate(chunks)}
+                for future in as_completed(futures):
+                    k = futures[future]
+                    results[k] = future.result()
+                    bar.update(len(chunks[k]))
+        else:
+            for k, chunk in enumerate(chunks):
+                results[k] = _fit_chunk(chunk, settings, keep_fits)
+                bar.update(len(chunk))
+    return [item for chunk_result in results for item in chunk_result]
+
+
+def _compound_properties(table, compound, columns):
+    """Per-compound heavy-atom count and logP; a compound with differing values gets NaN
+    and a flag."""
+    out = {}
+    for column in columns:
+        if column not in table.columns:
+            continue
+        values = pd.to_numeric(table[column], errors="coerce")
+        grouped = values.groupby(table[compound], sort=False)
+        first, n_unique = grouped.first(), grouped.nunique()
+        out[column] = (first.where(n_unique <= 1), n_unique[n_unique > 1].index)
+    return out
+
+
+def _add_efficiencies(ranking, properties, heavy_atoms, logp):
+    """LE and LipE from pKi (determined compounds only)."""
+    if heavy_atoms in properties:
+        values, clashes = properties[heavy_atoms]
+        ranking["heavy_atoms"] = ranking["compound"].map(values)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            le = LE_KCAL_PER_PKI * ranking["pki"] / ranking["heavy_atoms"]
+        ranking["le"] = le.where(ranking["heavy_atoms"] > 0)
+        _flag(ranking, clashes, f"{heavy_atoms} differs between rows; LE not computed")
+    if logp in properties:
+        values, clashes = properties[logp]
+        ranking["logp"] = ranking["compound"].map(values)
+        # LipE = pKi − logP (Leeson & Springthorpe 2007, Nat. Rev. Drug Discov. 6:881).
+        ranking["lipe"] = ranking["pki"] - ranking["logp"]
+        _flag(ranking, clashes, f"{logp} differs between rows; LipE not computed")
+
+
+def _flag(ranking, compounds, text):
+    hit = ranking["compound"].isin(list(compounds))
+    ranking.loc[hit, "flags"] = [f"{f}; {text}" if f else text for f in ranking.loc[hit, "flags"]]
+
+
+def _rank(rows) -> pd.DataFrame:
+    """Sort: determined by pKi (high first), then bounds by their limit, then inactive,
+    then failed; ties keep the input order."""
+    ranking = pd.DataFrame(rows, columns=list(RANKING_COLUMNS))
+    order = ranking["status"].map({s: k for k, s in enumerate(STATUSES)})
+    key = np.where(ranking["status"] == "determined", -ranking["pki"].astype(float),
+                   np.where(ranking["status"] == "bound", -ranking["pki_high"].astype(float),
+                            0.0))
+    key = np.nan_to_num(key, nan=np.inf)
+    position = np.lexsort((np.arange(len(ranking)), key, order.to_numpy()))
+    ranking = ranking.iloc[position].reset_index(drop=True)
+    determined = ranking["status"] == "determined"
+    ranking["rank"] = pd.array([pd.NA] * len(ranking), dtype="Int64")
+    ranking.loc[determined, "rank"] = np.arange(1, int(determined.sum()) + 1)
+    for column in ("ki_M", "ki_low_M", "ki_high_M", "pki", "pki_low", "pki_high", "kic_M",
+                   "kiu_M", "alpha", "ic50_M", "ic50_low_M", "ic50_high_M", "pic50", "hill"):
+        ranking[column] = ranking[column].astype(float)
+    return ranking
+
+
+@dataclass(frozen=True)
+class Campaign:
+    """Every compound of a campaign, fitted, and the ranked table.
+
+    Attributes
+    ----------
+    ranking : pandas.DataFrame
+        One row per input compound, ranked (see :mod:`inhibkin.batch`): rank, compound,
+        status, verdict, mechanism, ki_parameter, ki_M, ki_low_M, ki_high_M (interval at
+        ``level``), pki, pki_low, pki_high, ki_reported (text), kic_M, kiu_M, alpha,
+        ic50_M (and interval), pic50, hill, ki_source, flags, reason; plus heavy_atoms,
+        logp, le (kcal/mol per heavy atom) and lipe when those inputs were given.
+        Concentrations in M.
+    fits : Mapping
+        compound → :class:`~inhibkin.mechanism.MechanismFit` (constants in M) for every
+        compound that was fitted; failed compounds have no entry.
+    options : Mapping
+        The settings of the run (weighting, intervals, level, engine, units).
+    """
+
+    ranking: pd.DataFrame
+    fits: Mapping = field(repr=False)
+    options: Mapping = field(default_factory=dict)
+
+    @property
+    def counts(self) -> dict:
+        """Number of compounds per status."""
+        counts = self.ranking["status"].value_counts()
+        return {s: int(counts.get(s, 0)) for s in STATUSES}
+
+    @property
+    def failed(self) -> pd.DataFrame:
+        """The failed compounds with their reasons."""
+        return self.ranking.loc[self.ranking["status"] == "failed", ["compound", "reason"]]
+
+    def to_frame(self) -> pd.DataFrame:
+        """The ranked table (a copy)."""
+        return self.ranking.copy()
+
+    def parameters(self) -> pd.DataFrame:
+        """Tidy table of every model's parameters for every fitted compound (M)."""
+        frames = []
+        for compound, fit in self.fits.items():
+            frame = fit.to_frame()
+            frame.insert(0, "compound", compound)
+            frame.insert(1, "verdict", fit.verdict)
+            frames.append(frame)
+        if not frames:
+            return pd.DataFrame(columns=["compound", "verdict", "model", "is_best", "parameter",
+                                         "estimate", "se", "ci_low", "ci_high", "determined"])
+        return pd.concat(frames, ignore_index=True)
+
+    def _head(self):
+        counts = self.counts
+        parts = ", ".join(f"{n} {s}" for s, n in counts.items() if n)
+        return f"Campaign of {len(self.ranking)} compounds: {parts}"
+
+    def summary(self, rows=_SUMMARY_ROWS) -> str:
+        """Plain text: counts by status, the top of the ranking, every failure's reason."""
+        width = 78
+        shown = self.ranking.head(rows)[["rank", "compound", "status", "mechanism",
+                                         "ki_reported", "pki", "ki_source"]]
+        lines = ["=" * width, self._head(),
+                 f"({self.options.get('intervals', '')} intervals at "
+                 f"{100 * self.options.get('level', 0.95):g}%, "
+                 f"{self.options.get('weighting', '')} weighting)", "-" * width,
+                 shown.to_string(index=False, float_format=lambda x: f"{x:.2f}")]
+        failed = self.failed
+        if len(failed):
+            lines += ["-" * width, "Failed:"]
+            lines += [f"  {c}: {r}" for c, r in zip(failed["compound"], failed["reason"])]
+        lines.append("=" * width)
+        return "\n".join(lines)
+
+    def _repr_html_(self) -> str:
+        shown = self.ranking.head(_SUMMARY_ROWS)
+        return (f"<div><p><b>{html.escape(self._head())}</b></p>"
+                f"{shown.to_html(index=False, float_format='%.4g', escape=True)}"
+                f"<p>{max(len(self.ranking) - _SUMMARY_ROWS, 0)} more rows in "
+                f"<code>.ranking</code></p></div>")
+
+
+def _engine(engine):
+    if engine is None or engine == "lmfit":
+        return fit_mechanisms
+    if callable(engine):
+        return engine
+    raise DataError(f"engine must be 'lmfit' or a function like fit_mechanisms, got {engine!r}")
+
+
+def fit_campaign(table, *, compound="compound", substrate="substrate", inhibitor="inhibitor",
+                 rate="rate", sd=None, units=None, weighting="uniform", intervals="wald",
+                 level=0.95, alpha=0.05, min_delta_aicc=2.0, determination_factor=10.0,
+                 heavy_atoms="heavy_atoms", logp="logp", engine=None, workers=None,
+                 client=None, quiet=False, chunk_size=_DEFAULT_CHUNK_SIZE,
+                 keep_fits=True) -> Campaign:
+    """Fit every compound of a campaign and rank them by pKi.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Tidy substrate × inhibitor grids, one row per observed initial rate, with a
+        compound column. Concentration units must be declared, in the headers
+        (``substrate_uM``, ``inhibitor_nM``) or with ``units``.
+    compound, substrate, inhibitor, rate : str
+        Column names (substrate and inhibitor as base names, without the unit suffix,
+        or as full headers).
+    sd : str, optional
+        Column of standard deviations of the rates (used with ``weighting="sd"``).
+    units : dict, optional
+        Units declared as an option, e.g. ``{"substrate": "uM", "inhibitor": "nM"}``.
+    weighting : {"uniform", "relative", "sd"}
+        See :func:`~inhibkin.mechanism.fit_mechanisms`.
+    intervals : {"wald", "profile"}
+        Interval method; ``wald`` by default at campaign scale (see the module notes).
+    level, alpha, min_delta_aicc, determination_factor
+        Passed to the engine (see :func:`~inhibkin.mechanism.fit_mechanisms`).
+    heavy_atoms, logp : str
+        Optional columns (one value per compound) that add ligand efficiency
+        LE = 1.37·pKi / heavy atoms (kcal/mol per heavy atom) and LipE = pKi − logP.
+    engine : "lmfit" or callable, optional
+        The per-compound fitter; a function with the signature of
+        :func:`~inhibkin.mechanism.fit_mechanisms` returning a MechanismFit. It must be
+        importable by name (a module-level function) to run on workers.
+    workers : int, optional
+        Local worker processes; None or 1 runs in this process.
+    client : dask.distributed.Client, optional
+        Run the chunks on this cluster instead.
+    quiet : bool
+        No progress bar (it is also silent when stderr is not a terminal).
+    chunk_size : int
+        Compounds per task.
+    keep_fits : bool
+        Keep every MechanismFit in :attr:`Campaign.fits` (turn off at very large scale to
+        save memory; the ranking is the same).
+
+    Returns
+    -------
+    Campaign
+
+    Raises
+    ------
+    DataError
+        Only for problems of the whole table (not a DataFrame, a missing column, an
+        undeclared unit, rows without a compound); a problem of one compound's data
+        fails that compound in the ranking instead.
+
+    Examples
+    --------
+    >>> from inhibkin.batch import fit_campaign, simulate_campaign
+    >>> table, truth = simulate_campaign(5, seed=1)
+    >>> campaign = fit_campaign(table, quiet=True)
+    >>> len(campaign.ranking)
+    5
+    """
+    check_columns(table, [compound, rate])
+    if workers is not None and client is not None:
+        raise DataError("give workers= (local processes) or client= (Dask), not both")
+    if workers is not None and (not isinstance(workers, int) or workers < 1):
+        raise DataError(f"workers must be a positive integer, got {workers!r}")
+    if not isinstance(chunk_size, int) or chunk_size < 1:
+        raise DataError(f"chunk_size must be a positive integer, got {chunk_size!r}")
+    resolved = resolve_units(table.columns, [substrate, inhibitor], units=units)
+    (s_column, s_unit), (i_column, i_unit) = resolved[substrate], resolved[inhibitor]
+    unnamed = table[compound].isna().to_numpy()
+    if unnamed.any():
+        rows = table.index[unnamed]
+        raise DataError([Problem(compound, r, None, "row has no compound; fill it in or drop "
+                                                    "the row") for r in rows[:5]]
+                        + ([Problem(compound, None, None, f"and {len(rows) - 5} more rows")]
+                           if len(rows) > 5 else []))
+    fit_options = (("weighting", weighting), ("intervals", intervals), ("level", level),
+                   ("alpha", alpha), ("min_delta_aicc", min_delta_aicc),
+                   ("determination_factor", determination_factor))
+    settings = _GridSettings(_engine(engine), s_column, i_column, rate,
+                             sd if weighting == "sd" else None, s_unit, i_unit, fit_options)
+    groups = table.groupby(compound, sort=False)
+    chunks = list(_chunks(((key, frame) for key, frame in groups), chunk_size))
+    started = time.perf_counter()
+    results = _run(chunks, settings, keep_fits, workers=workers, client=client, quiet=quiet,
+                   total=groups.ngroups)
+    ranking = _rank([row for _, row, _ in results])
+    _add_efficiencies(ranking, _compound_properties(table, compound, (heavy_atoms, logp)),
+                      heavy_atoms, logp)
+    fits = MappingProxyType({c: f for c, _, f in results if f is not None})
+    options = MappingProxyType({
+        "weighting": weighting, "intervals": intervals, "level": level,
+        "engine": getattr(settings.engine, "__name__", repr(settings.engine)),
+        "units": {substrate: s_unit, inhibitor: i_unit},
+        "seconds": time.perf_counter() - started,
+    })
+    return Campaign(ranking, fits, options)
+
+
+def simulate_campaign(n_compounds, *, seed, cv=0.05, km_uM=20.0, vmax=100.0,
+                      pki_range=(5.0, 9.0),
+                      mechanisms=("competitive", "uncompetitive", "noncompetitive", "mixed"),
+                      design_error=0.5, n_substrate=6, n_inhibitor=5, replicates=2):
+    """A campaign of compounds of known mechanism and Ki against one enzyme.
+
+    Each compound gets a mechanism (cycled through ``mechanisms``), a pKi drawn
+    uniformly from ``pki_range``, and a grid whose inhibitor levels run from 0 to 4 ×
+    an *expected* Ki that is off from the true one by up to ``design_error`` log units
+    (the assay is planned from an earlier, rougher estimate, not from the truth).
+    Mixed inhibitors get alpha = kiu/kic of 10**±(0.5…1); their pKi is that of the
+    tighter constant.
+
+    Parameters
+    ----------
+    n_compounds : int
+    seed : int
+        Seed of ``numpy.random.default_rng``.
+    cv : float
+        Coefficient of variation of the proportional noise on the rates.
+    km_uM : float
+        Michaelis constant of the enzyme (µM).
+    vmax : float
+        Maximum rate (any rate unit).
+    pki_range : (float, float)
+    mechanisms : sequence of str
+    design_error : float
+        Largest log10 error of the expected Ki that sets each inhibitor range.
+    n_substrate, n_inhibitor, replicates : int
+        Grid size per compound.
+
+    Returns
+    -------
+    table : pandas.DataFrame
+        compound, substrate_uM, inhibitor_nM, rate.
+    truth : pandas.DataFrame
+        compound, mechanism, kic_M, kiu_M, ki_M, pki (the true values).
+    """
+    rng = np.random.default_rng(seed)
+    frames, truth = [], []
+    s_uM = km_uM * np.geomspace(0.2, 10.0, n_substrate)
+    width = len(str(n_compounds))
+    for k in range(n_compounds):
+        name = f"CPD-{k + 1:0{width}d}"
+        mechanism = mechanisms[k % len(mechanisms)]
+        pki = rng.uniform(*pki_range)
+        ki_nM = from_molar(10.0 ** -pki, "nM")
+        kic = kiu = ki_nM
+        if mechanism == "mixed":
+            ratio = 10.0 ** rng.uniform(0.5, 1.0)
+            if rng.random() < 0.5:
+                kiu = ki_nM * ratio
+            else:
+                kic = ki_nM * ratio
+        expected = ki_nM * 10.0 ** rng.uniform(-design_error, design_error)
+        i_nM = expected * np.linspace(0.0, 4.0, n_inhibitor)
+        grid = simulate_grid(mechanism, vmax=vmax, km=km_uM, kic=kic, kiu=kiu, s=s_uM, i=i_nM,
+                             replicates=replicates, cv=cv, seed=rng)
+        frames.append(pd.DataFrame({"compound": name, "substrate_uM": grid["substrate"],
+                                    "inhibitor_nM": grid["inhibitor"], "rate": grid["rate"]}))
+        truth.append({"compound": name, "mechanism": mechanism,
+                      "kic_M": to_molar(kic, "nM") if mechanism != "uncompetitive" else np.inf,
+                      "kiu_M": to_molar(kiu, "nM") if mechanism != "competitive" else np.inf,
+                      "ki_M": 10.0 ** -pki, "pki": pki})
+    return pd.concat(frames, ignore_index=True), pd.DataFrame(truth)
