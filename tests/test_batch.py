@@ -1,0 +1,236 @@
+"""Campaigns: every compound once, failures isolated, ranking by pKi, same result on any
+number of workers or on a Dask cluster, declared units."""
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+from inhibkin.batch import (
+    LE_KCAL_PER_PKI,
+    RANKING_COLUMNS,
+    STATUSES,
+    Campaign,
+    fit_campaign,
+    simulate_campaign,
+)
+from inhibkin.errors import DataError, UnitsError
+from inhibkin.mechanism import fit_mechanisms
+from inhibkin.simulate import simulate_grid
+
+CAMPAIGN_SEED = 20260501
+N_COMPOUNDS = 200
+CV = 0.05
+# The issue's acceptance level for the rank agreement of fitted and true pKi at 5 % CV.
+MIN_SPEARMAN = 0.95
+# Same data in two units: the fits differ only by rounding of the unit conversion.
+UNIT_RTOL = 1e-6
+
+
+def _grid(name, mechanism, *, ki_nM, i_max_nM, cv, seed, n_inhibitor=5):
+    s = 20.0 * np.geomspace(0.2, 10.0, 6)
+    i = np.linspace(0.0, i_max_nM, n_inhibitor)
+    data = simulate_grid(mechanism, vmax=100.0, km=20.0, kic=ki_nM, kiu=ki_nM, s=s, i=i,
+                         cv=cv, seed=seed)
+    return pd.DataFrame({"compound": name, "substrate_uM": data["substrate"],
+                         "inhibitor_nM": data["inhibitor"], "rate": data["rate"]})
+
+
+def _bad_compounds():
+    """NaN rates, a single inhibitor level, all-zero rates, text in a number column."""
+    nan = _grid("BAD-NAN", "competitive", ki_nM=50, i_max_nM=200, cv=CV, seed=1)
+    nan.loc[nan.index[[3, 7]], "rate"] = np.nan
+    one_level = _grid("BAD-ONE-LEVEL", "competitive", ki_nM=50, i_max_nM=200, cv=CV, seed=2)
+    one_level["inhibitor_nM"] = 100.0
+    zero = _grid("BAD-ZERO", "competitive", ki_nM=50, i_max_nM=200, cv=CV, seed=3)
+    zero["rate"] = 0.0
+    text = _grid("BAD-TEXT", "competitive", ki_nM=50, i_max_nM=200, cv=CV, seed=4)
+    text["substrate_uM"] = text["substrate_uM"].astype(object)
+    text.loc[text.index[5], "substrate_uM"] = "n/a"
+    return pd.concat([nan, one_level, zero, text], ignore_index=True)
+
+
+BAD_REASONS = {"BAD-NAN": "missing value", "BAD-ONE-LEVEL": "only one inhibitor level",
+               "BAD-ZERO": "all rates are zero", "BAD-TEXT": "not a number"}
+
+
+@pytest.fixture(scope="module")
+def campaign_200():
+    table, truth = simulate_campaign(N_COMPOUNDS, seed=CAMPAIGN_SEED, cv=CV)
+    bad = _bad_compounds()
+    # Bad compounds in the middle of the table, not at the end.
+    half = table["compound"].isin(truth["compound"][: N_COMPOUNDS // 2])
+    mixed_in = pd.concat([table[half], bad, table[~half]], ignore_index=True)
+    campaign = fit_campaign(mixed_in, weighting="relative", quiet=True)
+    return campaign, truth, mixed_in
+
+
+def test_every_compound_appears_exactly_once(campaign_200):
+    campaign, _, table = campaign_200
+    ranking = campaign.ranking
+    assert ranking["compound"].is_unique
+    assert set(ranking["compound"]) == set(table["compound"])
+    assert list(ranking.columns[: len(RANKING_COLUMNS)]) == list(RANKING_COLUMNS)
+    assert set(ranking["status"]) <= set(STATUSES)
+
+
+def test_bad_compounds_fail_with_their_reason(campaign_200):
+    ranking = campaign_200[0].ranking.set_index("compound")
+    for name, reason in BAD_REASONS.items():
+        assert ranking.loc[name, "status"] == "failed"
+        assert reason in ranking.loc[name, "reason"]
+        assert name in ranking.loc[name, "reason"]  # the message names the compound
+        assert np.isnan(ranking.loc[name, "pki"])
+    good = ranking.drop(index=list(BAD_REASONS))
+    assert (good["status"] != "failed").all()
+
+
+def test_fitted_pki_ranks_like_the_truth(campaign_200):
+    campaign, truth, _ = campaign_200
+    merged = campaign.ranking.merge(truth, on="compound", suffixes=("", "_true"))
+    determined = merged[merged["status"] == "determined"]
+    assert len(determined) >= 0.95 * N_COMPOUNDS
+    # Spearman's rank correlation (Spearman 1904, Am. J. Psychol. 15:72), computed by scipy.
+    rho = stats.spearmanr(determined["pki"], determined["pki_true"]).statistic
+    assert rho > MIN_SPEARMAN
+    # The true pKi lies inside the reported 95 % interval for most compounds.
+    covered = (determined["pki_low"] <= determined["pki_true"]) & (
+        determined["pki_true"] <= determined["pki_high"])
+    assert covered.mean() > 0.85
+
+
+def test_ranking_order_and_ranks(campaign_200):
+    ranking = campaign_200[0].ranking
+    order = ranking["status"].map({s: k for k, s in enumerate(STATUSES)})
+    assert order.is_monotonic_increasing
+    determined = ranking[ranking["status"] == "determined"]
+    assert determined["pki"].is_monotonic_decreasing
+    assert determined["rank"].tolist() == list(range(1, len(determined) + 1))
+    assert ranking.loc[ranking["status"] != "determined", "rank"].isna().all()
+
+
+def test_summary_and_html(campaign_200):
+    campaign = campaign_200[0]
+    assert isinstance(campaign, Campaign)
+    text = campaign.summary()
+    assert f"Campaign of {N_COMPOUNDS + len(BAD_REASONS)} compounds" in text
+    assert "BAD-ZERO: " in text
+    assert "<table" in campaign._repr_html_()
+    pd.testing.assert_frame_equal(campaign.to_frame(), campaign.ranking)
+    assert set(campaign.fits) == set(campaign.ranking["compound"]) - set(BAD_REASONS)
+
+
+def test_bounds_and_inactive_are_never_numbers():
+    table = pd.concat([
+        _grid("POTENT", "competitive", ki_nM=10, i_max_nM=40, cv=0.02, seed=5),
+        # Tested up to 1/16 of Ki: inhibition is seen, the constant lies past the tested range.
+        _grid("WEAK", "competitive", ki_nM=1000, i_max_nM=60, cv=0.01, seed=6),
+        _grid("INERT", "none", ki_nM=None, i_max_nM=40, cv=0.02, seed=7),
+    ], ignore_index=True)
+    ranking = fit_campaign(table, weighting="relative", quiet=True).ranking
+    assert ranking["compound"].tolist() == ["POTENT", "WEAK", "INERT"]
+    assert ranking["status"].tolist() == ["determined", "bound", "inactive"]
+    weak = ranking.iloc[1]
+    assert np.isnan(weak["ki_M"]) and np.isnan(weak["pki"])
+    assert weak["ki_reported"].startswith("> ") and weak["ki_low_M"] > 0
+    inert = ranking.iloc[2]
+    assert np.isnan(inert["ki_M"]) and inert["verdict"] == "none"
+
+
+def test_same_data_in_nM_and_uM_gives_the_same_ki_in_molar():
+    table, _ = simulate_campaign(6, seed=11)
+    in_uM = table.rename(columns={"inhibitor_nM": "inhibitor_uM"})
+    in_uM["inhibitor_uM"] = table["inhibitor_nM"] / 1000.0
+    declared = table.rename(columns={"inhibitor_nM": "inhibitor"})
+    a = fit_campaign(table, quiet=True).ranking
+    b = fit_campaign(in_uM, quiet=True).ranking
+    c = fit_campaign(declared, units={"inhibitor": "nM"}, quiet=True).ranking
+    assert a["compound"].tolist() == b["compound"].tolist() == c["compound"].tolist()
+    np.testing.assert_allclose(a["ki_M"], b["ki_M"], rtol=UNIT_RTOL)
+    np.testing.assert_allclose(a["ki_M"], c["ki_M"], rtol=UNIT_RTOL)
+    # And Ki in M is the Ki in the table's own unit times 1e-9 (a fit of the raw nM grid).
+    first = table[table["compound"] == a["compound"].iloc[0]]
+    raw = fit_mechanisms(first, substrate="substrate_uM", inhibitor="inhibitor_nM",
+                         intervals="wald")
+    raw_ki = raw.constants().loc[a["ki_parameter"].iloc[0], "estimate"]
+    assert a["ki_M"].iloc[0] == pytest.approx(raw_ki * 1e-9, rel=UNIT_RTOL)
+
+
+def test_undeclared_units_refuse_the_table():
+    table, _ = simulate_campaign(2, seed=3)
+    plain = table.rename(columns={"inhibitor_nM": "inhibitor", "substrate_uM": "substrate"})
+    with pytest.raises(UnitsError, match="unit not declared"):
+        fit_campaign(plain, quiet=True)
+
+
+def test_rows_without_compound_refuse_the_table():
+    table, _ = simulate_campaign(2, seed=3)
+    table.loc[4, "compound"] = None
+    with pytest.raises(DataError, match="row has no compound"):
+        fit_campaign(table, quiet=True)
+
+
+def test_bad_options_are_refused():
+    table, _ = simulate_campaign(2, seed=3)
+    with pytest.raises(DataError, match="not both"):
+        fit_campaign(table, workers=2, client=object(), quiet=True)
+    with pytest.raises(DataError, match="workers must be"):
+        fit_campaign(table, workers=0, quiet=True)
+
+
+def _flaky_engine(data, **options):
+    """An engine that breaks in an unforeseen way on one compound."""
+    if options["context"] == "compound 'CPD-2'":
+        raise ZeroDivisionError("boom")
+    return fit_mechanisms(data, **options)
+
+
+def test_any_engine_error_fails_only_its_compound():
+    table, _ = simulate_campaign(3, seed=3)
+    campaign = fit_campaign(table, engine=_flaky_engine, quiet=True)
+    ranking = campaign.ranking.set_index("compound")
+    assert ranking.loc["CPD-2", "status"] == "failed"
+    assert "ZeroDivisionError" in ranking.loc["CPD-2", "reason"]
+    assert (ranking.drop(index="CPD-2")["status"] == "determined").all()
+    assert campaign.options["engine"] == "_flaky_engine"
+
+
+def test_ligand_and_lipophilic_efficiency():
+    table, _ = simulate_campaign(4, seed=9)
+    heavy = {"CPD-1": 30, "CPD-2": 25, "CPD-3": 40, "CPD-4": 0}
+    logp = {"CPD-1": 2.5, "CPD-2": 4.0, "CPD-3": 1.0, "CPD-4": 3.0}
+    table["heavy_atoms"] = table["compound"].map(heavy)
+    table["logp"] = table["compound"].map(logp)
+    table.loc[table.index[table["compound"] == "CPD-3"][0], "logp"] = 1.5  # inconsistent
+    ranking = fit_campaign(table, quiet=True).ranking.set_index("compound")
+    # LE = 1.37 pKi / heavy atoms (Hopkins, Groom & Alex 2004, Drug Discov. Today 9:430);
+    # LipE = pKi − logP (Leeson & Springthorpe 2007, Nat. Rev. Drug Discov. 6:881).
+    for name in ("CPD-1", "CPD-2"):
+        row = ranking.loc[name]
+        assert row["le"] == pytest.approx(LE_KCAL_PER_PKI * row["pki"] / heavy[name])
+        assert row["lipe"] == pytest.approx(row["pki"] - logp[name])
+    assert np.isnan(ranking.loc["CPD-4", "le"])  # zero heavy atoms: no efficiency
+    assert np.isnan(ranking.loc["CPD-3", "lipe"])
+    assert "logp differs between rows" in ranking.loc["CPD-3", "flags"]
+
+
+def test_progress_bar_is_silent_off_a_terminal(capsys):
+    table, _ = simulate_campaign(2, seed=3)
+    fit_campaign(table, quiet=False)
+    captured = capsys.readouterr()
+    assert captured.out == "" and captured.err == ""
+
+
+def test_serial_processes_and_dask_give_identical_rankings():
+    distributed = pytest.importorskip("distributed")
+    table, _ = simulate_campaign(16, seed=21)
+    table = pd.concat([table, _bad_compounds()], ignore_index=True)
+    serial = fit_campaign(table, quiet=True, chunk_size=3)
+    local = fit_campaign(table, workers=2, quiet=True, chunk_size=3)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, host="127.0.0.1",
+                                  dashboard_address=None) as cluster, \
+            distributed.Client(cluster) as client:
+        remote = fit_campaign(table, client=client, quiet=True, chunk_size=3)
+    pd.testing.assert_frame_equal(serial.ranking, local.ranking, check_exact=True)
+    pd.testing.assert_frame_equal(serial.ranking, remote.ranking, check_exact=True)
+    assert len(serial.ranking) == 20

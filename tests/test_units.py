@@ -1,0 +1,104 @@
+"""Declared units: conversions, header parsing, and refusal of undeclared units."""
+
+import numpy as np
+import pytest
+
+from inhibkin.errors import UnitsError
+from inhibkin.units import (
+    CONCENTRATION_UNITS,
+    from_molar,
+    normalise_unit,
+    resolve_units,
+    split_unit,
+    to_molar,
+    to_seconds,
+)
+
+# SI prefixes milli 1e-3, micro 1e-6, nano 1e-9, pico 1e-12 (BIPM 2019, The International
+# System of Units, 9th edition, Table 7); 1 min = 60 s and 1 h = 3600 s (same, Table 8).
+SI_PREFIXES = {"M": 1.0, "mM": 1e-3, "uM": 1e-6, "µM": 1e-6, "μM": 1e-6, "nM": 1e-9,
+               "pM": 1e-12}
+EXACT = 1e-15
+
+
+@pytest.mark.parametrize("unit, factor", SI_PREFIXES.items())
+def test_to_molar_uses_si_prefixes(unit, factor):
+    assert to_molar(250.0, unit) == pytest.approx(250.0 * factor, rel=EXACT)
+    assert from_molar(to_molar(250.0, unit), unit) == pytest.approx(250.0, rel=EXACT)
+
+
+def test_every_declared_unit_is_tested():
+    assert set(CONCENTRATION_UNITS) == set(SI_PREFIXES)
+
+
+def test_arrays_convert_elementwise():
+    out = to_molar([1.0, 10.0, 100.0], "nM")
+    np.testing.assert_allclose(out, [1e-9, 1e-8, 1e-7], rtol=EXACT)
+
+
+@pytest.mark.parametrize("value, unit, seconds",
+                         [(2.0, "min", 120.0), (1.5, "h", 5400.0), (250.0, "ms", 0.25),
+                          (7.0, "s", 7.0)])
+def test_to_seconds(value, unit, seconds):
+    assert to_seconds(value, unit) == pytest.approx(seconds, rel=EXACT)
+
+
+@pytest.mark.parametrize("header, expected",
+                         [("inhibitor_nM", ("inhibitor", "nM")),
+                          ("substrate_uM", ("substrate", "uM")),
+                          ("substrate_µM", ("substrate", "µM")),
+                          ("substrate (mM)", ("substrate", "mM")),
+                          ("enzyme conc_pM", ("enzyme conc", "pM")),
+                          ("rate", ("rate", None)),
+                          ("compound_id", ("compound_id", None))])
+def test_split_unit(header, expected):
+    assert split_unit(header) == expected
+
+
+def test_split_unit_time():
+    assert split_unit("time_min", kind="time") == ("time", "min")
+    assert split_unit("time_min") == ("time_min", None)
+
+
+def test_both_micro_signs_are_one_unit():
+    assert normalise_unit("µM") == normalise_unit("μM") == normalise_unit("uM") == "uM"
+
+
+def test_unknown_unit_lists_the_known_ones():
+    with pytest.raises(UnitsError, match="unknown concentration unit.*nM"):
+        normalise_unit("ppm")
+
+
+def test_resolve_from_headers():
+    found = resolve_units(["compound", "substrate_uM", "inhibitor_nM", "rate"],
+                          ["substrate", "inhibitor"])
+    assert found == {"substrate": ("substrate_uM", "uM"), "inhibitor": ("inhibitor_nM", "nM")}
+
+
+def test_resolve_from_option_and_full_header():
+    found = resolve_units(["substrate", "inhibitor_nM"], ["substrate", "inhibitor_nM"],
+                          units={"substrate": "mM"})
+    assert found == {"substrate": ("substrate", "mM"), "inhibitor_nM": ("inhibitor_nM", "nM")}
+
+
+def test_undeclared_units_are_refused_with_how_to_declare():
+    with pytest.raises(UnitsError) as info:
+        resolve_units(["substrate", "inhibitor", "rate"], ["substrate", "inhibitor"])
+    # Every undeclared column is listed, not only the first.
+    assert [p.column for p in info.value.problems] == ["substrate", "inhibitor"]
+    assert "inhibitor_nM" in str(info.value) and "--units" in str(info.value)
+
+
+def test_option_contradicting_header_is_refused():
+    with pytest.raises(UnitsError, match="contradicts"):
+        resolve_units(["inhibitor_nM"], ["inhibitor"], units={"inhibitor": "uM"})
+
+
+def test_two_headers_for_one_concentration_are_refused():
+    with pytest.raises(UnitsError, match="several columns"):
+        resolve_units(["inhibitor_nM", "inhibitor_uM"], ["inhibitor"])
+
+
+def test_missing_column_is_named():
+    with pytest.raises(UnitsError, match="no column 'inhibitor'"):
+        resolve_units(["substrate_uM"], ["inhibitor"])
