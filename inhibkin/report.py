@@ -1,0 +1,447 @@
+"""The campaign report: one self-contained HTML file, and the notebook display of results.
+
+:func:`report` writes a single HTML file that opens anywhere, offline: figures are
+embedded as base64 PNG, the style sheet and the few lines of JavaScript that sort the
+tables are inline, and the file holds no external address at all. The page is
+rendered by Jinja2 with autoescaping on, so a compound ID such as
+``<script>alert(1)</script>`` is shown as text, never run.
+
+:func:`fit_html`, :func:`dose_response_html` and :func:`campaign_html` are the compact
+notebook views (verdict, tables, one small figure) behind the ``_repr_html_`` of
+:class:`~inhibkin.mechanism.MechanismFit`, potency fits and
+:class:`~inhibkin.batch.Campaign`.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+import math
+import os
+import tempfile
+from collections.abc import Mapping
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from jinja2 import Environment, PackageLoader, select_autoescape
+
+from . import figures
+from .errors import DataError
+from .fitting import format_estimate
+from .units import from_molar
+
+__all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
+           "CAUTIONS"]
+
+#: The cautions printed in every report (the README's, in short).
+CAUTIONS = (
+    "Results are statistical estimates for research triage only: a mechanism call or a Ki "
+    "is a hypothesis about the data it was fitted to, not a fact about the compound.",
+    "Confirm decisions with orthogonal assays (a different readout, a biophysical binding "
+    "measurement, a second lot of enzyme).",
+    "Not for clinical use or for choosing doses.",
+    "Laboratory work that produces the data follows your local safety rules and licensed "
+    "practice.",
+)
+
+# Resolution of the embedded figures (dots per inch): enough to read, small files.
+_REPORT_DPI = 72
+_NOTEBOOK_DPI = 60
+# Dose-response figures drawn in the report (the most potent first); the table lists all.
+_MAX_POTENCY_FIGURES = 24
+
+_ENV = Environment(loader=PackageLoader("inhibkin", "templates"),
+                   autoescape=select_autoescape(default=True, default_for_string=True),
+                   trim_blocks=True, lstrip_blocks=True)
+
+
+# ---------------------------------------------------------------- small helpers
+
+
+def _png(fig, dpi=_REPORT_DPI) -> str:
+    """A figure as a base64 PNG data URI (no metadata: it would carry a web address)."""
+    buffer = io.BytesIO()
+    fig.savefig(buffer, format="png", dpi=dpi, metadata={"Software": None})
+    return "data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
+def _num(x, fmt="{:.3g}") -> str:
+    if x is None or (isinstance(x, float) and not math.isfinite(x)) or pd.isna(x):
+        return ""
+    return fmt.format(float(x))
+
+
+def _sort_key(x) -> str:
+    """The value a table cell sorts by (numbers as numbers, empty cells last)."""
+    if x is None or (not isinstance(x, str) and pd.isna(x)):
+        return ""
+    if isinstance(x, (bool, np.bool_)):
+        return str(bool(x))
+    if isinstance(x, (int, float, np.integer, np.floating)):
+        return repr(float(x)) if math.isfinite(float(x)) else ""
+    return str(x)
+
+
+def _cell(text, sort=None) -> dict:
+    return {"text": "" if text is None else str(text),
+            "sort": _sort_key(text if sort is None else sort)}
+
+
+def _table(frame: pd.DataFrame, *, index=True, fmt="{:.4g}") -> dict:
+    """A DataFrame as header + rows of cells for the template (numbers formatted)."""
+    columns = ([frame.index.name or ""] if index else []) + [str(c) for c in frame.columns]
+    rows = []
+    for label, row in frame.iterrows():
+        cells = [_cell(label)] if index else []
+        for value in row:
+            if isinstance(value, (float, np.floating)):
+                cells.append(_cell(_num(value, fmt), value))
+            else:
+                cells.append(_cell(value))
+        rows.append(cells)
+    return {"columns": columns, "rows": rows}
+
+
+def _parameter_table(model_fit) -> dict:
+    """Estimate as read (a number, or a bound), standard error and interval."""
+    pct = f"{100 * model_fit.level:g}%"
+    rows = []
+    for name, row in model_fit.params.iterrows():
+        rows.append([_cell(name), _cell(format_estimate(row), row["estimate"]),
+                     _cell(_num(row["se"]), row["se"]),
+                     _cell(f"[{_num(row['ci_low'])}, {_num(row['ci_high'])}]", row["ci_low"]),
+                     _cell("yes" if row["determined"] else "no")])
+    return {"columns": ["parameter", "estimate", "SE", f"{pct} interval "
+                        f"({model_fit.interval_method})", "determined"], "rows": rows}
+
+
+def _units_of(campaign, rate_unit, display) -> figures.AxisUnits:
+    """Axis units of a campaign's fits (stored in M; shown in the declared units)."""
+    declared = dict(getattr(campaign, "options", {}).get("units", {}) or {})
+    substrate = display.get("substrate") or declared.get("substrate") or "uM"
+    inhibitor = display.get("inhibitor") or declared.get("inhibitor") or "nM"
+    return figures.AxisUnits.from_molar(substrate=substrate, inhibitor=inhibitor,
+                                        rate=rate_unit)
+
+
+# ---------------------------------------------------------------- sections
+
+
+def _mechanism_section(anchor, compound, fit, row, units, dpi) -> dict:
+    section = {"anchor": anchor, "compound": str(compound), "row": row, "fit": None}
+    if fit is None:
+        return section
+    best = fit.best_fit
+    overview = figures.plot_mechanism_overview(fit, units=units)
+    residuals = figures.plot_residual_grid(fit, units=units)
+    diagnostics = figures.plot_diagnostics(fit, units=units)
+    comparison = fit.comparison.copy()
+    comparison["converged"] = comparison["converged"].map({True: "yes", False: "no"})
+    section["fit"] = {
+        "verdict": fit.verdict, "reason": fit.reason, "best": fit.best,
+        "candidates": ", ".join(fit.candidates), "weighting": fit.weighting,
+        "alpha": fit.options.alpha, "min_delta_aicc": fit.options.min_delta_aicc,
+        "comparison": _table(comparison),
+        "ftests": _table(fit.ftests, index=False),
+        "params": _parameter_table(best) if best is not None and best.converged else None,
+        "all_params": [{"model": name, "table": _parameter_table(m)}
+                       for name, m in fit.models.items() if m.converged and name != fit.best],
+        "overview": _png(overview, dpi), "residuals": _png(residuals, dpi),
+        "diagnostics": _png(diagnostics, dpi),
+        "units": units,
+    }
+    return section
+
+
+def _ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
+    factor = float(from_molar(1.0, ki_unit))
+    rows = []
+    for _, r in ranking.iterrows():
+        status = r["status"]
+        if status == "determined" and np.isfinite(r["ki_M"]):
+            ki = (f"{_num(r['ki_M'] * factor)} [{_num(r['ki_low_M'] * factor)}, "
+                  f"{_num(r['ki_high_M'] * factor)}]")
+            ki_sort = r["ki_M"]
+        elif status == "bound" and np.isfinite(r["ki_low_M"]):
+            ki, ki_sort = f"> {_num(r['ki_low_M'] * factor)}", r["ki_low_M"]
+        else:
+            ki, ki_sort = r.get("ki_reported", "") or "", np.nan
+        pki = ""
+        if np.isfinite(r["pki"]):
+            pki = f"{r['pki']:.2f} [{r['pki_low']:.2f}, {r['pki_high']:.2f}]"
+        rows.append({
+            "anchor": anchors.get(r["compound"]),
+            "cells": [_cell(r["rank"] if not pd.isna(r["rank"]) else "", r["rank"]),
+                      _cell(r["compound"]), _cell(status), _cell(r["verdict"]),
+                      _cell(r["mechanism"]), _cell(ki, ki_sort), _cell(pki, r["pki"]),
+                      _cell(_num(r.get("pic50", np.nan), "{:.2f}"), r.get("pic50", np.nan)),
+                      _cell(r["flags"]), _cell(r["reason"])],
+            "status": status,
+        })
+    return rows
+
+
+def _potency_context(potency, conc_unit, max_figures, dpi) -> dict:
+    table = potency.table
+    rows = []
+    for _, r in table.iterrows():
+        ic50 = r["ic50_bound"] if isinstance(r["ic50_bound"], str) and r["ic50_bound"] else (
+            f"{_num(r['ic50'])} [{_num(r['ic50_low'])}, {_num(r['ic50_high'])}]"
+            if np.isfinite(r["ic50"]) else "")
+        ki = r["ki_bound"] if isinstance(r["ki_bound"], str) and r["ki_bound"] else (
+            f"{_num(r['ki'])} [{_num(r['ki_low'])}, {_num(r['ki_high'])}]"
+            if np.isfinite(r["ki"]) else "")
+        rows.append([_cell(r["compound"]), _cell(r["status"]), _cell(r["plate"]),
+                     _cell(ic50, r["ic50"]), _cell(_num(r["pic50"], "{:.2f}"), r["pic50"]),
+                     _cell(_num(r["hill"], "{:.2f}"), r["hill"]), _cell(ki, r["ki"]),
+                     _cell(_num(r["pki"], "{:.2f}"), r["pki"]), _cell(r["mechanism"]),
+                     _cell(r["ki_method"]), _cell(r["flags"]), _cell(r["reason"])])
+    unit = f" ({conc_unit})" if conc_unit else ""
+    columns = ["compound", "status", "plate", f"IC50{unit} [95% CI]", "pIC50", "Hill",
+               f"Ki{unit} [95% CI]", "pKi", "mechanism", "Ki method", "flags", "reason"]
+    fitted = table[table["status"] == "ok"].sort_values("pic50", ascending=False,
+                                                       na_position="last")
+    shown = [c for c in fitted["compound"] if c in potency.fits][:max_figures]
+    gallery = []
+    for compound in shown:
+        fig, axes = figures.new_figure(size=(3.4, 2.6))
+        figures.plot_dose_response(potency.fits[compound], conc_unit=conc_unit, ax=axes[0, 0])
+        gallery.append({"compound": str(compound), "png": _png(fig, dpi)})
+    plates = potency.plates.to_frame()
+    keep = [c for c in ("plate", "n_max", "mean_max", "sd_max", "n_min", "mean_min", "sd_min",
+                        "z_prime", "flagged", "problem") if c in plates.columns]
+    plates = plates[keep].copy()
+    plates["flagged"] = plates["flagged"].map({True: "yes", False: "no"})
+    return {"table": {"columns": columns, "rows": rows}, "gallery": gallery,
+            "n_total": len(table), "n_failed": int((table["status"] == "failed").sum()),
+            "plates": _table(plates, index=False, fmt="{:.3g}"),
+            "z_threshold": potency.plates.threshold,
+            "flagged_plates": [str(p) for p in potency.plates.flagged]}
+
+
+def _as_campaign(campaign):
+    """A Campaign, or a mapping of compound → MechanismFit wrapped as a small campaign."""
+    if hasattr(campaign, "ranking") and hasattr(campaign, "fits"):
+        return campaign.ranking, campaign.fits, dict(getattr(campaign, "options", {}))
+    if isinstance(campaign, Mapping):
+        rows = []
+        for compound, fit in campaign.items():
+            constants = fit.constants()
+            determined = constants[constants["determined"]] if len(constants) else constants
+            row = {"rank": pd.NA, "compound": compound, "verdict": fit.verdict,
+                   "mechanism": fit.best or "", "ki_M": np.nan, "ki_low_M": np.nan,
+                   "ki_high_M": np.nan, "pki": np.nan, "pki_low": np.nan, "pki_high": np.nan,
+                   "ki_reported": "", "flags": "", "reason": fit.reason}
+            row["status"] = ("failed" if fit.verdict == "failed" else
+                             "inactive" if fit.best == "none" else
+                             "determined" if len(determined) else "bound")
+            if len(determined):
+                ki = determined.sort_values("estimate").iloc[0]
+                row["ki_reported"] = (f"{format_estimate(ki)} [{_num(ki['ci_low'])}, "
+                                      f"{_num(ki['ci_high'])}] (fit units)")
+            rows.append(row)
+        return pd.DataFrame(rows), dict(campaign), {}
+    raise DataError(f"report() needs a Campaign (inhibkin.batch.fit_campaign) or a mapping of "
+                    f"compound to MechanismFit, got {type(campaign).__name__}")
+
+
+def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campaign report",
+                  rate_unit="", units=None, ki_unit="nM", potency_unit="",
+                  max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=_REPORT_DPI) -> str:
+    """The report as an HTML string (see :func:`report`)."""
+    ranking, fits, options = _as_campaign(campaign)
+    display = dict(units or {})
+    if hasattr(campaign, "ranking"):
+        axis_units = _units_of(campaign, rate_unit, display)
+    else:
+        axis_units = figures.AxisUnits(display.get("substrate", ""),
+                                       display.get("inhibitor", ""), rate_unit)
+    # Anchors are numbered, never built from compound IDs (which may hold any text).
+    anchors = {compound: f"compound-{k}" for k, compound in enumerate(ranking["compound"])}
+    sections = [_mechanism_section(anchors[c], c, fits.get(c), r, axis_units, dpi)
+                for c, r in zip(ranking["compound"], ranking.to_dict("records"))]
+    flagged = ranking[ranking["flags"].astype(str) != ""][["compound", "status", "flags"]]
+    failed = ranking[ranking["status"] == "failed"][["compound", "reason"]]
+    counts = ranking["status"].value_counts().to_dict()
+    from . import __version__
+
+    context = {
+        "title": title,
+        "generated": datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+        "version": __version__,
+        "cautions": CAUTIONS,
+        "notes": list(notes),
+        "counts": counts,
+        "n_compounds": len(ranking),
+        "options": {k: v for k, v in options.items() if k != "seconds"},
+        "ki_unit": ki_unit,
+        "ranking": _ranking_rows(ranking, anchors, ki_unit),
+        "ranking_columns": ["rank", "compound", "status", "verdict", "mechanism",
+                            f"Ki ({ki_unit}) [95% CI]", "pKi [95% CI]", "pIC50", "flags",
+                            "reason"],
+        "flagged": [{"compound": str(c), "anchor": anchors[c], "status": s, "flags": f}
+                    for c, s, f in flagged.itertuples(index=False)],
+        "failed": [{"compound": str(c), "anchor": anchors[c], "reason": r}
+                   for c, r in failed.itertuples(index=False)],
+        "sections": sections,
+        "potency": (_potency_context(potency, potency_unit, max_potency_figures, dpi)
+                    if potency is not None else None),
+        "rates": _rates_context(rates) if rates is not None else None,
+        "units": axis_units,
+        "param_units": ("concentrations in M, rates in the input's unit"
+                        if hasattr(campaign, "ranking") else "in the units of the fitted data"),
+    }
+    return _ENV.get_template("report.html").render(**context)
+
+
+def _rates_context(rates) -> dict:
+    """QC of the initial-rate stage: the flag counts of its table."""
+    table = getattr(rates, "table", rates)
+    flags = table["flags"].astype(str) if "flags" in table.columns else pd.Series([], dtype=str)
+    counts = {}
+    for text in flags:
+        for flag in filter(None, (f.strip() for f in text.replace(";", ",").split(","))):
+            counts[flag] = counts.get(flag, 0) + 1
+    return {"n_rows": len(table), "flag_counts": sorted(counts.items())}
+
+
+def _write_atomically(text: str, path: Path) -> None:
+    directory = path.parent if str(path.parent) else Path(".")
+    if not directory.is_dir():
+        raise DataError("the output directory does not exist", context=f"file {str(path)!r}")
+    descriptor, name = tempfile.mkstemp(dir=directory, prefix=f".{path.name}.", suffix=".tmp")
+    temporary = Path(name)
+    try:
+        with os.fdopen(descriptor, "w", encoding="utf-8") as handle:
+            handle.write(text)
+            handle.flush()
+            os.fsync(handle.fileno())
+        os.replace(temporary, path)
+    except BaseException:
+        temporary.unlink(missing_ok=True)
+        raise
+
+
+def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaign report",
+           rate_unit="", units=None, ki_unit="nM", potency_unit="",
+           max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=_REPORT_DPI) -> Path:
+    """Write the campaign's report as one self-contained HTML file.
+
+    Parameters
+    ----------
+    campaign : Campaign or mapping of str to MechanismFit
+        From :func:`inhibkin.batch.fit_campaign` (constants in M), or a mapping of
+        compound to :class:`~inhibkin.mechanism.MechanismFit` (constants in the fit's
+        own units; ``units`` then labels the axes).
+    path : str or os.PathLike
+        The HTML file to write; written to a temporary file in the same directory and
+        renamed, so an interrupted run leaves no half-written report.
+    potency : PotencyTable, optional
+        The dose-response screen (:func:`inhibkin.potency.potency_table`): its table,
+        the Z'-factor of every plate, and the dose-response curves of the most potent
+        compounds.
+    rates : InitialRates or pandas.DataFrame, optional
+        The initial-rate table (:func:`inhibkin.rates.initial_rates`); its QC flags are
+        counted in the QC summary.
+    title : str
+    rate_unit : str
+        Unit label of the rates, e.g. ``"µM/min"``.
+    units : dict, optional
+        Display units of the axes, ``{"substrate": "uM", "inhibitor": "nM"}``; by
+        default the units the campaign declared.
+    ki_unit : str
+        Unit of Ki in the ranked table (pKi is always from molar).
+    potency_unit : str
+        Unit label of the dose-response concentrations.
+    max_potency_figures : int
+        Dose-response figures drawn (the most potent compounds); the table lists all.
+    notes : sequence of str
+        Extra paragraphs for the top of the report (e.g. "data invented for a demo").
+    dpi : int
+        Resolution of the embedded figures.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+
+    Raises
+    ------
+    DataError
+        When ``campaign`` is neither a Campaign nor a mapping of fits, or the output
+        directory does not exist.
+    """
+    path = Path(path)
+    text = render_report(campaign, potency=potency, rates=rates, title=title,
+                         rate_unit=rate_unit, units=units, ki_unit=ki_unit,
+                         potency_unit=potency_unit, max_potency_figures=max_potency_figures,
+                         notes=notes, dpi=dpi)
+    _write_atomically(text, path)
+    return path
+
+
+# ---------------------------------------------------------------- notebook display
+
+
+def fit_html(fit, *, units=None) -> str:
+    """Compact HTML of a :class:`~inhibkin.mechanism.MechanismFit` for a notebook.
+
+    Verdict and reason, the comparison table, the nested F-tests, the best model's
+    parameters with intervals, and one small figure (global fit, model support,
+    residuals). Every text is escaped.
+    """
+    best = fit.best_fit
+    overview = figures.plot_mechanism_overview(fit, units=units)
+    return _ENV.get_template("fit.html").render(
+        verdict=fit.verdict, reason=fit.reason, candidates=", ".join(fit.candidates),
+        weighting=fit.weighting, best=fit.best, comparison=_table(fit.comparison),
+        ftests=_table(fit.ftests, index=False),
+        params=_parameter_table(best) if best is not None and best.converged else None,
+        png=_png(overview, _NOTEBOOK_DPI))
+
+
+def dose_response_html(fit, *, conc_unit="") -> str:
+    """Compact HTML of a potency fit (:class:`~inhibkin.potency.DoseResponseFit`)."""
+    fig, axes = figures.new_figure(size=(3.6, 2.7))
+    figures.plot_dose_response(fit, conc_unit=conc_unit, ax=axes[0, 0])
+    params = fit.params.copy()
+    return _ENV.get_template("dose_response.html").render(
+        compound="" if fit.compound is None else str(fit.compound),
+        ic50=fit.reported_ic50, conc_unit=conc_unit, n_obs=fit.n_obs,
+        flags=list(fit.flags), params=_table(params), png=_png(fig, _NOTEBOOK_DPI))
+
+
+def campaign_html(campaign, *, rows=10, ki_unit="nM") -> str:
+    """Compact HTML of a :class:`~inhibkin.batch.Campaign`: counts and the top of the ranking,
+    with one small figure (pKi of the ranked compounds with their intervals)."""
+    ranking = campaign.ranking
+    anchors: dict = {}
+    fig, axes = figures.new_figure(size=(4.2, 2.6))
+    _plot_ranking(ranking.head(rows * 2), ax=axes[0, 0])
+    return _ENV.get_template("campaign.html").render(
+        n_compounds=len(ranking), counts=ranking["status"].value_counts().to_dict(),
+        columns=["rank", "compound", "status", "verdict", "mechanism",
+                 f"Ki ({ki_unit}) [95% CI]", "pKi [95% CI]", "pIC50", "flags", "reason"],
+        rows=_ranking_rows(ranking.head(rows), anchors, ki_unit),
+        more=max(len(ranking) - rows, 0), png=_png(fig, _NOTEBOOK_DPI))
+
+
+def _plot_ranking(ranking, *, ax):
+    """pKi with its interval for the determined compounds, bounds as arrows."""
+    shown = ranking[ranking["status"].isin(["determined", "bound"])]
+    y = np.arange(len(shown))
+    colour = figures.level_palette(3)[2]
+    for k, (_, r) in enumerate(shown.iterrows()):
+        if r["status"] == "determined":
+            ax.errorbar(r["pki"], k, xerr=[[r["pki"] - r["pki_low"]], [r["pki_high"] - r["pki"]]],
+                        marker="o", color=colour, capsize=2, markersize=4)
+        elif np.isfinite(r["pki_high"]):
+            ax.annotate("", xy=(r["pki_high"] - 0.5, k), xytext=(r["pki_high"], k),
+                        arrowprops=dict(arrowstyle="->", color="0.4"))
+    ax.set_yticks(y, [str(c) for c in shown["compound"]], fontsize=6)
+    ax.invert_yaxis()
+    ax.set_xlabel("pKi (95% interval; arrows: bound, Ki above)")
+    ax.set_title("Ranked compounds", fontsize=9)
+    return ax
