@@ -87,7 +87,7 @@ FLAGS = {
                         "defined",
     "partial_efficacy": "the curve levels off far from zero activity (bottom above 20 % of "
                         "top): partial inhibition",
-    "rising": "the response rises with concentration (hill < 0); IC50 is the midpoint",
+    "rising": "the fitted curve rises with concentration; IC50 is its midpoint",
     "not_converged": "the optimiser stopped before converging; read the estimates with care",
     "tight_binding": "IC50 within 10x of the enzyme concentration: Cheng–Prusoff is biased",
     "low_z_prime": "a plate of this compound has Z' below the threshold",
@@ -451,17 +451,21 @@ def _logistic_curve(x, y, w, fixed: dict, direction="any") -> _Curve:
                   upper)
 
 
-def _curve_flags(x, est, *, hill_range, min_points_each_side, partial_efficacy):
+def _curve_flags(x, est, *, direction, hill_range, min_points_each_side, partial_efficacy):
     """Flags and the IC50 bound text from the curve's shape and the design."""
     flags = []
     bound = None
     log_ic50, hill = est["log_ic50"], est["hill"]
+    falling = (est["top"] - est["bottom"]) * hill > 0
     # A falling curve must also halve the response without inhibitor (top) within the
     # tested range: a partial inhibitor whose midpoint is in range but which never
-    # removes half the activity has an IC50 above the top concentration.
-    halved = hill <= 0 or est["top"] <= 0 or (
-        logistic4(x.max(), **est) <= 0.5 * est["top"])
-    if log_ic50 > x.max() or not halved:
+    # removes half the activity has an IC50 above the top concentration. When only
+    # falling curves are allowed, a fit that rises is noise on an inactive compound.
+    if falling:
+        reached = est["top"] <= 0 or logistic4(x.max(), **est) <= 0.5 * est["top"]
+    else:
+        reached = direction != "falling"
+    if log_ic50 > x.max() or not reached:
         flags.append("ic50_above_range")
         bound = f"> {10 ** x.max():.3g}"
     elif log_ic50 < x.min():
@@ -476,7 +480,7 @@ def _curve_flags(x, est, *, hill_range, min_points_each_side, partial_efficacy):
         flags.append("few_points_below")
     if np.sum(levels > log_ic50) < min_points_each_side:
         flags.append("few_points_above")
-    if hill < 0:
+    if not falling:
         flags.append("rising")
     elif est["top"] > 0 and est["bottom"] > partial_efficacy * est["top"]:
         flags.append("partial_efficacy")
@@ -491,12 +495,20 @@ def _build_dose_response(curve: _Curve, phi, ssr, converged, message, *, conc, c
     se_free = (np.sqrt(np.clip(np.diag(covariance), 0, None)) if covariance is not None
                else np.full(k, np.nan))
     low_free, high_free = _intervals(curve, phi, ssr, se_free, method, level, dof)
+    # A Hill slope held to one sign has a real limit at 0, not an open interval.
+    h = int(np.sum(curve.free[:PARAM_NAMES.index("hill")]))
+    if curve.lower[3] == 0.0:
+        low_free[h] = max(low_free[h], 0.0)
+    if curve.upper[3] == 0.0:
+        high_free[h] = min(high_free[h], 0.0)
     theta = curve.full(phi)
     est = dict(zip(PARAM_NAMES, theta))
     se = np.full(4, np.nan)
     low, high = np.full(4, np.nan), np.full(4, np.nan)
     se[curve.free], low[curve.free], high[curve.free] = se_free, low_free, high_free
-    flags, bound = _curve_flags(curve.x, est, hill_range=hill_range,
+    direction = ("falling" if curve.lower[3] == 0.0 else
+                 "rising" if curve.upper[3] == 0.0 else "any")
+    flags, bound = _curve_flags(curve.x, est, direction=direction, hill_range=hill_range,
                                 min_points_each_side=min_points_each_side,
                                 partial_efficacy=partial_efficacy)
     if not converged:
@@ -1314,8 +1326,9 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
             row["reason"] = f"{_context(name)}: {error}" if _context(name) not in str(error) \
                 else str(error)
     table = pd.DataFrame([rows[n] for n in rows], columns=list(TABLE_COLUMNS))
-    table["reason"] = table["reason"].fillna("")
-    table["flags"] = table["flags"].fillna("")
+    text = ["reason", "ic50_bound", "ki_bound", "mechanism", "mechanism_source", "ki_method",
+            "flags"]
+    table[text] = table[text].fillna("")
     return PotencyTable(table.reset_index(drop=True), fits, qc, morrison_fits)
 
 

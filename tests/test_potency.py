@@ -476,3 +476,11 @@ def test_fitter_can_be_swapped_for_prefitted_estimates(rng):
     swapped = potency_table(df, km=1.0, intervals="wald", fitter=outside)
     cols = ["ic50", "ic50_low", "ic50_high", "ki", "hill", "flags"]
     pd.testing.assert_frame_equal(swapped.table[cols], reference.table[cols])
+
+
+def test_noise_on_an_inactive_compound_is_a_bound_when_only_falling_curves_are_allowed(rng):
+    conc = np.repeat(np.logspace(-2, 2, 9), 2)
+    y = 100 + rng.normal(0, 3, conc.size)
+    fit = fit_dose_response(conc, y, direction="falling")
+    assert fit.ic50_bound == "> 100" and np.isnan(fit.ic50)
+    assert fit.hill >= 0 and fit.params.loc["hill", "ci_low"] >= 0
