@@ -471,15 +471,18 @@ def _curve_flags(x, est, *, direction, hill_range, min_points_each_side, partial
     elif log_ic50 < x.min():
         flags.append("ic50_below_range")
         bound = f"< {10 ** x.min():.3g}"
-    if abs(hill) > hill_range[1]:
-        flags.append("steep_hill")
-    elif abs(hill) < hill_range[0]:
-        flags.append("shallow_hill")
-    levels = np.unique(x)
-    if np.sum(levels < log_ic50) < min_points_each_side:
-        flags.append("few_points_below")
-    if np.sum(levels > log_ic50) < min_points_each_side:
-        flags.append("few_points_above")
+    # With only a bound on IC50 the slope and the midpoint's neighbours describe an
+    # extrapolation (or noise on an inactive compound): those flags would mislead.
+    if bound is None:
+        if abs(hill) > hill_range[1]:
+            flags.append("steep_hill")
+        elif abs(hill) < hill_range[0]:
+            flags.append("shallow_hill")
+        levels = np.unique(x)
+        if np.sum(levels < log_ic50) < min_points_each_side:
+            flags.append("few_points_below")
+        if np.sum(levels > log_ic50) < min_points_each_side:
+            flags.append("few_points_above")
     if not falling:
         flags.append("rising")
     elif est["top"] > 0 and est["bottom"] > partial_efficacy * est["top"]:
