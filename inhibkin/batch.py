@@ -26,7 +26,10 @@ Ranking
 
 Bounds and failures never appear as numbers in ``ki_M`` or ``pki``. For the mixed
 mechanism the reported Ki is the tighter (smaller) of kic and kiu, and
-``ki_parameter`` says which.
+``ki_parameter`` says which. ``ki_source`` says where the Ki came from: ``grid fit``
+(global fit of a substrate × inhibitor grid) or ``converted IC50`` (a dose-response
+IC50 converted by :func:`~inhibkin.potency.potency_table`, Cheng–Prusoff by mechanism
+or a Morrison fit).
 
 Intervals
 ---------
@@ -41,6 +44,7 @@ from __future__ import annotations
 import html
 import math
 import multiprocessing
+import re
 import sys
 import time
 import warnings
@@ -52,10 +56,12 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, InhibkinError, Problem
+from .errors import DataError, InhibkinError, Problem, UnitsError
 from .mechanism import MechanismFit, fit_mechanisms
+from .plates import ROLES, plate_qc
+from .potency import CONVERSIONS, potency_table
 from .simulate import simulate_grid
-from .units import from_molar, resolve_units, to_molar
+from .units import CONCENTRATION_UNITS, from_molar, normalise_unit, resolve_units, to_molar
 from .validate import check_columns, check_grid
 
 __all__ = [
@@ -63,6 +69,7 @@ __all__ = [
     "fit_campaign",
     "fit_grid_compound",
     "simulate_campaign",
+    "parse_concentration",
     "RANKING_COLUMNS",
     "STATUSES",
     "LE_KCAL_PER_PKI",
@@ -253,34 +260,35 @@ def _progress(total, quiet):
     return tqdm(total=total, disable=silent, unit="compound", desc="fitting", leave=False)
 
 
-def _run(chunks, settings, keep_fits, *, workers, client, quiet, total):
-    """Run ``_fit_chunk`` on every chunk; the results in chunk order, whatever ran them."""
+def _run(function, chunks, arguments, *, workers, client, quiet, sizes):
+    """``function(chunk, *arguments)`` for every chunk, on whatever runs them; the results
+    in chunk order. ``sizes`` are the compounds per chunk, for the progress bar."""
     results = [None] * len(chunks)
-    with _progress(total, quiet) as bar:
+    with _progress(sum(sizes), quiet) as bar:
         if client is not None:
             from distributed import as_completed as dask_completed
 
-            futures = {client.submit(_fit_chunk, chunk, settings, keep_fits, pure=False): k
+            futures = {client.submit(function, chunk, *arguments, pure=False): k
                        for k, chunk in enumerate(chunks)}
             for future in dask_completed(futures):
                 k = futures[future]
                 results[k] = future.result()
-                bar.update(len(chunks[k]))
+                bar.update(sizes[k])
         elif workers is not None and workers > 1:
             # spawn: a fresh interpreter per worker, safe beside threads (dask, BLAS) and
             # the same on Linux, macOS and Windows.
             context = multiprocessing.get_context("spawn")
             with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
-                futures = {pool.submit(_fit_chunk, chunk, settings, keep_fits): k
+                futures = {pool.submit(function, chunk, *arguments): k
                            for k, chunk in enumerate(chunks)}
                 for future in as_completed(futures):
                     k = futures[future]
                     results[k] = future.result()
-                    bar.update(len(chunks[k]))
+                    bar.update(sizes[k])
         else:
             for k, chunk in enumerate(chunks):
-                results[k] = _fit_chunk(chunk, settings, keep_fits)
-                bar.update(len(chunk))
+                results[k] = function(chunk, *arguments)
+                bar.update(sizes[k])
     return [item for chunk_result in results for item in chunk_result]
 
 
@@ -321,15 +329,21 @@ def _flag(ranking, compounds, text):
 
 
 def _rank(rows) -> pd.DataFrame:
-    """Sort: determined by pKi (high first), then bounds by their limit, then inactive,
-    then failed; ties keep the input order."""
+    """Sort: determined by pKi (high first), then bounds — "Ki < x" (more potent than
+    the tested range) before "Ki > x", each by its limit — then inactive, then failed;
+    ties keep the input order."""
     ranking = pd.DataFrame(rows, columns=list(RANKING_COLUMNS))
-    order = ranking["status"].map({s: k for k, s in enumerate(STATUSES)})
-    key = np.where(ranking["status"] == "determined", -ranking["pki"].astype(float),
-                   np.where(ranking["status"] == "bound", -ranking["pki_high"].astype(float),
-                            0.0))
+    status = ranking["status"].to_numpy()
+    order = ranking["status"].map({s: k for k, s in enumerate(STATUSES)}).to_numpy()
+    pki = ranking["pki"].to_numpy(dtype=float)
+    upper = ranking["pki_high"].to_numpy(dtype=float)
+    lower = ranking["pki_low"].to_numpy(dtype=float)
+    below_range = (status == "bound") & np.isfinite(lower) & ~np.isfinite(upper)
+    side = np.where(below_range, 0, 1)
+    key = np.where(status == "determined", -pki,
+                   np.where(below_range, -lower, np.where(status == "bound", -upper, 0.0)))
     key = np.nan_to_num(key, nan=np.inf)
-    position = np.lexsort((np.arange(len(ranking)), key, order.to_numpy()))
+    position = np.lexsort((np.arange(len(ranking)), key, side, order))
     ranking = ranking.iloc[position].reset_index(drop=True)
     determined = ranking["status"] == "determined"
     ranking["rank"] = pd.array([pd.NA] * len(ranking), dtype="Int64")
@@ -355,14 +369,19 @@ class Campaign:
         Concentrations in M.
     fits : Mapping
         compound → :class:`~inhibkin.mechanism.MechanismFit` (constants in M) for every
-        compound that was fitted; failed compounds have no entry.
+        compound whose grid was fitted; compounds that failed validation have no entry.
     options : Mapping
-        The settings of the run (weighting, intervals, level, engine, units).
+        The settings of the run (weighting, intervals, level, engine, declared units,
+        seconds taken).
+    potency_fits : Mapping
+        compound → :class:`~inhibkin.potency.DoseResponseFit` (concentrations in M) for
+        every compound whose dose-response curve was fitted.
     """
 
     ranking: pd.DataFrame
     fits: Mapping = field(repr=False)
     options: Mapping = field(default_factory=dict)
+    potency_fits: Mapping = field(default_factory=dict, repr=False)
 
     @property
     def counts(self) -> dict:
@@ -430,9 +449,214 @@ def _engine(engine):
     raise DataError(f"engine must be 'lmfit' or a function like fit_mechanisms, got {engine!r}")
 
 
-def fit_campaign(table, *, compound="compound", substrate="substrate", inhibitor="inhibitor",
-                 rate="rate", sd=None, units=None, weighting="uniform", intervals="wald",
-                 level=0.95, alpha=0.05, min_delta_aicc=2.0, determination_factor=10.0,
+@dataclass(frozen=True)
+class _DoseSettings:
+    """Everything a worker needs to run potency_table on one chunk (picklable).
+
+    Concentration columns of the chunk are already in M.
+    """
+
+    compound: str
+    columns: tuple
+    km: object
+    enzyme: object
+    options: tuple
+
+
+def _molar_column(values: pd.Series, unit: str) -> pd.Series:
+    """Numbers converted to M; anything that is not a number kept as found, so the
+    validation downstream can name it."""
+    numeric = pd.to_numeric(values, errors="coerce")
+    if numeric.notna().sum() == values.notna().sum():
+        return numeric * CONCENTRATION_UNITS[unit]
+    return values.astype(object).where(numeric.isna(), numeric * CONCENTRATION_UNITS[unit])
+
+
+def _dose_chunk_fit(chunk, settings: _DoseSettings, mechanisms, keep_fits):
+    """potency_table on one chunk: the compounds' sample wells plus the control wells of
+    their plates. When the chunk as a whole is refused, each compound is run alone, so
+    the problem stays with the compound that caused it."""
+    frame, names = chunk
+    try:
+        outcome = [_dose_results(frame, names, settings, mechanisms, keep_fits)]
+    except InhibkinError:
+        outcome = []
+        by_compound = frame[settings.compound]
+        controls = frame[by_compound.isna() | ~by_compound.isin(names)]
+        for name in names:
+            alone = pd.concat([frame[by_compound == name], controls])
+            try:
+                outcome.append(_dose_results(alone, [name], settings, mechanisms, keep_fits))
+            except InhibkinError as err:
+                outcome.append([(name, {"status": "failed", "reason": str(err)}, None)])
+    return [item for part in outcome for item in part]
+
+
+def _dose_results(frame, names, settings, mechanisms, keep_fits):
+    columns = dict(settings.columns)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        result = potency_table(frame, compound=settings.compound, plate=columns["plate"],
+                               role=columns["role"], concentration=columns["inhibitor"],
+                               response=columns["response"], substrate=columns["substrate"],
+                               km=settings.km, enzyme=settings.enzyme,
+                               mechanisms={n: mechanisms[n] for n in names if n in mechanisms},
+                               **dict(settings.options))
+    extra = "; ".join(dict.fromkeys(str(w.message) for w in caught))
+    rows = result.table.set_index("compound", drop=False)
+    out = []
+    for name in names:
+        row = rows.loc[name].to_dict()
+        if extra:
+            row["flags"] = "; ".join(f for f in (row.get("flags", ""), extra) if f)
+        out.append((name, row, result.fits.get(name) if keep_fits else None))
+    return out
+
+
+def _bound(text):
+    """("<" or ">", value) of a potency bound such as "> 1.2e-05"."""
+    side, value = str(text).split(" ", 1)
+    return side, float(value)
+
+
+def _dose_row(compound, potency: dict) -> dict:
+    """A ranking row from one compound's potency row (concentrations in M)."""
+    row = _empty_row(compound)
+    row.update(ki_source="converted IC50", reason=potency.get("reason", ""),
+               mechanism=potency.get("mechanism", "") or "")
+    flags = [f.strip() for f in str(potency.get("flags", "") or "").replace(",", ";").split(";")
+             if f.strip()]
+    if potency.get("status") != "ok":
+        row.update(status="failed", verdict="failed", ki_source="", mechanism="",
+                   flags="; ".join(flags))
+        return row
+    for key, column in (("ic50", "ic50_M"), ("ic50_low", "ic50_low_M"),
+                        ("ic50_high", "ic50_high_M"), ("pic50", "pic50"), ("hill", "hill")):
+        row[column] = float(potency.get(key, np.nan))
+    if potency.get("mechanism_source") == "default":
+        flags.append(f"mechanism assumed ({row['mechanism']}) for the IC50 conversion")
+    if potency.get("ki_method") == "morrison":
+        flags.append("Ki from a Morrison tight-binding fit")
+    if potency.get("mechanism") == "mixed" and np.isfinite(potency.get("alpha", np.nan)):
+        row["alpha"] = float(potency["alpha"])
+    ki, bound = float(potency.get("ki", np.nan)), potency.get("ki_bound", "") or ""
+    if np.isfinite(ki) and ki > 0:
+        low, high = float(potency["ki_low"]), float(potency["ki_high"])
+        row.update(status="determined", ki_M=ki, ki_low_M=low, ki_high_M=high,
+                   pki=-math.log10(ki), pki_low=-math.log10(high) if high > 0 else np.nan,
+                   pki_high=-math.log10(low) if low > 0 else np.nan,
+                   ki_reported=f"{ki:.3g} M [{low:.3g}, {high:.3g}]")
+    elif bound:
+        side, value = _bound(bound)
+        row.update(status="bound", ki_reported=f"{side} {value:.3g} M")
+        if side == ">":
+            row.update(ki_low_M=value, ki_high_M=np.inf, pki_high=-math.log10(value))
+        else:
+            row.update(ki_low_M=0.0, ki_high_M=value, pki_low=-math.log10(value))
+    else:
+        row.update(status="failed", verdict="failed",
+                   reason=row["reason"] or "the IC50 could not be converted to a Ki")
+    row["flags"] = "; ".join(dict.fromkeys(flags))
+    return row
+
+
+def _merge(grid: dict, dose: dict) -> dict:
+    """One row for a compound with both a grid and a dose-response curve.
+
+    The grid fit gives Ki whenever it determined or bounded it; the curve adds IC50 and
+    Hill slope, and gives Ki only when the grid could not.
+    """
+    potency = {k: dose[k] for k in ("ic50_M", "ic50_low_M", "ic50_high_M", "pic50", "hill")}
+    if grid["status"] in ("determined", "bound"):
+        out = dict(grid, **potency)
+        if dose["status"] == "failed":
+            out["flags"] = "; ".join(f for f in (grid["flags"],
+                                                 f"dose-response failed: {dose['reason']}") if f)
+        return out
+    if dose["status"] == "failed":
+        out = dict(grid)
+        out["flags"] = "; ".join(f for f in (grid["flags"],
+                                             f"dose-response failed: {dose['reason']}") if f)
+        return out
+    out = dict(dose, verdict=grid["verdict"])
+    out["flags"] = "; ".join(f for f in (dose["flags"],
+                                         f"grid fit {grid['status']}: {grid['reason']}") if f)
+    return out
+
+
+def _dose_chunks(frame, compound, role, plate, chunk_size):
+    """Chunks of compounds (sample wells) with the control wells of their plates."""
+    samples = frame[frame[role] == "sample"]
+    controls = frame[frame[role] != "sample"]
+    controls_by_plate = {p: g for p, g in controls.groupby(plate, sort=False)}
+    groups = list(samples.groupby(compound, sort=False))
+    chunks, sizes = [], []
+    for k in range(0, len(groups), chunk_size):
+        part = groups[k:k + chunk_size]
+        names = [name for name, _ in part]
+        plates = pd.unique(pd.concat([g[plate] for _, g in part]))
+        pieces = [g for _, g in part] + [controls_by_plate[p] for p in plates
+                                         if p in controls_by_plate]
+        chunks.append((pd.concat(pieces), names))
+        sizes.append(len(names))
+    return chunks, sizes
+
+
+def _check_dose_table(frame, *, compound, plate, role, response, context):
+    """Problems of the whole dose-response table, found before it is split."""
+    roles = frame[role].to_numpy(dtype=object)
+    unknown = ~np.isin(roles, ROLES)
+    if unknown.any():
+        rows = frame.index[unknown]
+        raise DataError([Problem(role, r, roles[k], f"unknown role; use one of {ROLES}")
+                         for r, k in zip(rows[:5], np.flatnonzero(unknown)[:5])], context)
+    samples = frame[roles == "sample"]
+    if samples.empty:
+        raise DataError(Problem(role, None, "sample", "the table has no 'sample' wells"),
+                        context)
+    nameless = samples.index[samples[compound].isna().to_numpy()]
+    if len(nameless):
+        raise DataError([Problem(compound, r, None, "a 'sample' well has no compound")
+                         for r in nameless[:5]], context)
+    # The controls of every plate must be readable; a damaged plate fails its compounds.
+    plate_qc(frame[roles != "sample"], plate=plate, role=role, response=response,
+             strict=False)
+
+
+def _prepare_dose(dose_response, *, compound, inhibitor, substrate, plate, role, response,
+                  km, enzyme, units):
+    """Dose-response table with every concentration column in M, and the settings."""
+    context = "dose-response table"
+    check_columns(dose_response, [compound, plate, role, response], context)
+    names = [inhibitor, substrate] + [c for c in (km, enzyme) if isinstance(c, str)]
+    resolved = resolve_units(dose_response.columns, names, units=units, context=context)
+    frame = dose_response.copy()
+    for name in names:
+        column, unit = resolved[name]
+        frame[column] = _molar_column(frame[column], unit)
+    _check_dose_table(frame, compound=compound, plate=plate, role=role, response=response,
+                      context=context)
+    columns = (("plate", plate), ("role", role), ("response", response),
+               ("inhibitor", resolved[inhibitor][0]), ("substrate", resolved[substrate][0]))
+    km_spec = resolved[km][0] if isinstance(km, str) else km
+    enzyme_spec = resolved[enzyme][0] if isinstance(enzyme, str) else enzyme
+    return frame, columns, km_spec, enzyme_spec, {n: resolved[n][1] for n in names}
+
+
+def _grid_mechanism(row: dict):
+    """The mechanism (and alpha) a grid fit hands to the IC50 conversion, or None."""
+    if row["verdict"] not in CONVERSIONS:
+        return None
+    if row["verdict"] == "mixed":
+        return ("mixed", row["alpha"]) if np.isfinite(row["alpha"]) else None
+    return row["verdict"]
+
+
+def fit_campaign(table=None, *, dose_response=None, compound="compound",
+                 substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
+                 plate="plate", role="role", response="signal", km=None, enzyme=None,
+                 units=None, weighting="uniform", intervals="wald", level=0.95, alpha=0.05,
+                 min_delta_aicc=2.0, determination_factor=10.0, potency_options=None,
                  heavy_atoms="heavy_atoms", logp="logp", engine=None, workers=None,
                  client=None, quiet=False, chunk_size=_DEFAULT_CHUNK_SIZE,
                  keep_fits=True) -> Campaign:
@@ -440,32 +664,53 @@ def fit_campaign(table, *, compound="compound", substrate="substrate", inhibitor
 
     Parameters
     ----------
-    table : pandas.DataFrame
+    table : pandas.DataFrame, optional
         Tidy substrate × inhibitor grids, one row per observed initial rate, with a
         compound column. Concentration units must be declared, in the headers
         (``substrate_uM``, ``inhibitor_nM``) or with ``units``.
+    dose_response : pandas.DataFrame, optional
+        Tidy dose-response wells (see :func:`~inhibkin.potency.potency_table`): compound,
+        plate, role (``sample``/``max``/``min``), inhibitor concentration, signal and
+        the assay's substrate concentration, units declared as for ``table``. A compound
+        found in both tables takes its Ki from the grid fit (when the grid determined
+        or bounded it), its IC50 and Hill slope from the curve, and the grid's mechanism
+        for the IC50 → Ki conversion of any compound it decided.
     compound, substrate, inhibitor, rate : str
         Column names (substrate and inhibitor as base names, without the unit suffix,
-        or as full headers).
+        or as full headers); shared by both tables.
     sd : str, optional
         Column of standard deviations of the rates (used with ``weighting="sd"``).
+    plate, role, response : str
+        Columns of the dose-response table.
+    km : float or str
+        Michaelis constant for the IC50 → Ki conversion: a number in **M**, or the base
+        name of a column with a declared unit. Required with ``dose_response``.
+    enzyme : float or str, optional
+        Active enzyme concentration (a number in M, or a column with a declared unit);
+        enables the tight-binding flag.
     units : dict, optional
         Units declared as an option, e.g. ``{"substrate": "uM", "inhibitor": "nM"}``.
     weighting : {"uniform", "relative", "sd"}
         See :func:`~inhibkin.mechanism.fit_mechanisms`.
     intervals : {"wald", "profile"}
-        Interval method; ``wald`` by default at campaign scale (see the module notes).
+        Interval method of both the grid and the curve fits; ``wald`` by default at
+        campaign scale (see the module notes).
     level, alpha, min_delta_aicc, determination_factor
-        Passed to the engine (see :func:`~inhibkin.mechanism.fit_mechanisms`).
+        Passed to the grid engine (see :func:`~inhibkin.mechanism.fit_mechanisms`).
+    potency_options : dict, optional
+        Further options of :func:`~inhibkin.potency.potency_table` (e.g.
+        ``default_mechanism``, ``fix_top``, ``tight_binding``).
     heavy_atoms, logp : str
-        Optional columns (one value per compound) that add ligand efficiency
-        LE = 1.37·pKi / heavy atoms (kcal/mol per heavy atom) and LipE = pKi − logP.
+        Optional columns (one value per compound, in either table) that add ligand
+        efficiency LE = 1.37·pKi / heavy atoms (kcal/mol per heavy atom) and LipE =
+        pKi − logP.
     engine : "lmfit" or callable, optional
-        The per-compound fitter; a function with the signature of
+        The per-compound grid fitter; a function with the signature of
         :func:`~inhibkin.mechanism.fit_mechanisms` returning a MechanismFit. It must be
         importable by name (a module-level function) to run on workers.
     workers : int, optional
-        Local worker processes; None or 1 runs in this process.
+        Local worker processes; None or 1 runs in this process. Scripts that use
+        workers need the usual ``if __name__ == "__main__":`` guard.
     client : dask.distributed.Client, optional
         Run the chunks on this cluster instead.
     quiet : bool
@@ -473,8 +718,8 @@ def fit_campaign(table, *, compound="compound", substrate="substrate", inhibitor
     chunk_size : int
         Compounds per task.
     keep_fits : bool
-        Keep every MechanismFit in :attr:`Campaign.fits` (turn off at very large scale to
-        save memory; the ranking is the same).
+        Keep every fit in :attr:`Campaign.fits` and :attr:`Campaign.potency_fits` (turn
+        off at very large scale to save memory; the ranking is the same).
 
     Returns
     -------
@@ -483,9 +728,9 @@ def fit_campaign(table, *, compound="compound", substrate="substrate", inhibitor
     Raises
     ------
     DataError
-        Only for problems of the whole table (not a DataFrame, a missing column, an
-        undeclared unit, rows without a compound); a problem of one compound's data
-        fails that compound in the ranking instead.
+        Only for problems of a whole table (not a DataFrame, a missing column, an
+        undeclared unit, rows without a compound, unknown roles, unreadable controls);
+        a problem of one compound's data fails that compound in the ranking instead.
 
     Examples
     --------
@@ -495,43 +740,103 @@ def fit_campaign(table, *, compound="compound", substrate="substrate", inhibitor
     >>> len(campaign.ranking)
     5
     """
-    check_columns(table, [compound, rate])
+    if table is None and dose_response is None:
+        raise DataError("give a grid table, a dose_response table, or both")
     if workers is not None and client is not None:
         raise DataError("give workers= (local processes) or client= (Dask), not both")
     if workers is not None and (not isinstance(workers, int) or workers < 1):
         raise DataError(f"workers must be a positive integer, got {workers!r}")
     if not isinstance(chunk_size, int) or chunk_size < 1:
         raise DataError(f"chunk_size must be a positive integer, got {chunk_size!r}")
-    resolved = resolve_units(table.columns, [substrate, inhibitor], units=units)
-    (s_column, s_unit), (i_column, i_unit) = resolved[substrate], resolved[inhibitor]
-    unnamed = table[compound].isna().to_numpy()
-    if unnamed.any():
-        rows = table.index[unnamed]
-        raise DataError([Problem(compound, r, None, "row has no compound; fill it in or drop "
-                                                    "the row") for r in rows[:5]]
-                        + ([Problem(compound, None, None, f"and {len(rows) - 5} more rows")]
-                           if len(rows) > 5 else []))
-    fit_options = (("weighting", weighting), ("intervals", intervals), ("level", level),
-                   ("alpha", alpha), ("min_delta_aicc", min_delta_aicc),
-                   ("determination_factor", determination_factor))
-    settings = _GridSettings(_engine(engine), s_column, i_column, rate,
-                             sd if weighting == "sd" else None, s_unit, i_unit, fit_options)
-    groups = table.groupby(compound, sort=False)
-    chunks = list(_chunks(((key, frame) for key, frame in groups), chunk_size))
+    if dose_response is not None and km is None:
+        raise DataError("the dose-response table needs km= (a number in M, or a column) to "
+                        "convert IC50 to Ki")
     started = time.perf_counter()
-    results = _run(chunks, settings, keep_fits, workers=workers, client=client, quiet=quiet,
-                   total=groups.ngroups)
-    ranking = _rank([row for _, row, _ in results])
-    _add_efficiencies(ranking, _compound_properties(table, compound, (heavy_atoms, logp)),
-                      heavy_atoms, logp)
-    fits = MappingProxyType({c: f for c, _, f in results if f is not None})
-    options = MappingProxyType({
+    execution = dict(workers=workers, client=client, quiet=quiet)
+    declared, grid_rows, grid_fits = {}, {}, {}
+    if table is not None:
+        check_columns(table, [compound, rate], "grid table")
+        resolved = resolve_units(table.columns, [substrate, inhibitor], units=units,
+                                 context="grid table")
+        (s_column, s_unit), (i_column, i_unit) = resolved[substrate], resolved[inhibitor]
+        declared.update({f"grid {substrate}": s_unit, f"grid {inhibitor}": i_unit})
+        unnamed = table.index[table[compound].isna().to_numpy()]
+        if len(unnamed):
+            raise DataError([Problem(compound, r, None, "row has no compound; fill it in or "
+                                                        "drop the row") for r in unnamed[:5]]
+                            + ([Problem(compound, None, None, f"and {len(unnamed) - 5} more "
+                                                              "rows")]
+                               if len(unnamed) > 5 else []), "grid table")
+        fit_options = (("weighting", weighting), ("intervals", intervals), ("level", level),
+                       ("alpha", alpha), ("min_delta_aicc", min_delta_aicc),
+                       ("determination_factor", determination_factor))
+        settings = _GridSettings(_engine(engine), s_column, i_column, rate,
+                                 sd if weighting == "sd" else None, s_unit, i_unit,
+                                 fit_options)
+        chunks = list(_chunks(table.groupby(compound, sort=False), chunk_size))
+        for name, row, fit in _run(_fit_chunk, chunks, (settings, keep_fits),
+                                   sizes=[len(c) for c in chunks], **execution):
+            grid_rows[name] = row
+            if fit is not None:
+                grid_fits[name] = fit
+    dose_rows, potency_fits = {}, {}
+    if dose_response is not None:
+        if isinstance(km, (int, float)) and not isinstance(km, bool):
+            km = float(km)
+        frame, columns, km_spec, enzyme_spec, dose_units = _prepare_dose(
+            dose_response, compound=compound, inhibitor=inhibitor, substrate=substrate,
+            plate=plate, role=role, response=response, km=km, enzyme=enzyme, units=units)
+        declared.update({f"dose-response {k}": v for k, v in dose_units.items()})
+        options = dict(potency_options or {})
+        options.update(intervals=intervals, level=level)
+        dose_settings = _DoseSettings(compound, columns, km_spec, enzyme_spec,
+                                      tuple(sorted(options.items())))
+        mechanisms = {n: m for n, r in grid_rows.items()
+                      if (m := _grid_mechanism(r)) is not None}
+        chunks, sizes = _dose_chunks(frame, compound, role, plate, chunk_size)
+        for name, potency, fit in _run(_dose_chunk_fit, chunks,
+                                       (dose_settings, mechanisms, keep_fits), sizes=sizes,
+                                       **execution):
+            dose_rows[name] = _dose_row(name, potency)
+            if fit is not None:
+                potency_fits[name] = fit
+    rows = [(_merge(row, dose_rows[n]) if n in dose_rows else row)
+            for n, row in grid_rows.items()]
+    rows += [row for n, row in dose_rows.items() if n not in grid_rows]
+    ranking = _rank(rows)
+    properties = {}
+    for source in (table, dose_response):
+        if source is not None:
+            for key, value in _compound_properties(source, compound,
+                                                   (heavy_atoms, logp)).items():
+                properties.setdefault(key, value)
+    _add_efficiencies(ranking, properties, heavy_atoms, logp)
+    run_options = MappingProxyType({
         "weighting": weighting, "intervals": intervals, "level": level,
-        "engine": getattr(settings.engine, "__name__", repr(settings.engine)),
-        "units": {substrate: s_unit, inhibitor: i_unit},
-        "seconds": time.perf_counter() - started,
+        "engine": getattr(_engine(engine), "__name__", repr(engine)),
+        "units": declared, "seconds": time.perf_counter() - started,
     })
-    return Campaign(ranking, fits, options)
+    return Campaign(ranking, MappingProxyType(grid_fits), run_options,
+                    MappingProxyType(potency_fits))
+
+
+def parse_concentration(text) -> float:
+    """A concentration written with its unit ("20 uM", "5nM") in M.
+
+    Raises
+    ------
+    UnitsError
+        When the unit is missing or unknown; never guessed.
+    """
+    match = re.fullmatch(r"\s*([-+0-9.eE]+)\s*([A-Za-zµμ]*)\s*", str(text))
+    if not match or not match.group(2):
+        raise UnitsError(Problem(None, None, text, "write a concentration with its unit, "
+                                                   "e.g. '20uM' or '5 nM'"))
+    try:
+        value = float(match.group(1))
+    except ValueError:
+        raise UnitsError(Problem(None, None, text, "not a number")) from None
+    return to_molar(value, normalise_unit(match.group(2)))
 
 
 def simulate_campaign(n_compounds, *, seed, cv=0.05, km_uM=20.0, vmax=100.0,

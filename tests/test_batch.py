@@ -50,6 +50,36 @@ def _bad_compounds():
     return pd.concat([nan, one_level, zero, text], ignore_index=True)
 
 
+def _dose_plates(kis_M, *, seed, s_uM=20.0, km_uM=20.0, per_plate=6, noise=0.03):
+    """Dose-response plates of competitive inhibitors: 10 concentrations in duplicate per
+    compound, 4 'max' and 4 'min' control wells per plate, Gaussian noise as a fraction
+    of the control window. IC50 = Ki (1 + S/Km), the competitive case of Cheng & Prusoff
+    (1973, Biochem. Pharmacol. 22:3099)."""
+    rng = np.random.default_rng(seed)
+    high, low = 1000.0, 50.0
+    rows = []
+    for k, (name, ki) in enumerate(kis_M.items()):
+        plate = f"P{k // per_plate + 1}"
+        ic50_nM = ki * (1.0 + s_uM / km_uM) * 1e9
+        guess = ic50_nM * 10.0 ** rng.uniform(-0.5, 0.5)
+        for conc in np.repeat(guess * np.geomspace(1 / 30, 30, 10), 2):
+            activity = 1.0 / (1.0 + conc / ic50_nM)
+            signal = low + (high - low) * activity + noise * (high - low) * rng.normal()
+            rows.append((name, plate, "sample", conc, signal, s_uM))
+    for plate in sorted({r[1] for r in rows}):
+        for kind, level in (("max", high), ("min", low)):
+            for _ in range(4):
+                rows.append((None, plate, kind, 0.0,
+                             level + noise * (high - low) * rng.normal(), s_uM))
+    return pd.DataFrame(rows, columns=["compound", "plate", "role", "inhibitor_nM", "signal",
+                                       "substrate_uM"])
+
+
+KM_M = 20e-6
+# pKi from a 10-point duplicate curve at 3 % noise: a tenth of a log unit or better.
+DOSE_PKI_ATOL = 0.15
+
+
 BAD_REASONS = {"BAD-NAN": "missing value", "BAD-ONE-LEVEL": "only one inhibitor level",
                "BAD-ZERO": "all rates are zero", "BAD-TEXT": "not a number"}
 
@@ -225,12 +255,69 @@ def test_serial_processes_and_dask_give_identical_rankings():
     distributed = pytest.importorskip("distributed")
     table, _ = simulate_campaign(16, seed=21)
     table = pd.concat([table, _bad_compounds()], ignore_index=True)
-    serial = fit_campaign(table, quiet=True, chunk_size=3)
-    local = fit_campaign(table, workers=2, quiet=True, chunk_size=3)
+    plates = _dose_plates({"CPD-01": 1e-7, "DR-1": 3e-8, "DR-2": 4e-7}, seed=5, per_plate=2)
+    both = dict(dose_response=plates, km=KM_M, quiet=True, chunk_size=3)
+    serial = fit_campaign(table, **both)
+    local = fit_campaign(table, workers=2, **both)
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, host="127.0.0.1",
                                   dashboard_address=None) as cluster, \
             distributed.Client(cluster) as client:
-        remote = fit_campaign(table, client=client, quiet=True, chunk_size=3)
+        remote = fit_campaign(table, client=client, **both)
     pd.testing.assert_frame_equal(serial.ranking, local.ranking, check_exact=True)
     pd.testing.assert_frame_equal(serial.ranking, remote.ranking, check_exact=True)
-    assert len(serial.ranking) == 20
+    assert len(serial.ranking) == 22
+
+
+def test_dose_response_only_campaign_converts_ic50():
+    kis = {f"DR-{k}": 10.0 ** -p for k, p in enumerate(np.linspace(6.0, 8.5, 8))}
+    plates = _dose_plates(kis, seed=31)
+    ranking = fit_campaign(dose_response=plates, km=KM_M, quiet=True).ranking
+    assert sorted(ranking["compound"]) == sorted(kis)
+    assert (ranking["status"] == "determined").all()
+    assert (ranking["ki_source"] == "converted IC50").all()
+    assert ranking["flags"].str.contains("mechanism assumed").all()
+    truth = -np.log10(ranking["compound"].map(kis))
+    np.testing.assert_allclose(ranking["pki"], truth, atol=DOSE_PKI_ATOL)
+    # Ki = IC50 / (1 + S/Km) with S = Km: half the IC50 (Cheng & Prusoff 1973).
+    np.testing.assert_allclose(ranking["ki_M"], ranking["ic50_M"] / 2.0, rtol=1e-9)
+
+
+def test_grid_and_dose_response_together():
+    grid, _ = simulate_campaign(3, seed=41, mechanisms=("competitive",))
+    broken = _grid("BOTH-BAD-GRID", "competitive", ki_nM=50, i_max_nM=200, cv=CV, seed=8)
+    broken["rate"] = 0.0
+    grid = pd.concat([grid, broken], ignore_index=True)
+    kis = {"CPD-1": 1e-7, "BOTH-BAD-GRID": 5e-8, "ONLY-DOSE": 2e-8, "DOSE-NAN": 1e-7}
+    plates = _dose_plates(kis, seed=42)
+    nan_well = plates.index[(plates["compound"] == "DOSE-NAN")][3]
+    plates.loc[nan_well, "signal"] = np.nan
+    campaign = fit_campaign(grid, dose_response=plates, km=KM_M, quiet=True)
+    ranking = campaign.ranking.set_index("compound")
+    assert ranking.index.is_unique
+    assert set(ranking.index) == set(grid["compound"]) | set(kis)
+    # In both tables with a good grid: Ki from the grid, IC50 from the curve.
+    assert ranking.loc["CPD-1", "ki_source"] == "grid fit"
+    assert np.isfinite(ranking.loc["CPD-1", "ic50_M"])
+    # Grid unusable: Ki from the converted IC50, and the grid's failure is flagged.
+    assert ranking.loc["BOTH-BAD-GRID", "ki_source"] == "converted IC50"
+    assert ranking.loc["BOTH-BAD-GRID", "status"] == "determined"
+    assert "all rates are zero" in ranking.loc["BOTH-BAD-GRID", "flags"]
+    assert ranking.loc["ONLY-DOSE", "ki_source"] == "converted IC50"
+    # A NaN signal fails that compound alone, with a reason naming it.
+    assert ranking.loc["DOSE-NAN", "status"] == "failed"
+    assert "NaN" in ranking.loc["DOSE-NAN", "reason"]
+    assert set(campaign.potency_fits) >= {"CPD-1", "ONLY-DOSE", "BOTH-BAD-GRID"}
+    # CPD-2 and CPD-3 have no curve: no IC50, Ki from the grid.
+    assert np.isnan(ranking.loc["CPD-2", "ic50_M"])
+
+
+def test_dose_response_needs_km_and_declared_units():
+    plates = _dose_plates({"A": 1e-7}, seed=1)
+    with pytest.raises(DataError, match="needs km="):
+        fit_campaign(dose_response=plates, quiet=True)
+    plain = plates.rename(columns={"inhibitor_nM": "inhibitor"})
+    with pytest.raises(UnitsError, match="unit not declared"):
+        fit_campaign(dose_response=plain, km=KM_M, quiet=True)
+    plates.loc[0, "role"] = "blank"
+    with pytest.raises(DataError, match="unknown role"):
+        fit_campaign(dose_response=plates, km=KM_M, quiet=True)
