@@ -8,7 +8,7 @@ from scipy.special import lambertw
 
 from inhibkin.errors import DataError
 from inhibkin.mechanism import fit_mechanisms
-from inhibkin.rates import _rates_core, initial_rates
+from inhibkin.rates import _rates_core, _spd_inverse, initial_rates
 from inhibkin.signal import BeerLambert
 
 # The initial-rate estimate must be within 2 % of vmax·S0/(km + S0) (the brief's criterion).
@@ -131,6 +131,15 @@ def test_vectorised_pass_equals_a_per_well_run():
                             s0[w:w + 1], **options)
         assert alone["rate"][0] == pytest.approx(together["rate"][w], rel=OLS_RTOL)
         assert alone["n_points"][0] == together["n_points"][w]
+
+
+def test_batched_cholesky_inverse_matches_numpy():
+    # numpy.linalg.inv (LAPACK) as the independent reference.
+    rng = np.random.default_rng(12)
+    a = rng.standard_normal((40, 4, 7))
+    matrices = a @ a.transpose(0, 2, 1)
+    np.testing.assert_allclose(_spd_inverse(matrices), np.linalg.inv(matrices), rtol=1e-9,
+                               atol=1e-12)
 
 
 def test_nadh_consumption_rate_by_beer_lambert():
