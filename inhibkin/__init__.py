@@ -10,12 +10,34 @@ from .errors import DataError, FitError, InhibkinError, InhibkinWarning, UnitsEr
 from .fitting import ModelFit, fit_michaelis_menten
 from .mechanism import MechanismFit, fit_mechanisms
 from .models import MODELS, RateLaw
+from .plates import PlateQC, plate_qc, z_prime
+from .potency import (
+    DoseResponseFit,
+    MorrisonFit,
+    PotencyTable,
+    cheng_prusoff,
+    fit_dose_response,
+    fit_morrison,
+    ic50_from_ki,
+    potency_table,
+)
 from .simulate import simulate_grid, standard_design
 
 __version__ = "0.1.0"
 
 __all__ = [
     "DataError",
+    "DoseResponseFit",
+    "MorrisonFit",
+    "PlateQC",
+    "PotencyTable",
+    "cheng_prusoff",
+    "fit_dose_response",
+    "fit_morrison",
+    "ic50_from_ki",
+    "plate_qc",
+    "potency_table",
+    "z_prime",
     "FitError",
     "InhibkinError",
     "InhibkinWarning",
