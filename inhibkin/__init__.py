@@ -21,11 +21,19 @@ from .potency import (
     ic50_from_ki,
     potency_table,
 )
+from .rates import InitialRates, initial_rates
+from .signal import CHROMOPHORES, BeerLambert, StandardCurve, fit_standard_curve
 from .simulate import simulate_grid, standard_design
 
 __version__ = "0.1.0"
 
 __all__ = [
+    "BeerLambert",
+    "CHROMOPHORES",
+    "InitialRates",
+    "StandardCurve",
+    "fit_standard_curve",
+    "initial_rates",
     "DataError",
     "DoseResponseFit",
     "MorrisonFit",
