@@ -1,0 +1,214 @@
+"""Many four-parameter logistic (4PL) dose-response curves fitted at once.
+
+The curve, its Jacobian and its starting values are those of :mod:`inhibkin.logistic`
+(parameters top, bottom, log_ic50, hill; fitted on x = log10(concentration)). top
+and/or bottom can be held at given values (a fixed-plateau fit). Parameters are fitted
+unbounded, on their natural scale, so the Wald intervals are estimate ± t·se.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from ..logistic import PARAM_NAMES, logistic4_jacobian
+from . import lm
+from .chunks import concat_batches, run_chunks
+from .starts import _count_unique, logistic_starts
+
+__all__ = ["LogisticBatch", "fit_logistic_batch"]
+
+_TOO_FEW_LEVELS = "failed: need at least two distinct concentrations"
+
+
+class _Logistic:
+    """The 4PL as the solver wants it."""
+
+    def __call__(self, theta, x):
+        # Batch-last: theta (4, b), x (n, b). The response is linear in top and bottom,
+        # y = top·∂y/∂top + bottom·∂y/∂bottom, which saves a second pass of powers.
+        jac = np.moveaxis(logistic4_jacobian(x, *theta), -1, 0)
+        return theta[0] * jac[0] + theta[1] * jac[1], jac
+
+
+@dataclass(frozen=True)
+class LogisticBatch:
+    """4PL fits of a batch of curves (rows: curves).
+
+    Attributes
+    ----------
+    names : tuple of str
+        ``("top", "bottom", "log_ic50", "hill")``, the column order of the arrays.
+    estimate : numpy.ndarray, shape (B, 4)
+        top and bottom in the response's unit, log_ic50 in log10 of the
+        concentration's unit, hill unitless; NaN for a failed fit.
+    se, ci_low, ci_high : numpy.ndarray, shape (B, 4)
+        Standard errors (from the Jacobian at the solution, scaled by SSR/(n − k)) and
+        Wald intervals estimate ± t·se at ``level``; NaN for a fixed parameter.
+    free : numpy.ndarray of bool, shape (B, 4)
+        False for a parameter held fixed.
+    covariance : numpy.ndarray, shape (B, 4, 4)
+    ssr : numpy.ndarray, shape (B,)
+        Weighted residual sum of squares.
+    n_obs, n_params : numpy.ndarray of int, shape (B,)
+        Points used and parameters fitted.
+    converged : numpy.ndarray of bool
+    status : numpy.ndarray of int8
+        The engine's code (:data:`inhibkin.engine.lm.STATUS_REASONS`).
+    reason : numpy.ndarray of str
+    iterations : numpy.ndarray of int
+    start : numpy.ndarray, shape (B, 4)
+        The automatic starting values used.
+    level : float
+    """
+
+    estimate: np.ndarray
+    se: np.ndarray
+    ci_low: np.ndarray
+    ci_high: np.ndarray
+    free: np.ndarray = field(repr=False)
+    covariance: np.ndarray = field(repr=False)
+    ssr: np.ndarray = field(repr=False)
+    n_obs: np.ndarray = field(repr=False)
+    n_params: np.ndarray = field(repr=False)
+    converged: np.ndarray = field(repr=False)
+    status: np.ndarray = field(repr=False)
+    reason: np.ndarray = field(repr=False)
+    iterations: np.ndarray = field(repr=False)
+    start: np.ndarray = field(repr=False)
+    level: float = 0.95
+    names: tuple[str, ...] = PARAM_NAMES
+
+    batch_fields = ("estimate", "se", "ci_low", "ci_high", "free", "covariance", "ssr",
+                    "n_obs", "n_params", "converged", "status", "reason", "iterations",
+                    "start")
+
+    def __len__(self) -> int:
+        return len(self.ssr)
+
+    @property
+    def ic50(self) -> np.ndarray:
+        """10**log_ic50, in the concentration's unit."""
+        return 10.0 ** self.estimate[:, self.names.index("log_ic50")]
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per curve: estimates, standard errors, intervals and status."""
+        out = {}
+        for j, name in enumerate(self.names):
+            out[name] = self.estimate[:, j]
+            out[f"{name}_se"] = self.se[:, j]
+            out[f"{name}_ci_low"] = self.ci_low[:, j]
+            out[f"{name}_ci_high"] = self.ci_high[:, j]
+        out.update(ic50=self.ic50, ssr=self.ssr, n_obs=self.n_obs, n_params=self.n_params,
+                   converged=self.converged, reason=self.reason, iterations=self.iterations)
+        frame = pd.DataFrame(out)
+        frame.index.name = "curve"
+        return frame
+
+    def summary(self) -> str:
+        """How many curves converged, and the reasons of the others."""
+        lines = [f"{len(self)} 4PL curves: {int(self.converged.sum())} converged"]
+        failed = pd.Series(self.reason[~self.converged]).value_counts()
+        lines += [f"  {count:>6}  {why}" for why, count in failed.items()]
+        return "\n".join(lines)
+
+    def _repr_html_(self) -> str:
+        return f"<pre>{self.summary()}</pre>"
+
+
+def _fixed(value, n_batch):
+    """(values, held) for a fix_top/fix_bottom option: None, a number, or one per curve
+    (NaN = free for that curve)."""
+    if value is None:
+        return np.full(n_batch, np.nan), np.zeros(n_batch, bool)
+    values = np.broadcast_to(np.asarray(value, dtype=float), (n_batch,)).copy()
+    return values, np.isfinite(values)
+
+
+def _fit_chunk(x, y, mask, weights, top, bottom, *, level, max_iterations):
+    n_batch = x.shape[0]
+    start = logistic_starts(x, y, mask) if n_batch else np.zeros((0, 4))
+    free = np.ones((n_batch, 4), bool)
+    hold_top, hold_bottom = np.isfinite(top), np.isfinite(bottom)
+    start[hold_top, 0] = top[hold_top]
+    start[hold_bottom, 1] = bottom[hold_bottom]
+    free[:, 0], free[:, 1] = ~hold_top, ~hold_bottom
+    few_levels = _count_unique(x, mask & np.isfinite(x)) < 2
+    theta0 = np.where(np.isfinite(start), start, 0.0)
+    result = lm.solve(_Logistic(), theta0, (x,), y, mask=mask & ~few_levels[:, None],
+                      weights=weights, free=free, max_iterations=max_iterations)
+    status = result.status.copy()
+    reason = result.reason
+    status[few_levels] = lm.FAILED_DATA
+    reason[few_levels] = _TOO_FEW_LEVELS
+    ok = status > 0
+    se = result.std_err
+    dof = result.n_obs - result.n_free
+    t = stats.t.ppf(0.5 + level / 2, np.maximum(dof, 1))[:, None]
+    estimate = np.where(ok[:, None], result.theta, np.nan)
+    se = np.where(ok[:, None] & free, se, np.nan)
+    return LogisticBatch(estimate, se, estimate - t * se, estimate + t * se, free,
+                         result.covariance, np.where(ok, result.ssr, np.nan), result.n_obs,
+                         result.n_free, ok, status, reason, result.iterations, start, level)
+
+
+def fit_logistic_batch(x, y, mask=None, *, fix_top=None, fix_bottom=None, weights=None,
+                       level=0.95, max_iterations=lm.MAX_ITERATIONS, client=None,
+                       chunk_size=None) -> LogisticBatch:
+    """Fit the 4PL to every curve of padded arrays.
+
+    Parameters
+    ----------
+    x : array_like, shape (B, n)
+        log10 of the concentrations (any one unit; log_ic50 comes out in its log10).
+    y : array_like, shape (B, n)
+        Responses (any unit, e.g. % activity).
+    mask : array_like of bool, shape (B, n), optional
+        True for real points (default all); padding may hold anything.
+    fix_top, fix_bottom : float or array_like of shape (B,), optional
+        Hold top and/or bottom at these values (NaN entries leave that curve free).
+    weights : array_like, shape (B, n), optional
+        Residual multipliers 1/σ (default 1).
+    level : float
+        Confidence level of the Wald intervals.
+    max_iterations : int
+        Iteration bound per curve.
+    client : dask.distributed.Client, optional
+        Run the chunks on this cluster's workers.
+    chunk_size : int, optional
+        Curves per chunk (default one chunk locally,
+        :data:`inhibkin.engine.chunks.DEFAULT_CHUNK_SIZE` on a client).
+
+    Returns
+    -------
+    LogisticBatch
+        Every curve appears once, with its status; a curve with NaN among its points, too
+        few points or a single concentration is reported failed and leaves the others
+        untouched.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from inhibkin.engine import fit_logistic_batch
+    >>> x = np.tile(np.linspace(-9, -5, 9), (2, 1))
+    >>> y = 100 / (1 + 10 ** (x - np.array([[-7.0], [-6.5]])))
+    >>> np.round(fit_logistic_batch(x, y).estimate[:, 2], 6)
+    array([-7. , -6.5])
+    """
+    x = np.atleast_2d(np.asarray(x, dtype=float))
+    y = np.asarray(y, dtype=float).reshape(x.shape)
+    mask = np.ones(x.shape, bool) if mask is None else np.asarray(mask, bool).reshape(x.shape)
+    weights = np.ones(x.shape) if weights is None else \
+        np.asarray(weights, dtype=float).reshape(x.shape)
+    top, _ = _fixed(fix_top, x.shape[0])
+    bottom, _ = _fixed(fix_bottom, x.shape[0])
+    if x.shape[1] == 0:
+        x, y, weights = (np.zeros((x.shape[0], 1)) for _ in range(3))
+        mask = np.zeros(x.shape, bool)
+    parts = run_chunks(_fit_chunk, (x, y, mask, weights, top, bottom),
+                       dict(level=level, max_iterations=max_iterations), client=client,
+                       chunk_size=chunk_size)
+    return concat_batches(parts)

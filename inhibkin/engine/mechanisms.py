@@ -1,0 +1,845 @@
+"""Every mechanism fitted to many compounds at once, compared and decided.
+
+This is :func:`inhibkin.mechanism.fit_mechanisms` (with ``intervals="wald"``) for a
+whole campaign in stacked arrays: the same automatic starts, bounds and weighting rules,
+the same multi-start rule for mixed, the same criteria, F-tests and verdict rules
+(:mod:`inhibkin.compare`, vectorised here and checked against it by the tests). Fits the
+engine cannot converge are refitted by the lmfit path and counted.
+
+Two entry points:
+
+- :func:`fit_mechanism_arrays` — padded (B, n) arrays in, a :class:`MechanismBatch` of
+  arrays out (the fast path, used by the benchmark);
+- :func:`fit_mechanisms_batch` — one table (or array set) per compound in, one
+  :class:`inhibkin.mechanism.MechanismFit` per compound out, interchangeable with the
+  lmfit path's results.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from .. import fitting as _fitting
+from ..compare import ONE_CONSTANT_MODELS, Verdict, VerdictOptions
+from ..errors import DataError
+from ..fitting import ModelFit, fit_model
+from ..mechanism import WEIGHTINGS, MechanismFit, _mixed_starts, relative_weights
+from ..models import MODEL_NAMES, MODELS, nested_pairs
+from ..validate import check_grid
+from . import lm
+from .chunks import concat_batches, run_chunks
+from .starts import _count_unique, mechanism_log_bounds, mechanism_starts
+
+__all__ = ["ModelBatch", "MechanismBatch", "fit_mechanism_arrays", "fit_mechanisms_batch",
+           "pad"]
+
+# The lmfit path's rules, read from it so that the two cannot drift apart.
+_AT_BOUND = _fitting._AT_BOUND
+_START_MARGIN = 1e-6  # fit_model clips starts this far inside the bounds
+_REWEIGHT_ITERATIONS = 3  # as inhibkin.mechanism.relative_weights
+_WEIGHT_FLOOR = 1e-3
+_FAR_FACTOR = 10.0  # nested solutions start mixed's missing constant at bound/10
+_MESSAGE_FALLBACK = "refitted by the lmfit path after the engine failed: "
+
+
+class _LogRateLaw:
+    """A rate law as the solver wants it: prediction and Jacobian in log-parameters."""
+
+    def __init__(self, name):
+        self.law = MODELS[name]
+        # Every rate law here is vmax times a function of the rest, so the prediction is
+        # vmax·∂v/∂vmax = ∂v/∂log(vmax): the Jacobian gives it without a second pass.
+        if self.law.param_names[0] != "vmax":
+            raise ValueError(f"{name}: the engine expects vmax as the first parameter")
+
+    def __call__(self, theta, s, i):
+        # Batch-last: theta (k, b), s and i (n, b); d/d log p = p · d/d p.
+        p = np.exp(theta)
+        jac = np.moveaxis(self.law.jacobian(s, i, *p), -1, 0) * p[:, None, :]
+        return jac[0], jac
+
+
+@dataclass(frozen=True)
+class ModelBatch:
+    """One rate law fitted to every compound of a batch (rows: compounds).
+
+    Attributes
+    ----------
+    model : str
+    names : tuple of str
+        Row labels of the parameter columns: the law's parameters, plus ``alpha``
+        (= kiu/kic, derived) for mixed.
+    estimate, se, ci_low, ci_high : numpy.ndarray, shape (B, len(names))
+        As the columns of :attr:`inhibkin.fitting.ModelFit.params` (Wald intervals at
+        ``level``); NaN for a failed fit.
+    determined : numpy.ndarray of bool, shape (B, len(names))
+    theta : numpy.ndarray, shape (B, k)
+        Natural logs of the estimates.
+    log_covariance : numpy.ndarray, shape (B, k, k)
+        Covariance of ``theta`` (NaN when singular or failed).
+    ssr, loglik, aic, aicc, bic : numpy.ndarray, shape (B,)
+    n_obs : numpy.ndarray of int, shape (B,)
+    n_params : int
+    converged : numpy.ndarray of bool
+    status : numpy.ndarray of int8
+        The engine's status code (:data:`inhibkin.engine.lm.STATUS_REASONS`).
+    reason : numpy.ndarray of str
+        The status in words (the lmfit message for refitted rows).
+    iterations : numpy.ndarray of int
+        Engine iterations (summed over the starts tried for mixed).
+    fallback : numpy.ndarray of bool
+        True where the lmfit path refitted this model for this compound.
+    """
+
+    model: str
+    names: tuple[str, ...]
+    estimate: np.ndarray
+    se: np.ndarray
+    ci_low: np.ndarray
+    ci_high: np.ndarray
+    determined: np.ndarray
+    theta: np.ndarray
+    log_covariance: np.ndarray = field(repr=False)
+    ssr: np.ndarray = field(repr=False)
+    loglik: np.ndarray = field(repr=False)
+    aic: np.ndarray = field(repr=False)
+    aicc: np.ndarray = field(repr=False)
+    bic: np.ndarray = field(repr=False)
+    n_obs: np.ndarray = field(repr=False)
+    n_params: int = 0
+    converged: np.ndarray = field(default=None, repr=False)
+    status: np.ndarray = field(default=None, repr=False)
+    reason: np.ndarray = field(default=None, repr=False)
+    iterations: np.ndarray = field(default=None, repr=False)
+    fallback: np.ndarray = field(default=None, repr=False)
+
+    #: Fields with one row per compound (concatenated across chunks).
+    batch_fields = ("estimate", "se", "ci_low", "ci_high", "determined", "theta",
+                    "log_covariance", "ssr", "loglik", "aic", "aicc", "bic", "n_obs",
+                    "converged", "status", "reason", "iterations", "fallback")
+
+    def to_frame(self) -> pd.DataFrame:
+        """Tidy table: one row per compound and parameter."""
+        b, m = self.estimate.shape
+        return pd.DataFrame({
+            "compound": np.repeat(np.arange(b), m),
+            "model": self.model,
+            "parameter": np.tile(self.names, b),
+            "estimate": self.estimate.ravel(), "se": self.se.ravel(),
+            "ci_low": self.ci_low.ravel(), "ci_high": self.ci_high.ravel(),
+            "determined": self.determined.ravel(),
+            "converged": np.repeat(self.converged, m),
+        })
+
+
+@dataclass(frozen=True)
+class MechanismBatch:
+    """Every mechanism fitted to every compound of a batch, and the verdicts.
+
+    Attributes
+    ----------
+    models : dict of str to ModelBatch
+    verdict, best, reason : numpy.ndarray of object, shape (B,)
+        As :class:`inhibkin.compare.Verdict` (``best`` is None for ``failed``).
+    candidates : numpy.ndarray of object, shape (B,)
+        Tuples of model names.
+    p_values : dict of (str, str) to numpy.ndarray
+        F-test p-value of every nested (reduced, full) pair.
+    s, i, v, mask, weights : numpy.ndarray, shape (B, n)
+        The padded data and the residual multipliers used.
+    valid : numpy.ndarray of bool, shape (B,)
+        False for compounds whose data could not be fitted (the reason says why).
+    weight_fallback : numpy.ndarray of bool, shape (B,)
+        True where the lmfit path set the ``relative`` weights.
+    weighting : str
+    options : VerdictOptions
+    level : float
+    """
+
+    models: dict
+    verdict: np.ndarray
+    best: np.ndarray
+    candidates: np.ndarray
+    reason: np.ndarray
+    p_values: dict = field(repr=False)
+    s: np.ndarray = field(repr=False)
+    i: np.ndarray = field(repr=False)
+    v: np.ndarray = field(repr=False)
+    mask: np.ndarray = field(repr=False)
+    weights: np.ndarray = field(repr=False)
+    valid: np.ndarray = field(repr=False)
+    weight_fallback: np.ndarray = field(repr=False)
+    weighting: str = "uniform"
+    options: VerdictOptions = VerdictOptions()
+    level: float = 0.95
+
+    batch_fields = ("verdict", "best", "candidates", "reason", "s", "i", "v", "mask",
+                    "weights", "valid", "weight_fallback")
+
+    def __len__(self) -> int:
+        return len(self.verdict)
+
+    @property
+    def n_fallback(self) -> int:
+        """Model fits refitted by the lmfit path (plus relative-weight fallbacks)."""
+        return int(sum(m.fallback.sum() for m in self.models.values())
+                   + self.weight_fallback.sum())
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per compound: verdict, best model, reason, and AICc of every model."""
+        out = pd.DataFrame({"verdict": self.verdict, "best": self.best,
+                            "candidates": [", ".join(c) for c in self.candidates],
+                            "reason": self.reason})
+        for name, m in self.models.items():
+            out[f"aicc_{name}"] = m.aicc
+        out.index.name = "compound"
+        return out
+
+    def summary(self) -> str:
+        """Counts of verdicts, failures and fallbacks."""
+        counts = pd.Series(self.verdict).value_counts()
+        lines = [f"{len(self)} compounds, {self.weighting} weighting; "
+                 f"{self.n_fallback} fits refitted by the lmfit path"]
+        lines += [f"  {name:<15} {count}" for name, count in counts.items()]
+        return "\n".join(lines)
+
+    def _repr_html_(self) -> str:
+        return f"<pre>{self.summary()}</pre>"
+
+    def to_mechanism_fits(self, *, data_index=None) -> list[MechanismFit]:
+        """One :class:`~inhibkin.mechanism.MechanismFit` per compound.
+
+        Parameters
+        ----------
+        data_index : sequence of pandas.Index, optional
+            Row labels of each compound's points (default 0..n−1).
+        """
+        return [self._one(c, None if data_index is None else data_index[c])
+                for c in range(len(self))]
+
+    def _one(self, c, labels) -> MechanismFit:
+        keep = self.mask[c]
+        s, i, v, w = self.s[c][keep], self.i[c][keep], self.v[c][keep], self.weights[c][keep]
+        fits = {name: _model_fit(m, c, s, i, v, self.level) for name, m in self.models.items()}
+        comparison = _comparison_frame(self.models, c)
+        ftests = _ftest_frame(self.models, self.p_values, c)
+        data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},
+                            index=labels)
+        return MechanismFit(self.verdict[c], self.best[c], self.candidates[c], self.reason[c],
+                            fits, comparison, ftests, data, self.weighting, self.options)
+
+
+def _model_fit(m: ModelBatch, c, s, i, v, level) -> ModelFit:
+    """The ModelFit of compound ``c`` from the arrays (what fit_model would return)."""
+    params = pd.DataFrame({"estimate": m.estimate[c], "se": m.se[c], "ci_low": m.ci_low[c],
+                           "ci_high": m.ci_high[c], "determined": m.determined[c]},
+                          index=pd.Index(m.names, name="parameter"))
+    k = m.n_params
+    n = len(v)
+    if m.converged[c]:
+        fitted = MODELS[m.model].rate(s, i, *m.estimate[c, :k])
+        residuals = v - fitted
+        cov = m.log_covariance[c]
+        cov = None if np.isnan(cov).all() else cov.copy()
+    else:
+        fitted = residuals = np.full(n, np.nan)
+        cov = None
+    return ModelFit(m.model, params, n, k, float(m.ssr[c]), float(m.loglik[c]),
+                    float(m.aic[c]), float(m.aicc[c]), float(m.bic[c]), bool(m.converged[c]),
+                    str(m.reason[c]), fitted, residuals, level, "wald", cov)
+
+
+def _comparison_frame(models, c) -> pd.DataFrame:
+    """:func:`inhibkin.compare.comparison_table` for compound ``c``, built from arrays."""
+    names = list(models)
+    conv = np.array([models[n].converged[c] for n in names])
+
+    def column(attr):
+        values = np.array([getattr(models[n], attr)[c] for n in names], dtype=float)
+        return np.where(conv, values, np.nan)
+
+    aicc = column("aicc")
+    finite = np.isfinite(aicc)
+    delta = aicc - np.nanmin(aicc) if finite.any() else np.full(len(names), np.nan)
+    weight = np.zeros(len(names))
+    if finite.any():
+        rel = np.exp(-0.5 * (aicc[finite] - aicc[finite].min()))
+        weight[finite] = rel / rel.sum()
+    return pd.DataFrame({
+        "n_obs": [int(models[n].n_obs[c]) for n in names],
+        "n_params": [models[n].n_params for n in names],
+        "ssr": column("ssr"), "aic": column("aic"), "aicc": aicc, "bic": column("bic"),
+        "delta_aicc": delta, "akaike_weight": weight, "converged": conv,
+    }, index=pd.Index(names, name="model"))
+
+
+def _ftest_frame(models, p_values, c) -> pd.DataFrame:
+    """:func:`inhibkin.compare.f_test_table` for compound ``c``, built from arrays."""
+    rows = []
+    for (small, large), (f_value, p_value) in p_values.items():
+        a, b = models[small], models[large]
+        n = int(b.n_obs[c])
+        rows.append({"reduced": small, "full": large, "f_value": float(f_value[c]),
+                     "df_num": b.n_params - a.n_params, "df_den": n - b.n_params,
+                     "p_value": float(p_value[c])})
+    return pd.DataFrame(rows, columns=["reduced", "full", "f_value", "df_num", "df_den",
+                                       "p_value"])
+
+
+def pad(groups):
+    """Stack per-compound (s, i, v[, sd]) arrays into padded (B, n) arrays and a mask.
+
+    Parameters
+    ----------
+    groups : sequence of tuples of 1-D arrays
+        One tuple per compound; all arrays of a tuple have the same length.
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        One (B, n_max) array per tuple position (padding 0), then the mask.
+    """
+    groups = list(groups)
+    width = max((len(g[0]) for g in groups), default=0)
+    n_arrays = len(groups[0]) if groups else 3
+    out = [np.zeros((len(groups), width)) for _ in range(n_arrays)]
+    mask = np.zeros((len(groups), width), dtype=bool)
+    for row, g in enumerate(groups):
+        n = len(g[0])
+        for a, values in zip(out, g):
+            a[row, :n] = values
+        mask[row, :n] = True
+    return (*out, mask)
+
+
+def _check_arrays(s, i, v, mask, sd, need_inhibition):
+    """Why each compound cannot be fitted ('' when it can): check_grid's rules in arrays."""
+    b = s.shape[0]
+    reason = np.full(b, "", dtype=object)
+    values = [("substrate", s), ("inhibitor", i), ("rate", v)]
+    if sd is not None:
+        values.append(("sd", sd))
+
+    def flag(bad, text):
+        fresh = bad & (reason == "")
+        reason[fresh] = text
+
+    for name, x in values:
+        flag(np.any(~np.isfinite(x) & mask, axis=1), f"non-finite value (NaN or inf) in {name}")
+    for name, x in values:
+        flag(np.any((x < 0) & mask, axis=1),
+             f"negative value in {name}; concentrations and rates must be ≥ 0")
+    if sd is not None:
+        flag(np.any((sd == 0) & mask, axis=1), "standard deviation must be > 0")
+    flag(_count_unique(s, mask) < 2, "need at least two substrate concentrations")
+    if need_inhibition:
+        flag(_count_unique(i, mask) < 2, "only one inhibitor level; inhibition models need at "
+             "least two (include the uninhibited rate, I = 0)")
+    flag(np.all((v == 0) | ~mask, axis=1), "all rates are zero; nothing to fit")
+    n_params = 4 if need_inhibition else 2
+    flag(mask.sum(axis=1) <= n_params, f"no more points than the largest model's {n_params} "
+         "parameters")
+    return reason
+
+
+def _criteria(ssr, n, k, sum_log_w):
+    """:func:`inhibkin.compare.information_criteria`, vectorised."""
+    ssr = np.where(ssr <= 0, np.finfo(float).tiny, ssr)
+    loglik = -0.5 * n * (np.log(2 * np.pi) + np.log(ssr / n) + 1) + sum_log_w
+    aic = -2 * loglik + 2 * k
+    with np.errstate(divide="ignore", invalid="ignore"):
+        aicc = np.where(n > k + 1, aic + 2 * k * (k + 1) / (n - k - 1), np.inf)
+    bic = -2 * loglik + k * np.log(n)
+    return loglik, aic, aicc, bic
+
+
+def _solve_model(name, s, i, v, mask, w, rows, theta0, lower, upper, max_iterations):
+    """Solve model ``name`` for the compounds ``rows`` from ``theta0`` (log scale)."""
+    theta0 = np.clip(theta0, lower + _START_MARGIN, upper - _START_MARGIN)
+    return lm.solve(_LogRateLaw(name), theta0, (s[rows], i[rows]), v[rows], mask=mask[rows],
+                    weights=w[rows], lower=lower, upper=upper, max_iterations=max_iterations)
+
+
+def _empty_model(name, b, n_obs):
+    law = MODELS[name]
+    names = law.param_names + (("alpha",) if name == "mixed" else ())
+    k, m = law.n_params, len(names)
+    nan = np.full((b, m), np.nan)
+    return dict(model=name, names=names, estimate=nan.copy(), se=nan.copy(),
+                ci_low=nan.copy(), ci_high=nan.copy(), determined=np.zeros((b, m), bool),
+                theta=np.full((b, k), np.nan), log_covariance=np.full((b, k, k), np.nan),
+                ssr=np.full(b, np.nan), loglik=np.full(b, np.nan), aic=np.full(b, np.nan),
+                aicc=np.full(b, np.nan), bic=np.full(b, np.nan), n_obs=n_obs.copy(),
+                n_params=k, converged=np.zeros(b, bool),
+                status=np.zeros(b, np.int8), reason=np.full(b, "not fitted", dtype=object),
+                iterations=np.zeros(b, np.int64), fallback=np.zeros(b, bool))
+
+
+def _fill_from_engine(out, name, rows, result, s, i, mask, lower, upper, level,
+                      determination_factor):
+    """Estimates, Wald intervals and the determined flags, as fit_model derives them."""
+    law = MODELS[name]
+    k = law.n_params
+    ok = result.converged
+    r = rows[ok]
+    theta = result.theta[ok]
+    cov = result.covariance[ok]
+    se_log = result.std_err[ok]
+    dof = result.n_obs[ok] - k
+    t = stats.t.ppf(0.5 + level / 2, np.maximum(dof, 1))[:, None]
+    estimate = np.exp(theta)
+    with np.errstate(over="ignore", invalid="ignore"):
+        ci_low, ci_high = np.exp(theta - t * se_log), np.exp(theta + t * se_log)
+    lo, hi = lower[ok], upper[ok]
+    at_bound = (theta - lo < _AT_BOUND) | (hi - theta < _AT_BOUND)
+    with np.errstate(invalid="ignore"):
+        determined = ~at_bound & np.isfinite(ci_high) & (ci_low > 0) & np.isfinite(se_log)
+    i_max = np.max(np.where(mask[r], i[r], 0.0), axis=1, initial=0.0)
+    s_max = np.max(np.where(mask[r], s[r], 0.0), axis=1, initial=0.0)
+    for j, pname in enumerate(law.param_names):
+        if pname in law.inhibition_constants:
+            determined[:, j] &= ~(estimate[:, j] > determination_factor * i_max)
+        if pname == "km":
+            determined[:, j] &= ~(estimate[:, j] > determination_factor * s_max)
+    out["estimate"][r, :k] = estimate
+    out["se"][r, :k] = estimate * se_log
+    out["ci_low"][r, :k], out["ci_high"][r, :k] = ci_low, ci_high
+    out["determined"][r, :k] = determined
+    if name == "mixed":
+        a, b = law.param_names.index("kic"), law.param_names.index("kiu")
+        var = cov[:, a, a] + cov[:, b, b] - 2 * cov[:, a, b]
+        with np.errstate(invalid="ignore"):
+            se_ratio = np.where(var >= 0, np.sqrt(np.abs(var)), np.nan)
+        both = determined[:, a] & determined[:, b]
+        centre = theta[:, b] - theta[:, a]
+        with np.errstate(over="ignore", invalid="ignore"):
+            lo_r = np.where(both, np.exp(centre - t[:, 0] * se_ratio), np.nan)
+            hi_r = np.where(both, np.exp(centre + t[:, 0] * se_ratio), np.nan)
+        alpha = np.exp(centre)
+        out["estimate"][r, k] = alpha
+        out["se"][r, k] = alpha * se_ratio
+        out["ci_low"][r, k], out["ci_high"][r, k] = lo_r, hi_r
+        out["determined"][r, k] = both
+    out["theta"][r] = theta
+    out["log_covariance"][r] = cov
+    out["ssr"][r] = result.ssr[ok]
+    out["converged"][r] = True
+    out["status"][rows] = result.status
+    out["reason"][rows] = result.reason
+    out["iterations"][rows] += result.iterations
+    failed = rows[~ok]
+    for key in ("estimate", "se", "ci_low", "ci_high", "theta", "log_covariance", "ssr"):
+        out[key][failed] = np.nan
+    out["determined"][failed] = False
+    out["converged"][failed] = False
+
+
+def _fill_from_lmfit(out, c, fit: ModelFit):
+    k = out["n_params"]
+    out["fallback"][c] = True
+    out["reason"][c] = _MESSAGE_FALLBACK + fit.message
+    out["converged"][c] = fit.converged
+    table = fit.params
+    for key, col in (("estimate", "estimate"), ("se", "se"), ("ci_low", "ci_low"),
+                     ("ci_high", "ci_high"), ("determined", "determined")):
+        out[key][c] = table[col].to_numpy()
+    out["ssr"][c] = fit.ssr
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out["theta"][c] = np.log(table["estimate"].to_numpy()[:k])
+    cov = fit.log_covariance
+    out["log_covariance"][c] = np.nan if cov is None or not fit.converged else cov
+
+
+def _relative_weights(s, i, v, mask, rows, max_iterations, fallback):
+    """:func:`inhibkin.mechanism.relative_weights` for the compounds ``rows``."""
+    w = mask.astype(float)
+    active = rows.copy()
+    used_fallback = np.zeros(s.shape[0], bool)
+    lower, upper = mechanism_log_bounds("mixed", s, i, v, mask)
+    law = MODELS["mixed"]
+    for _ in range(_REWEIGHT_ITERATIONS):
+        if not active.size:
+            break
+        start = np.log(mechanism_starts("mixed", s[active], i[active], v[active],
+                                        mask[active], w[active]))
+        result = _solve_model("mixed", s, i, v, mask, w, active, start, lower[active],
+                              upper[active], max_iterations)
+        ok = result.converged
+        if fallback:
+            used_fallback[active[~ok]] = True
+        good = active[ok]
+        p = np.exp(result.theta[ok])
+        fitted = law.rate(s[good], i[good], *(p[:, [j]] for j in range(p.shape[1])))
+        fitted_max = np.max(np.where(mask[good], fitted, -np.inf), axis=1)
+        scale = np.maximum(fitted, _WEIGHT_FLOOR * fitted_max[:, None])
+        w[good] = np.where(mask[good], 1.0 / np.where(mask[good], scale, 1.0), 0.0)
+        active = good
+    with np.errstate(divide="ignore"):
+        log_w = np.where(mask, np.log(np.where(mask, w, 1.0)), 0.0)
+    geometric = np.exp(log_w.sum(axis=1) / np.maximum(mask.sum(axis=1), 1))
+    w = np.where(mask, w / geometric[:, None], 0.0)
+    for c in np.flatnonzero(used_fallback):
+        keep = mask[c]
+        w[c, keep] = relative_weights(s[c, keep], i[c, keep], v[c, keep])
+    return w, used_fallback
+
+
+def _f_tests(models, small, large):
+    """Vectorised :func:`inhibkin.compare.f_test` for one nested pair (NaN unless both
+    fits converged)."""
+    a, b = models[small], models[large]
+    n = b["n_obs"]
+    df_reduced, df_full = n - a["n_params"], n - b["n_params"]
+    df_num = df_reduced - df_full
+    both = a["converged"] & b["converged"] & (df_num > 0) & (df_full > 0)
+    gain = np.maximum(a["ssr"] - b["ssr"], 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f_value = np.where(b["ssr"] <= 0, np.where(gain > 0, np.inf, 0.0),
+                           (gain / df_num) / (b["ssr"] / df_full))
+    f_value = np.where(both, f_value, np.nan)
+    p_value = np.where(both, stats.f.sf(f_value, df_num, np.maximum(df_full, 1)), np.nan)
+    return f_value, p_value
+
+
+def _verdicts(models, p_values, valid, invalid_reason, options):
+    """:func:`inhibkin.compare.decide` for every compound, same rules and wording."""
+    b = len(valid)
+    verdict = np.empty(b, dtype=object)
+    best = np.empty(b, dtype=object)
+    candidates = np.empty(b, dtype=object)
+    reason = np.empty(b, dtype=object)
+
+    def p_of(small, large, c):
+        pair = p_values.get((small, large))
+        return float(pair[1][c]) if pair is not None else np.nan
+
+    def conv(name, c):
+        return name in models and bool(models[name]["converged"][c])
+
+    for c in range(b):
+        if not valid[c]:
+            verdict[c], best[c], candidates[c], reason[c] = \
+                "failed", None, (), invalid_reason[c]
+            continue
+        out = _decide_one(c, conv, p_of, models, options)
+        verdict[c], best[c], candidates[c], reason[c] = \
+            out.verdict, out.best, out.candidates, out.reason
+    return verdict, best, candidates, reason
+
+
+def _decide_one(c, conv, p_of, models, options) -> Verdict:
+    missing = [m for m in ("none", "mixed") if not conv(m, c)]
+    if missing:
+        return Verdict("failed", None, (), f"the {' and '.join(missing)} fit did not converge")
+    p_any = p_of("none", "mixed", c)
+    if not p_any < options.alpha:
+        return Verdict("none", "none", ("none",),
+                       f"no inhibition detected: F-test of none against mixed p = {p_any:.3g} "
+                       f"≥ {options.alpha:g}")
+    fitted = [m for m in ONE_CONSTANT_MODELS if conv(m, c)]
+    adequate = [m for m in fitted if not p_of(m, "mixed", c) < options.alpha]
+    if not adequate:
+        worst = max((p_of(m, "mixed", c) for m in fitted), default=np.nan)
+        return Verdict("mixed", "mixed", ("mixed",),
+                       f"every one-constant mechanism is rejected against mixed (largest p = "
+                       f"{worst:.3g} < {options.alpha:g})")
+    aicc = sorted(((float(models[m]["aicc"][c]), m) for m in adequate),
+                  key=lambda pair: pair[0])
+    lead = aicc[0][0]
+    close = [m for value, m in aicc if value - lead < options.min_delta_aicc]
+    top = aicc[0][1]
+    if len(close) == 1:
+        if len(aicc) == 1:
+            why = "the only one-constant mechanism not rejected against mixed"
+        else:
+            why = (f"leads {aicc[1][1]} by {aicc[1][0] - lead:.1f} AICc units "
+                   f"(≥ {options.min_delta_aicc:g})")
+        return Verdict(top, top, (top,), f"{top}: {why}")
+    return Verdict("ambiguous", top, tuple(close),
+                   f"{', '.join(close)} fit within {options.min_delta_aicc:g} AICc units of each "
+                   "other and none is rejected against mixed")
+
+
+def _nested_start(out, name, rows, far):
+    """Mixed's start from the solution of the nested model ``name`` (log scale)."""
+    p = np.exp(out["theta"][rows])
+    names = MODELS[name].param_names
+    get = {n: p[:, j] for j, n in enumerate(names)}
+    fill = far[rows]
+    kic = get.get("kic", get.get("ki", fill))
+    kiu = get.get("kiu", get.get("ki", fill))
+    return np.log(np.stack([get["vmax"], get["km"], kic, kiu], axis=1))
+
+
+def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, level,
+               determination_factor, fallback, max_iterations) -> MechanismBatch:
+    """Fit one chunk of compounds (the unit of work sent to a worker)."""
+    b = s.shape[0]
+    need_inhibition = any(m != "none" for m in models)
+    invalid_reason = _check_arrays(s, i, v, mask, sd if weighting == "sd" else None,
+                                   need_inhibition)
+    valid = invalid_reason == ""
+    # Invalid compounds take harmless stand-in data so the arrays stay computable.
+    mask = mask & valid[:, None]
+    rows = np.flatnonzero(valid)
+    weight_fallback = np.zeros(b, bool)
+    if weighting == "sd":
+        with np.errstate(divide="ignore"):
+            w = np.where(mask, 1.0 / np.where(mask, sd, 1.0), 0.0)
+    elif weighting == "relative":
+        w, weight_fallback = _relative_weights(s, i, v, mask, rows, max_iterations, fallback)
+    else:
+        w = mask.astype(float)
+    n_obs = mask.sum(axis=1)
+    with np.errstate(divide="ignore"):
+        sum_log_w = np.sum(np.where(mask, np.log(np.where(mask, w, 1.0)), 0.0), axis=1)
+    out: dict[str, dict] = {}
+    for name in models:
+        res = _empty_model(name, b, n_obs)
+        lower, upper = mechanism_log_bounds(name, s[rows], i[rows], v[rows], mask[rows])
+        start = np.log(mechanism_starts(name, s[rows], i[rows], v[rows], mask[rows], w[rows]))
+        result = _solve_model(name, s, i, v, mask, w, rows, start, lower, upper,
+                              max_iterations)
+        if name == "mixed":
+            far = np.zeros(b)
+            far[rows] = np.exp(upper[:, 2]) / _FAR_FACTOR
+            result = _mixed_multistart(out, s, i, v, mask, w, rows, result, lower, upper, far,
+                                       max_iterations)
+        _fill_from_engine(res, name, rows, result, s, i, mask, lower, upper, level,
+                          determination_factor)
+        if fallback:
+            for c in rows[~result.converged]:
+                _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor)
+        res["loglik"], res["aic"], res["aicc"], res["bic"] = _criteria(
+            res["ssr"], n_obs, res["n_params"], sum_log_w)
+        out[name] = res
+    # The tables keep the models' own order, whatever order they were fitted in.
+    out = {name: out[name] for name in MODEL_NAMES if name in out}
+    p_values = {pair: _f_tests(out, *pair) for pair in nested_pairs(tuple(out))}
+    options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc)
+    verdict, best, candidates, reason = _verdicts(out, p_values, valid, invalid_reason,
+                                                  options)
+    for c in np.flatnonzero(~valid):
+        for res in out.values():
+            res["reason"][c] = f"not fitted: {invalid_reason[c]}"
+    batches = {name: ModelBatch(**res) for name, res in out.items()}
+    return MechanismBatch(batches, verdict, best, candidates, reason, p_values, s, i, v, mask,
+                          w, valid, weight_fallback, weighting, options, level)
+
+
+class _Combined:
+    """The best of several LMResults per problem, with the fields _fill_from_engine reads."""
+
+    def __init__(self, theta, ssr, status, iterations, n_obs, covariance):
+        self.theta, self.ssr, self.status = theta, ssr, status
+        self.iterations, self.n_obs, self.covariance = iterations, n_obs, covariance
+
+    @property
+    def converged(self):
+        return self.status > 0
+
+    @property
+    def reason(self):
+        return lm.LMResult(self.theta, self.ssr, self.status, self.iterations, self.n_obs,
+                           self.n_obs, self.covariance, self.converged).reason
+
+    @property
+    def std_err(self):
+        with np.errstate(invalid="ignore"):
+            return np.sqrt(np.diagonal(self.covariance, axis1=1, axis2=2))
+
+
+def _mixed_multistart(out, s, i, v, mask, w, rows, first, lower, upper, far, max_iterations):
+    """fit_model's rule over mixed's starts: the first result, then any successful one
+    with a lower SSR (the starts of :func:`inhibkin.mechanism._mixed_starts`)."""
+    best = _Combined(first.theta.copy(), first.ssr.copy(), first.status.copy(),
+                     first.iterations.copy(), first.n_obs, first.covariance.copy())
+    position = np.full(s.shape[0], -1)
+    position[rows] = np.arange(rows.size)
+    for name in ("competitive", "uncompetitive", "noncompetitive"):
+        if name not in out:
+            continue
+        sub = rows[out[name]["converged"][rows]]
+        if not sub.size:
+            continue
+        at = position[sub]
+        start = _nested_start(out[name], name, sub, far)
+        result = _solve_model("mixed", s, i, v, mask, w, sub, start, lower[at], upper[at],
+                              max_iterations)
+        best.iterations[at] += result.iterations
+        better = result.converged & (~best.converged[at] | (result.ssr < best.ssr[at]))
+        take = at[better]
+        best.theta[take] = result.theta[better]
+        best.ssr[take] = result.ssr[better]
+        best.status[take] = result.status[better]
+        best.covariance[take] = result.covariance[better]
+    return best
+
+
+def _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor):
+    """Refit one (compound, model) with the lmfit path after the engine failed."""
+    keep = mask[c]
+    sc, ic, vc, wc = s[c, keep], i[c, keep], v[c, keep], w[c, keep]
+    starts = None
+    if name == "mixed":
+        fits = {m: _model_fit(ModelBatch(**out[m]), c, sc, ic, vc, level) for m in out}
+        starts = _mixed_starts(fits, sc, ic, vc, wc)
+    fit = fit_model(name, sc, ic, vc, wc, starts=starts, intervals="wald", level=level,
+                    determination_factor=determination_factor)
+    _fill_from_lmfit(res, c, fit)
+
+
+def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting="uniform",
+                         models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0, level=0.95,
+                         determination_factor=10.0, fallback=True,
+                         max_iterations=lm.MAX_ITERATIONS, client=None,
+                         chunk_size=None) -> MechanismBatch:
+    """Fit every mechanism to every compound of padded arrays and decide between them.
+
+    Parameters
+    ----------
+    s, i, v : array_like, shape (B, n)
+        Substrate and inhibitor concentrations and initial rates, one row per compound,
+        padded to a common width (see :func:`pad`). Units as in
+        :func:`inhibkin.mechanism.fit_mechanisms`: km in the substrate's unit, inhibition
+        constants in the inhibitor's, vmax in the rate's.
+    mask : array_like of bool, shape (B, n), optional
+        True for real points (default: all).
+    sd : array_like, shape (B, n), optional
+        Standard deviations of the rates, for ``weighting="sd"``.
+    weighting : {"uniform", "relative", "sd"}
+        As :func:`inhibkin.mechanism.fit_mechanisms`.
+    models : sequence of str
+        Models to fit, in fitting order; the verdict needs ``none`` and ``mixed``.
+    alpha, min_delta_aicc : float
+        Verdict thresholds (:class:`inhibkin.compare.VerdictOptions`).
+    level : float
+        Confidence level of the (log-scale Wald) intervals.
+    determination_factor : float
+        As :func:`inhibkin.fitting.fit_model`.
+    fallback : bool
+        Refit with the lmfit path every fit the engine does not converge (counted in
+        :attr:`MechanismBatch.n_fallback`).
+    max_iterations : int
+        Engine iteration bound per fit.
+    client : dask.distributed.Client, optional
+        Run the chunks on this cluster's workers.
+    chunk_size : int, optional
+        Compounds per chunk (default: one chunk locally, and
+        :data:`inhibkin.engine.chunks.DEFAULT_CHUNK_SIZE` on a client).
+
+    Returns
+    -------
+    MechanismBatch
+        Every input compound appears once; compounds whose data cannot be fitted have
+        the verdict ``failed`` and say why.
+    """
+    if weighting not in WEIGHTINGS:
+        raise DataError(f"weighting must be one of {WEIGHTINGS}, got {weighting!r}")
+    if weighting == "sd" and sd is None:
+        raise DataError("weighting='sd' needs sd=, the standard deviations of the rates")
+    unknown = [m for m in models if m not in MODELS]
+    if unknown:
+        raise DataError(f"unknown models {unknown}; known: {', '.join(MODELS)}")
+    s = np.atleast_2d(np.asarray(s, dtype=float))
+    i = np.asarray(i, dtype=float).reshape(s.shape)
+    v = np.asarray(v, dtype=float).reshape(s.shape)
+    mask = np.ones(s.shape, bool) if mask is None else np.asarray(mask, bool).reshape(s.shape)
+    sd = None if sd is None else np.asarray(sd, dtype=float).reshape(s.shape)
+    options = dict(weighting=weighting, models=tuple(models), alpha=alpha,
+                   min_delta_aicc=min_delta_aicc, level=level,
+                   determination_factor=determination_factor, fallback=fallback,
+                   max_iterations=max_iterations)
+    arrays = (s, i, v, mask, sd)
+    parts = run_chunks(_fit_chunk, arrays, options, client=client, chunk_size=chunk_size)
+    return concat_batches(parts)
+
+
+def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition):
+    """Validated per-compound arrays, or the DataError text for each bad compound."""
+    groups, labels, errors = [], [], []
+    for key, item in items:
+        try:
+            if isinstance(item, pd.DataFrame):
+                sc, ic, vc, sdc = check_grid(item, substrate=substrate, inhibitor=inhibitor,
+                                             rate=rate, sd=sd if weighting == "sd" else None,
+                                             need_inhibition=need_inhibition,
+                                             context=f"compound {key!r}")
+                index = item.index
+            else:
+                arrays = [np.asarray(a, dtype=float) for a in item]
+                sc, ic, vc = arrays[:3]
+                sdc = arrays[3] if len(arrays) > 3 else None
+                index = pd.RangeIndex(len(vc))
+        except DataError as exc:
+            groups.append((np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0)))
+            labels.append(pd.RangeIndex(0))
+            errors.append(str(exc))
+            continue
+        sdc = np.ones_like(vc) if sdc is None else sdc
+        groups.append((sc, ic, vc, sdc))
+        labels.append(index)
+        errors.append("")
+    return groups, labels, errors
+
+
+def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="inhibitor",
+                         rate="rate", sd=None, weighting="uniform", models=MODEL_NAMES,
+                         alpha=0.05, min_delta_aicc=2.0, level=0.95,
+                         determination_factor=10.0, fallback=True,
+                         max_iterations=lm.MAX_ITERATIONS, client=None, chunk_size=None):
+    """:func:`inhibkin.mechanism.fit_mechanisms` (Wald intervals) for many compounds at once.
+
+    Parameters
+    ----------
+    tables_or_arrays : mapping or sequence
+        One entry per compound: a DataFrame (columns named by ``substrate``,
+        ``inhibitor``, ``rate`` and ``sd``) or a tuple of arrays ``(s, i, v[, sd])``. A
+        mapping keeps its keys as compound labels.
+    substrate, inhibitor, rate, sd : str
+        Column names, as in :func:`~inhibkin.mechanism.fit_mechanisms`.
+    weighting, models, alpha, min_delta_aicc, level, determination_factor : see
+        :func:`fit_mechanism_arrays`.
+    fallback, max_iterations, client, chunk_size : see :func:`fit_mechanism_arrays`.
+
+    Returns
+    -------
+    list or dict of MechanismFit
+        In input order (a dict for mapping input). A compound whose table fails
+        validation gets the verdict ``failed`` with the validation message as reason;
+        it never stops the others.
+    """
+    is_mapping = isinstance(tables_or_arrays, Mapping)
+    items = list(tables_or_arrays.items()) if is_mapping else \
+        list(enumerate(tables_or_arrays))
+    need_inhibition = any(m != "none" for m in models)
+    groups, labels, errors = _as_groups(items, substrate, inhibitor, rate, sd, weighting,
+                                        need_inhibition)
+    if not groups:
+        return {} if is_mapping else []
+    s, i, v, sdv, mask = pad(groups)
+    if s.shape[1] == 0:
+        s, i, v, sdv = (np.zeros((len(groups), 1)) for _ in range(4))
+        mask = np.zeros((len(groups), 1), bool)
+    batch = fit_mechanism_arrays(s, i, v, mask, sd=sdv if weighting == "sd" else None,
+                                 weighting=weighting, models=models, alpha=alpha,
+                                 min_delta_aicc=min_delta_aicc, level=level,
+                                 determination_factor=determination_factor, fallback=fallback,
+                                 max_iterations=max_iterations, client=client,
+                                 chunk_size=chunk_size)
+    fits = []
+    for c, error in enumerate(errors):
+        fit = batch._one(c, labels[c])
+        if error:
+            fit = MechanismFit("failed", None, (), error, fit.models, fit.comparison,
+                               fit.ftests, fit.data, fit.weighting, fit.options)
+        fits.append(fit)
+    if is_mapping:
+        return {key: fit for (key, _), fit in zip(items, fits)}
+    return fits
+
