@@ -1,31 +1,385 @@
-"""The ``inhibkin`` command line: one subcommand per stage, a thin layer over the API."""
+"""The ``inhibkin`` command line: one subcommand per stage, a thin layer over the API.
+
+Every stage reads CSV or Parquet and writes CSV or Parquet (by file suffix), atomically.
+Exit status: 0 when every compound was fitted, 1 when some compounds failed (all
+results are still written, each failure with its reason), 2 when the input cannot be
+used at all (the problems are listed on stderr, and nothing is written).
+
+Adding a stage is one arguments function, one run function and one entry in
+:data:`SUBCOMMANDS`.
+"""
 
 from __future__ import annotations
 
 import argparse
 import sys
+from collections.abc import Callable
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
 
-__all__ = ["main"]
+from .errors import DataError, InhibkinError, Problem
+
+__all__ = ["main", "build_parser", "Subcommand", "SUBCOMMANDS"]
+
+EXIT_OK = 0
+EXIT_SOME_FAILED = 1
+EXIT_UNUSABLE_INPUT = 2
+
+# Seconds to wait for a Dask scheduler before giving up.
+_SCHEDULER_TIMEOUT = "20s"
+
+
+@dataclass(frozen=True)
+class Subcommand:
+    """One stage of the command line.
+
+    Attributes
+    ----------
+    name, help : str
+        The subcommand and its one-line description.
+    example : str
+        A worked example shown at the end of ``--help``.
+    arguments : callable
+        ``arguments(parser)`` adds the stage's own options.
+    run : callable
+        ``run(args) -> exit status``.
+    parallel : bool
+        Whether the stage takes ``--workers`` and ``--scheduler``.
+    """
+
+    name: str
+    help: str
+    example: str
+    arguments: Callable[[argparse.ArgumentParser], None]
+    run: Callable[[argparse.Namespace], int]
+    parallel: bool = True
+
+
+# ---------------------------------------------------------------- shared helpers
+
+
+def _units(pairs) -> dict:
+    """``["inhibitor=nM", "substrate=uM"]`` → ``{"inhibitor": "nM", "substrate": "uM"}``."""
+    out = {}
+    for pair in pairs or []:
+        name, sep, unit = pair.partition("=")
+        if not sep or not name or not unit:
+            raise DataError(Problem("--units", None, pair, "write NAME=UNIT, e.g. inhibitor=nM"))
+        out[name.strip()] = unit.strip()
+    return out
+
+
+def _check_output(path) -> Path:
+    """Refuse an output path we could not write *before* the work starts."""
+    from .io import TABLE_FORMATS
+
+    path = Path(path)
+    if path.suffix.lower() not in TABLE_FORMATS:
+        raise DataError(Problem("--output", None, str(path),
+                                f"unknown table format; use one of {', '.join(TABLE_FORMATS)}"))
+    if not (path.parent if str(path.parent) else Path(".")).is_dir():
+        raise DataError(Problem("--output", None, str(path), "the directory does not exist"))
+    return path
+
+
+@contextmanager
+def _execution(args):
+    """workers= / client= for fit_campaign, from --workers and --scheduler."""
+    if getattr(args, "scheduler", None):
+        if args.workers is not None:
+            raise DataError("give --workers or --scheduler, not both")
+        try:
+            from distributed import Client
+        except ImportError:
+            raise DataError("--scheduler needs dask.distributed: pip install "
+                            "'inhibkin[dask]'") from None
+        try:
+            client = Client(args.scheduler, timeout=_SCHEDULER_TIMEOUT)
+        except (OSError, TimeoutError) as err:
+            raise DataError(Problem("--scheduler", None, args.scheduler,
+                                    f"cannot reach the Dask scheduler ({err})")) from None
+        with client:
+            yield {"client": client}
+    else:
+        yield {"workers": getattr(args, "workers", None)}
+
+
+def _fit_options(args) -> dict:
+    return dict(compound=args.compound, units=_units(args.units), weighting=args.weighting,
+                intervals=args.intervals, level=args.level, quiet=args.quiet,
+                chunk_size=args.chunk_size)
+
+
+def _finish(campaign, output, args) -> int:
+    """Write the ranking, report on stdout/stderr, and choose the exit status."""
+    from .io import write_table
+
+    write_table(campaign.ranking, output)
+    if not args.quiet:
+        print(campaign.summary())
+    n_failed = campaign.counts["failed"]
+    if n_failed:
+        print(f"inhibkin {args.command}: {n_failed} of {len(campaign.ranking)} compounds "
+              f"failed; their reasons are in the 'reason' column of {output}", file=sys.stderr)
+        return EXIT_SOME_FAILED
+    return EXIT_OK
+
+
+def _km(text):
+    """--km: a concentration with its unit (in M), or a column name."""
+    from .batch import parse_concentration
+
+    if text is None:
+        return None
+    if text[:1].isdigit() or text[:1] == ".":
+        return parse_concentration(text)
+    return text
+
+
+def _fit_arguments(parser):
+    parser.add_argument("-o", "--output", required=True, help="ranked table (.csv or .parquet)")
+    parser.add_argument("--units", action="append", metavar="NAME=UNIT",
+                        help="declare a concentration unit when the header does not carry "
+                             "one (repeatable), e.g. --units inhibitor=nM")
+    parser.add_argument("--compound", default="compound", help="compound column")
+    parser.add_argument("--weighting", choices=("uniform", "relative", "sd"), default="uniform",
+                        help="grid fit weights: uniform, relative (constant CV) or sd")
+    parser.add_argument("--intervals", choices=("wald", "profile"), default="wald",
+                        help="confidence intervals: wald (fast, default) or profile")
+    parser.add_argument("--level", type=float, default=0.95, help="confidence level")
+    parser.add_argument("--chunk-size", type=int, default=32, help="compounds per task")
+
+
+def _dose_arguments(parser):
+    parser.add_argument("--km", help="Km for the IC50 to Ki conversion, with its unit "
+                                     "(e.g. 20uM), or the name of a Km column")
+    parser.add_argument("--enzyme", help="active enzyme concentration with its unit (e.g. "
+                                         "2nM) or a column; enables the tight-binding flag")
+    parser.add_argument("--default-mechanism", default="competitive",
+                        choices=("competitive", "uncompetitive", "noncompetitive"),
+                        help="mechanism assumed for compounds without a grid fit")
+
+
+def _dose_options(args) -> dict:
+    return dict(km=_km(args.km), enzyme=_km(args.enzyme),
+                potency_options={"default_mechanism": args.default_mechanism})
+
+
+# ---------------------------------------------------------------- stages
+
+
+def _rates_arguments(parser):
+    parser.add_argument("reads", help="kinetic reads: plate, well, time, signal")
+    parser.add_argument("--plate-map", required=True,
+                        help="one row per well: plate, well, compound, substrate_<unit>, "
+                             "inhibitor_<unit>, role")
+    parser.add_argument("-o", "--output", required=True, help="initial-rate table")
+    parser.add_argument("--time-unit", default="s", choices=("s", "ms", "min", "h"))
+    parser.add_argument("--rate-time-unit", choices=("s", "ms", "min", "h"))
+    parser.add_argument("--method", choices=("linear", "curve"), default="linear")
+    parser.add_argument("--chromophore", help="convert absorbance by Beer–Lambert, e.g. NADH")
+    parser.add_argument("--path-length", type=float, default=1.0, help="cm (with --chromophore)")
+    parser.add_argument("--signal-unit", help="concentration unit of the signal, when it is "
+                                              "already a concentration")
+    parser.add_argument("--direction", choices=("increase", "decrease"), default="increase")
+    parser.add_argument("--units", action="append", metavar="NAME=UNIT",
+                        help="substrate=UNIT / inhibitor=UNIT when the plate map's headers "
+                             "carry none")
+
+
+def _rates(args) -> int:
+    from .io import read_table, write_table
+    from .rates import initial_rates
+    from .signal import BeerLambert
+    from .units import resolve_units
+
+    output = _check_output(args.output)
+    reads, plate_map = read_table(args.reads), read_table(args.plate_map)
+    found = resolve_units(plate_map.columns, ["substrate", "inhibitor"],
+                          units=_units(args.units), context="plate map")
+    (substrate, substrate_unit), (inhibitor, inhibitor_unit) = (found["substrate"],
+                                                                found["inhibitor"])
+    conversion = (BeerLambert.of(args.chromophore, path_length=args.path_length)
+                  if args.chromophore else None)
+    result = initial_rates(reads, plate_map, time_unit=args.time_unit,
+                           rate_time_unit=args.rate_time_unit, method=args.method,
+                           conversion=conversion, signal_unit=args.signal_unit,
+                           substrate=substrate, inhibitor=inhibitor,
+                           substrate_unit=substrate_unit, inhibitor_unit=inhibitor_unit,
+                           direction=args.direction)
+    write_table(result.to_frame(), output)
+    if not args.quiet:
+        print(result.summary())
+    n_failed = int((result.table["status"] == "failed").sum())
+    if n_failed:
+        print(f"inhibkin rates: {n_failed} wells failed; see the 'flags' and 'status' columns "
+              f"of {output}", file=sys.stderr)
+        return EXIT_SOME_FAILED
+    return EXIT_OK
+
+
+def _mechanism_arguments(parser):
+    parser.add_argument("grid", help="substrate × inhibitor rates: compound, substrate_<unit>, "
+                                     "inhibitor_<unit>, rate")
+    _fit_arguments(parser)
+    parser.add_argument("--params", help="also write every model's parameters of every "
+                                         "compound (tidy table)")
+
+
+def _mechanism(args) -> int:
+    from .batch import fit_campaign
+    from .io import read_table, write_table
+
+    output = _check_output(args.output)
+    params = _check_output(args.params) if args.params else None
+    table = read_table(args.grid)
+    with _execution(args) as where:
+        campaign = fit_campaign(table, **_fit_options(args), **where)
+    if params is not None:
+        write_table(campaign.parameters(), params)
+    return _finish(campaign, output, args)
+
+
+def _potency_arguments(parser):
+    parser.add_argument("plates", help="dose-response wells: compound, plate, role "
+                                       "(sample/max/min), inhibitor_<unit>, signal, "
+                                       "substrate_<unit>")
+    _fit_arguments(parser)
+    _dose_arguments(parser)
+
+
+def _potency(args) -> int:
+    from .batch import fit_campaign
+    from .io import read_table
+
+    output = _check_output(args.output)
+    table = read_table(args.plates)
+    with _execution(args) as where:
+        campaign = fit_campaign(dose_response=table, **_dose_options(args),
+                                **_fit_options(args), **where)
+    return _finish(campaign, output, args)
+
+
+def _rank_arguments(parser):
+    parser.add_argument("--grid", help="substrate × inhibitor rate table")
+    parser.add_argument("--dose-response", help="dose-response well table")
+    _fit_arguments(parser)
+    _dose_arguments(parser)
+
+
+def _rank(args) -> int:
+    from .batch import fit_campaign
+    from .io import read_table
+
+    if not args.grid and not args.dose_response:
+        raise DataError("give --grid, --dose-response, or both")
+    output = _check_output(args.output)
+    grid = read_table(args.grid) if args.grid else None
+    dose = read_table(args.dose_response) if args.dose_response else None
+    dose_options = _dose_options(args) if dose is not None else {}
+    with _execution(args) as where:
+        campaign = fit_campaign(grid, dose_response=dose, **dose_options, **_fit_options(args),
+                                **where)
+    return _finish(campaign, output, args)
+
+
+def _simulate_arguments(parser):
+    parser.add_argument("-o", "--output", required=True, help="simulated grid table")
+    parser.add_argument("--compounds", type=int, default=20, help="number of compounds")
+    parser.add_argument("--seed", type=int, required=True, help="random seed")
+    parser.add_argument("--cv", type=float, default=0.05, help="coefficient of variation")
+    parser.add_argument("--truth", help="also write the true mechanisms and Ki")
+
+
+def _simulate(args) -> int:
+    from .batch import simulate_campaign
+    from .io import write_table
+
+    output = _check_output(args.output)
+    truth_path = _check_output(args.truth) if args.truth else None
+    if args.compounds < 1:
+        raise DataError(Problem("--compounds", None, args.compounds, "must be at least 1"))
+    table, truth = simulate_campaign(args.compounds, seed=args.seed, cv=args.cv)
+    write_table(table, output)
+    if truth_path is not None:
+        write_table(truth, truth_path)
+    if not args.quiet:
+        print(f"wrote {len(table)} rows for {args.compounds} simulated compounds to {output}")
+    return EXIT_OK
+
+
+def _demo_arguments(parser):
+    """The demo takes no options of its own."""
 
 
 def _demo(args) -> int:
     from .demo import run_demo
 
     print(run_demo())
-    return 0
+    return EXIT_OK
+
+
+SUBCOMMANDS = [
+    Subcommand(
+        "rates", "initial rates from kinetic reads and a plate map",
+        "inhibkin rates reads.csv --plate-map plate_map.csv --time-unit min "
+        "--chromophore NADH --direction decrease -o rates.csv",
+        _rates_arguments, _rates, parallel=False),
+    Subcommand(
+        "mechanism", "fit every mechanism to each compound's substrate × inhibitor grid",
+        "inhibkin mechanism rates.csv --weighting relative -o mechanisms.csv "
+        "--params parameters.csv --workers 2",
+        _mechanism_arguments, _mechanism),
+    Subcommand(
+        "potency", "IC50, Hill slope and Ki from dose-response plates",
+        "inhibkin potency plates.csv --km 20uM -o potency.csv",
+        _potency_arguments, _potency),
+    Subcommand(
+        "rank", "the whole campaign: grids and dose-response curves, ranked by pKi",
+        "inhibkin simulate --compounds 50 --seed 1 -o grid.csv\n"
+        "  inhibkin rank --grid grid.csv --weighting relative -o ranking.csv --workers 2\n"
+        "  inhibkin rank --grid grid.csv --dose-response plates.csv --km 20uM -o ranking.parquet"
+        " --scheduler tcp://127.0.0.1:8786",
+        _rank_arguments, _rank),
+    Subcommand(
+        "simulate", "a seeded simulated campaign of known mechanisms and Ki (for trials)",
+        "inhibkin simulate --compounds 200 --seed 7 --cv 0.05 -o grid.csv --truth truth.csv",
+        _simulate_arguments, _simulate, parallel=False),
+    Subcommand("demo", "run the demo flow on invented data", "inhibkin demo",
+               _demo_arguments, _demo, parallel=False),
+]
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="inhibkin", description=__doc__)
+    """The parser of every subcommand in :data:`SUBCOMMANDS`."""
+    parser = argparse.ArgumentParser(prog="inhibkin", description=__doc__,
+                                     formatter_class=argparse.RawDescriptionHelpFormatter)
     sub = parser.add_subparsers(dest="command", required=True)
-    demo = sub.add_parser("demo", help="run the demo flow on invented data")
-    demo.set_defaults(handler=_demo)
+    for command in SUBCOMMANDS:
+        stage = sub.add_parser(command.name, help=command.help, description=command.help,
+                               epilog=f"example:\n  {command.example}",
+                               formatter_class=argparse.RawDescriptionHelpFormatter)
+        command.arguments(stage)
+        stage.add_argument("--quiet", action="store_true",
+                           help="no progress bar and no summary on stdout")
+        if command.parallel:
+            stage.add_argument("--workers", type=int, metavar="N",
+                               help="local worker processes")
+            stage.add_argument("--scheduler", metavar="ADDRESS",
+                               help="run on a Dask cluster, e.g. tcp://10.0.0.5:8786")
+        stage.set_defaults(handler=command.run)
     return parser
 
 
 def main(argv=None) -> int:
+    """Run one subcommand; returns the exit status (0, 1 or 2, see the module notes)."""
     args = build_parser().parse_args(argv)
-    return args.handler(args)
+    try:
+        return args.handler(args)
+    except InhibkinError as err:
+        print(f"inhibkin {args.command}: {err}", file=sys.stderr)
+        return EXIT_UNUSABLE_INPUT
 
 
 if __name__ == "__main__":

@@ -1,7 +1,8 @@
 """Tables in and out: CSV or Parquet, read with clear errors, written atomically.
 
 Reading refuses a file that cannot be trusted — missing, empty, not text, a row with
-more or fewer fields than the header, a last line cut short — with a
+more or fewer fields than the header, a CSV that does not end with a line break (the
+trace of a cut, even one inside the last value) — with a
 :class:`~inhibkin.errors.DataError` that names the file and the line. Writing goes to a
 temporary file in the destination's directory and is then renamed over the destination
 (:func:`os.replace`, atomic on POSIX and Windows), so an interrupted run never leaves a
@@ -61,9 +62,13 @@ def _check_csv_shape(path: Path, context: str) -> None:
         size = raw.tell()
         raw.seek(max(size - 1, 0))
         ends_with_newline = raw.read(1) in (b"\n", b"\r")
-    if not ends_with_newline and last_fields != width:
+    if not ends_with_newline:
+        # A file cut inside its last value still has every field, so the missing line
+        # break is the only trace of the cut; refusing it is safer than reading 0.12
+        # where the file said 0.1234.
         raise DataError(f"the file ends in the middle of line {last_line} ({last_fields} of "
-                        f"{width} fields); it looks truncated", context)
+                        f"{width} fields, no final line break); it looks truncated. If it "
+                        f"is complete, end it with a line break", context)
     if problems:
         extra = len(problems) - _MAX_LINES_LISTED
         problems = problems[:_MAX_LINES_LISTED]
@@ -89,7 +94,8 @@ def read_table(path) -> pd.DataFrame:
     ------
     DataError
         When the file is missing, empty, not UTF-8 text, malformed (a row whose number
-        of fields differs from the header's), truncated, an unreadable Parquet file, or
+        of fields differs from the header's), truncated (a CSV without a final line
+        break counts as truncated), an unreadable Parquet file, or
         has a header but no rows. The message names the file (and the line for CSV).
     """
     path = Path(path)

@@ -43,10 +43,14 @@ def test_ragged_csv_lists_every_bad_line(tmp_path):
     assert "ragged.csv" in text and "line 2: 4 fields" in text and "line 3: 2 fields" in text
 
 
-def test_last_line_without_newline_is_accepted_when_complete(tmp_path):
-    path = tmp_path / "ok.csv"
-    path.write_text("compound,rate\nA,1.5")
-    assert read_table(path)["rate"].tolist() == [1.5]
+def test_cut_inside_the_last_value_is_caught(tmp_path):
+    # Every field is there, but "1.5" was "1.53"; only the missing line break shows it.
+    path = tmp_path / "cut.csv"
+    path.write_text("compound,rate\nA,1.53\nB,1.5")
+    with pytest.raises(DataError, match="truncated.*end it with a line break"):
+        read_table(path)
+    path.write_text("compound,rate\nA,1.53\nB,1.5\n")
+    assert read_table(path)["rate"].tolist() == [1.53, 1.5]
 
 
 @pytest.mark.parametrize("content, message", [("", "empty"), ("compound,rate\n", "no rows")])
