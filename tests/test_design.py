@@ -1,0 +1,202 @@
+"""plan_grid: the criterion, the search, the simulated comparison, the result, bad input."""
+
+import dataclasses
+import itertools
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from inhibkin.design import (
+    GridPlan,
+    call_outcome,
+    design_criterion,
+    naive_levels,
+    plan_grid,
+)
+from inhibkin.errors import DataError
+from inhibkin.models import MODELS
+
+CRITERION_RTOL = 1e-6
+FINITE_DIFFERENCE_STEP = 1e-6
+# A dilution-series set-up where evenly spaced levels waste most wells: the series span
+# far more than the prior ranges (2-fold substrate 0.05-102, 3-fold inhibitor 0.001-59).
+SCENARIO = dict(
+    km_range=(1.0, 5.0),
+    ki_range=(0.05, 0.5),
+    n_wells=96,
+    substrate_choices=[0.05 * 2**k for k in range(12)],
+    inhibitor_choices=[0.001 * 3**k for k in range(11)],
+    cv=0.05,
+    replicates=2,
+)
+N_SIMULATIONS = 120
+SIGNIFICANCE = 0.05
+
+
+@pytest.fixture(scope="module")
+def plan() -> GridPlan:
+    return plan_grid(**SCENARIO, n_simulations=N_SIMULATIONS, seed=8)
+
+
+def _criterion_by_finite_differences(s, i, *, km_range, ki_range, cv, floor_sd, replicates,
+                                     n_prior, seed):
+    """The same criterion from central differences of the rate (not the analytic
+    Jacobian), with the same prior draws."""
+    rng = np.random.default_rng(seed)
+    lo = np.log([km_range[0], ki_range[0], ki_range[0]])
+    hi = np.log([km_range[1], ki_range[1], ki_range[1]])
+    draws = np.exp(lo + (hi - lo) * rng.random((n_prior, 3)))
+    ss, ii = (a.ravel() for a in np.meshgrid(s, i, indexing="ij"))
+    rate = MODELS["mixed"].rate
+    values = []
+    for km, kic, kiu in draws:
+        theta = np.log([1.0, km, kic, kiu])
+        v = rate(ss, ii, *np.exp(theta))
+        sigma = np.sqrt((cv * v) ** 2 + floor_sd**2)
+        cols = []
+        for k in range(4):
+            step = np.zeros(4)
+            step[k] = FINITE_DIFFERENCE_STEP
+            up = rate(ss, ii, *np.exp(theta + step))
+            down = rate(ss, ii, *np.exp(theta - step))
+            cols.append((up - down) / (2 * FINITE_DIFFERENCE_STEP))
+        g = np.stack(cols, axis=1) / sigma[:, None]
+        m = replicates * g.T @ g
+        values.append(np.linalg.slogdet(m)[1] - np.linalg.slogdet(m[:2, :2])[1])
+    return float(np.mean(values))
+
+
+def test_criterion_matches_finite_difference_information():
+    s = np.array([0.5, 1, 2, 4, 8, 16])
+    i = np.array([0, 0.1, 0.3, 1.0])
+    common = dict(km_range=(1, 5), ki_range=(0.05, 0.5), cv=0.05, floor_sd=0.01,
+                  replicates=2, n_prior=16, seed=3)
+    got = design_criterion(s, i, **common)
+    assert got == pytest.approx(_criterion_by_finite_differences(s, i, **common),
+                                rel=CRITERION_RTOL)
+
+
+def test_criterion_is_minus_infinity_without_inhibitor():
+    value = design_criterion([1, 2, 4, 8], [0.0], km_range=(1, 5), ki_range=(0.1, 1))
+    assert value == -np.inf
+
+
+def test_naive_levels_span_the_series_evenly():
+    series = [1, 2, 4, 8, 16, 32, 64]
+    assert naive_levels(series, 4).tolist() == [1, 4, 16, 64]
+
+
+def test_plan_beats_naive_grid_on_its_own_criterion(plan):
+    assert plan.criterion_value > plan.naive_criterion_value
+    # the naive value is the criterion of the naive grid, recomputed independently
+    again = design_criterion(plan.naive_substrate, plan.naive_inhibitor,
+                             km_range=SCENARIO["km_range"], ki_range=SCENARIO["ki_range"],
+                             cv=SCENARIO["cv"], replicates=SCENARIO["replicates"], seed=8)
+    assert again == pytest.approx(plan.naive_criterion_value, rel=CRITERION_RTOL)
+
+
+def test_plan_beats_naive_grid_in_simulation(plan):
+    # Paired comparison on the same truths and noise draws: exact binomial (sign) test
+    # on the discordant pairs (McNemar's test; scipy.stats.binomtest).
+    sims = plan.simulations.pivot(index="simulation", columns="grid", values="outcome")
+    better = int(((sims["proposed"] == "correct") & (sims["naive"] != "correct")).sum())
+    worse = int(((sims["proposed"] != "correct") & (sims["naive"] == "correct")).sum())
+    print(f"correct: proposed {plan.correct_rate:.1%}, naive {plan.naive_correct_rate:.1%};"
+          f" discordant pairs {better} better / {worse} worse")
+    assert plan.correct_rate > plan.naive_correct_rate
+    assert stats.binomtest(better, better + worse, 0.5, alternative="greater").pvalue < \
+        SIGNIFICANCE
+
+
+def test_plan_is_a_local_optimum_within_budget_and_series(plan):
+    assert plan.wells_used <= SCENARIO["n_wells"]
+    assert set(plan.substrate) <= set(SCENARIO["substrate_choices"])
+    assert 0.0 in plan.inhibitor
+    assert set(plan.inhibitor) - {0.0} <= set(SCENARIO["inhibitor_choices"])
+    common = dict(km_range=SCENARIO["km_range"], ki_range=SCENARIO["ki_range"],
+                  cv=SCENARIO["cv"], replicates=SCENARIO["replicates"], seed=8)
+    best = design_criterion(plan.substrate, plan.inhibitor, **common)
+    assert best == pytest.approx(plan.criterion_value, rel=CRITERION_RTOL)
+    unused = [x for x in SCENARIO["substrate_choices"] if x not in plan.substrate]
+    for pos, new in itertools.product(range(len(plan.substrate)), unused):
+        trial = list(plan.substrate)
+        trial[pos] = new
+        assert design_criterion(trial, plan.inhibitor, **common) <= best + 1e-9
+
+
+def test_exchange_finds_the_exhaustive_optimum_on_a_small_problem():
+    s_choices = [0.25, 0.5, 1, 2, 4, 8, 16]
+    i_choices = [0.03, 0.1, 0.3, 1, 3]
+    small = dict(km_range=(1, 4), ki_range=(0.1, 1), cv=0.05, replicates=1, seed=5)
+    plan = plan_grid(n_wells=12, substrate_choices=s_choices, inhibitor_choices=i_choices,
+                     n_simulations=0, **small)
+    best = -np.inf
+    for n_s, n_i in ((4, 3),):
+        for s in itertools.combinations(s_choices, n_s):
+            for i in itertools.combinations(i_choices, n_i - 1):
+                best = max(best, design_criterion(s, (0.0, *i), **small))
+    assert plan.criterion_value == pytest.approx(best, rel=CRITERION_RTOL)
+
+
+def test_result_reports_and_is_frozen(plan):
+    text = plan.summary()
+    assert "proposed substrate" in text and "naive" in text and "Ds-optimality" in text
+    assert "<pre>" in plan._repr_html_()
+    frame = plan.to_frame()
+    assert set(frame["grid"]) == {"proposed", "naive"}
+    assert len(frame) == 2 * (len(plan.substrate) + len(plan.inhibitor))
+    layout = plan.layout()
+    assert len(layout) == plan.wells_used
+    rates = plan.rates()
+    assert rates.loc[("proposed", "all"), "n"] == N_SIMULATIONS
+    assert rates.loc[("proposed", "all"), "correct"] == pytest.approx(plan.correct_rate)
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        plan.replicates = 3
+
+
+def test_same_seed_same_plan():
+    kw = dict(SCENARIO, n_simulations=4, seed=11)
+    a, b = plan_grid(**kw), plan_grid(**kw)
+    assert a.substrate == b.substrate and a.inhibitor == b.inhibitor
+    assert a.simulations.equals(b.simulations)
+
+
+@pytest.mark.parametrize(
+    "edit, pattern",
+    [
+        ({"km_range": (5, 1)}, "km_range must satisfy 0 < low <= high"),
+        ({"ki_range": "tight"}, "ki_range must be a pair"),
+        ({"substrate_choices": [1, 2, -4, 8]}, "substrate_choices must hold finite"),
+        ({"substrate_choices": [1, 2, 4]}, "substrate_choices has 3 distinct levels"),
+        ({"inhibitor_choices": [0.1]}, "inhibitor_choices has 1 non-zero levels"),
+        ({"n_wells": 10}, "n_wells = 10 cannot hold the smallest grid"),
+        ({"cv": 0}, "cv must be a positive number"),
+        ({"replicates": 1.5}, "replicates must be an integer"),
+    ],
+)
+def test_bad_input_raises_data_error_naming_the_argument(edit, pattern):
+    with pytest.raises(DataError, match=pattern):
+        plan_grid(**{**SCENARIO, **edit, "n_simulations": 0})
+
+
+def test_every_input_problem_is_listed():
+    with pytest.raises(DataError) as info:
+        plan_grid(**{**SCENARIO, "km_range": (0, 1), "cv": -1, "n_simulations": 0})
+    assert len(info.value.problems) == 2
+
+
+@pytest.mark.parametrize(
+    "truth, verdict, expected",
+    [
+        ("competitive", "competitive", "correct"),
+        ("competitive", "mixed", "larger"),
+        ("none", "competitive", "larger"),
+        ("competitive", "none", "missed"),
+        ("competitive", "noncompetitive", "wrong"),
+        ("mixed", "competitive", "wrong"),
+        ("mixed", "ambiguous", "ambiguous"),
+    ],
+)
+def test_call_outcome_classes(truth, verdict, expected):
+    assert call_outcome(truth, verdict) == expected
