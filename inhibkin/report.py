@@ -28,9 +28,9 @@ import pandas as pd
 from jinja2 import Environment, PackageLoader, select_autoescape
 
 from . import figures
-from .errors import DataError
+from .errors import DataError, UnitsError
 from .fitting import format_estimate
-from .units import from_molar
+from .units import from_molar, normalise_unit, to_molar
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
            "CAUTIONS"]
@@ -183,8 +183,23 @@ def _ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
     return rows
 
 
+def _log_molar_shift(unit) -> float | None:
+    """log10 of the unit in molar (−6 for µM), or None when the unit is not a concentration."""
+    try:
+        return float(np.log10(to_molar(1.0, normalise_unit(unit))))
+    except (UnitsError, KeyError, ValueError):
+        return None
+
+
 def _potency_context(potency, conc_unit, max_figures, dpi) -> dict:
-    table = potency.table
+    table = potency.table.copy()
+    # potency_table reports −log10 in the concentration's own unit; shown as true
+    # pIC50/pKi (from molar) whenever that unit is a known concentration unit.
+    shift = _log_molar_shift(conc_unit) if conc_unit else None
+    p_label = "" if shift is not None else f" (−log10 of {conc_unit or 'the unit'})"
+    if shift is not None:
+        table["pic50"] = table["pic50"] - shift
+        table["pki"] = table["pki"] - shift
     rows = []
     for _, r in table.iterrows():
         ic50 = r["ic50_bound"] if isinstance(r["ic50_bound"], str) and r["ic50_bound"] else (
@@ -199,8 +214,9 @@ def _potency_context(potency, conc_unit, max_figures, dpi) -> dict:
                      _cell(_num(r["pki"], "{:.2f}"), r["pki"]), _cell(r["mechanism"]),
                      _cell(r["ki_method"]), _cell(r["flags"]), _cell(r["reason"])])
     unit = f" ({conc_unit})" if conc_unit else ""
-    columns = ["compound", "status", "plate", f"IC50{unit} [95% CI]", "pIC50", "Hill",
-               f"Ki{unit} [95% CI]", "pKi", "mechanism", "Ki method", "flags", "reason"]
+    columns = ["compound", "status", "plate", f"IC50{unit} [95% CI]", f"pIC50{p_label}", "Hill",
+               f"Ki{unit} [95% CI]", f"pKi{p_label}", "mechanism", "Ki method", "flags",
+               "reason"]
     fitted = table[table["status"] == "ok"].sort_values("pic50", ascending=False,
                                                        na_position="last")
     shown = [c for c in fitted["compound"] if c in potency.fits][:max_figures]
