@@ -5,9 +5,11 @@ comparison and a verdict, Ki and pKi with honest intervals, and dose-response po
 converted to Ki. Results are statistical estimates for research triage.
 """
 
+from .batch import Campaign, fit_campaign, simulate_campaign
 from .compare import VerdictOptions
 from .errors import DataError, FitError, InhibkinError, InhibkinWarning, UnitsError
 from .fitting import ModelFit, fit_michaelis_menten
+from .io import read_table, write_table
 from .mechanism import MechanismFit, fit_mechanisms
 from .models import MODELS, RateLaw
 from .plates import PlateQC, plate_qc, z_prime
@@ -24,10 +26,18 @@ from .potency import (
 from .rates import InitialRates, initial_rates
 from .signal import CHROMOPHORES, BeerLambert, StandardCurve, fit_standard_curve
 from .simulate import simulate_grid, standard_design
+from .units import from_molar, to_molar
 
 __version__ = "0.1.0"
 
 __all__ = [
+    "Campaign",
+    "fit_campaign",
+    "from_molar",
+    "read_table",
+    "simulate_campaign",
+    "to_molar",
+    "write_table",
     "BeerLambert",
     "CHROMOPHORES",
     "InitialRates",
