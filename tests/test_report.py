@@ -1,0 +1,189 @@
+"""The HTML report: self-contained, escaped, complete, written atomically; notebook views."""
+
+import re
+import shutil
+import subprocess
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from inhibkin.batch import fit_campaign, simulate_campaign
+from inhibkin.errors import DataError
+from inhibkin.logistic import logistic4
+from inhibkin.mechanism import fit_mechanisms
+from inhibkin.potency import fit_dose_response, potency_table
+from inhibkin.report import (
+    CAUTIONS,
+    campaign_html,
+    dose_response_html,
+    fit_html,
+    render_report,
+    report,
+)
+from inhibkin.simulate import simulate_grid
+
+SEED = 20261202
+HOSTILE = "<script>alert(1)</script>"
+BROWSER_TIMEOUT_S = 120
+BROWSER_FLAGS = ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+                 "--no-first-run", "--disable-background-networking",
+                 "--disable-component-update", "--disable-sync")
+
+
+def find_browser():
+    """Debian's chromium (or another Chromium build) on PATH, else None."""
+    for name in ("chromium", "chromium-browser", "google-chrome"):
+        path = shutil.which(name)
+        if path:
+            return path
+    return None
+
+
+def render_in_browser(html_path: Path, screenshot: Path) -> str:
+    """Open the file in headless Chromium: write a screenshot, return the rendered DOM."""
+    browser = find_browser()
+    if browser is None:
+        pytest.skip("no Chromium browser on PATH (Debian: apt-get install -y chromium)")
+    url = html_path.resolve().as_uri()
+    with tempfile.TemporaryDirectory() as profile:
+        common = [browser, *BROWSER_FLAGS, f"--user-data-dir={profile}",
+                  "--window-size=1280,2000"]
+        subprocess.run([*common, f"--screenshot={screenshot}", url], check=True,
+                       capture_output=True, timeout=BROWSER_TIMEOUT_S)
+        dom = subprocess.run([*common, "--dump-dom", url], check=True, capture_output=True,
+                             text=True, timeout=BROWSER_TIMEOUT_S).stdout
+    return dom
+
+
+def assert_self_contained(text: str) -> None:
+    assert "http://" not in text and "https://" not in text
+    sources = re.findall(r"""\b(?:src|href)\s*=\s*["']([^"']*)["']""", text)
+    for source in sources:
+        assert source.startswith(("data:", "#")), source
+    assert "@import" not in text and "url(" not in text
+
+
+@pytest.fixture(scope="module")
+def campaign():
+    table, _ = simulate_campaign(3, seed=SEED, n_substrate=5, n_inhibitor=4)
+    table["compound"] = table["compound"].replace({"CPD-1": HOSTILE})
+    bad = table[table["compound"] == "CPD-2"].copy()
+    bad["compound"] = "BAD & <b>bold</b>"
+    bad["rate"] = -1.0  # negative rates: this compound fails, the others go on
+    return fit_campaign(pd.concat([table, bad], ignore_index=True), quiet=True)
+
+
+@pytest.fixture(scope="module")
+def potency():
+    rng = np.random.default_rng(SEED)
+    rows = []
+    conc = 30.0 / 3.0 ** np.arange(8)
+    for plate, spread in (("P1", 0.03), ("P2", 0.2)):
+        for k, compound in enumerate((f"{plate}-A", f"{plate}-B")):
+            y = logistic4(np.log10(conc), 100.0, 0.0, np.log10(0.5 + k), 1.0)
+            signal = 1000 + 90 * y + 9000 * spread * rng.standard_normal(conc.size)
+            rows += [dict(plate=plate, role="sample", compound=compound, conc=c, signal=s,
+                          substrate=40.0) for c, s in zip(conc, signal)]
+        for role, level in (("max", 10000.0), ("min", 1000.0)):
+            rows += [dict(plate=plate, role=role, compound=None, conc=0.0, signal=s,
+                          substrate=40.0)
+                     for s in level + 9000 * spread * rng.standard_normal(8)]
+    return potency_table(pd.DataFrame(rows), concentration="conc", km=40.0, intervals="wald")
+
+
+@pytest.fixture(scope="module")
+def written(campaign, potency, tmp_path_factory):
+    path = tmp_path_factory.mktemp("report") / "report.html"
+    report(campaign, path, potency=potency, rate_unit="µM/min", potency_unit="µM")
+    return path
+
+
+def test_report_is_one_self_contained_file(written):
+    text = written.read_text(encoding="utf-8")
+    assert text.startswith("<!DOCTYPE html>")
+    assert_self_contained(text)
+    assert text.count("data:image/png;base64,") >= 3 * 3  # three figures per fitted compound
+    assert sorted(p.name for p in written.parent.iterdir()) == ["report.html"]  # no temp file
+
+
+def test_hostile_compound_ids_are_escaped(written):
+    text = written.read_text(encoding="utf-8")
+    assert HOSTILE not in text
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in text
+    assert "<b>bold</b>" not in text and "BAD &amp; &lt;b&gt;bold&lt;/b&gt;" in text
+    assert text.count("<script") == 1  # the report's own sorting code, nothing else
+
+
+def test_report_holds_every_section(written, campaign, potency):
+    text = written.read_text(encoding="utf-8")
+    for caution in CAUTIONS:
+        assert caution in text
+    for heading in ("Ranked compounds", "Quality control", "Dose-response screen",
+                    "Model comparison", "Nested F-tests", "Parameters of",
+                    "Linearised views (diagnostic only, not the fit)"):
+        assert heading in text
+    assert 'class="sortable" id="ranking-table"' in text
+    assert "P2" in potency.plates.flagged and "Flagged plates: P2" in text
+    failed = campaign.ranking[campaign.ranking["status"] == "failed"]
+    assert len(failed) == 1
+    reason = failed["reason"].iloc[0]
+    assert reason.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;").replace(
+        "'", "&#39;") in text
+
+
+def test_campaign_without_potency_and_mapping_of_fits(tmp_path):
+    data = simulate_grid("competitive", vmax=10.0, km=2.0, kic=0.5, s=[0.5, 1, 2, 4, 8],
+                         i=[0, 0.5, 1, 2], cv=0.03, seed=SEED)
+    fits = {"X-1": fit_mechanisms(data, intervals="wald"),
+            "X-2": fit_mechanisms(data, models=("none", "competitive"), intervals="wald")}
+    path = report(fits, tmp_path / "fits.html", units={"substrate": "mM", "inhibitor": "µM"})
+    text = path.read_text(encoding="utf-8")
+    assert_self_contained(text)
+    assert "X-1" in text and "X-2" in text and "the mixed fit did not converge" in text
+    assert "substrate (mM)" not in text  # axis labels live inside the PNGs, not the HTML
+
+
+def test_report_refuses_other_inputs_and_missing_directories(campaign, tmp_path):
+    with pytest.raises(DataError, match="needs a Campaign"):
+        render_report([1, 2, 3])
+    with pytest.raises(DataError, match="output directory does not exist"):
+        report(campaign, tmp_path / "missing" / "r.html")
+    assert not (tmp_path / "missing").exists()
+
+
+def test_report_replaces_an_existing_file_whole(campaign, tmp_path):
+    path = tmp_path / "r.html"
+    path.write_text("old")
+    report(campaign, path)
+    assert path.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
+    assert [p.name for p in tmp_path.iterdir()] == ["r.html"]
+
+
+def test_notebook_views_are_compact_and_escaped(campaign):
+    fit = campaign.fits[HOSTILE]
+    html = fit_html(fit)
+    assert "Verdict: " in html and "data:image/png;base64," in html
+    assert len(html) < 200_000
+    view = campaign_html(campaign)
+    assert HOSTILE not in view and "&lt;script&gt;" in view
+    assert "data:image/png;base64," in view
+
+
+def test_dose_response_view():
+    conc = 30.0 / 3.0 ** np.arange(10)
+    fit = fit_dose_response(conc, logistic4(np.log10(conc), 100, 0, -0.5, 1.0) + 0.5
+                            * np.random.default_rng(SEED).standard_normal(10),
+                            compound=HOSTILE, intervals="wald")
+    html = dose_response_html(fit, conc_unit="µM")
+    assert HOSTILE not in html and "&lt;script&gt;" in html and "IC50" in html
+
+
+def test_hostile_report_renders_as_text_in_a_browser(written, tmp_path):
+    shot = tmp_path / "hostile.png"
+    dom = render_in_browser(written, shot)
+    assert shot.stat().st_size > 10_000
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in dom  # shown as text in the page
+    assert dom.count("<script") == 1
