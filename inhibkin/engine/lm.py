@@ -271,7 +271,8 @@ def solve(model: Callable, theta0, args, y, *, mask=None, weights=None, lower=No
     """
     theta0 = np.array(theta0, dtype=float, ndmin=2)
     n_batch, k = theta0.shape
-    y = np.asarray(y, dtype=float).reshape(n_batch, -1)
+    y = np.asarray(y, dtype=float)
+    y = y[None, :] if y.ndim == 1 else y
     valid = np.ones(y.shape, dtype=bool) if mask is None else \
         np.asarray(mask, dtype=bool).reshape(y.shape)
     args = [np.asarray(a, dtype=float).reshape(y.shape) for a in args]
@@ -341,18 +342,31 @@ class _Working:
     running: np.ndarray = None
 
     def keep(self, which):
-        """Drop the columns (problems) not in ``which``."""
+        """Drop the columns (problems) not in ``which``.
+
+        Indexing a later axis can hand back a non-C layout, with which numpy would sum
+        over points in another order; every array is made C-contiguous again so that a
+        problem's rounding never depends on its neighbours.
+        """
         self.idx = self.idx[which]
         for name in ("theta", "y", "w", "lower", "upper", "free", "g", "d"):
-            setattr(self, name, getattr(self, name)[:, which])
-        self.args = [a[:, which] for a in self.args]
-        self.gram = self.gram[:, :, which]
+            setattr(self, name, np.ascontiguousarray(getattr(self, name)[:, which]))
+        self.args = [np.ascontiguousarray(a[:, which]) for a in self.args]
+        self.gram = np.ascontiguousarray(self.gram[:, :, which])
         for name in ("ssr", "lam", "nu", "running"):
             setattr(self, name, getattr(self, name)[which])
 
 
 def _evaluate(model, st, theta):
     """SSR, Jᵀr and JᵀJ at ``theta`` (the residuals and Jacobian are not kept)."""
+    if theta.shape[1] == 1:
+        # numpy sums a lone column pairwise but several columns point by point in order;
+        # a duplicate column keeps one problem's rounding the same in any batch.
+        twin = _Working(st.idx, None, [np.repeat(a, 2, axis=1) for a in st.args],
+                        np.repeat(st.y, 2, axis=1), np.repeat(st.w, 2, axis=1), None, None,
+                        None, st.unweighted)
+        ssr, g, gram = _evaluate(model, twin, np.repeat(theta, 2, axis=1))
+        return ssr[:1], g[:, :1], gram[:, :, :1]
     pred, jac = model(theta, *st.args)
     r = st.y - pred
     if not st.unweighted:

@@ -350,11 +350,12 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition):
 def _criteria(ssr, n, k, sum_log_w):
     """:func:`inhibkin.compare.information_criteria`, vectorised."""
     ssr = np.where(ssr <= 0, np.finfo(float).tiny, ssr)
-    loglik = -0.5 * n * (np.log(2 * np.pi) + np.log(ssr / n) + 1) + sum_log_w
-    aic = -2 * loglik + 2 * k
+    # Rows that were not fitted have NaN SSR (and possibly n = 0): NaN criteria.
     with np.errstate(divide="ignore", invalid="ignore"):
+        loglik = -0.5 * n * (np.log(2 * np.pi) + np.log(ssr / n) + 1) + sum_log_w
+        aic = -2 * loglik + 2 * k
         aicc = np.where(n > k + 1, aic + 2 * k * (k + 1) / (n - k - 1), np.inf)
-    bic = -2 * loglik + k * np.log(n)
+        bic = -2 * loglik + k * np.log(n)
     return loglik, aic, aicc, bic
 
 
@@ -584,7 +585,8 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, l
     invalid_reason = _check_arrays(s, i, v, mask, sd if weighting == "sd" else None,
                                    need_inhibition)
     valid = invalid_reason == ""
-    # Invalid compounds take harmless stand-in data so the arrays stay computable.
+    n_obs = mask.sum(axis=1)
+    # Invalid compounds are left out of every fit.
     mask = mask & valid[:, None]
     rows = np.flatnonzero(valid)
     weight_fallback = np.zeros(b, bool)
@@ -595,7 +597,6 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, l
         w, weight_fallback = _relative_weights(s, i, v, mask, rows, max_iterations, fallback)
     else:
         w = mask.astype(float)
-    n_obs = mask.sum(axis=1)
     with np.errstate(divide="ignore"):
         sum_log_w = np.sum(np.where(mask, np.log(np.where(mask, w, 1.0)), 0.0), axis=1)
     out: dict[str, dict] = {}
