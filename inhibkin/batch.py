@@ -48,9 +48,11 @@ import re
 import sys
 import time
 import warnings
+from collections import deque
 from collections.abc import Callable, Mapping
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
+from functools import partial
 from types import MappingProxyType
 
 import numpy as np
@@ -92,6 +94,8 @@ _EFFICIENCY_COLUMNS = ("heavy_atoms", "logp", "le", "lipe")
 # whichever comes first, so no single task carries a large slice of the table.
 _DEFAULT_CHUNK_SIZE = 32
 _MAX_ROWS_PER_CHUNK = 50_000
+# Passes of the lost chunks over a full local pool before they are run one at a time.
+_PARALLEL_PASSES = 2
 # Rows shown by Campaign.summary() and _repr_html_().
 _SUMMARY_ROWS = 10
 # The constant that ranks a compound, by mechanism (mixed: the tighter of two).
@@ -239,6 +243,16 @@ def _fit_chunk(chunk, settings: _GridSettings, keep_fits: bool):
     return out
 
 
+def _split_grid_chunk(chunk):
+    """A grid chunk as one-compound chunks."""
+    return [[item] for item in chunk]
+
+
+def _lost_grid_chunk(chunk, reason):
+    """Failed results for the compounds of a grid chunk that could not be run."""
+    return [(compound, _failed_row(compound, reason), None) for compound, _ in chunk]
+
+
 def _chunks(groups, chunk_size):
     """Consecutive chunks of at most ``chunk_size`` compounds and about
     ``_MAX_ROWS_PER_CHUNK`` rows."""
@@ -260,36 +274,120 @@ def _progress(total, quiet):
     return tqdm(total=total, disable=silent, unit="compound", desc="fitting", leave=False)
 
 
-def _run(function, chunks, arguments, *, workers, client, quiet, sizes):
+def _run(function, chunks, arguments, *, workers, client, quiet, sizes, split, lost):
     """``function(chunk, *arguments)`` for every chunk, on whatever runs them; the results
-    in chunk order. ``sizes`` are the compounds per chunk, for the progress bar."""
-    results = [None] * len(chunks)
-    with _progress(sum(sizes), quiet) as bar:
-        if client is not None:
-            from distributed import as_completed as dask_completed
+    in chunk order. ``sizes`` are the compounds per chunk, for the progress bar.
 
-            futures = {client.submit(function, chunk, *arguments, pure=False): k
-                       for k, chunk in enumerate(chunks)}
-            for future in dask_completed(futures):
-                k = futures[future]
-                results[k] = future.result()
-                bar.update(sizes[k])
+    A worker process that dies (killed, out of memory, a crash in compiled code) loses
+    the chunks it held; they are run again (see :func:`_run_local`, :func:`_run_dask`).
+    ``split(chunk)`` cuts a chunk into one-compound chunks, and ``lost(chunk, reason)``
+    gives the failed results of a one-compound chunk that killed its worker every time,
+    so no compound is ever dropped: each comes back fitted or failed with the reason.
+    """
+    # Results of the pieces of each chunk, keyed by their place in it: () for the whole
+    # chunk, (j,) for its j-th piece after a split; sorted keys give the input order.
+    pieces = [{} for _ in chunks]
+    with _progress(sum(sizes), quiet) as bar:
+        def done(task, result):
+            k, path, _ = task
+            pieces[k][path] = result
+            bar.update(len(result))
+
+        tasks = [(k, (), chunk) for k, chunk in enumerate(chunks)]
+        if client is not None:
+            _run_dask(client, function, tasks, arguments, split, lost, done)
         elif workers is not None and workers > 1:
-            # spawn: a fresh interpreter per worker, safe beside threads (dask, BLAS) and
-            # the same on Linux, macOS and Windows.
-            context = multiprocessing.get_context("spawn")
-            with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
-                futures = {pool.submit(function, chunk, *arguments): k
-                           for k, chunk in enumerate(chunks)}
-                for future in as_completed(futures):
-                    k = futures[future]
-                    results[k] = future.result()
-                    bar.update(sizes[k])
+            _run_local(workers, function, tasks, arguments, split, lost, done)
         else:
-            for k, chunk in enumerate(chunks):
-                results[k] = function(chunk, *arguments)
-                bar.update(sizes[k])
-    return [item for chunk_result in results for item in chunk_result]
+            for task in tasks:
+                done(task, function(task[2], *arguments))
+    return [item for parts in pieces for path in sorted(parts) for item in parts[path]]
+
+
+def _run_local(workers, function, tasks, arguments, split, lost, done):
+    """Chunks on local processes, with the chunks of a dead worker run again.
+
+    When a worker dies the pool breaks and every chunk not yet finished is lost, the
+    culprit among them. Those chunks get one more pass on a fresh pool (a death from
+    outside — memory, a signal — rarely repeats); what is lost again is then run one
+    chunk at a time on a single worker, where a death points at the chunk that caused
+    it: that chunk is split and its compounds run one by one, and a compound that still
+    kills its worker is reported failed.
+    """
+    from concurrent.futures.process import BrokenProcessPool
+
+    # spawn: a fresh interpreter per worker, safe beside threads (dask, BLAS) and the
+    # same on Linux, macOS and Windows.
+    context = multiprocessing.get_context("spawn")
+    for _ in range(_PARALLEL_PASSES):
+        if not tasks:
+            return
+        lost_tasks = []
+        with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
+            futures = {pool.submit(function, task[2], *arguments): task for task in tasks}
+            for future in as_completed(futures):
+                try:
+                    result = future.result()
+                except BrokenProcessPool:
+                    lost_tasks.append(futures[future])
+                    continue
+                done(futures[future], result)
+        tasks = sorted(lost_tasks, key=lambda task: task[:2])
+    queue = deque(tasks)
+    pool = None
+    try:
+        while queue:
+            task = queue.popleft()
+            k, path, chunk = task
+            pool = pool or ProcessPoolExecutor(max_workers=1, mp_context=context)
+            try:
+                result = pool.submit(function, chunk, *arguments).result()
+            except BrokenProcessPool as err:
+                pool.shutdown()
+                pool = None
+                parts = split(chunk)
+                if len(parts) > 1:
+                    queue.extendleft(reversed([(k, path + (j,), part)
+                                               for j, part in enumerate(parts)]))
+                    continue
+                result = lost(chunk, f"the worker process died every time this compound "
+                                     f"was fitted, the last time with it alone ({err})")
+            done(task, result)
+    finally:
+        if pool is not None:
+            pool.shutdown()
+
+
+def _run_dask(client, function, tasks, arguments, split, lost, done):
+    """Chunks on a Dask cluster, with the chunks of a dead worker run again.
+
+    The scheduler itself reruns the tasks of a worker that dies, until a task has been
+    on ``distributed.scheduler.allowed-failures`` dying workers; then it gives up on it
+    (``KilledWorker``). Such a chunk is split and its compounds submitted one by one;
+    a compound that is given up on by itself is reported failed.
+    """
+    from distributed import KilledWorker
+    from distributed import as_completed as dask_completed
+
+    futures = {client.submit(function, task[2], *arguments, pure=False): task
+               for task in tasks}
+    queue = dask_completed(list(futures))
+    for future in queue:
+        task = futures.pop(future)
+        k, path, chunk = task
+        try:
+            result = future.result()
+        except KilledWorker as err:
+            parts = split(chunk)
+            if len(parts) > 1:
+                for j, part in enumerate(parts):
+                    piece = client.submit(function, part, *arguments, pure=False)
+                    futures[piece] = (k, path + (j,), part)
+                    queue.add(piece)
+                continue
+            result = lost(chunk, f"the Dask workers running this compound died; the "
+                                 f"scheduler gave up on it ({err})")
+        done(task, result)
 
 
 def _compound_properties(table, compound, columns):
@@ -436,7 +534,7 @@ class Campaign:
     def _repr_html_(self) -> str:
         shown = self.ranking.head(_SUMMARY_ROWS)
         return (f"<div><p><b>{html.escape(self._head())}</b></p>"
-                f"{shown.to_html(index=False, float_format='%.4g', escape=True)}"
+                f"{shown.to_html(index=False, float_format='{:.4g}'.format, escape=True)}"
                 f"<p>{max(len(self.ranking) - _SUMMARY_ROWS, 0)} more rows in "
                 f"<code>.ranking</code></p></div>")
 
@@ -481,15 +579,25 @@ def _dose_chunk_fit(chunk, settings: _DoseSettings, mechanisms, keep_fits):
         outcome = [_dose_results(frame, names, settings, mechanisms, keep_fits)]
     except InhibkinError:
         outcome = []
-        by_compound = frame[settings.compound]
-        controls = frame[by_compound.isna() | ~by_compound.isin(names)]
-        for name in names:
-            alone = pd.concat([frame[by_compound == name], controls])
+        for alone, (name,) in _split_dose_chunk(settings.compound, chunk):
             try:
                 outcome.append(_dose_results(alone, [name], settings, mechanisms, keep_fits))
             except InhibkinError as err:
                 outcome.append([(name, {"status": "failed", "reason": str(err)}, None)])
     return [item for part in outcome for item in part]
+
+
+def _split_dose_chunk(compound, chunk):
+    """A dose-response chunk as one-compound chunks, each with the chunk's controls."""
+    frame, names = chunk
+    by_compound = frame[compound]
+    controls = frame[by_compound.isna() | ~by_compound.isin(names)]
+    return [(pd.concat([frame[by_compound == name], controls]), [name]) for name in names]
+
+
+def _lost_dose_chunk(chunk, reason):
+    """Failed results for the compounds of a dose-response chunk that could not be run."""
+    return [(name, {"status": "failed", "reason": reason}, None) for name in chunk[1]]
 
 
 def _dose_results(frame, names, settings, mechanisms, keep_fits):
@@ -775,7 +883,8 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                                  fit_options)
         chunks = list(_chunks(table.groupby(compound, sort=False), chunk_size))
         for name, row, fit in _run(_fit_chunk, chunks, (settings, keep_fits),
-                                   sizes=[len(c) for c in chunks], **execution):
+                                   sizes=[len(c) for c in chunks], split=_split_grid_chunk,
+                                   lost=_lost_grid_chunk, **execution):
             grid_rows[name] = row
             if fit is not None:
                 grid_fits[name] = fit
@@ -796,7 +905,8 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         chunks, sizes = _dose_chunks(frame, compound, role, plate, chunk_size)
         for name, potency, fit in _run(_dose_chunk_fit, chunks,
                                        (dose_settings, mechanisms, keep_fits), sizes=sizes,
-                                       **execution):
+                                       split=partial(_split_dose_chunk, compound),
+                                       lost=_lost_dose_chunk, **execution):
             dose_rows[name] = _dose_row(name, potency)
             if fit is not None:
                 potency_fits[name] = fit

@@ -134,7 +134,7 @@ class ModelFit:
 
     def _repr_html_(self) -> str:
         return (f"<p><b>{self.model}</b> — n = {self.n_obs}, SSR = {self.ssr:.4g}, "
-                f"AICc = {self.aicc:.4g}</p>" + self.params.to_html(float_format="%.4g"))
+                f"AICc = {self.aicc:.4g}</p>" + self.params.to_html(float_format="{:.4g}".format))
 
 
 def format_estimate(row) -> str:

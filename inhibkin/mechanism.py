@@ -116,12 +116,12 @@ class MechanismFit:
     def _repr_html_(self) -> str:
         parts = [f"<div><p><b>Verdict: {html.escape(self.verdict)}</b> — "
                  f"{html.escape(self.reason)}</p>"]
-        parts.append(self.comparison.to_html(float_format="%.4g"))
+        parts.append(self.comparison.to_html(float_format="{:.4g}".format))
         if self.best_fit is not None:
             table = self.best_fit.params.copy()
             table.insert(0, "reported", [format_estimate(r) for _, r in table.iterrows()])
             parts.append(f"<p>Parameters of <b>{html.escape(self.best)}</b>:</p>")
-            parts.append(table.to_html(float_format="%.4g"))
+            parts.append(table.to_html(float_format="{:.4g}".format))
         parts.append("</div>")
         return "".join(parts)
 

@@ -105,7 +105,7 @@ class PlateQC:
     def _repr_html_(self) -> str:
         return (f"<p><b>Plate QC</b> — Z' threshold {self.threshold:g}, "
                 f"{len(self.flagged)} flagged: {html.escape(', '.join(map(str, self.flagged)))}"
-                f"</p>" + self.table.to_html(float_format="%.4g"))
+                f"</p>" + self.table.to_html(float_format="{:.4g}".format))
 
 
 @dataclass(frozen=True)

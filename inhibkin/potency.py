@@ -289,6 +289,9 @@ def _check_curve(conc, response, weights, *, context, columns=("conc", "response
     if problems:
         raise DataError(problems, context)
     levels = np.unique(c)
+    if levels.size == 0:
+        raise DataError(Problem(columns[0], None, None,
+                                f"no points; a curve needs more than {n_free}"), context)
     if levels.size < 2:
         raise DataError(Problem(columns[0], None, float(levels[0]),
                                 "a single concentration; a dose-response curve needs several "
@@ -432,7 +435,7 @@ class DoseResponseFit:
         flags = "".join(f"<li>{html.escape(f)}: {html.escape(FLAGS[f])}</li>"
                         for f in self.flags)
         return (f"<p><b>{who}</b> — IC50 = {html.escape(self.reported_ic50)}, "
-                f"n = {self.n_obs}</p>" + self.params.to_html(float_format="%.4g")
+                f"n = {self.n_obs}</p>" + self.params.to_html(float_format="{:.4g}".format)
                 + (f"<ul>{flags}</ul>" if flags else ""))
 
 
@@ -880,6 +883,12 @@ def morrison(conc, v0, ki_app, enzyme):
     return v0 * (1.0 - 2.0 * i / (a + root))
 
 
+def _saturating_exp(x):
+    """exp that gives 0 or inf for open (infinite) log-scale limits without a warning."""
+    with np.errstate(over="ignore"):
+        return np.exp(x)
+
+
 def _morrison_model(i, v0, log_k, log_e):
     return morrison(i, v0, np.exp(log_k), np.exp(log_e))
 
@@ -971,7 +980,7 @@ class MorrisonFit:
     def _repr_html_(self) -> str:
         who = html.escape(str(self.compound)) if self.compound is not None else "Morrison fit"
         return (f"<p><b>{who}</b> — Ki,app = {self.ki_app:.4g}, IC50 = {self.ic50:.4g}</p>"
-                + self.params.to_html(float_format="%.4g"))
+                + self.params.to_html(float_format="{:.4g}".format))
 
 
 def fit_morrison(conc, v, *, enzyme, fit_enzyme=False, s=None, km=None, mechanism=None,
@@ -1039,10 +1048,13 @@ def fit_morrison(conc, v, *, enzyme, fit_enzyme=False, s=None, km=None, mechanis
     low, high = _intervals(curve, phi, ssr, se, intervals, level, dof)
     theta = curve.full(phi)
     v0, k, e = theta[0], float(np.exp(theta[1])), float(np.exp(theta[2]))
+    # An open profile limit is ±inf in log units; its exp saturates to 0 or inf quietly.
+    low, high = np.array(low, dtype=float), np.array(high, dtype=float)
+    low[1:], high[1:] = _saturating_exp(low[1:]), _saturating_exp(high[1:])
     rows = {"v0": [v0, se[0], low[0], high[0], False],
-            "ki_app": [k, k * se[1], np.exp(low[1]), np.exp(high[1]), False]}
+            "ki_app": [k, k * se[1], low[1], high[1], False]}
     if fit_enzyme:
-        rows["enzyme"] = [e, e * se[2], np.exp(low[2]), np.exp(high[2]), False]
+        rows["enzyme"] = [e, e * se[2], low[2], high[2], False]
     else:
         rows["enzyme"] = [e, np.nan, np.nan, np.nan, True]
     k_row = rows["ki_app"]
@@ -1139,7 +1151,7 @@ class PotencyTable:
         n_ok = int((self.table["status"] == "ok").sum())
         return (f"<p><b>Potency</b> — {len(self.table)} compounds, {n_ok} fitted, "
                 f"{len(self.table) - n_ok} failed</p>"
-                + self.table.to_html(index=False, float_format="%.4g")
+                + self.table.to_html(index=False, float_format="{:.4g}".format)
                 + self.plates._repr_html_())
 
 

@@ -198,7 +198,7 @@ class InitialRates:
         head = (f"<p><b>Initial rates ({html.escape(self.options.method)})</b> — "
                 + html.escape(", ".join(f"{k} {v}" for k, v in status.items()))
                 + f"; rate unit {html.escape(str(self.units.get('rate')))}</p>")
-        parts = [f"<div>{head}", self.table.to_html(float_format="%.4g", max_rows=40)]
+        parts = [f"<div>{head}", self.table.to_html(float_format="{:.4g}".format, max_rows=40)]
         if len(self.unmatched):
             parts += ["<p>Unmatched wells</p>", self.unmatched.to_html(max_rows=20)]
         parts.append("</div>")
