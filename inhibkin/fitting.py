@@ -25,11 +25,12 @@ from dataclasses import dataclass, field
 import lmfit
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
+from scipy import stats
 
 from .compare import information_criteria
 from .errors import FitError
 from .models import MODELS
+from .profile import profile_crossing
 from .starts import log_bounds, starting_values
 
 __all__ = ["ModelFit", "fit_model", "fit_michaelis_menten", "INTERVAL_METHODS"]
@@ -258,26 +259,8 @@ def _profile_limit(problem, theta_hat, ssr_target, j, direction, first_step, con
                                      max_evaluations=_PROFILE_MAX_EVALUATIONS)
         return ssr - ssr_target, theta
 
-    step = first_step
-    inner, inner_theta = centre, theta_hat
-    for _ in range(_PROFILE_MAX_DOUBLINGS):
-        outer = centre + direction * step
-        if (outer - limit) * direction >= 0:
-            outer = limit
-        value, theta = excess(outer, inner_theta)
-        if value > 0:
-            # Refits inside the bracket start from its inner end, a nearby solution,
-            # so every evaluation is the same function of c.
-            start = inner_theta
-            if excess(inner, start)[0] >= 0:
-                return inner
-            return optimize.brentq(lambda c, s0=start: excess(c, s0)[0], inner, outer,
-                                   xtol=_PROFILE_XTOL)
-        if outer == limit:
-            return direction * np.inf
-        inner, inner_theta = outer, theta
-        step *= 2
-    return direction * np.inf
+    return profile_crossing(excess, centre, limit, direction, first_step, theta_hat,
+                            xtol=_PROFILE_XTOL, max_doublings=_PROFILE_MAX_DOUBLINGS)
 
 
 def _exp(x):

@@ -52,6 +52,7 @@ from scipy import optimize, stats
 from .errors import DataError, FitError, InhibkinError, Problem
 from .logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
 from .plates import Z_PRIME_THRESHOLD, PlateQC, percent_activity, plate_qc
+from .profile import profile_crossing
 from .validate import check_columns, numeric_column
 
 __all__ = [
@@ -218,21 +219,14 @@ def _profile_limit(curve: _Curve, phi_hat, j, direction, target, step):
     """Where the profile SSR of free parameter j crosses ``target`` (±inf when open)."""
     centre = phi_hat[j]
     bound = (curve.upper if direction > 0 else curve.lower)[curve.free][j]
-    inner, inner_phi = centre, phi_hat
-    for _ in range(_PROFILE_MAX_DOUBLINGS):
-        outer = centre + direction * step
-        if (outer - bound) * direction >= 0:
-            outer = bound
-        value, phi = _profile_refit(curve, j, outer, inner_phi)
-        if value > target:
-            return optimize.brentq(lambda c, start=inner_phi:
-                                   _profile_refit(curve, j, c, start)[0] - target,
-                                   inner, outer, xtol=_PROFILE_XTOL * max(1.0, abs(centre)))
-        if outer == bound:
-            return direction * np.inf
-        inner, inner_phi = outer, phi
-        step *= 2
-    return direction * np.inf
+
+    def excess(c, warm):
+        value, phi = _profile_refit(curve, j, c, warm)
+        return value - target, phi
+
+    return profile_crossing(excess, centre, bound, direction, step, phi_hat,
+                            xtol=_PROFILE_XTOL * max(1.0, abs(centre)),
+                            max_doublings=_PROFILE_MAX_DOUBLINGS)
 
 
 def _intervals(curve, phi, ssr, se, method, level, dof):
