@@ -9,7 +9,7 @@ from scipy import optimize
 import inhibkin as ik
 from inhibkin import compare
 from inhibkin.engine import lm
-from inhibkin.engine.dose_response import fit_logistic_batch
+from inhibkin.engine.dose_response import _Logistic, fit_logistic_batch
 from inhibkin.engine.mechanisms import (
     _LogRateLaw,
     fit_mechanism_arrays,
@@ -303,6 +303,16 @@ def test_relative_weighting_follows_lmfit_path():
     agree = np.mean([batch.verdict[c] == reference[c].verdict for c in range(len(tables))])
     assert agree >= VERDICT_AGREEMENT
     assert off <= 0.05 * 4 * len(tables)
+
+
+def test_engine_4pl_is_the_logistic_module_curve():
+    x, _, truth = _simulated_curves(50, SEED)
+    theta = truth.T.copy()
+    theta[3, ::2] *= -1  # rising curves too
+    pred, jac = _Logistic()(theta, x.T.copy())
+    np.testing.assert_allclose(pred, logistic4(x.T, *theta), rtol=SAME_RULE_RTOL)
+    np.testing.assert_allclose(jac, np.moveaxis(logistic4_jacobian(x.T, *theta), -1, 0),
+                               rtol=1e-10, atol=1e-10)
 
 
 def _assert_4pl_close(estimate, reference, span):
