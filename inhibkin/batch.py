@@ -41,7 +41,6 @@ for a 96-point grid), and close to them when a constant is well determined. Ask 
 
 from __future__ import annotations
 
-import html
 import math
 import multiprocessing
 import re
@@ -171,6 +170,24 @@ def _pick_constant(constants: pd.DataFrame, mechanism: str) -> str:
     return min(names, key=lambda n: np.nan_to_num(constants.loc[n, "ci_low"], nan=np.inf))
 
 
+def _inactive_bound(fit: MechanismFit):
+    """The lower limit that every one-constant mechanism puts on Ki when no inhibition
+    was detected (the smallest of their lower interval limits), or None when one of them
+    sets none (a zero or missing limit, as log-scale Wald intervals of a constant far past
+    the tested range often give; profile intervals usually set one)."""
+    limits = []
+    for name, constant in (("competitive", "kic"), ("uncompetitive", "kiu"),
+                           ("noncompetitive", "ki")):
+        model = fit.models.get(name)
+        if model is None or not model.converged:
+            return None
+        limits.append(float(model.params.loc[constant, "ci_low"]))
+    limits = np.array(limits)
+    if not (np.all(np.isfinite(limits)) and np.all(limits > 0)):
+        return None
+    return float(limits.min())
+
+
 def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
     """One ranking row from one compound's mechanism fit (constants in M)."""
     flags = list(caught)
@@ -181,10 +198,19 @@ def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
     if fit.verdict == "failed":
         row.update(status="failed", verdict="failed", flags="; ".join(flags))
         return row
+    best = fit.best_fit
+    if best is not None and "km" in best.params.index and not best.params.loc["km",
+                                                                              "determined"]:
+        flags.append("km not determined within the tested substrate range")
     if fit.verdict == "none" or fit.best == "none":
         i_max = float(fit.data["inhibitor"].max())
         row.update(status="inactive", mechanism="none",
                    ki_reported=f"no inhibition detected up to {i_max:.3g} M")
+        low = _inactive_bound(fit)
+        if low is not None:
+            row.update(ki_low_M=low, ki_high_M=np.inf,
+                       ki_reported=f"{row['ki_reported']}; Ki > {low:.3g} M whatever the "
+                                   f"mechanism")
         row["flags"] = "; ".join(flags)
         return row
     if fit.verdict == "ambiguous":
@@ -532,12 +558,9 @@ class Campaign:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        shown = self.ranking.head(_SUMMARY_ROWS)
-        return (f"<div><p><b>{html.escape(self._head())}</b></p>"
-                f"{shown.to_html(index=False, float_format='{:.4g}'.format, escape=True)}"
-                f"<p>{max(len(self.ranking) - _SUMMARY_ROWS, 0)} more rows in "
-                f"<code>.ranking</code></p></div>")
+        from .report import campaign_html  # matplotlib only when a notebook asks
 
+        return campaign_html(self)
 
 def _engine(engine):
     if engine is None or engine == "lmfit":

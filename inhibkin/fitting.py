@@ -209,8 +209,14 @@ def _solve(problem: _Problem, theta0, tie_matrix=None, offset=None, *, tol=_TOL,
 
     minimizer = lmfit.Minimizer(residual, params, nan_policy="raise")
     with np.errstate(all="ignore"):
-        result = minimizer.leastsq(Dfun=jacobian, col_deriv=0, ftol=tol, xtol=tol,
-                                   max_nfev=max_evaluations)
+        try:
+            result = minimizer.leastsq(Dfun=jacobian, col_deriv=0, ftol=tol, xtol=tol,
+                                       max_nfev=max_evaluations)
+        except ValueError as err:
+            # lmfit refuses a residual that turned NaN (an overflow far out on the
+            # bounds); that start failed, the others may not.
+            theta = A @ phi0 + b
+            return theta, np.inf, None, False, f"the rate law gave NaN ({err})"[:200]
     phi = phi_of(result.params)
     theta = A @ phi + b
     ssr = float(np.sum(problem.residual(theta) ** 2))
@@ -370,8 +376,12 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
     for j, name in enumerate(law.param_names):
         if name in law.inhibition_constants and estimate[j] > determination_factor * i_max:
             determined[j] = False
-        if name == "km" and estimate[j] > determination_factor * s_max:
+        if name == "km" and (estimate[j] > determination_factor * s_max
+                             or not np.isfinite(ci_high[j])
+                             or problem.upper[j] - theta[j] < _AT_BOUND):
             determined[j] = False
+            # With every S far below km only vmax/km is set; vmax is an extrapolation.
+            determined[law.param_names.index("vmax")] = False
     table = pd.DataFrame(
         {"estimate": estimate, "se": estimate * se_log, "ci_low": ci_low, "ci_high": ci_high,
          "determined": determined},

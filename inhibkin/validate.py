@@ -16,6 +16,9 @@ __all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_men
 
 # How many bad rows of one kind a message lists before it summarises the rest.
 _MAX_ROWS_LISTED = 5
+# Largest magnitude accepted in a number column: squares and sums of squares of larger
+# values overflow float64 (about 1.8e308) inside the fits.
+MAX_MAGNITUDE = 1e100
 
 
 def check_columns(df, columns, context=None) -> None:
@@ -57,6 +60,12 @@ def numeric_column(df, column, problems, *, allow_negative=False, allow_nan=Fals
     infinite = np.isinf(values)
     if infinite.any():
         _listed(problems, column, labels[infinite], values[infinite], "infinite value")
+    with np.errstate(invalid="ignore"):
+        huge = np.isfinite(values) & (np.abs(values) > MAX_MAGNITUDE)
+    if huge.any():
+        _listed(problems, column, labels[huge], values[huge],
+                f"too large to fit (magnitude above {MAX_MAGNITUDE:g}); rescale the column, "
+                f"e.g. express it in another unit")
     if not allow_negative:
         negative = values < 0
         if negative.any():
@@ -116,6 +125,11 @@ def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True,
                                 "(include the uninhibited rate, I = 0)"))
     if np.all(v == 0):
         problems.append(Problem(rate, None, 0.0, "all rates are zero; nothing to fit"))
+    elif np.all(v == v[0]):
+        problems.append(Problem(rate, None, float(v[0]),
+                                "all rates are equal: they depend on neither substrate nor "
+                                "inhibitor, so km and the inhibition constants cannot be "
+                                "determined"))
     if np.all(s == 0):
         problems.append(Problem(substrate, None, 0.0, "all substrate concentrations are zero"))
     n_params = 4 if need_inhibition else 2
@@ -152,4 +166,8 @@ def check_michaelis_menten(s, v, weights=None):
                                 "need at least two substrate concentrations"))
     if np.all(v_arr == 0):
         raise DataError(Problem("v", None, 0.0, "all rates are zero; nothing to fit"))
+    if np.all(v_arr == v_arr[0]):
+        raise DataError(Problem("v", None, float(v_arr[0]),
+                                "all rates are equal: they do not depend on the substrate, so "
+                                "km cannot be determined"))
     return s_arr, v_arr, w_arr
