@@ -284,6 +284,48 @@ def _rank(args) -> int:
     return _finish(campaign, output, args)
 
 
+def _report_arguments(parser):
+    parser.add_argument("--grid", help="substrate × inhibitor rate table")
+    parser.add_argument("--dose-response", help="dose-response well table")
+    parser.add_argument("--ranking", help="also write the ranked table (.csv or .parquet)")
+    parser.add_argument("--rate-unit", default="", help="label of the rates, e.g. uM/min")
+    _fit_arguments(parser)
+    _dose_arguments(parser)
+    parser.set_defaults(intervals="profile")
+
+
+def _report(args) -> int:
+    from .batch import fit_campaign
+    from .io import read_table, write_table
+    from .report import report
+
+    if not args.grid and not args.dose_response:
+        raise DataError("give --grid, --dose-response, or both")
+    output = Path(args.output)
+    if output.suffix.lower() not in (".html", ".htm"):
+        raise DataError(Problem("--output", None, str(output), "the report is an .html file"))
+    if not output.parent.is_dir():
+        raise DataError(Problem("--output", None, str(output), "the directory does not exist"))
+    ranking = _check_output(args.ranking) if args.ranking else None
+    grid = read_table(args.grid) if args.grid else None
+    dose = read_table(args.dose_response) if args.dose_response else None
+    dose_options = _dose_options(args) if dose is not None else {}
+    with _execution(args) as where:
+        campaign = fit_campaign(grid, dose_response=dose, **dose_options, **_fit_options(args),
+                                **where)
+    if ranking is not None:
+        write_table(campaign.ranking, ranking)
+    path = report(campaign, output, rate_unit=args.rate_unit)
+    if not args.quiet:
+        print(f"report written to {path.resolve()}")
+    n_failed = campaign.counts["failed"]
+    if n_failed:
+        print(f"inhibkin report: {n_failed} of {len(campaign.ranking)} compounds failed; "
+              "the report lists their reasons", file=sys.stderr)
+        return EXIT_SOME_FAILED
+    return EXIT_OK
+
+
 def _simulate_arguments(parser):
     parser.add_argument("-o", "--output", required=True, help="simulated grid table")
     parser.add_argument("--compounds", type=int, default=20, help="number of compounds")
@@ -310,13 +352,13 @@ def _simulate(args) -> int:
 
 
 def _demo_arguments(parser):
-    """The demo takes no options of its own."""
+    parser.add_argument("--out", default="demo_output", help="output directory")
 
 
 def _demo(args) -> int:
     from .demo import run_demo
 
-    print(run_demo())
+    print(run_demo(args.out))
     return EXIT_OK
 
 
@@ -342,6 +384,11 @@ SUBCOMMANDS = [
         "  inhibkin rank --grid grid.csv --dose-response plates.csv --km 20uM -o ranking.parquet"
         " --scheduler tcp://127.0.0.1:8786",
         _rank_arguments, _rank),
+    Subcommand(
+        "report", "fit a campaign and write one self-contained HTML report",
+        "inhibkin report --grid rates.csv --units substrate=uM --units inhibitor=nM "
+        "--weighting relative -o report.html --ranking ranking.csv",
+        _report_arguments, _report),
     Subcommand(
         "simulate", "a seeded simulated campaign of known mechanisms and Ki (for trials)",
         "inhibkin simulate --compounds 200 --seed 7 --cv 0.05 -o grid.csv --truth truth.csv",

@@ -14,6 +14,7 @@ from __future__ import annotations
 import csv
 import os
 import tempfile
+from contextlib import contextmanager
 from pathlib import Path
 
 import pandas as pd
@@ -126,6 +127,36 @@ def read_table(path) -> pd.DataFrame:
     return table
 
 
+@contextmanager
+def atomic_output(path):
+    """Yield a temporary path beside ``path``; rename it onto ``path`` when the block ends.
+
+    On any failure the temporary file is removed and ``path`` is left as it was (absent or
+    the previous version). The file gets the permissions a plain ``open`` would give it
+    (0o666 less the umask), not the private ones of a temporary file.
+    """
+    path = Path(path)
+    directory = path.parent if str(path.parent) else Path(".")
+    if not directory.is_dir():
+        raise DataError("the output directory does not exist", context=f"file {str(path)!r}")
+    descriptor, name = tempfile.mkstemp(dir=directory, prefix=f".{path.name}.", suffix=".tmp")
+    os.close(descriptor)
+    temporary = Path(name)
+    try:
+        yield temporary
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(temporary, 0o666 & ~umask)
+        # Flush to disk before the rename, so a crash cannot leave the new name pointing
+        # at an empty file.
+        with open(temporary, "rb+") as handle:
+            os.fsync(handle.fileno())
+        os.replace(temporary, path)
+    except BaseException:
+        temporary.unlink(missing_ok=True)
+        raise
+
+
 def write_table(table, path) -> Path:
     """Write a DataFrame as CSV or Parquet, atomically.
 
@@ -146,13 +177,7 @@ def write_table(table, path) -> Path:
     """
     path = Path(path)
     fmt = _format_of(path)
-    directory = path.parent if str(path.parent) else Path(".")
-    if not directory.is_dir():
-        raise DataError("the output directory does not exist", context=f"file {str(path)!r}")
-    descriptor, name = tempfile.mkstemp(dir=directory, prefix=f".{path.name}.", suffix=".tmp")
-    os.close(descriptor)
-    temporary = Path(name)
-    try:
+    with atomic_output(path) as temporary:
         if fmt == "csv":
             table.to_csv(temporary, index=False)
         else:
@@ -161,12 +186,4 @@ def write_table(table, path) -> Path:
             except ImportError:
                 raise DataError("writing Parquet needs pyarrow: pip install 'inhibkin[parquet]'",
                                 context=f"file {str(path)!r}") from None
-        # Flush to disk before the rename, so a crash cannot leave the new name pointing
-        # at an empty file.
-        with open(temporary, "rb+") as handle:
-            os.fsync(handle.fileno())
-        os.replace(temporary, path)
-    except BaseException:
-        temporary.unlink(missing_ok=True)
-        raise
     return path

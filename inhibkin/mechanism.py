@@ -7,7 +7,6 @@ returns a :class:`MechanismFit` holding the verdict and every table that justifi
 
 from __future__ import annotations
 
-import html
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -15,7 +14,7 @@ import pandas as pd
 
 from .compare import Verdict, VerdictOptions, comparison_table, decide, f_test_table
 from .errors import DataError
-from .fitting import ModelFit, fit_model, format_estimate
+from .fitting import ModelFit, fit_model
 from .models import MODEL_NAMES, MODELS
 from .starts import log_bounds, starting_values
 from .validate import check_grid
@@ -114,16 +113,9 @@ class MechanismFit:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        parts = [f"<div><p><b>Verdict: {html.escape(self.verdict)}</b> — "
-                 f"{html.escape(self.reason)}</p>"]
-        parts.append(self.comparison.to_html(float_format="{:.4g}".format))
-        if self.best_fit is not None:
-            table = self.best_fit.params.copy()
-            table.insert(0, "reported", [format_estimate(r) for _, r in table.iterrows()])
-            parts.append(f"<p>Parameters of <b>{html.escape(self.best)}</b>:</p>")
-            parts.append(table.to_html(float_format="{:.4g}".format))
-        parts.append("</div>")
-        return "".join(parts)
+        from .report import fit_html  # matplotlib is loaded only when a notebook asks
+
+        return fit_html(self)
 
 
 def relative_weights(s, i, v) -> np.ndarray:

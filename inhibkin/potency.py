@@ -425,12 +425,9 @@ class DoseResponseFit:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        who = html.escape(str(self.compound)) if self.compound is not None else "4PL fit"
-        flags = "".join(f"<li>{html.escape(f)}: {html.escape(FLAGS[f])}</li>"
-                        for f in self.flags)
-        return (f"<p><b>{who}</b> — IC50 = {html.escape(self.reported_ic50)}, "
-                f"n = {self.n_obs}</p>" + self.params.to_html(float_format="{:.4g}".format)
-                + (f"<ul>{flags}</ul>" if flags else ""))
+        from .report import dose_response_html  # matplotlib only when a notebook asks
+
+        return dose_response_html(self)
 
 
 #: Allowed signs of the Hill slope: any, falling (inhibition of activity), rising.

@@ -17,8 +17,6 @@ from __future__ import annotations
 import base64
 import io
 import math
-import os
-import tempfile
 from collections.abc import Mapping
 from datetime import datetime, timezone
 from pathlib import Path
@@ -30,6 +28,7 @@ from jinja2 import Environment, PackageLoader, select_autoescape
 from . import figures
 from .errors import DataError, UnitsError
 from .fitting import format_estimate
+from .io import atomic_output
 from .units import from_molar, normalise_unit, to_molar
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
@@ -324,20 +323,8 @@ def _rates_context(rates) -> dict:
 
 
 def _write_atomically(text: str, path: Path) -> None:
-    directory = path.parent if str(path.parent) else Path(".")
-    if not directory.is_dir():
-        raise DataError("the output directory does not exist", context=f"file {str(path)!r}")
-    descriptor, name = tempfile.mkstemp(dir=directory, prefix=f".{path.name}.", suffix=".tmp")
-    temporary = Path(name)
-    try:
-        with os.fdopen(descriptor, "w", encoding="utf-8") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.replace(temporary, path)
-    except BaseException:
-        temporary.unlink(missing_ok=True)
-        raise
+    with atomic_output(path) as temporary:
+        temporary.write_text(text, encoding="utf-8")
 
 
 def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaign report",

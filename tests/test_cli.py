@@ -157,7 +157,14 @@ def test_help_shows_a_worked_example(name, capsys):
     assert "example:\n  inhibkin " in capsys.readouterr().out
 
 
-def test_demo_still_runs(tmp_path):
-    done = run("demo", cwd=tmp_path)
+def test_report_stage_writes_html_and_ranking(grid_file, tmp_path):
+    done = run("report", "--grid", grid_file, "--intervals", "wald", "-o", "campaign.html",
+               "--ranking", "ranking.csv", cwd=tmp_path)
     assert done.returncode == 0, done.stderr
-    assert "Verdict:" in done.stdout
+    assert "report written to" in done.stdout
+    html_text = (tmp_path / "campaign.html").read_text(encoding="utf-8")
+    ranking = read_table(tmp_path / "ranking.csv")
+    for compound in ranking["compound"]:
+        assert compound in html_text
+    bad = run("report", "--grid", grid_file, "-o", "campaign.csv", cwd=tmp_path)
+    assert bad.returncode == 2 and ".html" in bad.stderr
