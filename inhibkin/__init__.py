@@ -5,6 +5,7 @@ comparison and a verdict, Ki and pKi with honest intervals, and dose-response po
 converted to Ki. Results are statistical estimates for research triage.
 """
 
+from . import figures
 from .batch import Campaign, fit_campaign, simulate_campaign
 from .compare import VerdictOptions
 from .errors import DataError, FitError, InhibkinError, InhibkinWarning, UnitsError
@@ -24,6 +25,7 @@ from .potency import (
     potency_table,
 )
 from .rates import InitialRates, initial_rates
+from .report import fit_html, report
 from .signal import CHROMOPHORES, BeerLambert, StandardCurve, fit_standard_curve
 from .simulate import simulate_grid, standard_design
 from .units import from_molar, to_molar
@@ -31,6 +33,9 @@ from .units import from_molar, to_molar
 __version__ = "0.1.0"
 
 __all__ = [
+    "figures",
+    "fit_html",
+    "report",
     "Campaign",
     "fit_campaign",
     "from_molar",
