@@ -25,6 +25,7 @@ import pandas as pd
 from scipy import stats
 
 from .. import fitting as _fitting
+from .. import mechanism as _mechanism
 from ..compare import ONE_CONSTANT_MODELS, Verdict, VerdictOptions
 from ..errors import DataError
 from ..fitting import ModelFit, fit_model
@@ -40,10 +41,12 @@ __all__ = ["ModelBatch", "MechanismBatch", "fit_mechanism_arrays", "fit_mechanis
 
 # The lmfit path's rules, read from it so that the two cannot drift apart.
 _AT_BOUND = _fitting._AT_BOUND
-_START_MARGIN = 1e-6  # fit_model clips starts this far inside the bounds
-_REWEIGHT_ITERATIONS = 3  # as inhibkin.mechanism.relative_weights
-_WEIGHT_FLOOR = 1e-3
-_FAR_FACTOR = 10.0  # nested solutions start mixed's missing constant at bound/10
+_REWEIGHT_ITERATIONS = _mechanism._REWEIGHT_ITERATIONS
+_WEIGHT_FLOOR = _mechanism._WEIGHT_FLOOR
+# Literals inside fit_model and _mixed_starts: starts are clipped this far inside the
+# bounds, and a nested solution starts mixed's missing constant at its bound / 10.
+_START_MARGIN = 1e-6
+_FAR_FACTOR = 10.0
 _MESSAGE_FALLBACK = "refitted by the lmfit path after the engine failed: "
 
 

@@ -141,9 +141,9 @@ def mechanism_log_bounds(model, s, i, v, mask):
         return np.log(np.stack(lo, axis=1)), np.log(np.stack(hi, axis=1))
 
 
-def logistic_starts(x, y, mask) -> np.ndarray:
-    """Vectorised :func:`inhibkin.logistic.logistic4_start`: (B, 4) top, bottom,
-    log_ic50, hill."""
+def _level_means(x, y, mask):
+    """Distinct valid x per row (ascending, NaN-padded), the mean y at each, and their
+    number."""
     n_batch, n = x.shape
     order = np.argsort(np.where(mask, x, np.inf), axis=1, kind="stable")
     xs = np.take_along_axis(np.where(mask, x, np.inf), order, axis=1)
@@ -154,7 +154,6 @@ def logistic_starts(x, y, mask) -> np.ndarray:
     new[:, 1:] = xs[:, 1:] != xs[:, :-1]
     new &= inside
     group = np.cumsum(new, axis=1) - 1  # level index of each sorted point
-    n_levels = new.sum(axis=1)
     flat = (np.arange(n_batch)[:, None] * n + group)[inside]
     sums = np.bincount(flat, weights=ys[inside], minlength=n_batch * n).reshape(n_batch, n)
     counts = np.bincount(flat, minlength=n_batch * n).reshape(n_batch, n)
@@ -162,6 +161,19 @@ def logistic_starts(x, y, mask) -> np.ndarray:
     levels[np.nonzero(new)[0], group[new]] = xs[new]
     with np.errstate(invalid="ignore", divide="ignore"):
         means = sums / counts
+    return levels, means, new.sum(axis=1)
+
+
+def logistic_starts(x, y, mask) -> np.ndarray:
+    """Vectorised :func:`inhibkin.logistic.logistic4_start`: (B, 4) top, bottom,
+    log_ic50, hill."""
+    n_batch, n = x.shape
+    if mask.all() and np.all(x[:, 1:] > x[:, :-1]):
+        # The usual layout: one point per concentration, rising. Every point is a level.
+        levels, means = x.copy(), y.copy()
+        n_levels = np.full(n_batch, n)
+    else:
+        levels, means, n_levels = _level_means(x, y, mask)
     rows = np.arange(n_batch)
     last = np.clip(n_levels - 1, 0, None)
     top = means[:, 0]
