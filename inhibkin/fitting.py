@@ -373,6 +373,7 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
     determined = ~at_bound & np.isfinite(ci_high) & (ci_low > 0) & np.isfinite(se_log)
     i_max = float(np.max(i, initial=0.0))
     s_max = float(np.max(s, initial=0.0))
+    s_low = float(np.min(s[s > 0], initial=np.inf))
     for j, name in enumerate(law.param_names):
         if name in law.inhibition_constants and estimate[j] > determination_factor * i_max:
             determined[j] = False
@@ -382,6 +383,9 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
             determined[j] = False
             # With every S far below km only vmax/km is set; vmax is an extrapolation.
             determined[law.param_names.index("vmax")] = False
+        if name == "km" and estimate[j] * determination_factor < s_low:
+            # Every S far above km: the rates sit on the plateau, km is below resolution.
+            determined[j] = False
     table = pd.DataFrame(
         {"estimate": estimate, "se": estimate * se_log, "ci_low": ci_low, "ci_high": ci_high,
          "determined": determined},

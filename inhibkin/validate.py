@@ -17,8 +17,10 @@ __all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_men
 # How many bad rows of one kind a message lists before it summarises the rest.
 _MAX_ROWS_LISTED = 5
 # Largest magnitude accepted in a number column: squares and sums of squares of larger
-# values overflow float64 (about 1.8e308) inside the fits.
+# values overflow float64 (about 1.8e308) inside the fits; nonzero values below the
+# smallest underflow to zero in logarithms and ratios.
 MAX_MAGNITUDE = 1e100
+MIN_MAGNITUDE = 1e-100
 
 
 def check_columns(df, columns, context=None) -> None:
@@ -61,11 +63,14 @@ def numeric_column(df, column, problems, *, allow_negative=False, allow_nan=Fals
     if infinite.any():
         _listed(problems, column, labels[infinite], values[infinite], "infinite value")
     with np.errstate(invalid="ignore"):
-        huge = np.isfinite(values) & (np.abs(values) > MAX_MAGNITUDE)
-    if huge.any():
-        _listed(problems, column, labels[huge], values[huge],
-                f"too large to fit (magnitude above {MAX_MAGNITUDE:g}); rescale the column, "
-                f"e.g. express it in another unit")
+        magnitude = np.abs(values)
+        huge = np.isfinite(values) & (magnitude > MAX_MAGNITUDE)
+        tiny = (magnitude > 0) & (magnitude < MIN_MAGNITUDE)
+    for wrong, what in ((huge, f"too large to fit (magnitude above {MAX_MAGNITUDE:g})"),
+                        (tiny, f"too small to fit (magnitude below {MIN_MAGNITUDE:g})")):
+        if wrong.any():
+            _listed(problems, column, labels[wrong], values[wrong],
+                    f"{what}; rescale the column, e.g. express it in another unit")
     if not allow_negative:
         negative = values < 0
         if negative.any():
