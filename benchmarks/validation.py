@@ -36,7 +36,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from inhibkin.errors import DataError
+from inhibkin.design import CALL_OUTCOMES, call_outcome
 from inhibkin.mechanism import fit_mechanisms
 from inhibkin.models import MODELS
 from inhibkin.simulate import simulate_grid, standard_design
@@ -63,8 +63,8 @@ LEVEL = 0.95
 #: Level of the Clopper–Pearson bands printed beside every Monte Carlo rate.
 BAND_LEVEL = 0.95
 #: Data sets per cell, and in the cells the targets are set on (standard design, 5 % CV).
-N_PER_CELL = 200
-N_TARGET_CELL = 600
+N_PER_CELL = 500
+N_TARGET_CELL = 2000
 #: The targets of issue 8, on the standard design at 5 % CV.
 TARGET_CORRECT = {"competitive": 0.90, "uncompetitive": 0.90, "noncompetitive": 0.80,
                   "mixed_a0.2": 0.80, "mixed_a5": 0.80}
@@ -124,8 +124,9 @@ DESIGNS: dict[str, Callable[[float, float], tuple[np.ndarray, np.ndarray]]] = {
     "low_substrate": _design_low_substrate,
 }
 
-#: Outcome classes, in display order (see :func:`outcome`).
-OUTCOMES = ("correct", "ambiguous", "wrong", "larger", "missed", "failed", "rejected")
+#: Outcome classes, in display order: those of :func:`inhibkin.design.call_outcome`,
+#: and ``rejected`` for a data set the input checks refuse (:func:`fit_case`).
+OUTCOMES = (*CALL_OUTCOMES, "rejected")
 
 
 def outcome(truth_model: str, verdict: str) -> str:
@@ -148,19 +149,12 @@ def outcome(truth_model: str, verdict: str) -> str:
         truth).
     ``failed``
         The fit failed.
-
-    A data set the input checks refuse (negative rates from constant-SD noise on tiny
-    rates) is classed ``rejected`` by :func:`fit_case`, before any verdict.
+    ``rejected``
+        The input checks refused the data set (negative rates from constant-SD noise).
     """
-    if verdict == truth_model:
-        return "correct"
-    if verdict in ("ambiguous", "failed"):
-        return verdict
-    if verdict in MODELS[truth_model].nests_in:
-        return "larger"
-    if verdict == "none":
-        return "missed"
-    return "wrong"
+    if verdict == "rejected":
+        return "rejected"
+    return call_outcome(truth_model, verdict)
 
 
 @dataclass(frozen=True)
@@ -214,28 +208,41 @@ def _seed(base: int, cell: int, replicate: int) -> np.random.Generator:
     return np.random.default_rng([base, cell, replicate])
 
 
-def fit_case(case: Case, rng: np.random.Generator, *, intervals="wald") -> dict:
-    """Simulate one data set of ``case``, fit every mechanism, and return one record.
+def simulate_case(case: Case, rng: np.random.Generator) -> pd.DataFrame:
+    """One simulated data set of ``case`` (duplicates on every grid cell)."""
+    s, i = case.levels()
+    noise_kw, _ = NOISES[case.noise]
+    return simulate_grid(case.model, vmax=VMAX, km=KM, s=s, i=i, seed=rng, **noise_kw,
+                         **case.constants)
+
+
+def _rejected(data: pd.DataFrame) -> dict | None:
+    """The record of a data set the input checks refuse, or None.
+
+    Constant-SD noise on tiny rates gives negative readings, which the checks refuse;
+    such a data set is counted as ``rejected``, with the reason kept.
+    """
+    negative = int((data["rate"] < 0).sum())
+    if not negative:
+        return None
+    return {"verdict": "rejected", "outcome": "rejected", "candidates": "",
+            "reason": f"{negative} negative rates refused by the input checks",
+            "true_model_converged": False}
+
+
+def record_of(case: Case, fit) -> dict:
+    """One record from a :class:`~inhibkin.mechanism.MechanismFit` of a ``case`` data set.
 
     The record holds the verdict and its outcome class and, for each parameter of the
     true model, the estimate, its interval from the fit of the true model, whether the
     interval covers the truth and whether the constant was determined.
     """
-    s, i = case.levels()
-    noise_kw, weighting = NOISES[case.noise]
-    data = simulate_grid(case.model, vmax=VMAX, km=KM, s=s, i=i, seed=rng, **noise_kw,
-                         **{k: v for k, v in case.constants.items()})
-    try:
-        fit = fit_mechanisms(data, weighting=weighting, intervals=intervals, level=LEVEL)
-    except DataError as error:
-        # Constant-SD noise on tiny rates gives negative readings, which the input
-        # checks refuse; the data set is counted as rejected, with the reason kept.
-        return {"verdict": "rejected", "outcome": "rejected", "candidates": "",
-                "reason": str(error).splitlines()[0], "true_model_converged": False}
     record = {"verdict": fit.verdict, "outcome": outcome(case.model, fit.verdict),
               "candidates": "+".join(fit.candidates), "reason": fit.reason}
-    true_fit = fit.models[case.model]
-    record["true_model_converged"] = true_fit.converged
+    true_fit = fit.models.get(case.model)
+    record["true_model_converged"] = bool(true_fit is not None and true_fit.converged)
+    if not record["true_model_converged"]:
+        return record
     for name, value in case.true_params().items():
         if name == "vmax":
             continue
@@ -248,17 +255,47 @@ def fit_case(case: Case, rng: np.random.Generator, *, intervals="wald") -> dict:
     return record
 
 
+def fit_case(case: Case, rng: np.random.Generator, *, intervals="wald") -> dict:
+    """Simulate one data set of ``case``, fit it with the lmfit path
+    (:func:`inhibkin.fit_mechanisms`) and return its record (:func:`record_of`)."""
+    data = simulate_case(case, rng)
+    rejected = _rejected(data)
+    if rejected:
+        return rejected
+    fit = fit_mechanisms(data, weighting=NOISES[case.noise][1], intervals=intervals,
+                         level=LEVEL)
+    return record_of(case, fit)
+
+
+def fit_cases_engine(case: Case, rngs: Sequence[np.random.Generator]) -> list[dict]:
+    """:func:`fit_case` for many data sets of one case at once, with the batched engine
+    (:func:`inhibkin.engine.mechanisms.fit_mechanisms_batch`, log-Wald intervals)."""
+    from inhibkin.engine.mechanisms import fit_mechanisms_batch
+
+    records: list[dict | None] = []
+    usable = []
+    for rng in rngs:
+        data = simulate_case(case, rng)
+        rejected = _rejected(data)
+        records.append(rejected)
+        if rejected is None:
+            usable.append(data)
+    fits = iter(fit_mechanisms_batch(usable, weighting=NOISES[case.noise][1], level=LEVEL))
+    return [r if r is not None else record_of(case, next(fits)) for r in records]
+
+
 def _run_chunk(task):
-    fit_one, case, cell, base, start, stop = task
-    out = []
-    for j in range(start, stop):
-        record = fit_one(case, _seed(base, cell, j))
-        out.append({"cell": cell, "replicate": j, **record})
-    return out
+    fit_one, batched, case, cell, base, start, stop = task
+    replicates = range(start, stop)
+    if batched:
+        records = fit_one(case, [_seed(base, cell, j) for j in replicates])
+    else:
+        records = [fit_one(case, _seed(base, cell, j)) for j in replicates]
+    return [{"cell": cell, "replicate": j, **r} for j, r in zip(replicates, records)]
 
 
-def monte_carlo(cases: Sequence, fit_one: Callable, *, seed=SEED, workers=1,
-                chunk=25) -> pd.DataFrame:
+def monte_carlo(cases: Sequence, fit_one: Callable, *, seed=SEED, workers=1, chunk=25,
+                batched=False) -> pd.DataFrame:
     """Run ``fit_one(case, rng)`` for every replicate of every case.
 
     Parameters
@@ -275,6 +312,9 @@ def monte_carlo(cases: Sequence, fit_one: Callable, *, seed=SEED, workers=1,
         Processes; 1 runs in this process.
     chunk : int
         Replicates per task sent to a worker.
+    batched : bool
+        ``fit_one(case, rngs) -> list of dict`` takes a chunk of replicates at once
+        (the batched engine); the seeds are the same.
 
     Returns
     -------
@@ -282,7 +322,7 @@ def monte_carlo(cases: Sequence, fit_one: Callable, *, seed=SEED, workers=1,
         One row per replicate: the case's key fields, ``cell``, ``replicate`` and the
         record's entries.
     """
-    tasks = [(fit_one, case, c, seed, start, min(start + chunk, case.n))
+    tasks = [(fit_one, batched, case, c, seed, start, min(start + chunk, case.n))
              for c, case in enumerate(cases) for start in range(0, case.n, chunk)]
     if workers > 1:
         with multiprocessing.get_context("fork").Pool(workers) as pool:
@@ -382,9 +422,27 @@ def _fit_wald(case, rng):
     return fit_case(case, rng, intervals="wald")
 
 
-def run_study(cases, *, seed=SEED, workers=2, fit_one=_fit_wald) -> dict[str, pd.DataFrame]:
-    """The records and every summary table of the study."""
-    records = monte_carlo(cases, fit_one, seed=seed, workers=workers)
+def _fit_profile(case, rng):
+    return fit_case(case, rng, intervals="profile")
+
+
+#: Fitting paths of the study: (fit function, batched, replicates per task).
+FITTERS = {
+    "engine": (fit_cases_engine, True, 100),
+    "lmfit": (_fit_wald, False, 25),
+    "lmfit-profile": (_fit_profile, False, 10),
+}
+
+
+def run_study(cases, *, seed=SEED, workers=2, fitter="engine") -> dict[str, pd.DataFrame]:
+    """The records and every summary table of the study.
+
+    ``fitter`` is a key of :data:`FITTERS`: the batched engine (log-Wald intervals, the
+    default), the lmfit path with log-Wald intervals, or with profile intervals.
+    """
+    fit_one, batched, chunk = FITTERS[fitter]
+    records = monte_carlo(cases, fit_one, seed=seed, workers=workers, chunk=chunk,
+                          batched=batched)
     return {
         "records": records,
         "confusion": confusion_matrix(records),
@@ -429,7 +487,7 @@ def _pct(frame):
     return frame.to_string(float_format=lambda x: f"{100 * x:5.1f}")
 
 
-def render(tables) -> str:
+def render(tables, intervals="log-scale Wald") -> str:
     """The printed report."""
     out = tables["outcomes"]
     cov = tables["coverage"]
@@ -437,16 +495,22 @@ def render(tables) -> str:
     pki = tables["pki"][["bias", "sd", "rmse"]].unstack("parameter")
     return "\n\n".join([
         "Outcome classes, % of data sets (correct / ambiguous / wrong = confidently wrong /"
-        "\nlarger = a model nesting the truth / missed = 'none' for an inhibitor / failed)",
+        "\nlarger = a model nesting the truth / missed = 'none' for an inhibitor / failed /"
+        "\nrejected = negative rates refused by the input checks)",
         _pct(out.drop(columns="n")),
         "Verdicts, % of data sets (confusion matrix)",
         _pct(tables["confusion"]),
-        "Coverage of 95 % intervals (log-scale Wald, fit of the true model), %",
+        f"Coverage of 95 % intervals ({intervals}, fit of the true model), %",
         _pct(coverage_wide),
         "pKi error (estimate - truth, log10 units): bias, SD, RMSE",
         pki.to_string(float_format=lambda x: f"{x:6.3f}"),
         target_report(tables),
     ])
+
+
+_OUTCOME_COLOURS = {"correct": "tab:green", "ambiguous": "0.7", "wrong": "tab:red",
+                    "larger": "tab:orange", "missed": "tab:purple", "failed": "tab:brown",
+                    "rejected": "k"}
 
 
 def plot(tables, path: Path) -> None:
@@ -461,13 +525,13 @@ def plot(tables, path: Path) -> None:
     fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(14, 6), constrained_layout=True)
     labels = [f"{d} | {t}" for d, t in out.index]
     left = np.zeros(len(out))
-    colours = plt.get_cmap("tab10").colors
-    for k, name in enumerate(OUTCOMES):
-        ax1.barh(labels, out[name], left=left, color=colours[k], label=name)
+    for name in OUTCOMES:
+        ax1.barh(labels, out[name], left=left, color=_OUTCOME_COLOURS[name], label=name)
         left += out[name].to_numpy()
     ax1.invert_yaxis()
     ax1.set_xlabel("share of data sets (5 % CV)")
-    ax1.legend(loc="lower right", fontsize=8)
+    ax1.legend(loc="upper center", bbox_to_anchor=(0.5, -0.08), ncol=len(OUTCOMES),
+               fontsize=8)
     ax1.set_title("Verdict outcomes by design and true mechanism")
     cov["label"] = cov["design"] + " | " + cov["truth"] + " | " + cov["parameter"]
     y = np.arange(len(cov))
@@ -506,15 +570,20 @@ def main(argv=None) -> int:
                         help="data sets per cell on the standard design at 5 %% CV")
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--seed", type=int, default=SEED)
+    parser.add_argument("--fitter", choices=list(FITTERS), default="engine",
+                        help="batched engine (default) or the lmfit path")
+    parser.add_argument("--designs", nargs="*", choices=list(DESIGNS), default=None)
+    parser.add_argument("--noises", nargs="*", choices=list(NOISES), default=None)
     args = parser.parse_args(argv)
-    cases = study_cases(args.n, args.n_target)
+    cases = study_cases(args.n, args.n_target, designs=args.designs, noises=args.noises)
     start = time.perf_counter()
-    tables = run_study(cases, seed=args.seed, workers=args.workers)
+    tables = run_study(cases, seed=args.seed, workers=args.workers, fitter=args.fitter)
     elapsed = time.perf_counter() - start
     n_fits = sum(c.n for c in cases)
-    print(render(tables))
+    print(render(tables, "profile" if args.fitter == "lmfit-profile" else "log-scale Wald"))
     paths = save(tables, args.out)
-    print(f"\n{n_fits} data sets in {len(cases)} cells, {elapsed:.0f} s on {args.workers} "
+    print(f"\n{n_fits} data sets in {len(cases)} cells, fitter {args.fitter}, "
+          f"{elapsed:.0f} s on {args.workers} "
           f"worker(s) ({1000 * elapsed * args.workers / n_fits:.0f} ms per data set per "
           f"worker); saved {', '.join(str(p) for p in paths)}")
     return 0

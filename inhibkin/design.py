@@ -22,8 +22,9 @@ search is a level exchange (swap one level for an unused one while the criterion
 improves) over every grid shape that fills the budget.
 
 The criterion is a proxy. The plan also reports what matters, estimated by
-simulation: the rate of correct verdicts of :func:`inhibkin.fit_mechanisms` on data
-drawn from the prior (each of the four inhibition mechanisms in turn), for the
+simulation: the rate of correct verdicts of :func:`inhibkin.fit_mechanisms` (weights
+from the assumed noise model) on data drawn from the prior (each of the four
+inhibition mechanisms in turn), for the
 proposed grid and, on the same simulated truths and noise draws, for a naive grid of
 the same shape with its levels evenly spaced through the allowed series.
 """
@@ -277,14 +278,32 @@ def _simulate_calls(grids, *, km_range, ki_range, cv, floor_sd, replicates, n_si
             # The noise floor makes some readings of fully inhibited wells negative; the
             # input checks refuse those, and a plate reader pipeline reports them as 0.
             data["rate"] = data["rate"].clip(lower=0.0)
+            # Weights from the noise model itself, the same rule for both grids, so the
+            # comparison is about the levels and not about a weighting that suits one.
+            data["sd"] = np.sqrt((cv * data["true_rate"]) ** 2 + floor_sd**2)
             try:
-                verdict = fit_mechanisms(data, weighting="relative", intervals="wald").verdict
+                fit = fit_mechanisms(data, sd="sd", weighting="sd", intervals="wald")
+                verdict = fit.verdict
+                error = _pki_error(fit.models[mechanism], constants)
             except InhibkinError:
-                verdict = "failed"
+                verdict, error = "failed", np.nan
             rows.append({"simulation": k, "grid": grid, "mechanism": mechanism,
-                         "verdict": verdict, "outcome": call_outcome(mechanism, verdict)})
+                         "verdict": verdict, "outcome": call_outcome(mechanism, verdict),
+                         "pki_error": error})
     return pd.DataFrame(rows, columns=["simulation", "grid", "mechanism", "verdict",
-                                       "outcome"])
+                                       "outcome", "pki_error"])
+
+
+def _pki_error(model_fit, constants) -> float:
+    """Largest |pKi error| (log10 units) over the inhibition constants of the true
+    model's fit; NaN when it did not converge."""
+    if not model_fit.converged:
+        return np.nan
+    est = model_fit.best_values
+    truth = dict(constants)
+    if "ki" in est:
+        truth = {"ki": constants["kic"]}
+    return float(max(abs(np.log10(est[n] / v)) for n, v in truth.items()))
 
 
 @dataclass(frozen=True)
@@ -312,7 +331,8 @@ class GridPlan:
         The prior ranges.
     simulations : pandas.DataFrame
         One row per simulated data set and grid: simulation, grid ("proposed" or
-        "naive"), mechanism, verdict, outcome (see :func:`call_outcome`).
+        "naive"), mechanism, verdict, outcome (see :func:`call_outcome`), pki_error
+        (largest |pKi error| of the true model's constants, log10 units).
     seed : int or None
     """
 
@@ -352,8 +372,8 @@ class GridPlan:
         return self._rate("naive")
 
     def rates(self) -> pd.DataFrame:
-        """Share of each outcome per grid and mechanism (and "all"), with n and a
-        Clopper–Pearson band on the correct-call rate."""
+        """Share of each outcome per grid and mechanism (and "all"), with n, a
+        Clopper–Pearson band on the correct-call rate and the RMS pKi error (log10)."""
         sims = self.simulations
         if sims.empty:
             return pd.DataFrame()
@@ -367,6 +387,8 @@ class GridPlan:
         a = (1 - BAND_LEVEL) / 2
         out["correct_low"] = np.where(k > 0, stats.beta.ppf(a, k, n - k + 1), 0.0)
         out["correct_high"] = np.where(k < n, stats.beta.ppf(1 - a, k + 1, n - k), 1.0)
+        out["pki_rmse"] = both.groupby(["grid", "mechanism"])["pki_error"].apply(
+            lambda e: float(np.sqrt(np.nanmean(e**2))))
         return out
 
     def layout(self) -> pd.DataFrame:
@@ -384,13 +406,19 @@ class GridPlan:
         rows += [("naive", "inhibitor", x) for x in self.naive_inhibitor]
         return pd.DataFrame(rows, columns=["grid", "factor", "level"])
 
+    def pki_rmse(self, grid="proposed") -> float:
+        """Simulated RMS error of pKi (log10 units) on ``grid``."""
+        sims = self.simulations[self.simulations["grid"] == grid]
+        return float(np.sqrt(np.nanmean(sims["pki_error"] ** 2))) if len(sims) else np.nan
+
     def _comparison_lines(self):
-        lines = [f"  {'':<10} {'criterion':>10} {'correct':>8} {'wrong':>7} {'ambiguous':>10}"]
+        lines = [f"  {'':<10} {'criterion':>10} {'correct':>8} {'wrong':>7} {'ambiguous':>10} "
+                 f"{'pKi RMSE':>9}"]
         for grid, value in (("proposed", self.criterion_value),
                             ("naive", self.naive_criterion_value)):
             lines.append(f"  {grid:<10} {value:>10.2f} {self._rate(grid):>8.1%} "
                          f"{self._rate(grid, 'wrong'):>7.1%} "
-                         f"{self._rate(grid, 'ambiguous'):>10.1%}")
+                         f"{self._rate(grid, 'ambiguous'):>10.1%} {self.pki_rmse(grid):>9.3f}")
         return lines
 
     def summary(self) -> str:

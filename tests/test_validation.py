@@ -17,6 +17,7 @@ from benchmarks.validation import (
     clopper_pearson,
     coverage_table,
     fit_case,
+    fit_cases_engine,
     monte_carlo,
     outcome,
     outcome_table,
@@ -177,3 +178,18 @@ def test_small_study_tables(small_study):
     pki = pki_table(small_study)
     assert {"bias", "sd", "rmse"} <= set(pki.columns)
     assert (pki["n"] > 0).all()
+
+
+N_AGREEMENT = 12
+
+
+@pytest.mark.parametrize("truth, design", [("mixed_a5", "standard"),
+                                           ("competitive", "low_substrate")])
+def test_engine_path_gives_the_lmfit_records(truth, design):
+    # The full study runs on the batched engine; it must agree with the lmfit path.
+    case = Case(truth, "cv5", design, N_AGREEMENT)
+    lmfit_records = monte_carlo([case], _wald_case, seed=3)
+    engine_records = monte_carlo([case], fit_cases_engine, seed=3, batched=True)
+    assert (lmfit_records["verdict"] == engine_records["verdict"]).all()
+    flags = [c for c in lmfit_records if c.endswith("_covered")]
+    assert (lmfit_records[flags] == engine_records[flags]).all().all()
