@@ -8,6 +8,7 @@ converted to Ki. Results are statistical estimates for research triage.
 from . import figures
 from .batch import Campaign, fit_campaign, simulate_campaign
 from .compare import VerdictOptions
+from .engine import fit_logistic_batch, fit_mechanism_arrays, fit_mechanisms_batch
 from .errors import DataError, FitError, InhibkinError, InhibkinWarning, UnitsError
 from .fitting import ModelFit, fit_michaelis_menten
 from .io import read_table, write_table
@@ -33,6 +34,9 @@ from .units import from_molar, to_molar
 __version__ = "0.1.0"
 
 __all__ = [
+    "fit_logistic_batch",
+    "fit_mechanism_arrays",
+    "fit_mechanisms_batch",
     "figures",
     "fit_html",
     "report",
