@@ -389,8 +389,10 @@ def _run_dask(client, function, tasks, arguments, split, lost, done):
 
     The scheduler itself reruns the tasks of a worker that dies, until a task has been
     on ``distributed.scheduler.allowed-failures`` dying workers; then it gives up on it
-    (``KilledWorker``). Such a chunk is split and its compounds submitted one by one;
-    a compound that is given up on by itself is reported failed.
+    (``KilledWorker``), whether it caused the deaths or only shared a worker with the
+    task that did. Such a chunk is split and its compounds submitted one by one; a
+    compound given up on by itself is run once more at the end, alone on the cluster,
+    where a death can only be its own, and is reported failed if it dies again.
     """
     from distributed import KilledWorker
     from distributed import as_completed as dask_completed
@@ -398,21 +400,29 @@ def _run_dask(client, function, tasks, arguments, split, lost, done):
     futures = {client.submit(function, task[2], *arguments, pure=False): task
                for task in tasks}
     queue = dask_completed(list(futures))
+    suspects = []
     for future in queue:
         task = futures.pop(future)
         k, path, chunk = task
         try:
             result = future.result()
-        except KilledWorker as err:
+        except KilledWorker:
             parts = split(chunk)
             if len(parts) > 1:
                 for j, part in enumerate(parts):
                     piece = client.submit(function, part, *arguments, pure=False)
                     futures[piece] = (k, path + (j,), part)
                     queue.add(piece)
-                continue
-            result = lost(chunk, f"the Dask workers running this compound died; the "
-                                 f"scheduler gave up on it ({err})")
+            else:
+                suspects.append(task)
+            continue
+        done(task, result)
+    for task in sorted(suspects, key=lambda task: task[:2]):
+        try:
+            result = client.submit(function, task[2], *arguments, pure=False).result()
+        except KilledWorker as err:
+            result = lost(task[2], f"the Dask workers running this compound died, the last "
+                                   f"time with it alone; the scheduler gave up on it ({err})")
         done(task, result)
 
 
@@ -561,6 +571,7 @@ class Campaign:
         from .report import campaign_html  # matplotlib only when a notebook asks
 
         return campaign_html(self)
+
 
 def _engine(engine):
     if engine is None or engine == "lmfit":

@@ -702,11 +702,15 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     with np.errstate(divide="ignore", invalid="ignore"):
         s0_signal = np.where(s0 > 0, s0 / to_substrate * sensitivity / stoichiometry, np.nan)
 
-    core = _rates_core(t_grid, y_grid, valid, ceiling_at, s0_signal, method=method,
-                       alpha=alpha, max_bias=max_bias, max_conversion=max_conversion,
-                       min_points=min_points) if n_wells else None
-    rows = _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells,
-                     options=options)
+    # Degenerate windows (reads bunched at one time next to one far away) overflow to
+    # inf/NaN; the finiteness checks of the assembly turn those into flagged or failed
+    # wells, so the floating-point warnings would only repeat that.
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        core = _rates_core(t_grid, y_grid, valid, ceiling_at, s0_signal, method=method,
+                           alpha=alpha, max_bias=max_bias, max_conversion=max_conversion,
+                           min_points=min_points) if n_wells else None
+        rows = _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells,
+                         options=options)
 
     factor = to_seconds(1.0, rate_time_unit) / to_seconds(1.0, time_unit)
     to_rate_unit = factor / sensitivity / stoichiometry
