@@ -59,7 +59,7 @@ import pandas as pd
 
 from .errors import DataError, InhibkinError, Problem, UnitsError
 from .mechanism import MechanismFit, fit_mechanisms
-from .plates import ROLES, plate_qc
+from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
 from .potency import CONVERSIONS, potency_table
 from .simulate import simulate_grid
 from .units import CONCENTRATION_UNITS, from_molar, normalise_unit, resolve_units, to_molar
@@ -72,6 +72,7 @@ __all__ = [
     "simulate_campaign",
     "parse_concentration",
     "RANKING_COLUMNS",
+    "PLATE_COLUMNS",
     "STATUSES",
     "LE_KCAL_PER_PKI",
 ]
@@ -88,6 +89,9 @@ RANKING_COLUMNS = (
     "ic50_M", "ic50_low_M", "ic50_high_M", "pic50", "hill", "ki_source", "flags", "reason",
 )
 _EFFICIENCY_COLUMNS = ("heavy_atoms", "logp", "le", "lipe")
+#: Columns of :attr:`Campaign.plates` (those of :meth:`inhibkin.plates.PlateQC.to_frame`).
+PLATE_COLUMNS = ("plate", "n_max", "mean_max", "sd_max", "n_min", "mean_min", "sd_min",
+                 "z_prime", "flagged", "problem")
 
 # A chunk closes at this many compounds (the ``chunk_size`` default) or this many rows,
 # whichever comes first, so no single task carries a large slice of the table.
@@ -510,12 +514,20 @@ class Campaign:
     potency_fits : Mapping
         compound → :class:`~inhibkin.potency.DoseResponseFit` (concentrations in M) for
         every compound whose dose-response curve was fitted.
+    plates : pandas.DataFrame
+        Control statistics and Z'-factor of every plate of the dose-response table, one
+        row per plate in table order, columns :data:`PLATE_COLUMNS`: plate, n_max,
+        mean_max, sd_max, n_min, mean_min, sd_min (signal units), z_prime, flagged (Z'
+        below the threshold, or the plate could not be normalised) and problem (why
+        not, else empty). The numbers are those :func:`~inhibkin.potency.potency_table`
+        uses to normalise the wells. Empty (same columns) without a dose-response table.
     """
 
     ranking: pd.DataFrame
     fits: Mapping = field(repr=False)
     options: Mapping = field(default_factory=dict)
     potency_fits: Mapping = field(default_factory=dict, repr=False)
+    plates: pd.DataFrame = field(default_factory=lambda: _plates_frame(None), repr=False)
 
     @property
     def counts(self) -> dict:
@@ -560,6 +572,11 @@ class Campaign:
                  f"{100 * self.options.get('level', 0.95):g}%, "
                  f"{self.options.get('weighting', '')} weighting)", "-" * width,
                  shown.to_string(index=False, float_format=lambda x: f"{x:.2f}")]
+        if len(self.plates):
+            flagged = self.plates.loc[self.plates["flagged"], "plate"]
+            lines += ["-" * width, f"{len(self.plates)} dose-response plates, {len(flagged)} "
+                                   f"flagged (low Z' or unusable controls)"
+                                   + (f": {', '.join(map(str, flagged))}" if len(flagged) else "")]
         failed = self.failed
         if len(failed):
             lines += ["-" * width, "Failed:"]
@@ -571,6 +588,30 @@ class Campaign:
         from .report import campaign_html  # matplotlib only when a notebook asks
 
         return campaign_html(self)
+
+
+def _plates_frame(qc) -> pd.DataFrame:
+    """:attr:`Campaign.plates` from a PlateQC (None: the empty table)."""
+    if qc is None:
+        return pd.DataFrame({name: pd.Series(dtype=dtype) for name, dtype in zip(
+            PLATE_COLUMNS, (object, int, float, float, int, float, float, float, bool,
+                            object))})
+    return qc.to_frame()[list(PLATE_COLUMNS)]
+
+
+def _campaign_plates(frame, *, plate, role, response, threshold) -> pd.DataFrame:
+    """Plate QC of the whole dose-response table, computed once.
+
+    Every chunk's potency table carries all the control wells of its plates, so its
+    plate rows equal these; computing them here once also covers plates that no chunk
+    sees (controls only). Sample wells only name their plate: their signals play no part
+    in Z' and are not read (a bad sample signal fails its compound, not the plate).
+    """
+    wells = frame[[plate, role, response]].copy()
+    samples = (wells[role] == "sample").to_numpy()
+    wells[response] = wells[response].astype(object).where(~samples, 0.0)
+    return _plates_frame(plate_qc(wells, plate=plate, role=role, response=response,
+                                  threshold=threshold, strict=False))
 
 
 def _engine(engine):
@@ -922,7 +963,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
             grid_rows[name] = row
             if fit is not None:
                 grid_fits[name] = fit
-    dose_rows, potency_fits = {}, {}
+    dose_rows, potency_fits, plates = {}, {}, _plates_frame(None)
     if dose_response is not None:
         if isinstance(km, (int, float)) and not isinstance(km, bool):
             km = float(km)
@@ -932,6 +973,9 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         declared.update({f"dose-response {k}": v for k, v in dose_units.items()})
         options = dict(potency_options or {})
         options.update(intervals=intervals, level=level)
+        plates = _campaign_plates(frame, plate=plate, role=role, response=response,
+                                  threshold=options.get("z_prime_threshold",
+                                                        Z_PRIME_THRESHOLD))
         dose_settings = _DoseSettings(compound, columns, km_spec, enzyme_spec,
                                       tuple(sorted(options.items())))
         mechanisms = {n: m for n, r in grid_rows.items()
@@ -961,7 +1005,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         "units": declared, "seconds": time.perf_counter() - started,
     })
     return Campaign(ranking, MappingProxyType(grid_fits), run_options,
-                    MappingProxyType(potency_fits))
+                    MappingProxyType(potency_fits), plates)
 
 
 def parse_concentration(text) -> float:

@@ -321,3 +321,59 @@ def test_dose_response_needs_km_and_declared_units():
     plates.loc[0, "role"] = "blank"
     with pytest.raises(DataError, match="unknown role"):
         fit_campaign(dose_response=plates, km=KM_M, quiet=True)
+
+
+def test_campaign_carries_the_plate_qc_table():
+    from inhibkin.batch import PLATE_COLUMNS
+    from inhibkin.plates import z_prime
+    from inhibkin.potency import potency_table
+
+    kis = {f"Q-{k}": 10.0 ** -p for k, p in enumerate(np.linspace(6.5, 8.0, 7))}
+    plates = _dose_plates(kis, seed=51, per_plate=3)  # plates P1..P3
+    # P2's 'max' controls spread by ±300 of a 950 window: Z' < 0.5, the plate is flagged.
+    noisy = (plates["plate"] == "P2") & (plates["role"] == "max")
+    plates.loc[noisy, "signal"] = [700.0, 1300.0, 800.0, 1200.0]
+    # A plate of controls alone and a plate with one 'min' well (cannot be normalised).
+    extra = pd.DataFrame({"compound": None, "plate": ["P9"] * 4 + ["P8"] * 3,
+                          "role": ["max", "max", "min", "min", "max", "max", "min"],
+                          "inhibitor_nM": 0.0, "signal": [990, 1010, 45, 55, 1000, 1005, 50],
+                          "substrate_uM": 20.0})
+    sample = plates[plates["role"] == "sample"].iloc[:2].assign(compound="Q-P8", plate="P8")
+    table = pd.concat([plates, extra, sample], ignore_index=True)
+    # chunk_size=2: plates are shared by chunks; each plate must still appear once.
+    campaign = fit_campaign(dose_response=table, km=KM_M, quiet=True, chunk_size=2)
+    qc = campaign.plates
+    assert list(qc.columns) == list(PLATE_COLUMNS)
+    assert qc["plate"].tolist() == ["P1", "P2", "P3", "P9", "P8"]
+    for _, row in qc.iterrows():
+        wells = table[table["plate"] == row["plate"]]
+        hi = wells.loc[wells["role"] == "max", "signal"]
+        lo = wells.loc[wells["role"] == "min", "signal"]
+        assert (row["n_max"], row["n_min"]) == (len(hi), len(lo))
+        if row["plate"] == "P8":
+            assert row["flagged"] and "1 'min' control wells" in row["problem"]
+            assert np.isnan(row["z_prime"])
+            continue
+        # Z' = 1 - 3(sd_max + sd_min)/|mean_max - mean_min| (Zhang, Chung & Oldenburg
+        # 1999, J. Biomol. Screen. 4:67), recomputed from the wells with numpy.
+        expected = 1 - 3 * (hi.std(ddof=1) + lo.std(ddof=1)) / abs(hi.mean() - lo.mean())
+        assert row["z_prime"] == pytest.approx(expected, rel=1e-12)
+        assert row["z_prime"] == pytest.approx(z_prime(hi, lo), rel=1e-12)
+        assert row["flagged"] == (row["z_prime"] < 0.5) and row["problem"] == ""
+    assert qc.set_index("plate").loc["P2", "flagged"]
+    assert not qc.set_index("plate").loc["P1", "flagged"]
+    # The same numbers the potency table of the whole table reports.
+    molar = table.assign(inhibitor=table["inhibitor_nM"] * 1e-9,
+                         substrate=table["substrate_uM"] * 1e-6)
+    direct = potency_table(molar[molar["plate"] != "P8"], km=KM_M, intervals="wald").plates
+    pd.testing.assert_frame_equal(qc[qc["plate"] != "P8"].reset_index(drop=True),
+                                  direct.to_frame()[list(PLATE_COLUMNS)])
+    assert "5 dose-response plates, 2 flagged" in campaign.summary()
+    # The compound on the unusable plate fails with the plate's reason; the others do not.
+    ranking = campaign.ranking.set_index("compound")
+    assert ranking.loc["Q-P8", "status"] == "failed"
+    assert "'min' control wells" in ranking.loc["Q-P8", "reason"]
+    # Grids only: an empty table with the same columns.
+    grid, _ = simulate_campaign(2, seed=3)
+    empty = fit_campaign(grid, quiet=True).plates
+    assert empty.empty and list(empty.columns) == list(PLATE_COLUMNS)
