@@ -12,9 +12,16 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .compare import Verdict, VerdictOptions, comparison_table, decide, f_test_table
+from .compare import (
+    Verdict,
+    VerdictOptions,
+    comparison_table,
+    decide,
+    f_test,
+    f_test_table,
+)
 from .errors import DataError
-from .fitting import ModelFit, fit_model
+from .fitting import ModelFit, fit_model, fixed_alpha_ssr
 from .models import MODEL_NAMES, MODELS
 from .starts import log_bounds, starting_values
 from .validate import check_grid
@@ -155,9 +162,31 @@ def _mixed_starts(fits, s, i, v, w) -> list[dict]:
     return starts
 
 
+def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr) -> pd.DataFrame:
+    """F-tests of mixed with alpha held at each edge of :meth:`VerdictOptions.alpha_values`
+    against mixed (1 numerator df): rule 4 of the verdict."""
+    mixed = fits["mixed"]
+    p = mixed.best_values
+    starts = [{"vmax": p["vmax"], "km": p["km"], "kic": p["kic"], "kiu": p["kiu"]},
+              *_mixed_starts(fits, s, i, v, w)[1:]]
+    ssr_full = mixed.ssr if mixed.ssr > exact_ssr else 0.0
+    rows = []
+    for value in options.alpha_values:
+        held = [{**x, "kiu": value * x["kic"]} for x in starts]
+        ssr = fixed_alpha_ssr(s, i, v, w, value, held)
+        if np.isfinite(ssr):
+            f_value, p_value, df_num, df_den = f_test(ssr if ssr > exact_ssr else 0.0,
+                                                      mixed.dof + 1, ssr_full, mixed.dof)
+        else:
+            f_value, p_value, df_num, df_den = np.nan, np.nan, 1, mixed.dof
+        rows.append({"reduced": options.alpha_row(value), "full": "mixed", "f_value": f_value,
+                     "df_num": df_num, "df_den": df_den, "p_value": p_value})
+    return pd.DataFrame(rows)
+
+
 def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
                    weighting="uniform", models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
-                   intervals="profile", level=0.95, determination_factor=10.0,
+                   alpha_factor=5.0, intervals="profile", level=0.95, determination_factor=10.0,
                    context=None) -> MechanismFit:
     """Fit every reversible mechanism to one compound's grid and decide between them.
 
@@ -179,6 +208,11 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         Level of the nested F-tests behind the verdict.
     min_delta_aicc : float
         AICc lead needed to pick one of the one-constant mechanisms.
+    alpha_factor : float
+        A one-constant mechanism is called only when the data also reject mixed with
+        alpha = kiu/kic held at the edge of the region its name claims (alpha_factor for
+        competitive, 1/alpha_factor for uncompetitive, both for noncompetitive); see
+        :mod:`inhibkin.compare`.
     intervals : {"profile", "wald"}
         Interval method (see :mod:`inhibkin.fitting`).
     level : float
@@ -223,7 +257,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         w = relative_weights(s, i, v)
     else:
         w = np.ones_like(v)
-    options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc)
+    options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc,
+                             alpha_factor=alpha_factor)
     fits: dict[str, ModelFit] = {}
     common = dict(intervals=intervals, level=level, determination_factor=determination_factor)
     for name in models:
@@ -232,7 +267,11 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     # The table order is the models' own order, whatever order they were fitted in.
     fits = {name: fits[name] for name in MODEL_NAMES if name in fits}
     comparison = comparison_table(fits)
-    ftests = f_test_table(fits, exact_ssr=_EXACT_FIT_RTOL * float(np.sum((w * v) ** 2)))
+    exact_ssr = _EXACT_FIT_RTOL * float(np.sum((w * v) ** 2))
+    ftests = f_test_table(fits, exact_ssr=exact_ssr)
+    if "mixed" in fits and fits["mixed"].converged:
+        ftests = pd.concat([ftests, _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr)],
+                           ignore_index=True)
     verdict: Verdict = decide(comparison, ftests, options)
     data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},
                         index=df.index)

@@ -86,7 +86,8 @@ def test_decide_follows_the_nesting():
     aicc = {"none": 50.0, "competitive": 0.0, "uncompetitive": 30.0, "noncompetitive": 1.0,
             "mixed": 1.5}
     p = {("none", "mixed"): 1e-9, ("competitive", "mixed"): 0.4,
-         ("uncompetitive", "mixed"): 1e-6, ("noncompetitive", "mixed"): 0.2}
+         ("uncompetitive", "mixed"): 1e-6, ("noncompetitive", "mixed"): 0.2,
+         ("mixed, alpha = 0.2", "mixed"): 1e-8, ("mixed, alpha = 5", "mixed"): 1e-3}
     v = decide(*_tables(aicc, p))
     assert v.verdict == "ambiguous" and set(v.candidates) == {"competitive", "noncompetitive"}
     v = decide(*_tables(aicc, p), VerdictOptions(min_delta_aicc=0.5))
@@ -97,6 +98,22 @@ def test_decide_follows_the_nesting():
     assert decide(*_tables(aicc, p)).verdict == "mixed"
     p[("none", "mixed")] = 0.3
     assert decide(*_tables(aicc, p)).verdict == "none"
+
+
+def test_a_one_constant_call_needs_alpha_placed_by_the_data():
+    # Rule 4: competitive is called only when mixed with alpha held at 5 is rejected too.
+    aicc = {"none": 50.0, "competitive": 0.0, "uncompetitive": 30.0, "noncompetitive": 9.0,
+            "mixed": 1.5}
+    p = {("none", "mixed"): 1e-9, ("competitive", "mixed"): 0.4,
+         ("uncompetitive", "mixed"): 1e-6, ("noncompetitive", "mixed"): 1e-4,
+         ("mixed, alpha = 0.2", "mixed"): 1e-8, ("mixed, alpha = 5", "mixed"): 0.3}
+    v = decide(*_tables(aicc, p))
+    assert v.verdict == "ambiguous" and v.candidates == ("competitive", "mixed")
+    assert "alpha = 5" in v.reason
+    p[("mixed, alpha = 5", "mixed")] = 0.01
+    assert decide(*_tables(aicc, p)).verdict == "competitive"
+    # A wider factor moves the edge: alpha held at 20 is a different test.
+    assert decide(*_tables(aicc, p), VerdictOptions(alpha_factor=20)).verdict == "ambiguous"
 
 
 def test_decide_fails_without_the_general_model():

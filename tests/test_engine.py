@@ -269,7 +269,11 @@ def test_vectorised_verdicts_equal_compare_rules(grid_set):
     for c, fit in enumerate(fits.values()):
         # The tables built from arrays are the ones inhibkin.compare builds from the fits.
         pd.testing.assert_frame_equal(fit.comparison, compare.comparison_table(fit.models))
-        pd.testing.assert_frame_equal(fit.ftests, compare.f_test_table(fit.models))
+        nested = compare.f_test_table(fit.models)
+        pd.testing.assert_frame_equal(fit.ftests.iloc[:len(nested)], nested)
+        # The rest are the fixed-alpha rows of the verdict's rule 4.
+        assert list(fit.ftests["reduced"].iloc[len(nested):]) == [
+            fit.options.alpha_row(a) for a in fit.options.alpha_values]
         decided = compare.decide(fit.comparison, fit.ftests, fit.options)
         assert (fit.verdict, fit.best, fit.candidates, fit.reason) == \
             (decided.verdict, decided.best, decided.candidates, decided.reason)

@@ -90,7 +90,9 @@ def test_result_tables_and_reports():
     assert list(fit.comparison.index) == list(MODEL_NAMES)
     assert {"ssr", "aic", "aicc", "bic", "delta_aicc", "akaike_weight"} <= set(fit.comparison)
     assert fit.comparison["akaike_weight"].sum() == pytest.approx(1.0)
-    assert len(fit.ftests) == 7
+    # 7 nested pairs, and mixed with alpha held at 1/5 and at 5 (the verdict's rule 4).
+    assert len(fit.ftests) == 9
+    assert list(fit.ftests["reduced"].iloc[7:]) == ["mixed, alpha = 0.2", "mixed, alpha = 5"]
     params = fit.params
     assert list(params.columns) == ["model", "parameter", "estimate", "se", "ci_low", "ci_high",
                                     "determined"]

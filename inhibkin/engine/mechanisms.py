@@ -26,9 +26,9 @@ from scipy import stats
 
 from .. import fitting as _fitting
 from .. import mechanism as _mechanism
-from ..compare import ONE_CONSTANT_MODELS, Verdict, VerdictOptions
+from ..compare import VerdictOptions, decide_from
 from ..errors import DataError
-from ..fitting import ModelFit, fit_model
+from ..fitting import ModelFit, fit_model, fixed_alpha_ssr
 from ..mechanism import WEIGHTINGS, MechanismFit, _mixed_starts, relative_weights
 from ..models import MODEL_NAMES, MODELS, nested_pairs
 from ..validate import check_grid
@@ -42,6 +42,7 @@ __all__ = ["ModelBatch", "MechanismBatch", "fit_mechanism_arrays", "fit_mechanis
 # The lmfit path's rules, read from it so that the two cannot drift apart.
 _AT_BOUND = _fitting._AT_BOUND
 _REWEIGHT_ITERATIONS = _mechanism._REWEIGHT_ITERATIONS
+_EXACT_FIT_RTOL = _mechanism._EXACT_FIT_RTOL
 _WEIGHT_FLOOR = _mechanism._WEIGHT_FLOOR
 # Literals inside fit_model and _mixed_starts: starts are clipped this far inside the
 # bounds, and a nested solution starts mixed's missing constant at its bound / 10.
@@ -65,6 +66,21 @@ class _LogRateLaw:
         p = np.exp(theta)
         jac = np.moveaxis(self.law.jacobian(s, i, *p), -1, 0) * p[:, None, :]
         return jac[0], jac
+
+
+class _FixedAlphaLaw:
+    """Mixed with alpha = kiu/kic held at ``value``: log (vmax, km, kic) free, and
+    log kiu = log kic + log value (the constrained fit of the verdict's rule 4)."""
+
+    def __init__(self, value):
+        self.law = MODELS["mixed"]
+        self.log_value = np.log(value)
+
+    def __call__(self, theta, s, i):
+        p = np.exp(np.concatenate([theta, theta[2:3] + self.log_value]))
+        jac = np.moveaxis(self.law.jacobian(s, i, *p), -1, 0) * p[:, None, :]
+        # d/d log kic moves kiu with it.
+        return jac[0], np.concatenate([jac[:2], jac[2:3] + jac[3:4]])
 
 
 @dataclass(frozen=True)
@@ -285,10 +301,12 @@ def _ftest_frame(models, p_values, c) -> pd.DataFrame:
     """:func:`inhibkin.compare.f_test_table` for compound ``c``, built from arrays."""
     rows = []
     for (small, large), (f_value, p_value) in p_values.items():
-        a, b = models[small], models[large]
+        b = models[large]
         n = int(b.n_obs[c])
+        # A fixed-alpha row has one parameter fewer than mixed.
+        k_small = models[small].n_params if small in models else b.n_params - 1
         rows.append({"reduced": small, "full": large, "f_value": float(f_value[c]),
-                     "df_num": b.n_params - a.n_params, "df_den": n - b.n_params,
+                     "df_num": b.n_params - k_small, "df_den": n - b.n_params,
                      "p_value": float(p_value[c])})
     return pd.DataFrame(rows, columns=["reduced", "full", "f_value", "df_num", "df_den",
                                        "p_value"])
@@ -493,18 +511,25 @@ def _relative_weights(s, i, v, mask, rows, max_iterations, fallback):
     return w, used_fallback
 
 
-def _f_tests(models, small, large):
+def _f_tests(models, small, large, exact_ssr):
     """Vectorised :func:`inhibkin.compare.f_test` for one nested pair (NaN unless both
-    fits converged)."""
+    fits converged); SSRs at or below ``exact_ssr`` count as exact fits, as in
+    :func:`inhibkin.compare.f_test_table`."""
     a, b = models[small], models[large]
+    return _f_test_arrays(a["ssr"], a["converged"], a["n_params"], b, exact_ssr)
+
+
+def _f_test_arrays(ssr_small, converged_small, k_small, b, exact_ssr):
     n = b["n_obs"]
-    df_reduced, df_full = n - a["n_params"], n - b["n_params"]
+    df_reduced, df_full = n - k_small, n - b["n_params"]
     df_num = df_reduced - df_full
-    both = a["converged"] & b["converged"] & (df_num > 0) & (df_full > 0)
-    gain = np.maximum(a["ssr"] - b["ssr"], 0.0)
+    both = converged_small & b["converged"] & (df_num > 0) & (df_full > 0)
+    ssr_a = np.where(ssr_small > exact_ssr, ssr_small, 0.0)
+    ssr_b = np.where(b["ssr"] > exact_ssr, b["ssr"], 0.0)
+    gain = np.maximum(ssr_a - ssr_b, 0.0)
     with np.errstate(divide="ignore", invalid="ignore"):
-        f_value = np.where(b["ssr"] <= 0, np.where(gain > 0, np.inf, 0.0),
-                           (gain / df_num) / (b["ssr"] / df_full))
+        f_value = np.where(ssr_b <= 0, np.where(gain > 0, np.inf, 0.0),
+                           (gain / df_num) / (ssr_b / df_full))
     f_value = np.where(both, f_value, np.nan)
     p_value = np.where(both, stats.f.sf(f_value, df_num, np.maximum(df_full, 1)), np.nan)
     return f_value, p_value
@@ -530,43 +555,68 @@ def _verdicts(models, p_values, valid, invalid_reason, options):
             verdict[c], best[c], candidates[c], reason[c] = \
                 "failed", None, (), invalid_reason[c]
             continue
-        out = _decide_one(c, conv, p_of, models, options)
+        out = decide_from(p_value=lambda small, large, c=c: p_of(small, large, c),
+                          converged=lambda name, c=c: conv(name, c),
+                          aicc=lambda name, c=c: float(models[name]["aicc"][c]),
+                          options=options)
         verdict[c], best[c], candidates[c], reason[c] = \
             out.verdict, out.best, out.candidates, out.reason
     return verdict, best, candidates, reason
 
 
-def _decide_one(c, conv, p_of, models, options) -> Verdict:
-    missing = [m for m in ("none", "mixed") if not conv(m, c)]
-    if missing:
-        return Verdict("failed", None, (), f"the {' and '.join(missing)} fit did not converge")
-    p_any = p_of("none", "mixed", c)
-    if not p_any < options.alpha:
-        return Verdict("none", "none", ("none",),
-                       f"no inhibition detected: F-test of none against mixed p = {p_any:.3g} "
-                       f"≥ {options.alpha:g}")
-    fitted = [m for m in ONE_CONSTANT_MODELS if conv(m, c)]
-    adequate = [m for m in fitted if not p_of(m, "mixed", c) < options.alpha]
-    if not adequate:
-        worst = max((p_of(m, "mixed", c) for m in fitted), default=np.nan)
-        return Verdict("mixed", "mixed", ("mixed",),
-                       f"every one-constant mechanism is rejected against mixed (largest p = "
-                       f"{worst:.3g} < {options.alpha:g})")
-    aicc = sorted(((float(models[m]["aicc"][c]), m) for m in adequate),
-                  key=lambda pair: pair[0])
-    lead = aicc[0][0]
-    close = [m for value, m in aicc if value - lead < options.min_delta_aicc]
-    top = aicc[0][1]
-    if len(close) == 1:
-        if len(aicc) == 1:
-            why = "the only one-constant mechanism not rejected against mixed"
-        else:
-            why = (f"leads {aicc[1][1]} by {aicc[1][0] - lead:.1f} AICc units "
-                   f"(≥ {options.min_delta_aicc:g})")
-        return Verdict(top, top, (top,), f"{top}: {why}")
-    return Verdict("ambiguous", top, tuple(close),
-                   f"{', '.join(close)} fit within {options.min_delta_aicc:g} AICc units of each "
-                   "other and none is rejected against mixed")
+def _fixed_alpha_tests(out, s, i, v, mask, w, rows, far, exact_ssr, options,
+                       max_iterations, fallback):
+    """F-tests of mixed with alpha held at each edge against mixed, for every compound:
+    :func:`inhibkin.mechanism._fixed_alpha_tests` over the same starts (the mixed
+    solution, then each nested model's), the best successful SSR winning. With
+    ``fallback``, a compound none of whose starts converged is refitted by the lmfit path
+    (:func:`inhibkin.fitting.fixed_alpha_ssr`) from the same starts."""
+    mixed = out["mixed"]
+    b = s.shape[0]
+    sub = rows[mixed["converged"][rows]]
+    starts = [mixed["theta"][sub][:, :3]]
+    for name in ("competitive", "uncompetitive", "noncompetitive"):
+        if name in out:
+            ok = out[name]["converged"][sub]
+            start = _nested_start(out[name], name, sub, far)[:, :3]
+            starts.append((start, ok))
+    tests = {}
+    for value in options.alpha_values:
+        law = _FixedAlphaLaw(value)
+        best_ssr = np.full(b, np.nan)
+        for k, start in enumerate(starts):
+            start, ok = (start, np.ones(sub.size, bool)) if k == 0 else start
+            if not ok.any():
+                continue
+            use = sub[ok]
+            lower, upper = mechanism_log_bounds("mixed", s[use], i[use], v[use], mask[use])
+            lower, upper = lower[:, :3], upper[:, :3]
+            theta0 = np.clip(start[ok], lower + _START_MARGIN, upper - _START_MARGIN)
+            result = lm.solve(law, theta0, (s[use], i[use]), v[use], mask=mask[use],
+                              weights=w[use], lower=lower, upper=upper,
+                              max_iterations=max_iterations)
+            better = result.converged & ~(result.ssr >= best_ssr[use])
+            best_ssr[use[better]] = result.ssr[better]
+        if fallback:
+            for c in sub[~np.isfinite(best_ssr[sub])]:
+                keep = mask[c]
+                held = [dict(zip(("vmax", "km", "kic"), np.exp(theta)))
+                        for theta in _start_rows(starts, sub, c)]
+                held = [{**x, "kiu": value * x["kic"]} for x in held]
+                best_ssr[c] = fixed_alpha_ssr(s[c, keep], i[c, keep], v[c, keep], w[c, keep],
+                                              value, held)
+        tests[(options.alpha_row(value), "mixed")] = _f_test_arrays(
+            best_ssr, np.isfinite(best_ssr), mixed["n_params"] - 1, mixed, exact_ssr)
+    return tests
+
+
+def _start_rows(starts, sub, c):
+    """The starting log-parameters of compound ``c`` among ``starts`` (as built by
+    :func:`_fixed_alpha_tests`: the first an array, the others (array, usable) pairs)."""
+    at = int(np.flatnonzero(sub == c)[0])
+    rows = [starts[0][at]]
+    rows += [start[at] for start, ok in starts[1:] if ok[at]]
+    return rows
 
 
 def _nested_start(out, name, rows, far):
@@ -580,7 +630,8 @@ def _nested_start(out, name, rows, far):
     return np.log(np.stack([get["vmax"], get["km"], kic, kiu], axis=1))
 
 
-def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, level,
+def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, alpha_factor,
+               level,
                determination_factor, fallback, max_iterations) -> MechanismBatch:
     """Fit one chunk of compounds (the unit of work sent to a worker)."""
     b = s.shape[0]
@@ -624,8 +675,16 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, l
         out[name] = res
     # The tables keep the models' own order, whatever order they were fitted in.
     out = {name: out[name] for name in MODEL_NAMES if name in out}
-    p_values = {pair: _f_tests(out, *pair) for pair in nested_pairs(tuple(out))}
-    options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc)
+    exact_ssr = _EXACT_FIT_RTOL * np.sum((w * np.where(mask, v, 0.0)) ** 2, axis=1)
+    p_values = {pair: _f_tests(out, *pair, exact_ssr) for pair in nested_pairs(tuple(out))}
+    options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc,
+                             alpha_factor=alpha_factor)
+    if "mixed" in out:
+        far = np.zeros(b)
+        far[rows] = np.exp(mechanism_log_bounds("mixed", s[rows], i[rows], v[rows],
+                                                mask[rows])[1][:, 2]) / _FAR_FACTOR
+        p_values.update(_fixed_alpha_tests(out, s, i, v, mask, w, rows, far, exact_ssr,
+                                           options, max_iterations, fallback))
     verdict, best, candidates, reason = _verdicts(out, p_values, valid, invalid_reason,
                                                   options)
     for c in np.flatnonzero(~valid):
@@ -699,8 +758,8 @@ def _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor):
 
 
 def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting="uniform",
-                         models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0, level=0.95,
-                         determination_factor=10.0, fallback=True,
+                         models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0,
+                         level=0.95, determination_factor=10.0, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None,
                          chunk_size=None) -> MechanismBatch:
     """Fit every mechanism to every compound of padded arrays and decide between them.
@@ -720,7 +779,7 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting="uniform",
         As :func:`inhibkin.mechanism.fit_mechanisms`.
     models : sequence of str
         Models to fit, in fitting order; the verdict needs ``none`` and ``mixed``.
-    alpha, min_delta_aicc : float
+    alpha, min_delta_aicc, alpha_factor : float
         Verdict thresholds (:class:`inhibkin.compare.VerdictOptions`).
     level : float
         Confidence level of the (log-scale Wald) intervals.
@@ -756,7 +815,7 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting="uniform",
     mask = np.ones(s.shape, bool) if mask is None else np.asarray(mask, bool).reshape(s.shape)
     sd = None if sd is None else np.asarray(sd, dtype=float).reshape(s.shape)
     options = dict(weighting=weighting, models=tuple(models), alpha=alpha,
-                   min_delta_aicc=min_delta_aicc, level=level,
+                   min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor, level=level,
                    determination_factor=determination_factor, fallback=fallback,
                    max_iterations=max_iterations)
     arrays = (s, i, v, mask, sd)
@@ -794,7 +853,7 @@ def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition
 
 def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="inhibitor",
                          rate="rate", sd=None, weighting="uniform", models=MODEL_NAMES,
-                         alpha=0.05, min_delta_aicc=2.0, level=0.95,
+                         alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0, level=0.95,
                          determination_factor=10.0, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None, chunk_size=None):
     """:func:`inhibkin.mechanism.fit_mechanisms` (Wald intervals) for many compounds at once.
@@ -807,7 +866,7 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
         mapping keeps its keys as compound labels.
     substrate, inhibitor, rate, sd : str
         Column names, as in :func:`~inhibkin.mechanism.fit_mechanisms`.
-    weighting, models, alpha, min_delta_aicc, level, determination_factor : see
+    weighting, models, alpha, min_delta_aicc, alpha_factor, level, determination_factor : see
         :func:`fit_mechanism_arrays`.
     fallback, max_iterations, client, chunk_size : see :func:`fit_mechanism_arrays`.
 
@@ -832,7 +891,8 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
         mask = np.zeros((len(groups), 1), bool)
     batch = fit_mechanism_arrays(s, i, v, mask, sd=sdv if weighting == "sd" else None,
                                  weighting=weighting, models=models, alpha=alpha,
-                                 min_delta_aicc=min_delta_aicc, level=level,
+                                 min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
+                                 level=level,
                                  determination_factor=determination_factor, fallback=fallback,
                                  max_iterations=max_iterations, client=client,
                                  chunk_size=chunk_size)
