@@ -31,6 +31,19 @@ mechanism the reported Ki is the tighter (smaller) of kic and kiu, and
 IC50 converted by :func:`~inhibkin.potency.potency_table`, Cheng–Prusoff by mechanism
 or a Morrison fit).
 
+Engines
+-------
+By default (``engine="auto"``) a table of at least :data:`AUTO_ENGINE_MIN_COMPOUNDS`
+compounds with Wald intervals goes through the batched engine (:mod:`inhibkin.engine`):
+each chunk's grids are fitted together, every model at once, and its dose-response
+curves likewise; the lmfit path stays the reference, redoes whatever the engine does
+not converge (counted in ``Campaign.options["n_fallback"]``), and computes every profile
+interval. Grids and curves decide alone, by their own number of compounds, and a
+campaign never mixes the two paths within one table, so its answers do not depend on
+the chunking. The two paths agree to 1e-6 relative on every well-determined estimate
+and give the same verdicts (``tests/test_campaign_engine.py``); ``engine="lmfit"``
+asks for the reference.
+
 Intervals
 ---------
 Campaign fits use log-scale Wald intervals (``intervals="wald"``) by default: about
@@ -57,10 +70,11 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 
+from .engine import fit_mechanism_arrays, pad
 from .errors import DataError, InhibkinError, Problem, UnitsError
 from .mechanism import MechanismFit, fit_mechanisms
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
-from .potency import CONVERSIONS, potency_table
+from .potency import CONVERSIONS, EngineFitter, potency_table
 from .simulate import simulate_grid
 from .units import CONCENTRATION_UNITS, from_molar, normalise_unit, resolve_units, to_molar
 from .validate import check_columns, check_grid
@@ -70,11 +84,14 @@ __all__ = [
     "fit_campaign",
     "fit_grid_compound",
     "simulate_campaign",
+    "simulate_dose_campaign",
     "parse_concentration",
     "RANKING_COLUMNS",
     "PLATE_COLUMNS",
     "STATUSES",
     "LE_KCAL_PER_PKI",
+    "ENGINES",
+    "AUTO_ENGINE_MIN_COMPOUNDS",
 ]
 
 STATUSES = ("determined", "bound", "inactive", "failed")
@@ -93,9 +110,21 @@ _EFFICIENCY_COLUMNS = ("heavy_atoms", "logp", "le", "lipe")
 PLATE_COLUMNS = ("plate", "n_max", "mean_max", "sd_max", "n_min", "mean_min", "sd_min",
                  "z_prime", "flagged", "problem")
 
+#: The named choices of ``fit_campaign(engine=)`` (a function is the fourth).
+ENGINES = ("auto", "batched", "lmfit")
+#: With ``engine="auto"`` a table (grids, or dose-response curves) of at least this many
+#: compounds goes through the batched engine: below it the lmfit loop costs under a
+#: second or so, and the engine's per-batch set-up gains little.
+AUTO_ENGINE_MIN_COMPOUNDS = 20
+# Where a ranking row carries, between worker and gatherer, the number of fits the lmfit
+# path redid for the engine (removed before the table is built).
+_REFITS = "_lmfit_refits"
 # A chunk closes at this many compounds (the ``chunk_size`` default) or this many rows,
 # whichever comes first, so no single task carries a large slice of the table.
 _DEFAULT_CHUNK_SIZE = 32
+# The same with the batched engine: numpy's per-call cost is then spread over more
+# compounds (about 1.6 times the grid throughput of 32-compound chunks).
+_BATCHED_CHUNK_SIZE = 256
 _MAX_ROWS_PER_CHUNK = 50_000
 # Passes of the lost chunks over a full local pool before they are run one at a time.
 _PARALLEL_PASSES = 2
@@ -118,6 +147,22 @@ class _GridSettings:
     substrate_unit: str
     inhibitor_unit: str
     fit_options: tuple
+    batched: bool = False
+
+
+def _molar_grid(frame, settings: _GridSettings, context):
+    """One compound's grid validated, in M, and the fit options (sd column added)."""
+    s, i, v, sigma = check_grid(frame, substrate=settings.substrate,
+                                inhibitor=settings.inhibitor, rate=settings.rate,
+                                sd=settings.sd, context=context)
+    data = pd.DataFrame({"substrate": to_molar(s, settings.substrate_unit),
+                         "inhibitor": to_molar(i, settings.inhibitor_unit), "rate": v},
+                        index=frame.index)
+    options = dict(settings.fit_options)
+    if sigma is not None:
+        data["sd"] = sigma
+        options["sd"] = "sd"
+    return data, options
 
 
 def fit_grid_compound(frame, settings: _GridSettings, *, context=None) -> MechanismFit:
@@ -137,16 +182,7 @@ def fit_grid_compound(frame, settings: _GridSettings, *, context=None) -> Mechan
     MechanismFit
         With substrate and inhibitor in M, so every constant is in M.
     """
-    s, i, v, sigma = check_grid(frame, substrate=settings.substrate,
-                                inhibitor=settings.inhibitor, rate=settings.rate,
-                                sd=settings.sd, context=context)
-    data = pd.DataFrame({"substrate": to_molar(s, settings.substrate_unit),
-                         "inhibitor": to_molar(i, settings.inhibitor_unit), "rate": v},
-                        index=frame.index)
-    options = dict(settings.fit_options)
-    if sigma is not None:
-        data["sd"] = sigma
-        options["sd"] = "sd"
+    data, options = _molar_grid(frame, settings, context)
     return settings.engine(data, substrate="substrate", inhibitor="inhibitor", rate="rate",
                            context=context, **options)
 
@@ -251,11 +287,17 @@ def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
     return row
 
 
+def _unexpected(compound, err) -> dict:
+    return _failed_row(compound, f"unexpected error ({type(err).__name__}): {err}")
+
+
 def _fit_chunk(chunk, settings: _GridSettings, keep_fits: bool):
     """Fit every compound of one chunk; each failure is caught and recorded.
 
     Returns a list of (compound, row, fit or None) in the chunk's order.
     """
+    if settings.batched:
+        return _fit_chunk_batched(chunk, settings, keep_fits)
     out = []
     for compound, frame in chunk:
         context = f"compound {compound!r}"
@@ -267,9 +309,73 @@ def _fit_chunk(chunk, settings: _GridSettings, keep_fits: bool):
             except InhibkinError as err:
                 fit, row = None, _failed_row(compound, str(err))
             except Exception as err:  # isolation: an unforeseen error fails one compound only
-                fit, row = None, _failed_row(
-                    compound, f"unexpected error ({type(err).__name__}): {err}")
+                fit, row = None, _unexpected(compound, err)
         out.append((compound, row, fit if keep_fits else None))
+    return out
+
+
+def _fit_chunk_batched(chunk, settings: _GridSettings, keep_fits: bool):
+    """:func:`_fit_chunk` with every compound of the chunk fitted at once by the engine.
+
+    Each compound is validated and converted exactly as on the lmfit path (the same
+    checks, in the same order, so a bad compound fails with the same reason); the
+    valid ones go to :func:`inhibkin.engine.fit_mechanism_arrays` together.
+    """
+    out, ready = {}, []
+    for compound, frame in chunk:
+        context = f"compound {compound!r}"
+        try:
+            data, options = _molar_grid(frame, settings, context)
+            # The check fit_mechanisms makes of the converted table.
+            s, i, v, sigma = check_grid(data, substrate="substrate", inhibitor="inhibitor",
+                                        rate="rate", sd=options.get("sd"), context=context)
+            ready.append((compound, data.index, (s, i, v, np.ones_like(v) if sigma is None
+                                                 else sigma)))
+        except InhibkinError as err:
+            out[compound] = (compound, _failed_row(compound, str(err)), None)
+        except Exception as err:  # isolation, as on the lmfit path
+            out[compound] = (compound, _unexpected(compound, err), None)
+    for compound, row, fit in _engine_fits(ready, settings):
+        out[compound] = (compound, row, fit if keep_fits else None)
+    return [out[compound] for compound, _ in chunk]
+
+
+def _engine_fits(ready, settings: _GridSettings):
+    """Ranking rows and fits of validated compounds from one engine batch.
+
+    A warning or an unforeseen error in a batch cannot be traced to its compound, so
+    then each compound is fitted again as a batch of its own: the engine's answer for
+    a compound does not depend on its neighbours, and the warning lands in the flags
+    of (or the error fails) the compound that caused it, as on the lmfit path.
+    """
+    if not ready:
+        return []
+    options = {k: value for k, value in settings.fit_options if k != "intervals"}
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            s, i, v, sd, mask = pad([arrays for _, _, arrays in ready])
+            batch = fit_mechanism_arrays(
+                s, i, v, mask, sd=sd if options["weighting"] == "sd" else None, **options)
+            fits = batch.to_mechanism_fits(data_index=[index for _, index, _ in ready])
+            error = None
+        except Exception as err:  # isolation: see below
+            error = err
+    if (caught or error is not None) and len(ready) > 1:
+        return [item for one in ready for item in _engine_fits([one], settings)]
+    if error is not None:
+        compound = ready[0][0]
+        row = (_failed_row(compound, str(error)) if isinstance(error, InhibkinError)
+               else _unexpected(compound, error))
+        return [(compound, row, None)]
+    messages = [str(w.message) for w in caught]
+    out = []
+    for c, ((compound, _, _), fit) in enumerate(zip(ready, fits)):
+        row = _grid_row(compound, fit, messages)
+        # Model fits the lmfit path redid, and a relative weighting it set.
+        row[_REFITS] = int(sum(bool(m.fallback[c]) for m in batch.models.values())
+                           + bool(batch.weight_fallback[c]))
+        out.append((compound, row, fit))
     return out
 
 
@@ -509,8 +615,12 @@ class Campaign:
         compound → :class:`~inhibkin.mechanism.MechanismFit` (constants in M) for every
         compound whose grid was fitted; compounds that failed validation have no entry.
     options : Mapping
-        The settings of the run (weighting, intervals, level, engine, declared units,
-        seconds taken).
+        The settings of the run: weighting, intervals, level, engine (as asked),
+        grid_engine and dose_engine (the path each table took: ``"batched"``,
+        ``"lmfit"``, the function's name, or ``""`` without that table), n_fallback
+        (fits the lmfit path redid because the batched engine did not converge them:
+        n_fallback_grid model fits — plus relative weightings it set — and
+        n_fallback_dose curves), declared units, seconds taken.
     potency_fits : Mapping
         compound → :class:`~inhibkin.potency.DoseResponseFit` (concentrations in M) for
         every compound whose dose-response curve was fitted.
@@ -614,12 +724,31 @@ def _campaign_plates(frame, *, plate, role, response, threshold) -> pd.DataFrame
                                   threshold=threshold, strict=False))
 
 
-def _engine(engine):
-    if engine is None or engine == "lmfit":
-        return fit_mechanisms
+def _check_engine(engine):
+    if callable(engine) or (isinstance(engine, str) and engine in ENGINES):
+        return
+    raise DataError(f"engine must be one of {ENGINES} or a function like fit_mechanisms, "
+                    f"got {engine!r}")
+
+
+def _batched(engine, intervals, n_compounds) -> bool:
+    """Whether a table of ``n_compounds`` goes through the batched engine (Wald
+    intervals only: profile intervals stay on the lmfit path)."""
+    if intervals != "wald" or callable(engine):
+        return False
+    return engine == "batched" or (engine == "auto" and n_compounds >= AUTO_ENGINE_MIN_COMPOUNDS)
+
+
+def _chunk_size(chunk_size, batched) -> int:
+    if chunk_size is not None:
+        return chunk_size
+    return _BATCHED_CHUNK_SIZE if batched else _DEFAULT_CHUNK_SIZE
+
+
+def _engine_name(engine, batched) -> str:
     if callable(engine):
-        return engine
-    raise DataError(f"engine must be 'lmfit' or a function like fit_mechanisms, got {engine!r}")
+        return getattr(engine, "__name__", repr(engine))
+    return "batched" if batched else "lmfit"
 
 
 @dataclass(frozen=True)
@@ -634,6 +763,7 @@ class _DoseSettings:
     km: object
     enzyme: object
     options: tuple
+    batched: bool = False
 
 
 def _molar_column(values: pd.Series, unit: str) -> pd.Series:
@@ -677,6 +807,7 @@ def _lost_dose_chunk(chunk, reason):
 
 def _dose_results(frame, names, settings, mechanisms, keep_fits):
     columns = dict(settings.columns)
+    fitter = EngineFitter() if settings.batched else None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         result = potency_table(frame, compound=settings.compound, plate=columns["plate"],
@@ -684,14 +815,16 @@ def _dose_results(frame, names, settings, mechanisms, keep_fits):
                                response=columns["response"], substrate=columns["substrate"],
                                km=settings.km, enzyme=settings.enzyme,
                                mechanisms={n: mechanisms[n] for n in names if n in mechanisms},
-                               **dict(settings.options))
+                               fitter=fitter, **dict(settings.options))
     extra = "; ".join(dict.fromkeys(str(w.message) for w in caught))
+    refitted = set(fitter.refitted) if fitter is not None else set()
     rows = result.table.set_index("compound", drop=False)
     out = []
     for name in names:
         row = rows.loc[name].to_dict()
         if extra:
             row["flags"] = "; ".join(f for f in (row.get("flags", ""), extra) if f)
+        row[_REFITS] = int(name in refitted)
         out.append((name, row, result.fits.get(name) if keep_fits else None))
     return out
 
@@ -840,8 +973,8 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                  plate="plate", role="role", response="signal", km=None, enzyme=None,
                  units=None, weighting="uniform", intervals="wald", level=0.95, alpha=0.05,
                  min_delta_aicc=2.0, determination_factor=10.0, potency_options=None,
-                 heavy_atoms="heavy_atoms", logp="logp", engine=None, workers=None,
-                 client=None, quiet=False, chunk_size=_DEFAULT_CHUNK_SIZE,
+                 heavy_atoms="heavy_atoms", logp="logp", engine="auto", workers=None,
+                 client=None, quiet=False, chunk_size=None,
                  keep_fits=True) -> Campaign:
     """Fit every compound of a campaign and rank them by pKi.
 
@@ -887,10 +1020,31 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         Optional columns (one value per compound, in either table) that add ligand
         efficiency LE = 1.37·pKi / heavy atoms (kcal/mol per heavy atom) and LipE =
         pKi − logP.
-    engine : "lmfit" or callable, optional
-        The per-compound grid fitter; a function with the signature of
-        :func:`~inhibkin.mechanism.fit_mechanisms` returning a MechanismFit. It must be
-        importable by name (a module-level function) to run on workers.
+    engine : {"auto", "batched", "lmfit"} or callable
+        How the fits are computed (the answers agree to 1e-6 relative; see the module
+        notes):
+
+        ``"auto"`` (default)
+            the batched engine for a table — the grids, or the dose-response curves,
+            each decided alone — of at least :data:`AUTO_ENGINE_MIN_COMPOUNDS`
+            compounds when ``intervals="wald"``, else the lmfit path;
+        ``"batched"``
+            the batched engine (:mod:`inhibkin.engine`) whenever
+            ``intervals="wald"``: every chunk's grids in one
+            :func:`~inhibkin.engine.fit_mechanism_arrays` call, its curves in one
+            :func:`~inhibkin.engine.fit_logistic_batch` call
+            (:class:`~inhibkin.potency.EngineFitter`); the fits it does not converge are
+            refitted by the lmfit path and counted in ``options["n_fallback"]``;
+        ``"lmfit"``
+            one lmfit fit after another (:func:`~inhibkin.mechanism.fit_mechanisms`,
+            :func:`~inhibkin.potency.fit_dose_response`), the reference;
+        a function
+            the per-compound grid fitter, with the signature of
+            :func:`~inhibkin.mechanism.fit_mechanisms`, returning a MechanismFit; it
+            must be importable by name (a module-level function) to run on workers.
+            The curves take the lmfit path.
+
+        Profile intervals are computed on the lmfit path whatever the engine.
     workers : int, optional
         Local worker processes; None or 1 runs in this process. Scripts that use
         workers need the usual ``if __name__ == "__main__":`` guard.
@@ -898,8 +1052,9 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         Run the chunks on this cluster instead.
     quiet : bool
         No progress bar (it is also silent when stderr is not a terminal).
-    chunk_size : int
-        Compounds per task.
+    chunk_size : int, optional
+        Compounds per task; by default 32 on the lmfit path and 256 with the batched
+        engine. The answers do not depend on it.
     keep_fits : bool
         Keep every fit in :attr:`Campaign.fits` and :attr:`Campaign.potency_fits` (turn
         off at very large scale to save memory; the ranking is the same).
@@ -929,12 +1084,14 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         raise DataError("give workers= (local processes) or client= (Dask), not both")
     if workers is not None and (not isinstance(workers, int) or workers < 1):
         raise DataError(f"workers must be a positive integer, got {workers!r}")
-    if not isinstance(chunk_size, int) or chunk_size < 1:
+    if chunk_size is not None and (not isinstance(chunk_size, int) or chunk_size < 1):
         raise DataError(f"chunk_size must be a positive integer, got {chunk_size!r}")
     if dose_response is not None and km is None:
         raise DataError("the dose-response table needs km= (a number in M, or a column) to "
                         "convert IC50 to Ki")
+    _check_engine(engine)
     started = time.perf_counter()
+    used, refits = {"grid": "", "dose": ""}, {"grid": 0, "dose": 0}
     execution = dict(workers=workers, client=client, quiet=quiet)
     declared, grid_rows, grid_fits = {}, {}, {}
     if table is not None:
@@ -953,13 +1110,17 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         fit_options = (("weighting", weighting), ("intervals", intervals), ("level", level),
                        ("alpha", alpha), ("min_delta_aicc", min_delta_aicc),
                        ("determination_factor", determination_factor))
-        settings = _GridSettings(_engine(engine), s_column, i_column, rate,
-                                 sd if weighting == "sd" else None, s_unit, i_unit,
-                                 fit_options)
-        chunks = list(_chunks(table.groupby(compound, sort=False), chunk_size))
+        groups = table.groupby(compound, sort=False)
+        batched = _batched(engine, intervals, groups.ngroups)
+        used["grid"] = _engine_name(engine, batched)
+        settings = _GridSettings(engine if callable(engine) else fit_mechanisms, s_column,
+                                 i_column, rate, sd if weighting == "sd" else None, s_unit,
+                                 i_unit, fit_options, batched)
+        chunks = list(_chunks(groups, _chunk_size(chunk_size, batched)))
         for name, row, fit in _run(_fit_chunk, chunks, (settings, keep_fits),
                                    sizes=[len(c) for c in chunks], split=_split_grid_chunk,
                                    lost=_lost_grid_chunk, **execution):
+            refits["grid"] += row.pop(_REFITS, 0)
             grid_rows[name] = row
             if fit is not None:
                 grid_fits[name] = fit
@@ -976,15 +1137,20 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         plates = _campaign_plates(frame, plate=plate, role=role, response=response,
                                   threshold=options.get("z_prime_threshold",
                                                         Z_PRIME_THRESHOLD))
+        n_curves = int(frame.loc[frame[role] == "sample", compound].nunique())
+        batched = _batched("lmfit" if callable(engine) else engine, intervals, n_curves)
+        chunks, sizes = _dose_chunks(frame, compound, role, plate,
+                                     _chunk_size(chunk_size, batched))
+        used["dose"] = "batched" if batched else "lmfit"
         dose_settings = _DoseSettings(compound, columns, km_spec, enzyme_spec,
-                                      tuple(sorted(options.items())))
+                                      tuple(sorted(options.items())), batched)
         mechanisms = {n: m for n, r in grid_rows.items()
                       if (m := _grid_mechanism(r)) is not None}
-        chunks, sizes = _dose_chunks(frame, compound, role, plate, chunk_size)
         for name, potency, fit in _run(_dose_chunk_fit, chunks,
                                        (dose_settings, mechanisms, keep_fits), sizes=sizes,
                                        split=partial(_split_dose_chunk, compound),
                                        lost=_lost_dose_chunk, **execution):
+            refits["dose"] += potency.pop(_REFITS, 0)
             dose_rows[name] = _dose_row(name, potency)
             if fit is not None:
                 potency_fits[name] = fit
@@ -1001,7 +1167,10 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     _add_efficiencies(ranking, properties, heavy_atoms, logp)
     run_options = MappingProxyType({
         "weighting": weighting, "intervals": intervals, "level": level,
-        "engine": getattr(_engine(engine), "__name__", repr(engine)),
+        "engine": getattr(engine, "__name__", repr(engine)) if callable(engine) else engine,
+        "grid_engine": used["grid"], "dose_engine": used["dose"],
+        "n_fallback": refits["grid"] + refits["dose"], "n_fallback_grid": refits["grid"],
+        "n_fallback_dose": refits["dose"],
         "units": declared, "seconds": time.perf_counter() - started,
     })
     return Campaign(ranking, MappingProxyType(grid_fits), run_options,
@@ -1092,3 +1261,78 @@ def simulate_campaign(n_compounds, *, seed, cv=0.05, km_uM=20.0, vmax=100.0,
                       "kiu_M": to_molar(kiu, "nM") if mechanism != "competitive" else np.inf,
                       "ki_M": 10.0 ** -pki, "pki": pki})
     return pd.concat(frames, ignore_index=True), pd.DataFrame(truth)
+
+
+def simulate_dose_campaign(compounds, *, seed, cv=0.05, km_uM=20.0, s_uM=20.0,
+                           pki_range=(5.0, 9.0), inactive_fraction=0.1, design_error=0.5,
+                           n_points=10, replicates=2, per_plate=8, n_controls=4,
+                           signal_max=1000.0, signal_min=50.0):
+    """Dose-response plates of competitive inhibitors of known Ki, with plate controls.
+
+    Each active compound gets a pKi drawn uniformly from ``pki_range`` and a curve of
+    ``n_points`` concentrations (a 900-fold range, in ``replicates``) centred on an
+    *expected* IC50 off from the true one by up to ``design_error`` log units; an
+    inactive one (a share ``inactive_fraction``) has its Ki 1000 times above the top
+    concentration, so its wells are noise around full activity. The true IC50 is
+    Ki·(1 + S/Km), the competitive case of Cheng & Prusoff (1973, Biochem. Pharmacol.
+    22:3099). Signals run from ``signal_min`` (no activity) to ``signal_max`` (full
+    activity), with Gaussian noise of ``cv`` times that window; every plate of
+    ``per_plate`` compounds has ``n_controls`` 'max' and 'min' wells.
+
+    Parameters
+    ----------
+    compounds : int or sequence of str
+        How many compounds (named ``DR-0001``…), or their names.
+    seed : int
+        Seed of ``numpy.random.default_rng``.
+    cv : float
+        Noise as a fraction of the control window.
+    km_uM, s_uM : float
+        Michaelis constant and assay substrate concentration (µM).
+    pki_range : (float, float)
+    inactive_fraction : float
+    design_error : float
+    n_points, replicates, per_plate, n_controls : int
+    signal_max, signal_min : float
+
+    Returns
+    -------
+    plates : pandas.DataFrame
+        compound (empty for controls), plate, role, inhibitor_nM, signal, substrate_uM.
+    truth : pandas.DataFrame
+        compound, active, ki_M, pki (NaN pKi for inactive compounds).
+    """
+    rng = np.random.default_rng(seed)
+    if isinstance(compounds, int):
+        width = len(str(compounds))
+        compounds = [f"DR-{k + 1:0{width}d}" for k in range(compounds)]
+    window = signal_max - signal_min
+    samples, truth = [], []
+    for k, name in enumerate(compounds):
+        plate = f"P{k // per_plate + 1}"
+        pki = rng.uniform(*pki_range)
+        active = rng.random() >= inactive_fraction
+        ic50_nM = from_molar(10.0 ** -pki, "nM") * (1.0 + s_uM / km_uM)
+        guess = ic50_nM * 10.0 ** rng.uniform(-design_error, design_error)
+        conc = np.repeat(guess * np.geomspace(1 / 30, 30, n_points), replicates)
+        if not active:
+            ic50_nM = 1000.0 * conc.max()
+        activity = 1.0 / (1.0 + conc / ic50_nM)
+        signal = signal_min + window * activity + cv * window * rng.standard_normal(conc.size)
+        samples.append(pd.DataFrame({"compound": name, "plate": plate, "role": "sample",
+                                     "inhibitor_nM": conc, "signal": signal,
+                                     "substrate_uM": s_uM}))
+        truth.append({"compound": name, "active": active,
+                      "ki_M": to_molar(ic50_nM / (1.0 + s_uM / km_uM), "nM"),
+                      "pki": pki if active else np.nan})
+    controls = []
+    for plate in pd.unique(pd.concat(samples)["plate"]) if samples else []:
+        for role, level in (("max", signal_max), ("min", signal_min)):
+            controls.append(pd.DataFrame({
+                "compound": None, "plate": plate, "role": role, "inhibitor_nM": 0.0,
+                "signal": level + cv * window * rng.standard_normal(n_controls),
+                "substrate_uM": s_uM}))
+    columns = ["compound", "plate", "role", "inhibitor_nM", "signal", "substrate_uM"]
+    plates = pd.concat(samples + controls, ignore_index=True) if samples else \
+        pd.DataFrame(columns=columns)
+    return plates[columns], pd.DataFrame(truth, columns=["compound", "active", "ki_M", "pki"])

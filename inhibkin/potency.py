@@ -65,6 +65,7 @@ __all__ = [
     "PotencyTable",
     "fit_dose_response",
     "dose_response_from_estimates",
+    "EngineFitter",
     "cheng_prusoff",
     "ic50_from_ki",
     "morrison",
@@ -643,7 +644,8 @@ def _fit_logistic(c, y, w, fixed, *, compound, method, level, direction="any",
 
 def dose_response_from_estimates(conc, response, estimates, *, weights=None, fix_top=None,
                                  fix_bottom=None, level=0.95, compound=None, converged=True,
-                                 message="fitted elsewhere", hill_range=HILL_RANGE,
+                                 message="fitted elsewhere", direction="any",
+                                 hill_range=HILL_RANGE,
                                  min_points_each_side=MIN_POINTS_EACH_SIDE,
                                  partial_efficacy=PARTIAL_EFFICACY_FRACTION) -> DoseResponseFit:
     """A :class:`DoseResponseFit` from 4PL estimates found elsewhere (a batched engine).
@@ -654,23 +656,33 @@ def dose_response_from_estimates(conc, response, estimates, *, weights=None, fix
 
     Parameters
     ----------
-    conc, response, weights, fix_top, fix_bottom, level, compound
-        As for :func:`fit_dose_response`.
+    conc, response, weights, fix_top, fix_bottom, level, compound, direction
+        As for :func:`fit_dose_response`; ``direction`` sets the Hill-slope sign the
+        fit was held to, which the flags and the slope's interval (clipped at 0) follow.
     estimates : mapping
         top, bottom, log_ic50, hill (log10 of the concentration's unit).
     converged : bool
     message : str
         The outside optimiser's report.
     """
+    if direction not in DIRECTIONS:
+        raise FitError(f"direction must be one of {DIRECTIONS}, got {direction!r}")
     fixed = _fixed(fix_top, fix_bottom)
     c, y, w = _check_curve(conc, response, weights, context=_context(compound),
                            n_free=4 - len(fixed))
-    curve = _logistic_curve(np.log10(c), y, w, fixed)
+    return _from_estimates(c, y, w, fixed, estimates, level=level, compound=compound,
+                           converged=converged, message=message, direction=direction,
+                           hill_range=hill_range, min_points_each_side=min_points_each_side,
+                           partial_efficacy=partial_efficacy)
+
+
+def _from_estimates(c, y, w, fixed, estimates, *, level, compound, converged, message,
+                    direction, **flag_options) -> DoseResponseFit:
+    """dose_response_from_estimates on arrays already checked."""
+    curve = _logistic_curve(np.log10(c), y, w, fixed, direction)
     phi = np.array([float(estimates[n]) for n, f in zip(PARAM_NAMES, curve.free) if f])
     return _build_dose_response(curve, phi, curve.ssr(phi), converged, message, conc=c,
-                                compound=compound, method="wald", level=level,
-                                hill_range=hill_range, min_points_each_side=min_points_each_side,
-                                partial_efficacy=partial_efficacy)
+                                compound=compound, method="wald", level=level, **flag_options)
 
 
 # --------------------------------------------------------------------------- Cheng–Prusoff
@@ -1188,6 +1200,73 @@ def _default_fitter(curves, *, fix_top, fix_bottom, intervals, level):
         except InhibkinError as error:
             out[name] = error
     return out
+
+
+class EngineFitter:
+    """A ``fitter`` for :func:`potency_table`: every curve fitted at once by the batched
+    engine, the curves it does not settle refitted by the lmfit path.
+
+    The curves go through :func:`inhibkin.engine.fit_logistic_batch` together; each
+    solution becomes a :class:`DoseResponseFit` through
+    :func:`dose_response_from_estimates` (standard errors, Wald intervals and flags
+    computed exactly as the lmfit path computes them). The lmfit path fits within
+    bounds — a falling curve (Hill slope between 0 and 20) whose midpoint stays within
+    the tested range ± 4 decades — and the engine without them; the two problems share
+    their optimum only inside those bounds. So an engine solution is kept when it
+    converged strictly inside them; every other curve (not converged, rising, or run to
+    a limit, as noise on an inactive compound often is) is refitted by the lmfit path,
+    and its compound is recorded in :attr:`refitted`.
+
+    With ``intervals="profile"`` every curve takes the lmfit path (the engine gives
+    Wald intervals only), and none is counted as refitted.
+
+    Attributes
+    ----------
+    refitted : list
+        Compounds refitted by the lmfit path, in the order of the curves; one instance
+        records one :func:`potency_table` call (make a fresh one for each).
+    """
+
+    def __init__(self):
+        self.refitted: list = []
+
+    def __call__(self, curves, *, fix_top, fix_bottom, intervals, level) -> dict:
+        from .engine import fit_logistic_batch  # the engine only when asked for
+
+        options = dict(fix_top=fix_top, fix_bottom=fix_bottom, intervals=intervals,
+                       level=level)
+        if intervals != "wald" or not curves:
+            return _default_fitter(curves, **options)
+        names = list(curves)
+        width = max(len(conc) for conc, _ in curves.values())
+        x, y = np.zeros((len(names), width)), np.zeros((len(names), width))
+        mask = np.zeros((len(names), width), bool)
+        for k, name in enumerate(names):
+            conc, response = curves[name]
+            x[k, :len(conc)], y[k, :len(conc)] = np.log10(conc), response
+            mask[k, :len(conc)] = True
+        batch = fit_logistic_batch(x, y, mask, fix_top=fix_top, fix_bottom=fix_bottom,
+                                   level=level)
+        out = {}
+        for k, name in enumerate(names):
+            conc, response = curves[name]
+            estimates = dict(zip(batch.names, batch.estimate[k]))
+            x_min, x_max = x[k, mask[k]].min(), x[k, mask[k]].max()
+            inside = (bool(batch.converged[k]) and 0.0 < estimates["hill"] < _HILL_MAX
+                      and x_min - _LOG_IC50_MARGIN < estimates["log_ic50"]
+                      < x_max + _LOG_IC50_MARGIN)
+            if inside:
+                # potency_table checked the curves; the flags follow _default_fitter's.
+                out[name] = _from_estimates(
+                    conc, response, np.ones_like(response), _fixed(fix_top, fix_bottom),
+                    estimates, level=level, compound=name, converged=True,
+                    message=f"batched engine: {batch.reason[k]}", direction="falling",
+                    hill_range=HILL_RANGE, min_points_each_side=MIN_POINTS_EACH_SIDE,
+                    partial_efficacy=PARTIAL_EFFICACY_FRACTION)
+                continue
+            self.refitted.append(name)
+            out.update(_default_fitter({name: curves[name]}, **options))
+        return out
 
 
 def potency_table(df, *, compound="compound", plate="plate", role="role",
