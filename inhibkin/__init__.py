@@ -8,6 +8,7 @@ converted to Ki. Results are statistical estimates for research triage.
 from . import figures
 from .batch import Campaign, fit_campaign, simulate_campaign
 from .compare import VerdictOptions
+from .design import GridPlan, plan_grid
 from .engine import fit_logistic_batch, fit_mechanism_arrays, fit_mechanisms_batch
 from .errors import DataError, FitError, InhibkinError, InhibkinWarning, UnitsError
 from .fitting import ModelFit, fit_michaelis_menten
@@ -34,6 +35,8 @@ from .units import from_molar, to_molar
 __version__ = "0.1.0"
 
 __all__ = [
+    "GridPlan",
+    "plan_grid",
     "fit_logistic_batch",
     "fit_mechanism_arrays",
     "fit_mechanisms_batch",

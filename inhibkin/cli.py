@@ -326,6 +326,52 @@ def _report(args) -> int:
     return EXIT_OK
 
 
+def _design_arguments(parser):
+    parser.add_argument("--km-range", nargs=2, type=float, required=True,
+                        metavar=("LOW", "HIGH"), help="prior range of km (substrate unit)")
+    parser.add_argument("--ki-range", nargs=2, type=float, required=True,
+                        metavar=("LOW", "HIGH"), help="prior range of Ki (inhibitor unit)")
+    parser.add_argument("--wells", type=int, required=True, help="wells for one compound")
+    parser.add_argument("--substrate", required=True,
+                        help="substrate concentrations that can be made, comma-separated")
+    parser.add_argument("--inhibitor", required=True,
+                        help="inhibitor concentrations that can be made, comma-separated "
+                             "(0 is always added)")
+    parser.add_argument("--cv", type=float, default=0.05, help="expected CV of a rate")
+    parser.add_argument("--floor-sd", type=float, default=0.01,
+                        help="constant noise SD as a fraction of vmax")
+    parser.add_argument("--replicates", type=int, default=2)
+    parser.add_argument("--simulations", type=int, default=200,
+                        help="simulated data sets per grid for the correct-call rate")
+    parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument("-o", "--output", help="write the proposed layout, one row per well")
+
+
+def _levels(text, option):
+    try:
+        return [float(x) for x in text.split(",") if x.strip()]
+    except ValueError:
+        raise DataError(Problem(option, None, text,
+                                "must be numbers separated by commas")) from None
+
+
+def _design(args) -> int:
+    from .design import plan_grid
+    from .io import write_table
+
+    output = _check_output(args.output) if args.output else None
+    plan = plan_grid(km_range=tuple(args.km_range), ki_range=tuple(args.ki_range),
+                     n_wells=args.wells, substrate_choices=_levels(args.substrate, "--substrate"),
+                     inhibitor_choices=_levels(args.inhibitor, "--inhibitor"), cv=args.cv,
+                     floor_sd=args.floor_sd, replicates=args.replicates,
+                     n_simulations=args.simulations, seed=args.seed)
+    if output is not None:
+        write_table(plan.layout(), output)
+    if not args.quiet:
+        print(plan.summary())
+    return EXIT_OK
+
+
 def _simulate_arguments(parser):
     parser.add_argument("-o", "--output", required=True, help="simulated grid table")
     parser.add_argument("--compounds", type=int, default=20, help="number of compounds")
@@ -393,6 +439,12 @@ SUBCOMMANDS = [
         "simulate", "a seeded simulated campaign of known mechanisms and Ki (for trials)",
         "inhibkin simulate --compounds 200 --seed 7 --cv 0.05 -o grid.csv --truth truth.csv",
         _simulate_arguments, _simulate, parallel=False),
+    Subcommand(
+        "design", "propose substrate × inhibitor levels that tell the mechanisms apart",
+        "inhibkin design --km-range 1 5 --ki-range 0.05 0.5 --wells 48 "
+        "--substrate 0.01,0.02,0.04,0.08,0.16,0.32,0.64,1.28,2.56,5.12,10.24,20.48 "
+        "--inhibitor 0.001,0.003,0.009,0.027,0.081,0.243,0.729,2.187 -o layout.csv",
+        _design_arguments, _design, parallel=False),
     Subcommand("demo", "run the demo flow on invented data", "inhibkin demo",
                _demo_arguments, _demo, parallel=False),
 ]

@@ -168,3 +168,15 @@ def test_report_stage_writes_html_and_ranking(grid_file, tmp_path):
         assert compound in html_text
     bad = run("report", "--grid", grid_file, "-o", "campaign.csv", cwd=tmp_path)
     assert bad.returncode == 2 and ".html" in bad.stderr
+
+
+def test_design_stage_writes_a_layout(tmp_path):
+    done = run("design", "--km-range", 1, 5, "--ki-range", 0.05, 0.5, "--wells", 24,
+               "--substrate", "0.25,0.5,1,2,4,8,16", "--inhibitor", "0.01,0.03,0.1,0.3,1",
+               "--simulations", 8, "-o", "layout.csv", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    layout = read_table(tmp_path / "layout.csv")
+    assert len(layout) == 24 and "Grid plan" in done.stdout
+    bad = run("design", "--km-range", 1, 5, "--ki-range", 0.05, 0.5, "--wells", 24,
+              "--substrate", "1,x", "--inhibitor", "1", cwd=tmp_path)
+    assert bad.returncode == 2 and "must be numbers" in bad.stderr
