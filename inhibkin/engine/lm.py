@@ -8,7 +8,7 @@ on which other problems share the batch or how the batch is cut into chunks.
 
 The step solves (JᵀJ + λ·D) δ = Jᵀr with D the running maximum of diag(JᵀJ), as
 MINPACK's LM scales its trust region (Moré 1978, "The Levenberg–Marquardt algorithm:
-implementation and theory", Lecture Notes in Mathematics 630). λ follows the gain-ratio
+implementation and theory", in Numerical Analysis, Springer LNM 630). λ follows the gain-ratio
 rule of Nielsen (1999), "Damping parameter in Marquardt's method", IMM-REP-1999-05, DTU.
 Bounds are kept by projection: a parameter at a bound whose descent direction points
 outward is held there for the step, and every trial point is clipped into the box.
