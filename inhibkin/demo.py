@@ -97,6 +97,14 @@ def run_demo(output_dir=None, *, data_dir=None) -> str:
                             intervals="profile", quiet=True)
     counts = ", ".join(f"{n} {s}" for s, n in campaign.counts.items() if n)
     lines.append(f"2. mechanisms: {len(campaign.ranking)} compounds ({counts})")
+    verdicts = campaign.ranking[["compound", "verdict", "mechanism", "ki_reported"]]
+    lines += ["   " + row for row in verdicts.to_string(index=False).splitlines()]
+    first = next(iter(campaign.fits))
+    comparison = campaign.fits[first].comparison[["n_params", "ssr", "aicc", "delta_aicc",
+                                                   "akaike_weight"]]
+    lines.append(f"   model comparison for {first} (verdict: {campaign.fits[first].verdict}):")
+    lines += ["   " + row for row in
+              comparison.to_string(float_format=lambda x: f"{x:.4g}").splitlines()]
 
     km = _km_uM(campaign)
     screen = read_table(data / "invented_screen_wells.csv")
