@@ -29,6 +29,7 @@ from . import figures
 from .errors import DataError, UnitsError
 from .fitting import format_estimate
 from .io import atomic_output
+from .plates import Z_PRIME_THRESHOLD
 from .units import from_molar, normalise_unit, to_molar
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
@@ -218,22 +219,63 @@ def _potency_context(potency, conc_unit, max_figures, dpi) -> dict:
                "reason"]
     fitted = table[table["status"] == "ok"].sort_values("pic50", ascending=False,
                                                        na_position="last")
-    shown = [c for c in fitted["compound"] if c in potency.fits][:max_figures]
+    return {"table": {"columns": columns, "rows": rows},
+            "gallery": _gallery(potency.fits, fitted["compound"], conc_unit, max_figures, dpi),
+            "n_total": len(table), "n_failed": int((table["status"] == "failed").sum()),
+            **_plates_context(potency.plates.to_frame(), potency.plates.threshold)}
+
+
+def _gallery(fits, compounds, conc_unit, max_figures, dpi) -> list:
+    """Dose-response figures of the first ``max_figures`` of ``compounds`` that have a fit."""
     gallery = []
-    for compound in shown:
+    for compound in [c for c in compounds if c in fits][:max_figures]:
         fig, axes = figures.new_figure(size=(3.4, 2.6))
-        figures.plot_dose_response(potency.fits[compound], conc_unit=conc_unit, ax=axes[0, 0])
+        figures.plot_dose_response(fits[compound], conc_unit=conc_unit, ax=axes[0, 0])
         gallery.append({"compound": str(compound), "png": _png(fig, dpi)})
-    plates = potency.plates.to_frame()
+    return gallery
+
+
+def _plates_context(plates: pd.DataFrame, threshold: float) -> dict:
     keep = [c for c in ("plate", "n_max", "mean_max", "sd_max", "n_min", "mean_min", "sd_min",
                         "z_prime", "flagged", "problem") if c in plates.columns]
-    plates = plates[keep].copy()
-    plates["flagged"] = plates["flagged"].map({True: "yes", False: "no"})
-    return {"table": {"columns": columns, "rows": rows}, "gallery": gallery,
-            "n_total": len(table), "n_failed": int((table["status"] == "failed").sum()),
-            "plates": _table(plates, index=False, fmt="{:.3g}"),
-            "z_threshold": potency.plates.threshold,
-            "flagged_plates": [str(p) for p in potency.plates.flagged]}
+    shown = plates[keep].copy()
+    flagged = [str(p) for p in plates.loc[plates["flagged"].astype(bool), "plate"]]
+    shown["flagged"] = shown["flagged"].map({True: "yes", False: "no"})
+    return {"plates": _table(shown, index=False, fmt="{:.3g}"), "z_threshold": threshold,
+            "flagged_plates": flagged}
+
+
+def _campaign_potency_context(campaign, max_figures, dpi) -> dict | None:
+    """The dose-response screen of a campaign that fitted curves itself (concentrations in
+    M): the curve columns of its ranking, its plates' Z', and the curves."""
+    fits = getattr(campaign, "potency_fits", {}) or {}
+    plates = getattr(campaign, "plates", None)
+    if not fits and (plates is None or not len(plates)):
+        return None
+    ranking = campaign.ranking
+    screen = ranking[ranking["compound"].isin(list(fits))]
+    rows = []
+    for _, r in screen.iterrows():
+        ic50 = (f"{_num(r['ic50_M'])} [{_num(r['ic50_low_M'])}, {_num(r['ic50_high_M'])}]"
+                if np.isfinite(r["ic50_M"]) else "")
+        rows.append([_cell(r["compound"]), _cell(r["status"]), _cell(ic50, r["ic50_M"]),
+                     _cell(_num(r["pic50"], "{:.2f}"), r["pic50"]),
+                     _cell(_num(r["hill"], "{:.2f}"), r["hill"]), _cell(r["ki_reported"]),
+                     _cell(_num(r["pki"], "{:.2f}"), r["pki"]), _cell(r["mechanism"]),
+                     _cell(r["ki_source"]), _cell(r["flags"]), _cell(r["reason"])])
+    columns = ["compound", "status", "IC50 (M) [95% CI]", "pIC50", "Hill", "Ki (M)", "pKi",
+               "mechanism", "Ki from", "flags", "reason"]
+    by_potency = screen.sort_values("pic50", ascending=False, na_position="last")["compound"]
+    threshold = dict(getattr(campaign, "options", {})).get("z_prime_threshold",
+                                                           Z_PRIME_THRESHOLD)
+    context = {"table": {"columns": columns, "rows": rows},
+               "gallery": _gallery(fits, by_potency, "M", max_figures, dpi),
+               "n_total": len(screen), "n_failed": int((screen["status"] == "failed").sum())}
+    if plates is not None and len(plates):
+        context.update(_plates_context(plates, threshold))
+    else:
+        context.update({"plates": None, "z_threshold": threshold, "flagged_plates": []})
+    return context
 
 
 def _as_campaign(campaign):
@@ -302,7 +344,8 @@ def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campai
                    for c, r in failed.itertuples(index=False)],
         "sections": sections,
         "potency": (_potency_context(potency, potency_unit, max_potency_figures, dpi)
-                    if potency is not None else None),
+                    if potency is not None else
+                    _campaign_potency_context(campaign, max_potency_figures, dpi)),
         "rates": _rates_context(rates) if rates is not None else None,
         "units": axis_units,
         "param_units": ("concentrations in M, rates in the input's unit"

@@ -187,3 +187,20 @@ def test_hostile_report_renders_as_text_in_a_browser(written, tmp_path):
     assert shot.stat().st_size > 10_000
     assert "&lt;script&gt;alert(1)&lt;/script&gt;" in dom  # shown as text in the page
     assert dom.count("<script") == 1
+
+
+def test_report_of_a_campaign_shows_its_own_dose_response_screen(tmp_path):
+    # A campaign that fitted curves itself carries their fits and its plates' Z'; the
+    # report draws both without a separate potency table.
+    from test_batch import KM_M, _dose_plates
+
+    plates = _dose_plates({"DR-A": 3e-8, "DR-B": 4e-7, "DR-C": 2e-6}, seed=4, per_plate=2)
+    campaign = fit_campaign(dose_response=plates, km=KM_M, quiet=True)
+    path = report(campaign, tmp_path / "screen.html")
+    text = path.read_text(encoding="utf-8")
+    assert "Z'-factor" in text and "Dose-response curves" in text
+    for plate in ("P1", "P2"):
+        assert plate in text
+    for compound in ("DR-A", "DR-B", "DR-C"):
+        assert text.count(compound) >= 2  # ranked table and the screen table
+    assert_self_contained(text)
