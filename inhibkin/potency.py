@@ -1210,12 +1210,15 @@ class EngineFitter:
     solution becomes a :class:`DoseResponseFit` through
     :func:`dose_response_from_estimates` (standard errors, Wald intervals and flags
     computed exactly as the lmfit path computes them). The lmfit path fits within
-    bounds — a falling curve (Hill slope between 0 and 20) whose midpoint stays within
-    the tested range ± 4 decades — and the engine without them; the two problems share
-    their optimum only inside those bounds. So an engine solution is kept when it
-    converged strictly inside them; every other curve (not converged, rising, or run to
-    a limit, as noise on an inactive compound often is) is refitted by the lmfit path,
-    and its compound is recorded in :attr:`refitted`.
+    bounds — a Hill slope between 0 and 20, the midpoint within the tested range ± 4
+    decades — and the engine without them; the two problems share their optimum only
+    inside those bounds. And a curve that does not fall to its midpoint within the
+    tested range (noise on an inactive compound, a partial or rising curve) has a flat
+    least-squares surface with several minima, where two optimisers from different
+    starts can settle on different ones. So an engine solution is kept only when it
+    converged strictly inside the bounds to a falling curve whose IC50 lies within the
+    tested range; every other curve is refitted by the lmfit path, and its compound is
+    recorded in :attr:`refitted`.
 
     With ``intervals="profile"`` every curve takes the lmfit path (the engine gives
     Wald intervals only), and none is counted as refitted.
@@ -1257,13 +1260,15 @@ class EngineFitter:
                       < x_max + _LOG_IC50_MARGIN)
             if inside:
                 # potency_table checked the curves; the flags follow _default_fitter's.
-                out[name] = _from_estimates(
+                fit = _from_estimates(
                     conc, response, np.ones_like(response), _fixed(fix_top, fix_bottom),
                     estimates, level=level, compound=name, converged=True,
                     message=f"batched engine: {batch.reason[k]}", direction="falling",
                     hill_range=HILL_RANGE, min_points_each_side=MIN_POINTS_EACH_SIDE,
                     partial_efficacy=PARTIAL_EFFICACY_FRACTION)
-                continue
+                if fit.ic50_bound is None and "rising" not in fit.flags:
+                    out[name] = fit
+                    continue
             self.refitted.append(name)
             out.update(_default_fitter({name: curves[name]}, **options))
         return out

@@ -275,3 +275,11 @@ def test_a_warning_lands_on_the_compound_that_raised_it(monkeypatch):
     ranking = fit_campaign(grid, quiet=True, engine="batched").ranking.set_index("compound")
     assert "odd grid" in ranking.loc["CPD-3", "flags"]
     assert not ranking.drop(index="CPD-3")["flags"].str.contains("odd grid").any()
+
+
+def test_campaign_benchmark_smoke():
+    from benchmarks.bench_campaign import main
+
+    text = main(smoke=True)
+    assert "lmfit path" in text and "batched engine" in text and "ratio" in text
+    assert "verdict and status agree" in text and "refitted by the lmfit path" in text
