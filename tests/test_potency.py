@@ -13,6 +13,7 @@ from inhibkin.models import MODELS
 from inhibkin.potency import (
     FLAGS,
     DoseResponseFit,
+    EngineFitter,
     cheng_prusoff,
     dose_response_from_estimates,
     fit_dose_response,
@@ -476,6 +477,49 @@ def test_fitter_can_be_swapped_for_prefitted_estimates(rng):
     swapped = potency_table(df, km=1.0, intervals="wald", fitter=outside)
     cols = ["ic50", "ic50_low", "ic50_high", "ki", "hill", "flags"]
     pd.testing.assert_frame_equal(swapped.table[cols], reference.table[cols])
+
+
+def test_engine_fitter_gives_the_lmfit_answers_and_hands_back_unsettled_curves(rng):
+    # Curves of the batched engine (tested against curve_fit and published 4PL fits in
+    # test_engine.py) through the potency table: the same table as the lmfit loop. The
+    # inactive compound (noise around 100 %) and the one whose IC50 lies past the top
+    # concentration (30) are refitted by the lmfit path, and recorded.
+    compounds = {"A": 0.05, "B": 0.5, "C": 2.0, "inactive": 1e4, "past range": 300.0}
+    df = _plate_table(rng, compounds)
+    reference = potency_table(df, km=1.0, intervals="wald")
+    fitter = EngineFitter()
+    engine = potency_table(df, km=1.0, intervals="wald", fitter=fitter)
+    assert fitter.refitted == ["inactive", "past range"]
+    for name in ("A", "B", "C"):
+        assert engine.fits[name].message.startswith("batched engine")
+    text = ["compound", "status", "ic50_bound", "ki_bound", "flags", "reason"]
+    pd.testing.assert_frame_equal(engine.table[text], reference.table[text])
+    numbers = [c for c in engine.table.columns if c not in text
+               and engine.table[c].dtype.kind == "f"]
+    # Estimates to the issue's 1e-6; their Wald limits carry the standard errors' 1e-5.
+    np.testing.assert_allclose(engine.table[numbers].to_numpy(dtype=float),
+                               reference.table[numbers].to_numpy(dtype=float),
+                               rtol=CURVE_FIT_SE_RTOL, equal_nan=True)
+    for name in ("A", "B", "C"):
+        np.testing.assert_allclose(engine.fits[name].params["estimate"],
+                                   reference.fits[name].params["estimate"], rtol=CURVE_FIT_RTOL)
+    # Profile intervals: every curve on the lmfit path, none counted as refitted.
+    profile_fitter = EngineFitter()
+    profiled = potency_table(df, km=1.0, intervals="profile", fitter=profile_fitter)
+    assert profile_fitter.refitted == []
+    assert all(not f.message.startswith("batched engine") for f in profiled.fits.values())
+
+
+def test_estimates_from_elsewhere_follow_the_direction_of_the_fit(rng):
+    conc = np.repeat(np.logspace(-2, 2, 9), 2)
+    y = 100 / (1 + conc / 0.7) + rng.normal(0, 2, conc.size)
+    for direction in ("falling", "any"):
+        ref = fit_dose_response(conc, y, direction=direction, intervals="wald")
+        again = dose_response_from_estimates(conc, y, ref.estimates, direction=direction)
+        assert again.flags == ref.flags
+        pd.testing.assert_frame_equal(again.params, ref.params, rtol=EXACT)
+    with pytest.raises(InhibkinError, match="direction"):
+        dose_response_from_estimates(conc, y, ref.estimates, direction="down")
 
 
 def test_noise_on_an_inactive_compound_is_a_bound_when_only_falling_curves_are_allowed(rng):
