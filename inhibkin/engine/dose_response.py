@@ -55,6 +55,39 @@ class _Logistic:
         pred += bottom * h
         return pred, jac
 
+    def curvature(self, theta, x, *, jacobian, residual):
+        """Σ r·∇²y over the points, laid out (4, 4, b), with ``residual`` r the
+        residuals times the squared weights and ``jacobian`` this model's at ``theta``.
+
+        y is linear in top and bottom, so only their cross terms with log_ic50 and
+        hill, and the log_ic50/hill block, are non-zero. With z = ln10·hill·(x − log_ic50)
+        and g = 1/(1 + eᶻ): dg/dz = −q, d²g/dz² = q·(1 − 2g), q = g·(1 − g).
+        """
+        _, _, log_ic50, hill = theta
+        g, h = jacobian[0], jacobian[1]
+        c = g * h
+        c *= residual  # r·q
+        c2 = 1.0 - 2.0 * g
+        c2 *= c  # r·q·(1 − 2g)
+        e = x - log_ic50
+        sum_c = c.sum(axis=0)
+        sum_ce = np.einsum("nb,nb->b", c, e)
+        sum_c2 = c2.sum(axis=0)
+        c2 *= e
+        sum_c2e = c2.sum(axis=0)
+        sum_c2ee = np.einsum("nb,nb->b", c2, e)
+        span = theta[0] - theta[1]
+        ln10_sq = _LN10 * _LN10
+        out = np.zeros((4, 4) + hill.shape)
+        out[0, 2] = out[2, 0] = _LN10 * hill * sum_c  # Σ r·∂g/∂log_ic50
+        out[0, 3] = out[3, 0] = -_LN10 * sum_ce  # Σ r·∂g/∂hill
+        out[1, 2] = out[2, 1] = -out[0, 2]
+        out[1, 3] = out[3, 1] = -out[0, 3]
+        out[2, 2] = span * ln10_sq * hill * hill * sum_c2
+        out[2, 3] = out[3, 2] = span * (_LN10 * sum_c - ln10_sq * hill * sum_c2e)
+        out[3, 3] = span * ln10_sq * sum_c2ee
+        return out
+
 
 @dataclass(frozen=True)
 class LogisticBatch:

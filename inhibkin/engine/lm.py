@@ -336,6 +336,7 @@ class _Working:
     g: np.ndarray = None
     ssr: np.ndarray = None
     gram: np.ndarray = None
+    curv: np.ndarray = None
     lam: np.ndarray = None
     nu: np.ndarray = None
     d: np.ndarray = None
@@ -353,26 +354,53 @@ class _Working:
             setattr(self, name, np.ascontiguousarray(getattr(self, name)[:, which]))
         self.args = [np.ascontiguousarray(a[:, which]) for a in self.args]
         self.gram = np.ascontiguousarray(self.gram[:, :, which])
+        if self.curv is not None:
+            self.curv = np.ascontiguousarray(self.curv[:, :, which])
         for name in ("ssr", "lam", "nu", "running"):
             setattr(self, name, getattr(self, name)[which])
 
 
 def _evaluate(model, st, theta):
-    """SSR, Jᵀr and JᵀJ at ``theta`` (the residuals and Jacobian are not kept)."""
+    """SSR, Jᵀr, JᵀJ and Σ r·∇²f (None without :meth:`curvature`) at ``theta``; the
+    residuals and Jacobian are not kept."""
     if theta.shape[1] == 1:
         # numpy sums a lone column pairwise but several columns point by point in order;
         # a duplicate column keeps one problem's rounding the same in any batch.
         twin = _Working(st.idx, None, [np.repeat(a, 2, axis=1) for a in st.args],
                         np.repeat(st.y, 2, axis=1), np.repeat(st.w, 2, axis=1), None, None,
                         None, st.unweighted)
-        ssr, g, gram = _evaluate(model, twin, np.repeat(theta, 2, axis=1))
-        return ssr[:1], g[:, :1], gram[:, :, :1]
+        ssr, g, gram, curv = _evaluate(model, twin, np.repeat(theta, 2, axis=1))
+        return ssr[:1], g[:, :1], gram[:, :, :1], None if curv is None else curv[:, :, :1]
     pred, jac = model(theta, *st.args)
     r = st.y - pred
-    if not st.unweighted:
+    if st.unweighted:
+        jw = jac
+    else:
         r *= st.w
-        jac = jac * st.w
-    return np.einsum("nb,nb->b", r, r), np.einsum("knb,nb->kb", jac, r), _gram(jac)
+        jw = jac * st.w
+    ssr, g, gram = np.einsum("nb,nb->b", r, r), np.einsum("knb,nb->kb", jw, r), _gram(jw)
+    curv = None
+    if hasattr(model, "curvature"):
+        curv = model.curvature(theta, *st.args, jacobian=jac,
+                               residual=r if st.unweighted else r * st.w)
+    return ssr, g, gram, curv
+
+
+def _damped_step(a, g, lam, d, held):
+    """Solve (A + λ·D) δ = g; parameters ``held`` (k, b) or None keep δ = 0.
+    Returns (δ, solved): solved is False where the damped matrix is not positive definite."""
+    k = a.shape[0]
+    m = a.copy()
+    for j in range(k):
+        m[j, j] = a[j, j] + lam * d[j]
+    if held is not None:
+        m = np.where(held[:, None, :] | held[None, :, :], 0.0, m)
+        for j in range(k):
+            m[j, j] = np.where(held[j], 1.0, m[j, j])
+    low, solved = _cholesky(m)
+    with np.errstate(all="ignore"):
+        step = _substitute(low, g)
+    return step, solved
 
 
 def _diag(a):
@@ -392,7 +420,7 @@ def _iterate(model, st: _Working, status, iterations, ssr_out, theta_out, gram_o
     k = st.theta.shape[0]
     st.unweighted = bool(np.all(st.w == 1.0))
     with np.errstate(all="ignore"):
-        st.ssr, st.g, st.gram = _evaluate(model, st, st.theta)
+        st.ssr, st.g, st.gram, st.curv = _evaluate(model, st, st.theta)
     bad = ~np.isfinite(st.ssr) | ~np.all(np.isfinite(_diag(st.gram)), axis=0)
     status[st.idx[bad]] = FAILED_START
     st.running = ~bad
@@ -420,25 +448,27 @@ def _iterate(model, st: _Working, status, iterations, ssr_out, theta_out, gram_o
         any_held = bool(held.any())
         st.d = np.maximum(st.d, _diag(a))
         d = np.where(st.d > 0, st.d, 1.0)
-        m = a.copy()
-        for j in range(k):
-            m[j, j] = a[j, j] + st.lam * d[j]
         if any_held:
             g = np.where(held, 0.0, g)
-            m = np.where(held[:, None, :] | held[None, :, :], 0.0, m)
-            for j in range(k):
-                m[j, j] = np.where(held[j], 1.0, m[j, j])
-        low, solved = _cholesky(m)
-        with np.errstate(all="ignore"):
-            step = _substitute(low, g)
+        step, solved = _damped_step(a, g, st.lam, d, held if any_held else None)
+        if st.curv is not None:
+            # The full Hessian of the SSR/2, JᵀJ − Σ r·∇²f, where the damped matrix is
+            # positive definite: Newton's quadratic convergence where Gauss–Newton's is
+            # only linear (residuals not small). Elsewhere the Gauss–Newton step.
+            hess = a - st.curv
+            newton, pd = _damped_step(hess, g, st.lam, d, held if any_held else None)
+            step = np.where(pd, newton, step)
+            solved |= pd
+            a = np.where(pd, hess, a)
         step = np.where(solved, step, 0.0)
         trial = np.clip(t + step, st.lower, st.upper) if bounded else t + step
         step = trial - t
-        # Gain the linear model predicts; held rows have g = 0 and step = 0.
+        # Gain the quadratic model predicts; held rows have g = 0 and step = 0.
         a_step = np.stack([sum(a[j, m_] * step[m_] for m_ in range(k)) for j in range(k)])
         predicted = np.sum(step * (2 * g - a_step), axis=0)
+        a = st.gram
         with np.errstate(all="ignore"):
-            ssr_t, g_t, gram_t = _evaluate(model, st, trial)
+            ssr_t, g_t, gram_t, curv_t = _evaluate(model, st, trial)
             ok_t = np.isfinite(ssr_t) & np.all(np.isfinite(_diag(gram_t)), axis=0) & solved
         accept = run & ok_t & (ssr_t < st.ssr)
         actual = st.ssr - ssr_t
@@ -459,6 +489,8 @@ def _iterate(model, st: _Working, status, iterations, ssr_out, theta_out, gram_o
         st.theta = np.where(accept, trial, t)
         st.g = np.where(accept, g_t, st.g)
         st.gram = np.where(accept, gram_t, a)
+        if curv_t is not None:
+            st.curv = np.where(accept, curv_t, st.curv)
         st.ssr = np.where(accept, ssr_t, st.ssr)
         with np.errstate(all="ignore"):
             shrink = np.maximum(1.0 / 3.0, 1.0 - (2.0 * rho - 1.0) ** 3)
