@@ -108,7 +108,7 @@ def _execution(args):
 def _fit_options(args) -> dict:
     return dict(compound=args.compound, units=_units(args.units), weighting=args.weighting,
                 intervals=args.intervals, level=args.level, quiet=args.quiet,
-                chunk_size=args.chunk_size)
+                chunk_size=args.chunk_size, engine=args.engine)
 
 
 def _finish(campaign, output, args) -> int:
@@ -148,7 +148,12 @@ def _fit_arguments(parser):
     parser.add_argument("--intervals", choices=("wald", "profile"), default="wald",
                         help="confidence intervals: wald (fast, default) or profile")
     parser.add_argument("--level", type=float, default=0.95, help="confidence level")
-    parser.add_argument("--chunk-size", type=int, default=32, help="compounds per task")
+    parser.add_argument("--chunk-size", type=int, default=None,
+                        help="compounds per task (default: 32 on the lmfit path, 256 on the "
+                             "batched engine)")
+    parser.add_argument("--engine", choices=("auto", "batched", "lmfit"), default="auto",
+                        help="auto: the batched engine for tables of 20 or more compounds "
+                             "with wald intervals, else lmfit")
 
 
 def _dose_arguments(parser):

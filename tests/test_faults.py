@@ -224,14 +224,15 @@ def test_cli_killed_while_writing_leaves_no_output(tmp_path):
 
 def test_cli_interrupted_while_fitting_leaves_no_output(tmp_path):
     """Ctrl-C (SIGINT) while the campaign is being fitted: no output file, no temporary."""
-    done = _run_cli("simulate", "--compounds", 400, "--seed", 2, "-o", "grid.csv",
+    done = _run_cli("simulate", "--compounds", 2000, "--seed", 2, "-o", "grid.csv",
                     cwd=tmp_path)
     assert done.returncode == 0, done.stderr
     process = subprocess.Popen([sys.executable, "-m", "inhibkin.cli", "rank", "--grid",
                                 "grid.csv", "-o", "ranking.csv", "--quiet"], cwd=tmp_path,
                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    # Wait until the interpreter is past its imports and fitting (400 compounds take
-    # well over the few seconds the imports take), then interrupt.
+    # Wait until the interpreter is past its imports and fitting (2000 compounds take
+    # well over the few seconds the imports take, even on the batched engine), then
+    # interrupt.
     deadline = time.monotonic() + TIMEOUT_SECONDS
     while time.monotonic() < deadline and process.poll() is None:
         time.sleep(0.5)
