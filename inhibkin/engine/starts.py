@@ -168,22 +168,28 @@ def logistic_starts(x, y, mask) -> np.ndarray:
     """Vectorised :func:`inhibkin.logistic.logistic4_start`: (B, 4) top, bottom,
     log_ic50, hill."""
     n_batch, n = x.shape
-    if mask.all() and np.all(x[:, 1:] > x[:, :-1]):
-        # The usual layout: one point per concentration, rising. Every point is a level.
-        levels, means = x.copy(), y.copy()
+    level_mask = None
+    if n and mask.all() and np.all(x[:, 1:] > x[:, :-1]):
+        # The usual layout: one point per concentration, rising. Every point is a level,
+        # already in order, so the median level needs no sort.
+        levels, means = x, y
         n_levels = np.full(n_batch, n)
+        log_ic50 = 0.5 * (levels[:, (n - 1) // 2] + levels[:, n // 2])
     else:
         levels, means, n_levels = _level_means(x, y, mask)
+        level_mask = np.arange(n) < n_levels[:, None]
+        log_ic50 = _median(np.where(level_mask, levels, 0.0), level_mask)
     rows = np.arange(n_batch)
     last = np.clip(n_levels - 1, 0, None)
     top = means[:, 0]
     bottom = means[rows, last]
     half = 0.5 * (top + bottom)
-    level_mask = np.arange(n) < n_levels[:, None]
-    log_ic50 = _median(np.where(level_mask, levels, 0.0), level_mask)
     direction = np.sign(np.where(top - bottom == 0, 1.0, top - bottom))
-    above = ((means - half[:, None]) * direction[:, None] > 0) & level_mask
-    crossing = above[:, :-1] & ~above[:, 1:] & level_mask[:, 1:]
+    above = (means - half[:, None]) * direction[:, None] > 0
+    crossing = above[:, :-1] & ~above[:, 1:]
+    if level_mask is not None:
+        above &= level_mask
+        crossing = above[:, :-1] & ~above[:, 1:] & level_mask[:, 1:]
     has = crossing.any(axis=1)
     first = np.argmax(crossing, axis=1)
     m0 = means[rows, first]
