@@ -203,7 +203,9 @@ def _fit_chunk(x, y, mask, weights, top, bottom, *, level, max_iterations, ftol,
     ok = status > 0
     se = result.std_err
     dof = result.n_obs - result.n_free
-    t = stats.t.ppf(0.5 + level / 2, np.maximum(dof, 1))[:, None]
+    # The quantile once per distinct degrees of freedom (a screen has a handful).
+    dof_levels, which = np.unique(np.maximum(dof, 1), return_inverse=True)
+    t = stats.t.ppf(0.5 + level / 2, dof_levels)[which.reshape(-1)][:, None]
     estimate = np.where(ok[:, None], result.theta, np.nan)
     se = np.where(ok[:, None] & free, se, np.nan)
     return LogisticBatch(estimate, se, estimate - t * se, estimate + t * se, free,
