@@ -8,6 +8,7 @@ converted to Ki. Results are statistical estimates for research triage.
 from . import figures
 from .batch import Campaign, fit_campaign, simulate_campaign
 from .compare import VerdictOptions
+from .conversion import cheng_prusoff, ic50_from_ki
 from .design import GridPlan, plan_grid
 from .engine import fit_logistic_batch, fit_mechanism_arrays, fit_mechanisms_batch
 from .errors import DataError, FitError, InhibkinError, InhibkinWarning, UnitsError
@@ -15,17 +16,10 @@ from .fitting import ModelFit, fit_michaelis_menten
 from .io import read_table, write_table
 from .mechanism import MechanismFit, fit_mechanisms
 from .models import MODELS, RateLaw
+from .morrison import MorrisonFit, fit_morrison
 from .plates import PlateQC, plate_qc, z_prime
-from .potency import (
-    DoseResponseFit,
-    MorrisonFit,
-    PotencyTable,
-    cheng_prusoff,
-    fit_dose_response,
-    fit_morrison,
-    ic50_from_ki,
-    potency_table,
-)
+from .potency import DoseResponseFit, fit_dose_response
+from .potency_table import PotencyTable, potency_table
 from .rates import InitialRates, initial_rates
 from .report import fit_html, report
 from .signal import CHROMOPHORES, BeerLambert, StandardCurve, fit_standard_curve

@@ -28,7 +28,7 @@ Bounds and failures never appear as numbers in ``ki_M`` or ``pki``. For the mixe
 mechanism the reported Ki is the tighter (smaller) of kic and kiu, and
 ``ki_parameter`` says which. ``ki_source`` says where the Ki came from: ``grid fit``
 (global fit of a substrate × inhibitor grid) or ``converted IC50`` (a dose-response
-IC50 converted by :func:`~inhibkin.potency.potency_table`, Cheng–Prusoff by mechanism
+IC50 converted by :func:`~inhibkin.potency_table.potency_table`, Cheng–Prusoff by mechanism
 or a Morrison fit).
 
 Engines
@@ -70,11 +70,12 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 
+from .conversion import CONVERSIONS
 from .engine import fit_mechanism_arrays, pad
 from .errors import DataError, InhibkinError, Problem, UnitsError
 from .mechanism import MechanismFit, fit_mechanisms
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
-from .potency import CONVERSIONS, EngineFitter, potency_table
+from .potency_table import EngineFitter, potency_table
 from .simulate import simulate_grid
 from .units import CONCENTRATION_UNITS, from_molar, normalise_unit, resolve_units, to_molar
 from .validate import check_columns, check_grid
@@ -629,7 +630,7 @@ class Campaign:
         row per plate in table order, columns :data:`PLATE_COLUMNS`: plate, n_max,
         mean_max, sd_max, n_min, mean_min, sd_min (signal units), z_prime, flagged (Z'
         below the threshold, or the plate could not be normalised) and problem (why
-        not, else empty). The numbers are those :func:`~inhibkin.potency.potency_table`
+        not, else empty). The numbers are those :func:`~inhibkin.potency_table.potency_table`
         uses to normalise the wells. Empty (same columns) without a dose-response table.
     """
 
@@ -985,7 +986,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         compound column. Concentration units must be declared, in the headers
         (``substrate_uM``, ``inhibitor_nM``) or with ``units``.
     dose_response : pandas.DataFrame, optional
-        Tidy dose-response wells (see :func:`~inhibkin.potency.potency_table`): compound,
+        Tidy dose-response wells (see :func:`~inhibkin.potency_table.potency_table`): compound,
         plate, role (``sample``/``max``/``min``), inhibitor concentration, signal and
         the assay's substrate concentration, units declared as for ``table``. A compound
         found in both tables takes its Ki from the grid fit (when the grid determined
@@ -1014,7 +1015,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     level, alpha, min_delta_aicc, determination_factor
         Passed to the grid engine (see :func:`~inhibkin.mechanism.fit_mechanisms`).
     potency_options : dict, optional
-        Further options of :func:`~inhibkin.potency.potency_table` (e.g.
+        Further options of :func:`~inhibkin.potency_table.potency_table` (e.g.
         ``default_mechanism``, ``fix_top``, ``tight_binding``).
     heavy_atoms, logp : str
         Optional columns (one value per compound, in either table) that add ligand
@@ -1033,7 +1034,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
             ``intervals="wald"``: every chunk's grids in one
             :func:`~inhibkin.engine.fit_mechanism_arrays` call, its curves in one
             :func:`~inhibkin.engine.fit_logistic_batch` call
-            (:class:`~inhibkin.potency.EngineFitter`); the fits it does not converge are
+            (:class:`~inhibkin.potency_table.EngineFitter`); the fits it does not converge are
             refitted by the lmfit path and counted in ``options["n_fallback"]``;
         ``"lmfit"``
             one lmfit fit after another (:func:`~inhibkin.mechanism.fit_mechanisms`,

@@ -17,7 +17,7 @@ import pandas as pd
 from .batch import fit_campaign
 from .errors import DataError
 from .io import read_table, write_table
-from .potency import potency_table
+from .potency_table import potency_table
 from .rates import initial_rates
 from .report import report
 from .units import from_molar

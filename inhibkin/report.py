@@ -385,7 +385,7 @@ def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaig
         The HTML file to write; written to a temporary file in the same directory and
         renamed, so an interrupted run leaves no half-written report.
     potency : PotencyTable, optional
-        The dose-response screen (:func:`inhibkin.potency.potency_table`): its table,
+        The dose-response screen (:func:`inhibkin.potency_table.potency_table`): its table,
         the Z'-factor of every plate, and the dose-response curves of the most potent
         compounds.
     rates : InitialRates or pandas.DataFrame, optional

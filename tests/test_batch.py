@@ -326,7 +326,7 @@ def test_dose_response_needs_km_and_declared_units():
 def test_campaign_carries_the_plate_qc_table():
     from inhibkin.batch import PLATE_COLUMNS
     from inhibkin.plates import z_prime
-    from inhibkin.potency import potency_table
+    from inhibkin.potency_table import potency_table
 
     kis = {f"Q-{k}": 10.0 ** -p for k, p in enumerate(np.linspace(6.5, 8.0, 7))}
     plates = _dose_plates(kis, seed=51, per_plate=3)  # plates P1..P3

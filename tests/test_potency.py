@@ -7,21 +7,13 @@ import pandas as pd
 import pytest
 from scipy import optimize, stats
 
+from inhibkin.conversion import cheng_prusoff, ic50_from_ki
 from inhibkin.errors import DataError, InhibkinError
 from inhibkin.logistic import logistic4
 from inhibkin.models import MODELS
-from inhibkin.potency import (
-    FLAGS,
-    DoseResponseFit,
-    EngineFitter,
-    cheng_prusoff,
-    dose_response_from_estimates,
-    fit_dose_response,
-    fit_morrison,
-    ic50_from_ki,
-    morrison,
-    potency_table,
-)
+from inhibkin.morrison import fit_morrison, morrison
+from inhibkin.potency import FLAGS, DoseResponseFit, dose_response_from_estimates, fit_dose_response
+from inhibkin.potency_table import EngineFitter, potency_table
 
 DATA = Path(__file__).parent / "data"
 

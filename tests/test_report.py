@@ -14,7 +14,8 @@ from inhibkin.batch import fit_campaign, simulate_campaign
 from inhibkin.errors import DataError
 from inhibkin.logistic import logistic4
 from inhibkin.mechanism import fit_mechanisms
-from inhibkin.potency import fit_dose_response, potency_table
+from inhibkin.potency import fit_dose_response
+from inhibkin.potency_table import potency_table
 from inhibkin.report import (
     CAUTIONS,
     campaign_html,

@@ -14,12 +14,15 @@ from hypothesis import strategies as st
 
 from inhibkin.batch import STATUSES, fit_campaign, simulate_campaign
 from inhibkin.cli import main
+from inhibkin.conversion import cheng_prusoff
 from inhibkin.errors import DataError, InhibkinError, InhibkinWarning
 from inhibkin.fitting import fit_michaelis_menten, format_estimate
 from inhibkin.io import read_table, write_table
 from inhibkin.mechanism import fit_mechanisms
+from inhibkin.morrison import fit_morrison
 from inhibkin.plates import plate_qc
-from inhibkin.potency import cheng_prusoff, fit_dose_response, fit_morrison, potency_table
+from inhibkin.potency import fit_dose_response
+from inhibkin.potency_table import potency_table
 from inhibkin.rates import initial_rates
 from inhibkin.simulate import simulate_grid
 

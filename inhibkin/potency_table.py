@@ -1,0 +1,427 @@
+"""The potency table: IC50, Hill slope, Ki and pKi of every compound of a screen.
+
+:func:`potency_table` checks a tidy dose-response table, fits each compound's curve
+(:mod:`inhibkin.potency`, or a batched ``fitter`` such as :class:`EngineFitter`),
+converts IC50 to Ki by mechanism (:mod:`inhibkin.conversion`) and, for tight binders
+when asked, by a Morrison fit (:mod:`inhibkin.morrison`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from .conversion import CONVERSIONS, cheng_prusoff
+from .errors import DataError, FitError, InhibkinError, Problem
+from .morrison import fit_morrison
+from .plates import Z_PRIME_THRESHOLD, PlateQC, percent_activity, plate_qc
+from .potency import (
+    _HILL_MAX,
+    _LOG_IC50_MARGIN,
+    HILL_RANGE,
+    INTERVAL_METHODS,
+    MIN_POINTS_EACH_SIDE,
+    PARTIAL_EFFICACY_FRACTION,
+    DoseResponseFit,
+    _check_curve,
+    _context,
+    _fit_logistic,
+    _fixed,
+    _from_estimates,
+)
+from .validate import check_columns
+
+__all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table"]
+
+#: IC50 below this multiple of the enzyme concentration is tight binding (common practice).
+TIGHT_BINDING_FACTOR = 10.0
+
+#: Columns of :attr:`PotencyTable.table`, in order.
+TABLE_COLUMNS = (
+    "compound", "status", "reason", "plate", "n_points", "ic50", "ic50_low", "ic50_high",
+    "ic50_bound", "pic50", "hill", "hill_low", "hill_high", "top", "bottom", "substrate", "km",
+    "enzyme", "ki", "ki_low", "ki_high", "ki_bound", "pki", "mechanism", "alpha",
+    "mechanism_source", "ki_method", "flags",
+)
+
+#: A fitter takes {compound: (conc, response)} and options, and returns
+#: {compound: DoseResponseFit or InhibkinError}; see :func:`potency_table`.
+Fitter = Callable[..., Mapping]
+
+
+@dataclass(frozen=True)
+class PotencyTable:
+    """Potency of every compound of a dose-response table.
+
+    Attributes
+    ----------
+    table : pandas.DataFrame
+        One row per compound, columns :data:`TABLE_COLUMNS`. ``status`` is ``"ok"`` or
+        ``"failed"`` (with the ``reason``); IC50 and Ki in the concentration's unit
+        (``ic50_bound``/``ki_bound`` hold "> x" text when only a bound is known);
+        ``mechanism_source`` is ``"mechanism fit"`` or ``"default"``; ``ki_method`` is
+        ``"cheng-prusoff"`` or ``"morrison"``; ``flags`` joins
+        :data:`~inhibkin.potency.FLAGS` keys with ", ".
+    fits : dict
+        Compound to its :class:`DoseResponseFit` (fitted compounds only).
+    plates : PlateQC
+        Z'-factor and control statistics per plate.
+    morrison_fits : dict
+        Compound to its :class:`~inhibkin.morrison.MorrisonFit` (only with
+        ``tight_binding="morrison"``).
+    """
+
+    table: pd.DataFrame
+    fits: dict = field(repr=False)
+    plates: PlateQC = field(repr=False)
+    morrison_fits: dict = field(default_factory=dict, repr=False)
+
+    @property
+    def failed(self) -> pd.DataFrame:
+        """The rows whose status is ``"failed"``."""
+        return self.table[self.table["status"] == "failed"]
+
+    def to_frame(self) -> pd.DataFrame:
+        """The per-compound table (a copy)."""
+        return self.table.copy()
+
+    def summary(self) -> str:
+        """Plain-text report: counts, plates, then the main columns."""
+        n_ok = int((self.table["status"] == "ok").sum())
+        lines = [f"Potency: {len(self.table)} compounds, {n_ok} fitted, "
+                 f"{len(self.table) - n_ok} failed; {len(self.plates.table)} plates, "
+                 f"{len(self.plates.flagged)} flagged (Z' < {self.plates.threshold:g})"]
+        shown = self.table[["compound", "status", "ic50", "ic50_bound", "hill", "ki", "ki_bound",
+                            "mechanism", "mechanism_source", "flags"]]
+        lines.append(shown.to_string(index=False, float_format=lambda x: f"{x:.4g}"))
+        for _, row in self.failed.iterrows():
+            lines.append(f"  {row['compound']}: {row['reason']}")
+        return "\n".join(lines)
+
+    def _repr_html_(self) -> str:
+        n_ok = int((self.table["status"] == "ok").sum())
+        return (f"<p><b>Potency</b> — {len(self.table)} compounds, {n_ok} fitted, "
+                f"{len(self.table) - n_ok} failed</p>"
+                + self.table.to_html(index=False, float_format="{:.4g}".format)
+                + self.plates._repr_html_())
+
+
+def _per_compound_value(spec, rows, name, frame):
+    """A number given directly, or the single value of column ``spec`` on ``rows``."""
+    if spec is None:
+        return np.nan
+    if isinstance(spec, str):
+        values = pd.to_numeric(frame.loc[rows, spec], errors="coerce").to_numpy(dtype=float)
+        distinct = np.unique(values[np.isfinite(values)])
+        if distinct.size != 1 or not np.all(np.isfinite(values)):
+            raise DataError(Problem(spec, None, distinct.tolist() or values[:1].tolist(),
+                                    f"{name} must be one number per compound"))
+        return float(distinct[0])
+    return float(spec)
+
+
+def _mechanism_of(name, mechanisms, default_mechanism, default_alpha):
+    if mechanisms is not None and name in mechanisms:
+        entry = mechanisms[name]
+        mech, alpha = (entry, None) if isinstance(entry, str) else tuple(entry)
+        return mech, (np.nan if alpha is None else float(alpha)), "mechanism fit"
+    return default_mechanism, (np.nan if default_alpha is None else float(default_alpha)), \
+        "default"
+
+
+def _convert_bound(bound, factor):
+    sign, value = bound.split(" ", 1)
+    return f"{sign} {float(value) * factor:.3g}"
+
+
+def _default_fitter(curves, *, fix_top, fix_bottom, intervals, level):
+    out = {}
+    fixed = _fixed(fix_top, fix_bottom)
+    for name, (conc, response) in curves.items():
+        try:
+            out[name] = _fit_logistic(conc, response, np.ones_like(response), fixed,
+                                      compound=name, method=intervals, level=level,
+                                      direction="falling",
+                                      hill_range=HILL_RANGE,
+                                      min_points_each_side=MIN_POINTS_EACH_SIDE,
+                                      partial_efficacy=PARTIAL_EFFICACY_FRACTION)
+        except InhibkinError as error:
+            out[name] = error
+    return out
+
+
+class EngineFitter:
+    """A ``fitter`` for :func:`potency_table`: every curve fitted at once by the batched
+    engine, the curves it does not settle refitted by the lmfit path.
+
+    The curves go through :func:`inhibkin.engine.fit_logistic_batch` together; each
+    solution becomes a :class:`DoseResponseFit` through
+    :func:`~inhibkin.potency.dose_response_from_estimates` (standard errors, Wald
+    intervals and flags computed exactly as the lmfit path computes them). The lmfit path
+    fits within bounds — a Hill slope between 0 and 20, the midpoint within the tested
+    range ± 4 decades — and the engine without them; the two problems share their optimum
+    only inside those bounds. And a curve that does not fall to its midpoint within the
+    tested range (noise on an inactive compound, a partial or rising curve) has a flat
+    least-squares surface with several minima, where two optimisers from different
+    starts can settle on different ones. So an engine solution is kept only when it
+    converged strictly inside the bounds to a falling curve whose IC50 lies within the
+    tested range; every other curve is refitted by the lmfit path, and its compound is
+    recorded in :attr:`refitted`.
+
+    With ``intervals="profile"`` every curve takes the lmfit path (the engine gives
+    Wald intervals only), and none is counted as refitted.
+
+    Attributes
+    ----------
+    refitted : list
+        Compounds refitted by the lmfit path, in the order of the curves; one instance
+        records one :func:`potency_table` call (make a fresh one for each).
+    """
+
+    def __init__(self):
+        self.refitted: list = []
+
+    def __call__(self, curves, *, fix_top, fix_bottom, intervals, level) -> dict:
+        from .engine import fit_logistic_batch  # the engine only when asked for
+
+        options = dict(fix_top=fix_top, fix_bottom=fix_bottom, intervals=intervals,
+                       level=level)
+        if intervals != "wald" or not curves:
+            return _default_fitter(curves, **options)
+        names = list(curves)
+        width = max(len(conc) for conc, _ in curves.values())
+        x, y = np.zeros((len(names), width)), np.zeros((len(names), width))
+        mask = np.zeros((len(names), width), bool)
+        for k, name in enumerate(names):
+            conc, response = curves[name]
+            x[k, :len(conc)], y[k, :len(conc)] = np.log10(conc), response
+            mask[k, :len(conc)] = True
+        batch = fit_logistic_batch(x, y, mask, fix_top=fix_top, fix_bottom=fix_bottom,
+                                   level=level)
+        out = {}
+        for k, name in enumerate(names):
+            conc, response = curves[name]
+            estimates = dict(zip(batch.names, batch.estimate[k]))
+            x_min, x_max = x[k, mask[k]].min(), x[k, mask[k]].max()
+            inside = (bool(batch.converged[k]) and 0.0 < estimates["hill"] < _HILL_MAX
+                      and x_min - _LOG_IC50_MARGIN < estimates["log_ic50"]
+                      < x_max + _LOG_IC50_MARGIN)
+            if inside:
+                # potency_table checked the curves; the flags follow _default_fitter's.
+                fit = _from_estimates(
+                    conc, response, np.ones_like(response), _fixed(fix_top, fix_bottom),
+                    estimates, level=level, compound=name, converged=True,
+                    message=f"batched engine: {batch.reason[k]}", direction="falling",
+                    hill_range=HILL_RANGE, min_points_each_side=MIN_POINTS_EACH_SIDE,
+                    partial_efficacy=PARTIAL_EFFICACY_FRACTION)
+                if fit.ic50_bound is None and "rising" not in fit.flags:
+                    out[name] = fit
+                    continue
+            self.refitted.append(name)
+            out.update(_default_fitter({name: curves[name]}, **options))
+        return out
+
+
+def potency_table(df, *, compound="compound", plate="plate", role="role",
+                  concentration="inhibitor", response="signal", substrate="substrate", km,
+                  km_se=None, enzyme=None, mechanisms=None, default_mechanism="competitive",
+                  default_alpha=None, normalise=True, fix_top=None, fix_bottom=None,
+                  intervals="profile", level=0.95, z_prime_threshold=Z_PRIME_THRESHOLD,
+                  tight_binding="flag", tight_binding_factor=TIGHT_BINDING_FACTOR,
+                  fitter: Fitter | None = None) -> PotencyTable:
+    """IC50, Hill slope, Ki and pKi of every compound of a tidy dose-response table.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        One row per well. ``role`` is ``"sample"`` (compound at a concentration),
+        ``"max"`` (no inhibitor: full activity) or ``"min"`` (no enzyme or full
+        inhibition: zero activity); see :mod:`inhibkin.plates`. Control wells need no
+        compound.
+    compound, plate, role, concentration, response, substrate : str
+        Column names. ``substrate`` holds the substrate concentration of the assay
+        (one value per compound).
+    km : float or str
+        Michaelis constant (substrate's unit), or the column holding it.
+    km_se : float, optional
+        Standard error of Km, propagated into Ki (delta method; see
+        :func:`cheng_prusoff`). Without it the Ki interval is the IC50 interval
+        times the conversion factor.
+    enzyme : float or str, optional
+        Active enzyme concentration (inhibitor's unit) or its column; enables the
+        tight-binding flag.
+    mechanisms : mapping, optional
+        Compound to ``(mechanism, alpha)`` (or a mechanism name) from the campaign's
+        mechanism fits; other compounds take ``default_mechanism``.
+    default_mechanism : str
+        One of :data:`CONVERSIONS`.
+    default_alpha : float, optional
+        Kiu/Kic when the default is ``"mixed"``.
+    normalise : bool
+        Fit percent activity from the plate controls (default); when False, fit the
+        response as given (Z' is still computed).
+    fix_top, fix_bottom : float, optional
+        Passed to the 4PL (e.g. 100 and 0 for percent activity).
+    intervals : {"profile", "wald"}
+    level : float
+    z_prime_threshold : float
+        Plates below it are flagged, and so is every compound on them.
+    tight_binding : {"flag", "morrison"}
+        With ``"morrison"``, compounds flagged tight-binding get their Ki from a
+        :func:`fit_morrison` fit of the same points instead of Cheng–Prusoff.
+    tight_binding_factor : float
+        IC50 below this multiple of the enzyme concentration is tight binding.
+    fitter : callable, optional
+        Replaces the per-compound lmfit loop, e.g. by a batched engine:
+        ``fitter(curves, *, fix_top, fix_bottom, intervals, level)`` with ``curves``
+        mapping compound to (conc, response) arrays already validated, returning
+        compound to :class:`DoseResponseFit` (see
+        :func:`~inhibkin.potency.dose_response_from_estimates`) or to the
+        :class:`~inhibkin.errors.InhibkinError` that stopped it.
+
+    Returns
+    -------
+    PotencyTable
+        Every compound exactly once; one failing compound never stops the others.
+
+    Raises
+    ------
+    DataError
+        For problems of the whole table: missing columns, no control wells of a kind,
+        unknown roles, sample rows without a compound, an unknown default mechanism.
+    """
+    if intervals not in INTERVAL_METHODS:
+        raise FitError(f"intervals must be one of {INTERVAL_METHODS}, got {intervals!r}")
+    if tight_binding not in ("flag", "morrison"):
+        raise DataError(Problem(None, None, tight_binding,
+                                "tight_binding must be 'flag' or 'morrison'"))
+    columns = [compound, plate, role, concentration, response, substrate]
+    columns += [c for c in (km, enzyme) if isinstance(c, str)]
+    check_columns(df, columns)
+    if default_mechanism not in CONVERSIONS:
+        raise DataError(Problem("default_mechanism", None, default_mechanism,
+                                f"must be one of {CONVERSIONS}"))
+    if default_mechanism == "mixed" and default_alpha is None:
+        raise DataError(Problem("default_alpha", None, None,
+                                "a mixed default mechanism needs default_alpha = Kiu/Kic"))
+    qc = plate_qc(df, plate=plate, role=role, response=response, threshold=z_prime_threshold,
+                  strict=False)
+    y_all = (percent_activity(df, qc, plate=plate, response=response) if normalise else
+             pd.to_numeric(df[response], errors="coerce").to_numpy(dtype=float))
+    is_sample = (df[role] == "sample").to_numpy()
+    samples = df[is_sample]
+    if samples.empty:
+        raise DataError(Problem(role, None, "sample", "the table has no 'sample' wells"))
+    nameless = samples[compound].isna().to_numpy()
+    if nameless.any():
+        raise DataError([Problem(compound, r, None, "a 'sample' well has no compound")
+                         for r in samples.index[nameless][:5]])
+    y_samples = pd.Series(y_all[is_sample], index=samples.index)
+    unusable = qc.unusable
+    low_plates = set(qc.flagged)
+
+    rows, curves, info = {}, {}, {}
+    for name in pd.unique(samples[compound]):
+        here = samples[samples[compound] == name]
+        on = [p for p in pd.unique(here[plate])]
+        info[name] = (here.index, on)
+        rows[name] = {"compound": name, "status": "failed", "plate": ", ".join(map(str, on)),
+                      "n_points": len(here), "flags": ""}
+        bad = [unusable[p] for p in on if p in unusable]
+        try:
+            if bad:
+                raise DataError(bad[0], _context(name))
+            conc, resp, _ = _check_curve(here[concentration].to_numpy(),
+                                         y_samples[here.index].to_numpy(), None,
+                                         context=_context(name),
+                                         columns=(concentration, response, "weights"),
+                                         rows=here.index,
+                                         n_free=4 - len(_fixed(fix_top, fix_bottom)))
+            curves[name] = (conc, resp)
+        except InhibkinError as error:
+            rows[name]["reason"] = str(error)
+    run = fitter or _default_fitter
+    results = dict(run(curves, fix_top=fix_top, fix_bottom=fix_bottom, intervals=intervals,
+                       level=level)) if curves else {}
+
+    fits, morrison_fits = {}, {}
+    for name in curves:
+        outcome = results.get(name)
+        row = rows[name]
+        if not isinstance(outcome, DoseResponseFit):
+            row["reason"] = (str(outcome) if outcome is not None else
+                             "the fitter returned no result for this compound")
+            continue
+        fits[name] = outcome
+        try:
+            row.update(_potency_row(name, outcome, df, info[name], low_plates=low_plates,
+                                    substrate=substrate, km=km, km_se=km_se, enzyme=enzyme,
+                                    mechanisms=mechanisms, default_mechanism=default_mechanism,
+                                    default_alpha=default_alpha, level=level,
+                                    tight_binding=tight_binding,
+                                    tight_binding_factor=tight_binding_factor,
+                                    morrison_fits=morrison_fits, intervals=intervals))
+        except InhibkinError as error:
+            row["reason"] = f"{_context(name)}: {error}" if _context(name) not in str(error) \
+                else str(error)
+    table = pd.DataFrame([rows[n] for n in rows], columns=list(TABLE_COLUMNS))
+    text = ["reason", "ic50_bound", "ki_bound", "mechanism", "mechanism_source", "ki_method",
+            "flags"]
+    table[text] = table[text].fillna("")
+    return PotencyTable(table.reset_index(drop=True), fits, qc, morrison_fits)
+
+
+def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, substrate, km, km_se,
+                 enzyme, mechanisms, default_mechanism, default_alpha, level, tight_binding,
+                 tight_binding_factor, morrison_fits, intervals) -> dict:
+    index, plates = where
+    flags = list(fit.flags)
+    s = _per_compound_value(substrate, index, "substrate", df)
+    km_value = _per_compound_value(km, index, "km", df)
+    e = _per_compound_value(enzyme, index, "enzyme", df)
+    ic50_row = fit.params.loc["ic50"]
+    hill_row = fit.params.loc["hill"]
+    out = {"status": "ok", "reason": "", "ic50": fit.ic50, "ic50_low": np.nan,
+           "ic50_high": np.nan, "ic50_bound": fit.ic50_bound or "", "pic50": fit.pic50,
+           "hill": fit.hill, "hill_low": hill_row["ci_low"], "hill_high": hill_row["ci_high"],
+           "top": fit.top, "bottom": fit.bottom, "substrate": s, "km": km_value, "enzyme": e,
+           "ki": np.nan, "ki_low": np.nan, "ki_high": np.nan, "ki_bound": "", "pki": np.nan,
+           "ki_method": "cheng-prusoff"}
+    if not fit.ic50_bound:
+        out["ic50_low"], out["ic50_high"] = ic50_row["ci_low"], ic50_row["ci_high"]
+    if any(p in low_plates for p in plates):
+        flags.append("low_z_prime")
+    mech, alpha, source = _mechanism_of(name, mechanisms, default_mechanism, default_alpha)
+    out.update(mechanism=mech, alpha=alpha, mechanism_source=source)
+    if np.isfinite(e) and np.isfinite(fit.ic50) and fit.ic50 < tight_binding_factor * e:
+        flags.append("tight_binding")
+    out["flags"] = ", ".join(flags)
+    if mech not in CONVERSIONS:
+        out["reason"] = f"mechanism {mech!r}: no IC50 to Ki conversion; Ki not reported"
+        return out
+    factor = cheng_prusoff(1.0, s, km_value, mech, None if np.isnan(alpha) else alpha)
+    if fit.ic50_bound:
+        out["ki_bound"] = _convert_bound(fit.ic50_bound, factor)
+        return out
+    if tight_binding == "morrison" and "tight_binding" in flags:
+        m = fit_morrison(fit.conc, fit.response, enzyme=e, s=s, km=km_value, mechanism=mech,
+                         alpha=None if np.isnan(alpha) else alpha, intervals=intervals,
+                         level=level, compound=name)
+        morrison_fits[name] = m
+        ki = m.params.loc["ki"]
+        out.update(ki=ki["estimate"], ki_low=ki["ci_low"], ki_high=ki["ci_high"],
+                   ki_method="morrison")
+    elif km_se is not None:
+        se_ic50 = fit.ic50 * np.log(10) * fit.params.loc["log_ic50", "se"]
+        ki = cheng_prusoff(fit.ic50, s, km_value, mech, None if np.isnan(alpha) else alpha,
+                           ic50_se=se_ic50, km_se=km_se, level=level).iloc[0]
+        out.update(ki=ki["ki"], ki_low=ki["ki_low"], ki_high=ki["ki_high"])
+    else:
+        out.update(ki=fit.ic50 * factor, ki_low=out["ic50_low"] * factor,
+                   ki_high=out["ic50_high"] * factor)
+    with np.errstate(divide="ignore"):
+        out["pki"] = -np.log10(out["ki"])
+    return out
