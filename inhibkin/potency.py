@@ -27,6 +27,7 @@ import pandas as pd
 from scipy import optimize, stats
 
 from .errors import DataError, FitError, Problem
+from .fitting import INTERVAL_METHODS
 from .logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
 from .profile import profile_crossing
 from .validate import numeric_column
@@ -67,8 +68,6 @@ HILL_RANGE = (0.5, 2.0)
 MIN_POINTS_EACH_SIDE = 2
 #: bottom above this fraction of top is partial efficacy (common practice).
 PARTIAL_EFFICACY_FRACTION = 0.2
-
-INTERVAL_METHODS = ("profile", "wald")
 
 # Convergence tolerances (relative) of the main fits: far below the 6 significant
 # digits the reference checks ask for.
