@@ -556,53 +556,51 @@ def plot_double_reciprocal(fit_or_data, *, units=None, ax=None):
         lines uncompetitive, crossing on the 1/S axis noncompetitive.
     """
     units = units or AxisUnits()
+    inv = f"1/{units.substrate}" if units.substrate else ""
+    return _linearised(
+        fit_or_data, by="i", x_of=lambda s, i: 1.0 / s, y_of=lambda s, v: 1.0 / v,
+        name="double reciprocal", xlabel=units.label("1 / substrate", inv),
+        ylabel=units.label("1 / rate", f"1/({units.rate})" if units.rate else ""),
+        series_label=lambda level: _fmt_level(level, units.inhibitor), units=units, ax=ax)
+
+
+def _linearised(fit_or_data, *, by, x_of, y_of, name, xlabel, ylabel, series_label, units,
+                ax):
+    """One linearised view: a series per level of ``by`` ("i": inhibitor, the line runs
+    along S; "s": substrate, the line runs along I), cell means as points and the
+    global fit transformed as lines; ``x_of(s, i)`` and ``y_of(s, v)`` set the axes."""
     ax = _axes(ax)
     cells, dropped = _positive_cells(fit_or_data, units)
-    levels = np.unique(cells["i"])
+    levels = np.unique(cells[by])
     colours = level_palette(len(levels))
     for k, level in enumerate(levels):
-        cell = cells[cells["i"] == level]
-        ax.scatter(1.0 / cell["s"], 1.0 / cell["mean"], color=colours[k], s=18,
+        cell = cells[cells[by] == level]
+        s, i = cell["s"].to_numpy(), cell["i"].to_numpy()
+        ax.scatter(x_of(s, i), y_of(s, cell["mean"].to_numpy()), color=colours[k], s=18,
                    edgecolor="0.15", linewidth=0.4,
-                   marker=LEVEL_MARKERS[k % len(LEVEL_MARKERS)],
-                   label=_fmt_level(level, units.inhibitor))
+                   marker=LEVEL_MARKERS[k % len(LEVEL_MARKERS)], label=series_label(level))
         if len(cell):
-            s_line = np.geomspace(cell["s"].min(), cell["s"].max(), 50)
-            v_line = _model_at(fit_or_data, s_line, np.full(50, level), units)
+            if by == "i":
+                s_line, i_line = np.geomspace(s.min(), s.max(), 50), np.full(50, level)
+            else:
+                s_line, i_line = np.full(50, level), np.linspace(i.min(), i.max(), 50)
+            v_line = _model_at(fit_or_data, s_line, i_line, units)
             if v_line is not None:
-                ax.plot(1.0 / s_line, 1.0 / v_line, color=colours[k],
+                ax.plot(x_of(s_line, i_line), y_of(s_line, v_line), color=colours[k],
                         linestyle=LEVEL_LINES[k % len(LEVEL_LINES)], linewidth=1.0)
-    inv = f"1/{units.substrate}" if units.substrate else ""
-    ax.set_xlabel(units.label("1 / substrate", inv))
-    ax.set_ylabel(units.label("1 / rate", f"1/({units.rate})" if units.rate else ""))
-    _diagnostic_title(ax, "double reciprocal", dropped, fit_or_data)
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
+    _diagnostic_title(ax, name, dropped, fit_or_data)
     ax.legend(fontsize=6, frameon=False)
     return ax
 
 
 def _against_inhibitor(fit_or_data, transform, name, ylabel, *, units, ax):
-    units = units or AxisUnits()
-    ax = _axes(ax)
-    cells, dropped = _positive_cells(fit_or_data, units)
-    levels = np.unique(cells["s"])
-    colours = level_palette(len(levels))
-    for k, level in enumerate(levels):
-        cell = cells[cells["s"] == level]
-        ax.scatter(cell["i"], transform(level, cell["mean"].to_numpy()), color=colours[k], s=18,
-                   edgecolor="0.15", linewidth=0.4,
-                   marker=LEVEL_MARKERS[k % len(LEVEL_MARKERS)],
-                   label=f"S = {level:.3g} {units.substrate}".rstrip())
-        if len(cell):
-            i_line = np.linspace(cell["i"].min(), cell["i"].max(), 50)
-            v_line = _model_at(fit_or_data, np.full(50, level), i_line, units)
-            if v_line is not None:
-                ax.plot(i_line, transform(level, v_line), color=colours[k],
-                        linestyle=LEVEL_LINES[k % len(LEVEL_LINES)], linewidth=1.0)
-    ax.set_xlabel(units.label("inhibitor", units.inhibitor))
-    ax.set_ylabel(ylabel)
-    _diagnostic_title(ax, name, dropped, fit_or_data)
-    ax.legend(fontsize=6, frameon=False)
-    return ax
+    return _linearised(
+        fit_or_data, by="s", x_of=lambda s, i: i, y_of=transform, name=name,
+        xlabel=units.label("inhibitor", units.inhibitor), ylabel=ylabel,
+        series_label=lambda level: f"S = {level:.3g} {units.substrate}".rstrip(), units=units,
+        ax=ax)
 
 
 def plot_dixon(fit_or_data, *, units=None, ax=None):
