@@ -527,7 +527,10 @@ def _iterate(model, st: _Working, status, iterations, ssr_out, theta_out, gram_o
         trial = np.clip(t + step, st.lower, st.upper) if bounded else t + step
         step = trial - t
         # Gain the quadratic model predicts; held rows have g = 0 and step = 0.
-        a_step = np.stack([sum(a[j, m_] * step[m_] for m_ in range(k)) for j in range(k)])
+        # A·δ a column of A at a time: (k, b) rows, added in the same order as a dot product.
+        a_step = a[:, 0] * step[0]
+        for m_ in range(1, k):
+            a_step += a[:, m_] * step[m_]
         predicted = np.sum(step * (2 * g - a_step), axis=0)
         a = st.gram
         with np.errstate(all="ignore"):
@@ -572,9 +575,11 @@ def _iterate(model, st: _Working, status, iterations, ssr_out, theta_out, gram_o
         code[small_step] = CONVERGED_XTOL
         code[small_gain] = CONVERGED_FTOL
         code[accept & (ssr_t == 0)] = CONVERGED_EXACT
-        stalled = (code == 0) & (st.lam > _LAMBDA_MAX)
-        code[stalled & near_flat] = CONVERGED_PRECISION
-        code[stalled & ~near_flat] = FAILED_STALLED
+        stalled = st.lam > _LAMBDA_MAX
+        if stalled.any():
+            stalled &= code == 0
+            code[stalled & near_flat] = CONVERGED_PRECISION
+            code[stalled & ~near_flat] = FAILED_STALLED
         finished = run & (code != 0)
         status[st.idx[finished]] = code[finished]
         st.running = run & ~finished
