@@ -273,20 +273,24 @@ def _rank_arguments(parser):
     _dose_arguments(parser)
 
 
-def _rank(args) -> int:
+def _whole_campaign(args):
+    """fit_campaign over --grid and/or --dose-response (the rank and report stages)."""
     from .batch import fit_campaign
     from .io import read_table
 
-    if not args.grid and not args.dose_response:
-        raise DataError("give --grid, --dose-response, or both")
-    output = _check_output(args.output)
     grid = read_table(args.grid) if args.grid else None
     dose = read_table(args.dose_response) if args.dose_response else None
     dose_options = _dose_options(args) if dose is not None else {}
     with _execution(args) as where:
-        campaign = fit_campaign(grid, dose_response=dose, **dose_options, **_fit_options(args),
-                                **where)
-    return _finish(campaign, output, args)
+        return fit_campaign(grid, dose_response=dose, **dose_options, **_fit_options(args),
+                            **where)
+
+
+def _rank(args) -> int:
+    if not args.grid and not args.dose_response:
+        raise DataError("give --grid, --dose-response, or both")
+    output = _check_output(args.output)
+    return _finish(_whole_campaign(args), output, args)
 
 
 def _report_arguments(parser):
@@ -300,8 +304,7 @@ def _report_arguments(parser):
 
 
 def _report(args) -> int:
-    from .batch import fit_campaign
-    from .io import read_table, write_table
+    from .io import write_table
     from .report import report
 
     if not args.grid and not args.dose_response:
@@ -312,12 +315,7 @@ def _report(args) -> int:
     if not output.parent.is_dir():
         raise DataError(Problem("--output", None, str(output), "the directory does not exist"))
     ranking = _check_output(args.ranking) if args.ranking else None
-    grid = read_table(args.grid) if args.grid else None
-    dose = read_table(args.dose_response) if args.dose_response else None
-    dose_options = _dose_options(args) if dose is not None else {}
-    with _execution(args) as where:
-        campaign = fit_campaign(grid, dose_response=dose, **dose_options, **_fit_options(args),
-                                **where)
+    campaign = _whole_campaign(args)
     if ranking is not None:
         write_table(campaign.ranking, ranking)
     path = report(campaign, output, rate_unit=args.rate_unit)
