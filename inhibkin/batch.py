@@ -77,6 +77,7 @@ from .mechanism import MechanismFit, fit_mechanisms
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
 from .potency_table import EngineFitter, potency_table
 from .simulate import simulate_grid
+from .text import text_table
 from .units import CONCENTRATION_UNITS, from_molar, normalise_unit, resolve_units, to_molar
 from .validate import check_columns, check_grid
 
@@ -255,8 +256,7 @@ def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
         row["flags"] = "; ".join(flags)
         return row
     if fit.verdict == "ambiguous":
-        flags.append(f"mechanism ambiguous between {', '.join(fit.candidates)}; "
-                     f"constants from {fit.best} (lowest AICc)")
+        flags.append(f"mechanism ambiguous between {', '.join(fit.candidates)}; {fit.basis}")
     constants = fit.constants()
     mechanism = fit.best
     chosen = _pick_constant(constants, mechanism)
@@ -676,13 +676,13 @@ class Campaign:
     def summary(self, rows=_SUMMARY_ROWS) -> str:
         """Plain text: counts by status, the top of the ranking, every failure's reason."""
         width = 78
-        shown = self.ranking.head(rows)[["rank", "compound", "status", "mechanism",
+        shown = self.ranking.head(rows)[["rank", "compound", "status", "verdict", "mechanism",
                                          "ki_reported", "pki", "ki_source"]]
         lines = ["=" * width, self._head(),
                  f"({self.options.get('intervals', '')} intervals at "
                  f"{100 * self.options.get('level', 0.95):g}%, "
                  f"{self.options.get('weighting', '')} weighting)", "-" * width,
-                 shown.to_string(index=False, float_format=lambda x: f"{x:.2f}")]
+                 text_table(shown, index=False, float_format=lambda x: f"{x:.2f}")]
         if len(self.plates):
             flagged = self.plates.loc[self.plates["flagged"], "plate"]
             lines += ["-" * width, f"{len(self.plates)} dose-response plates, {len(flagged)} "

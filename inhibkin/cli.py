@@ -5,8 +5,7 @@ Exit status: 0 when every compound was fitted, 1 when some compounds failed (all
 results are still written, each failure with its reason), 2 when the input cannot be
 used at all (the problems are listed on stderr, and nothing is written).
 
-Adding a stage is one arguments function, one run function and one entry in
-:data:`SUBCOMMANDS`.
+A stage is one arguments function, one run function and one entry in SUBCOMMANDS.
 """
 
 from __future__ import annotations
@@ -25,6 +24,21 @@ __all__ = ["main", "build_parser", "Subcommand", "SUBCOMMANDS"]
 EXIT_OK = 0
 EXIT_SOME_FAILED = 1
 EXIT_UNUSABLE_INPUT = 2
+
+# What `inhibkin --help` says (the module docstring is for developers).
+_DESCRIPTION = """\
+Characterise enzyme inhibitors from plate data, one stage at a time: initial rates from
+kinetic reads (rates), the mechanism of each compound from its substrate × inhibitor grid
+(mechanism), IC50 and Ki from dose-response plates (potency), a ranking by pKi (rank) and
+an HTML report (report). Each stage reads and writes CSV or Parquet tables; `inhibkin
+STAGE --help` shows its options and a worked example.
+
+Exit status: 0 when every compound was fitted, 1 when some failed (every result is still
+written, each failure with its reason), 2 when the input cannot be used (the problems are
+listed, nothing is written).
+
+Results are statistical estimates for research triage; confirm decisions with
+orthogonal experiments. No output is for clinical or dosing use."""
 
 # Seconds to wait for a Dask scheduler before giving up.
 _SCHEDULER_TIMEOUT = "20s"
@@ -137,14 +151,15 @@ def _km(text):
     return text
 
 
-def _fit_arguments(parser):
-    parser.add_argument("-o", "--output", required=True, help="ranked table (.csv or .parquet)")
+def _fit_arguments(parser, output="ranked table (.csv or .parquet)",
+                   weighting="weights of the grid fits: uniform, relative (constant CV) or sd"):
+    parser.add_argument("-o", "--output", required=True, help=output)
     parser.add_argument("--units", action="append", metavar="NAME=UNIT",
                         help="declare a concentration unit when the header does not carry "
                              "one (repeatable), e.g. --units inhibitor=nM")
     parser.add_argument("--compound", default="compound", help="compound column")
     parser.add_argument("--weighting", choices=("uniform", "relative", "sd"), default="uniform",
-                        help="grid fit weights: uniform, relative (constant CV) or sd")
+                        help=weighting)
     parser.add_argument("--intervals", choices=("wald", "profile"), default="wald",
                         help="confidence intervals: wald (fast, default) or profile")
     parser.add_argument("--level", type=float, default=0.95, help="confidence level")
@@ -180,17 +195,50 @@ def _rates_arguments(parser):
                         help="one row per well: plate, well, compound, substrate_<unit>, "
                              "inhibitor_<unit>, role")
     parser.add_argument("-o", "--output", required=True, help="initial-rate table")
-    parser.add_argument("--time-unit", default="s", choices=("s", "ms", "min", "h"))
-    parser.add_argument("--rate-time-unit", choices=("s", "ms", "min", "h"))
-    parser.add_argument("--method", choices=("linear", "curve"), default="linear")
+    parser.add_argument("--time", default="time", metavar="COLUMN",
+                        help="time column of the reads (default: 'time', or the one "
+                             "'time_<unit>' column, e.g. time_s, whose unit is then used)")
+    parser.add_argument("--signal", default="signal", metavar="COLUMN",
+                        help="signal column of the reads (default: 'signal'); a header "
+                             "with a concentration unit, e.g. product_uM, declares the "
+                             "signal a concentration in that unit")
+    parser.add_argument("--rate", default="rate", metavar="COLUMN",
+                        help="name of the rate column written (default: 'rate'; give the "
+                             "same --rate to the mechanism stage)")
+    parser.add_argument("--time-unit", choices=("s", "ms", "min", "h"),
+                        help="unit of the times (default: the time header's unit, else s)")
+    parser.add_argument("--rate-time-unit", choices=("s", "ms", "min", "h"),
+                        help="time unit of the rates written, e.g. min for µM/min "
+                             "(default: --time-unit)")
+    parser.add_argument("--method", choices=("linear", "curve"), default="linear",
+                        help="linear: slope of the longest linear early window (default); "
+                             "curve: slope at t = 0 of a quadratic over the early curve")
     parser.add_argument("--chromophore", help="convert absorbance by Beer–Lambert, e.g. NADH")
     parser.add_argument("--path-length", type=float, default=1.0, help="cm (with --chromophore)")
     parser.add_argument("--signal-unit", help="concentration unit of the signal, when it is "
                                               "already a concentration")
-    parser.add_argument("--direction", choices=("increase", "decrease"), default="increase")
+    parser.add_argument("--direction", choices=("increase", "decrease"), default="increase",
+                        help="whether the signal rises (default) or falls as the reaction "
+                             "runs, e.g. decrease for NADH consumed at 340 nm")
     parser.add_argument("--units", action="append", metavar="NAME=UNIT",
                         help="substrate=UNIT / inhibitor=UNIT when the plate map's headers "
                              "carry none")
+
+
+def _check_read_columns(reads, args) -> None:
+    """Name the option when the column it names (or its default) is not in the reads."""
+    from .units import split_unit
+
+    have = [str(c) for c in reads.columns]
+    for option, name, kind in (("--time", args.time, "time"),
+                               ("--signal", args.signal, "concentration")):
+        if name in have or any(split_unit(c, kind=kind)[0] == name
+                               and split_unit(c, kind=kind)[1] for c in have):
+            continue
+        raise DataError(Problem(option, None, name,
+                                f"no such column in the reads; they have: "
+                                f"{', '.join(map(repr, have[:20]))}; name the column with "
+                                f"{option}"))
 
 
 def _rates(args) -> int:
@@ -201,19 +249,21 @@ def _rates(args) -> int:
 
     output = _check_output(args.output)
     reads, plate_map = read_table(args.reads), read_table(args.plate_map)
+    _check_read_columns(reads, args)
     found = resolve_units(plate_map.columns, ["substrate", "inhibitor"],
                           units=_units(args.units), context="plate map")
     (substrate, substrate_unit), (inhibitor, inhibitor_unit) = (found["substrate"],
                                                                 found["inhibitor"])
     conversion = (BeerLambert.of(args.chromophore, path_length=args.path_length)
                   if args.chromophore else None)
-    result = initial_rates(reads, plate_map, time_unit=args.time_unit,
+    result = initial_rates(reads, plate_map, time=args.time, signal=args.signal,
+                           time_unit=args.time_unit,
                            rate_time_unit=args.rate_time_unit, method=args.method,
                            conversion=conversion, signal_unit=args.signal_unit,
                            substrate=substrate, inhibitor=inhibitor,
                            substrate_unit=substrate_unit, inhibitor_unit=inhibitor_unit,
                            direction=args.direction)
-    write_table(result.to_frame(), output)
+    write_table(result.to_frame().rename(columns={"rate": args.rate}), output)
     if not args.quiet:
         print(result.summary())
     n_failed = int((result.table["status"] == "failed").sum())
@@ -228,8 +278,14 @@ def _mechanism_arguments(parser):
     parser.add_argument("grid", help="substrate × inhibitor rates: compound, substrate_<unit>, "
                                      "inhibitor_<unit>, rate")
     _fit_arguments(parser)
+    _rate_column_argument(parser)
     parser.add_argument("--params", help="also write every model's parameters of every "
                                          "compound (tidy table)")
+
+
+def _rate_column_argument(parser):
+    parser.add_argument("--rate", default="rate", metavar="COLUMN",
+                        help="rate column of the grid (default: 'rate')")
 
 
 def _mechanism(args) -> int:
@@ -240,7 +296,7 @@ def _mechanism(args) -> int:
     params = _check_output(args.params) if args.params else None
     table = read_table(args.grid)
     with _execution(args) as where:
-        campaign = fit_campaign(table, **_fit_options(args), **where)
+        campaign = fit_campaign(table, rate=args.rate, **_fit_options(args), **where)
     if params is not None:
         write_table(campaign.parameters(), params)
     return _finish(campaign, output, args)
@@ -250,7 +306,9 @@ def _potency_arguments(parser):
     parser.add_argument("plates", help="dose-response wells: compound, plate, role "
                                        "(sample/max/min), inhibitor_<unit>, signal, "
                                        "substrate_<unit>")
-    _fit_arguments(parser)
+    _fit_arguments(parser, weighting="no effect in this stage: the dose-response curves are "
+                                     "fitted unweighted (it weights grid fits in rank and "
+                                     "report)")
     _dose_arguments(parser)
 
 
@@ -270,6 +328,7 @@ def _rank_arguments(parser):
     parser.add_argument("--grid", help="substrate × inhibitor rate table")
     parser.add_argument("--dose-response", help="dose-response well table")
     _fit_arguments(parser)
+    _rate_column_argument(parser)
     _dose_arguments(parser)
 
 
@@ -282,8 +341,8 @@ def _whole_campaign(args):
     dose = read_table(args.dose_response) if args.dose_response else None
     dose_options = _dose_options(args) if dose is not None else {}
     with _execution(args) as where:
-        return fit_campaign(grid, dose_response=dose, **dose_options, **_fit_options(args),
-                            **where)
+        return fit_campaign(grid, dose_response=dose, rate=args.rate, **dose_options,
+                            **_fit_options(args), **where)
 
 
 def _rank(args) -> int:
@@ -298,7 +357,8 @@ def _report_arguments(parser):
     parser.add_argument("--dose-response", help="dose-response well table")
     parser.add_argument("--ranking", help="also write the ranked table (.csv or .parquet)")
     parser.add_argument("--rate-unit", default="", help="label of the rates, e.g. uM/min")
-    _fit_arguments(parser)
+    _fit_arguments(parser, output="the HTML report (.html)")
+    _rate_column_argument(parser)
     _dose_arguments(parser)
     parser.set_defaults(intervals="profile")
 
@@ -415,7 +475,10 @@ SUBCOMMANDS = [
     Subcommand(
         "rates", "initial rates from kinetic reads and a plate map",
         "inhibkin rates reads.csv --plate-map plate_map.csv --time-unit min "
-        "--chromophore NADH --direction decrease -o rates.csv",
+        "--chromophore NADH --direction decrease -o rates.csv\n"
+        "  inhibkin rates data_demo/invented_moa_reads.csv --plate-map "
+        "data_demo/invented_moa_plate_map.csv --signal product_uM --rate-time-unit min "
+        "-o rates.csv",
         _rates_arguments, _rates, parallel=False),
     Subcommand(
         "mechanism", "fit every mechanism to each compound's substrate × inhibitor grid",
@@ -455,7 +518,7 @@ SUBCOMMANDS = [
 
 def build_parser() -> argparse.ArgumentParser:
     """The parser of every subcommand in :data:`SUBCOMMANDS`."""
-    parser = argparse.ArgumentParser(prog="inhibkin", description=__doc__,
+    parser = argparse.ArgumentParser(prog="inhibkin", description=_DESCRIPTION,
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
     sub = parser.add_subparsers(dest="command", required=True)
     for command in SUBCOMMANDS:

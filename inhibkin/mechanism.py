@@ -24,6 +24,7 @@ from .errors import DataError
 from .fitting import ModelFit, fit_model, fixed_alpha_ssr
 from .models import MODEL_NAMES, MODELS
 from .starts import log_bounds, starting_values
+from .text import text_table
 from .validate import check_grid
 
 __all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "relative_weights"]
@@ -50,8 +51,9 @@ class MechanismFit:
     verdict : str
         A mechanism name, ``"ambiguous"`` or ``"failed"``.
     best : str or None
-        The model whose parameters stand for the compound (for ``ambiguous`` the best
-        of the candidates by AICc).
+        The model whose parameters stand for the compound (for ``ambiguous`` the
+        one-constant candidate with the lowest AICc, which need not be the lowest AICc
+        overall: see :attr:`basis`).
     candidates : tuple of str
         Models that could not be told apart (one entry when decided).
     reason : str
@@ -90,6 +92,28 @@ class MechanismFit:
         """The ModelFit of :attr:`best`."""
         return self.models.get(self.best) if self.best else None
 
+    @property
+    def basis(self) -> str:
+        """Which model the constants come from and why, in the terms of :attr:`comparison`.
+
+        For ``ambiguous`` the constants are those of the one-constant candidate with the
+        lowest AICc; when another model (mixed) has a lower AICc still, both ΔAICc values
+        are named, so the sentence never contradicts the comparison table.
+        """
+        if self.best is None:
+            return "no constants: the fit failed"
+        if self.best == "none":
+            return "no inhibition constants (no inhibition detected)"
+        if self.verdict != "ambiguous":
+            return f"constants from {self.best}, the verdict"
+        delta = self.comparison["delta_aicc"]
+        text = f"constants from {self.best}, the one-constant candidate with the lowest AICc"
+        lowest = delta.idxmin()
+        if lowest != self.best and delta[self.best] > 0:
+            text += (f" (ΔAICc {delta[self.best]:.2f}; {lowest} has the lowest AICc, "
+                     f"ΔAICc 0)")
+        return text
+
     def constants(self) -> pd.DataFrame:
         """The inhibition constants of the best model (kic, kiu, ki, alpha where present)."""
         fit = self.best_fit
@@ -109,11 +133,10 @@ class MechanismFit:
         width = 78
         lines = ["=" * width, f"Verdict: {self.verdict}", f"  {self.reason}"]
         if self.verdict == "ambiguous":
-            lines.append(f"  candidates: {', '.join(self.candidates)}")
+            lines.append(f"  candidates: {', '.join(self.candidates)}; {self.basis}")
         lines += ["-" * width, f"Model comparison ({self.weighting} weighting)",
-                  self.comparison.to_string(float_format=lambda x: f"{x:.4g}"),
-                  "-" * width, "Nested F-tests",
-                  self.ftests.to_string(index=False, float_format=lambda x: f"{x:.4g}")]
+                  text_table(self.comparison), "-" * width, "Nested F-tests",
+                  text_table(self.ftests, index=False)]
         if self.best_fit is not None:
             lines += ["-" * width, self.best_fit.summary()]
         lines.append("=" * width)

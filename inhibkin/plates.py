@@ -30,7 +30,8 @@ import pandas as pd
 from .errors import DataError, Problem
 from .validate import check_columns, numeric_column
 
-__all__ = ["ROLES", "Z_PRIME_THRESHOLD", "PlateQC", "z_prime", "plate_qc", "percent_activity"]
+__all__ = ["ROLES", "Z_PRIME_THRESHOLD", "PlateQC", "z_prime", "plate_qc", "percent_activity",
+           "no_controls"]
 
 #: The role names understood in the ``role`` column.
 ROLES = ("sample", "max", "min")
@@ -117,6 +118,13 @@ class _Controls:
     signal: np.ndarray
 
 
+def no_controls(kind, role="role") -> Problem:
+    """The problem of a table without a single ``kind`` ("max" or "min") control well."""
+    return Problem(role, None, kind,
+                   f"the table has no {kind!r} control wells; roles are 'max' (no inhibitor, "
+                   f"full activity) and 'min' (no enzyme or full inhibition)")
+
+
 def _read(df, *, plate, role, response) -> _Controls:
     check_columns(df, [plate, role, response])
     if len(df) == 0:
@@ -176,13 +184,14 @@ def plate_qc(df, *, plate="plate", role="role", response="signal",
         control means are equal (naming the plate, the column and the value), and
         always when the whole table has no control wells of one kind.
     """
+    check_columns(df, [plate, role, response])
+    if len(df) == 0:
+        # A campaign passes the control wells alone; none at all is a missing kind.
+        raise DataError(no_controls("max", role))
     data = _read(df, plate=plate, role=role, response=response)
     for kind in ("max", "min"):
         if not np.any(data.role == kind):
-            raise DataError(Problem(role, None, kind,
-                                    f"the table has no {kind!r} control wells; roles are "
-                                    f"'max' (no inhibitor, full activity) and 'min' (no enzyme "
-                                    f"or full inhibition)"))
+            raise DataError(no_controls(kind, role))
     rows, problems = [], []
     for name in pd.unique(data.plate):
         on = data.plate == name

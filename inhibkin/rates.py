@@ -517,9 +517,39 @@ def _unit_of(column, declared, kind="concentration"):
     return normalise_unit(found, kind=kind) if found else None
 
 
+def _header_column(frame, name, declared, *, kind, what):
+    """The column ``name`` (or the one ``name_<unit>`` header) of ``frame`` and its unit.
+
+    The unit is the one ``declared`` as an option, else the one the header carries, else
+    None; an option that contradicts the header is refused. A name that matches no
+    column is returned as it is, for the column check to report.
+    """
+    canonical = normalise_unit(declared, kind=kind) if declared is not None else None
+    if not isinstance(frame, pd.DataFrame):
+        return name, canonical
+    columns = [str(c) for c in frame.columns]
+    column = name
+    if name not in columns:
+        split = [(c, *split_unit(c, kind=kind)) for c in columns]
+        matches = [c for c, base, unit in split if base == name and unit]
+        if len(matches) > 1:
+            raise DataError(Problem(name, None, None, f"several columns could be the {what}: "
+                                                      f"{matches}; name one"), "reads")
+        if not matches:
+            return name, canonical
+        column = matches[0]
+    header = split_unit(column, kind=kind)[1]
+    header = normalise_unit(header, kind=kind) if header else None
+    if canonical is not None and header is not None and canonical != header:
+        raise UnitsError(Problem(column, None, declared,
+                                 f"{what} unit given as an option ({declared}) contradicts "
+                                 f"the header {column!r}"), "reads")
+    return column, canonical or header
+
+
 def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plate", well="well",
                   compound="compound", substrate="substrate", inhibitor="inhibitor",
-                  role="role", time_unit="s", rate_time_unit=None, method="linear",
+                  role="role", time_unit=None, rate_time_unit=None, method="linear",
                   conversion=None, signal_unit=None, substrate_unit=None, inhibitor_unit=None,
                   direction="increase", stoichiometry=1.0, subtract_blanks=True, ceiling=None,
                   alpha=0.05, max_bias=0.01, max_conversion=0.10, min_points=6,
@@ -536,11 +566,15 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
         and role (``sample``, ``blank`` = no enzyme, ``control``); without a role column
         every well is a sample. Other columns are carried into the output.
     time, signal, plate, well : str
-        Column names in ``reads``.
+        Column names in ``reads``. ``time`` and ``signal`` may also name a header that
+        carries its unit (``time_min``, ``product_uM``), and ``time="time"`` finds a
+        single ``time_<unit>`` column (likewise ``signal``): the header's unit is then
+        used as if given as ``time_unit`` / ``signal_unit``.
     compound, substrate, inhibitor, role : str
         Column names in ``plate_map``.
-    time_unit : str
-        Unit of the times (s, ms, min, h).
+    time_unit : str, optional
+        Unit of the times (s, ms, min, h); default the unit in the time column's header
+        (``time_min``), else s. A unit that contradicts the header is refused.
     rate_time_unit : str, optional
         Time unit of the reported rates; default ``time_unit``.
     method : {"linear", "curve"}
@@ -550,7 +584,8 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
         Signal to concentration. Without it the signal is taken as a concentration in
         ``signal_unit`` (or, if that is None too, rates stay in signal units).
     signal_unit : str, optional
-        Concentration unit of the signal when ``conversion`` is None.
+        Concentration unit of the signal when ``conversion`` is None; default the unit in
+        the signal column's header (``product_uM``), if any.
     substrate_unit, inhibitor_unit : str, optional
         Units of the plate map's concentrations; default the unit in the header
         (``substrate_uM``), else undeclared. Rates come out in the substrate's unit per
@@ -603,7 +638,15 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     """
     _check_options(method, direction, alpha, max_bias, max_conversion, min_points, max_rate_cv,
                    ceiling, stoichiometry, conversion)
-    time_unit = normalise_unit(time_unit, kind="time")
+    time, time_unit = _header_column(reads, time, time_unit, kind="time", what="time")
+    time_unit = time_unit or "s"
+    signal, header_unit = _header_column(reads, signal, signal_unit if conversion is None
+                                         else None, kind="concentration", what="signal")
+    if conversion is not None and split_unit(signal)[1]:
+        raise UnitsError(Problem(signal, None, conversion.unit,
+                                 "the header declares the signal a concentration, but a "
+                                 "conversion was given; give one or the other"), "reads")
+    signal_unit = header_unit if conversion is None else signal_unit
     rate_time_unit = (normalise_unit(rate_time_unit, kind="time")
                       if rate_time_unit is not None else time_unit)
     substrate_unit = _unit_of(substrate, substrate_unit)

@@ -141,7 +141,8 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi) -> dict:
     comparison["converged"] = comparison["converged"].map({True: "yes", False: "no"})
     section["fit"] = {
         "verdict": fit.verdict, "reason": fit.reason, "best": fit.best,
-        "candidates": ", ".join(fit.candidates), "weighting": fit.weighting,
+        "candidates": ", ".join(fit.candidates), "basis": fit.basis,
+        "weighting": fit.weighting,
         "alpha": fit.options.alpha, "min_delta_aicc": fit.options.min_delta_aicc,
         "comparison": _table(comparison),
         "ftests": _table(fit.ftests, index=False),

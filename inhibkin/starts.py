@@ -37,20 +37,26 @@ def michaelis_menten_start(s, v) -> tuple[float, float]:
     Parameters
     ----------
     s, v : array_like
-        Substrate concentrations and rates (any units; S > 0 and v > 0 are used).
+        Substrate concentrations and rates (any units; the line uses the points with
+        S > 0 and v > 0, so zero and negative rates are allowed).
 
     Returns
     -------
     vmax, km : float
         Positive starting values, in the units of ``v`` and ``s``. When the line has a
         non-positive slope or intercept (noisy or flat data) the fallback is
-        vmax = 1.1 × max(v) and km = the median substrate concentration.
+        vmax = 1.1 × the largest positive rate (the largest |v| when none is positive)
+        and km = the median substrate concentration.
     """
     s = np.asarray(s, dtype=float)
     v = np.asarray(v, dtype=float)
     keep = (s > 0) & (v > 0)
+    # The scale of the rates: the largest positive one, else the largest magnitude (rates
+    # may scatter around zero), else 1.
+    scale = float(np.max(v[keep])) if keep.any() else (float(np.max(np.abs(v), initial=0.0))
+                                                        or 1.0)
     s, v = s[keep], v[keep]
-    fallback = (1.1 * float(np.max(v, initial=1.0)), float(np.median(s)) if s.size else 1.0)
+    fallback = (1.1 * scale, float(np.median(s)) if s.size else 1.0)
     if np.unique(s).size < 2:
         return fallback
     slope, intercept = np.polyfit(s, s / v, 1)

@@ -12,7 +12,8 @@ import pandas as pd
 
 from .errors import DataError, Problem
 
-__all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_menten"]
+__all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_menten",
+           "NO_SIGNAL"]
 
 # How many bad rows of one kind a message lists before it summarises the rest.
 _MAX_ROWS_LISTED = 5
@@ -21,6 +22,9 @@ _MAX_ROWS_LISTED = 5
 # smallest underflow to zero in logarithms and ratios.
 MAX_MAGNITUDE = 1e100
 MIN_MAGNITUDE = 1e-100
+#: Why a table whose rates average to zero or less is refused (the value is the mean).
+NO_SIGNAL = ("the rates carry no signal: their mean (the value) is not above zero, so no "
+             "enzyme activity is seen; nothing to fit")
 
 
 def check_columns(df, columns, context=None) -> None:
@@ -90,6 +94,8 @@ def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True,
         Column names.
     sd : str, optional
         Column of standard deviations of the rates (must be > 0).
+        Rates may be zero or negative (noise around zero); the table is refused only
+        when they carry no signal at all (all zero, mean ≤ 0, or all equal).
     need_inhibition : bool
         When True, at least two inhibitor levels (one of them may be 0) are required.
     context : str, optional
@@ -111,7 +117,9 @@ def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True,
         raise DataError("the table has no rows", context)
     s = numeric_column(df, substrate, problems)
     i = numeric_column(df, inhibitor, problems)
-    v = numeric_column(df, rate, problems)
+    # Rates scattered around zero are data: a flat (fully inhibited or blank-corrected)
+    # well reads slightly negative as often as slightly positive.
+    v = numeric_column(df, rate, problems, allow_negative=True)
     sigma = None
     if sd is not None:
         sigma = numeric_column(df, sd, problems)
@@ -130,6 +138,8 @@ def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True,
                                 "(include the uninhibited rate, I = 0)"))
     if np.all(v == 0):
         problems.append(Problem(rate, None, 0.0, "all rates are zero; nothing to fit"))
+    elif not np.mean(v) > 0:
+        problems.append(Problem(rate, None, float(np.mean(v)), NO_SIGNAL))
     elif np.all(v == v[0]):
         problems.append(Problem(rate, None, float(v[0]),
                                 "all rates are equal: they depend on neither substrate nor "
@@ -160,7 +170,7 @@ def check_michaelis_menten(s, v, weights=None):
     frame = pd.DataFrame(table)
     problems: list[Problem] = []
     s_arr = numeric_column(frame, "s", problems)
-    v_arr = numeric_column(frame, "v", problems)
+    v_arr = numeric_column(frame, "v", problems, allow_negative=True)
     w_arr = None if weights is None else numeric_column(frame, "weights", problems)
     if problems:
         raise DataError(problems)
@@ -171,6 +181,8 @@ def check_michaelis_menten(s, v, weights=None):
                                 "need at least two substrate concentrations"))
     if np.all(v_arr == 0):
         raise DataError(Problem("v", None, 0.0, "all rates are zero; nothing to fit"))
+    if not np.mean(v_arr) > 0:
+        raise DataError(Problem("v", None, float(np.mean(v_arr)), NO_SIGNAL))
     if np.all(v_arr == v_arr[0]):
         raise DataError(Problem("v", None, float(v_arr[0]),
                                 "all rates are equal: they do not depend on the substrate, so "

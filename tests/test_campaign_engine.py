@@ -283,3 +283,13 @@ def test_campaign_benchmark_smoke():
     text = main(smoke=True)
     assert "lmfit path" in text and "batched engine" in text and "ratio" in text
     assert "verdict and status agree" in text and "refitted by the lmfit path" in text
+
+
+def test_one_negative_well_does_not_fail_a_compound_on_either_path():
+    """Issue 12, item 4: a flat well read slightly below zero is kept as data."""
+    grid, _ = simulate_campaign(6, seed=5)
+    slowest = grid.groupby("compound")["rate"].idxmin()
+    grid.loc[slowest, "rate"] = -0.001
+    for engine in ("batched", "lmfit"):
+        ranking = fit_campaign(grid, quiet=True, engine=engine).ranking
+        assert (ranking["status"] != "failed").all(), ranking["reason"].tolist()

@@ -2,6 +2,7 @@
 
 import subprocess
 import sys
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -180,3 +181,79 @@ def test_design_stage_writes_a_layout(tmp_path):
     bad = run("design", "--km-range", 1, 5, "--ki-range", 0.05, 0.5, "--wells", 24,
               "--substrate", "1,x", "--inhibitor", "1", cwd=tmp_path)
     assert bad.returncode == 2 and "must be numbers" in bad.stderr
+
+
+def test_summaries_show_the_verdict_and_no_nan(grid_file, tmp_path, capsys):
+    """Issue 12, item 5: an ambiguous compound must not read as plain 'competitive', and
+    missing values print as '-' (never NaN or <NA>)."""
+    table = read_table(grid_file)
+    zero = table[table["compound"] == "CPD-1"].assign(compound="ZERO", rate=0.0)
+    pd.concat([table, zero]).to_csv(tmp_path / "grid.csv", index=False)
+    for stage in (["mechanism", str(tmp_path / "grid.csv")],
+                  ["rank", "--grid", str(tmp_path / "grid.csv")]):
+        assert main([*stage, "-o", str(tmp_path / "out.csv"), "--weighting", "uniform"]) == 1
+        out = capsys.readouterr().out
+        header = next(line for line in out.splitlines() if line.lstrip().startswith("rank"))
+        assert "verdict" in header.split()
+        assert "NaN" not in out and "<NA>" not in out and " nan" not in out
+
+
+def test_plate_without_control_wells_names_the_controls(tmp_path, capsys):
+    """Issue 12, item 8: the CLI says what the Python API says, not 'no rows'."""
+    plates = _dose_plates({"DR-A": 3e-8}, seed=9)
+    plates[plates["role"] == "sample"].to_csv(tmp_path / "plates.csv", index=False)
+    out = tmp_path / "p.csv"
+    assert main(["potency", str(tmp_path / "plates.csv"), "--km", "20uM", "-o", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert "no 'max' control wells" in err and "no rows" not in err
+    assert not out.exists()
+
+
+def _help(capsys, *argv):
+    with pytest.raises(SystemExit):
+        main([*argv, "--help"])
+    return " ".join(capsys.readouterr().out.split())
+
+
+def test_help_is_written_for_users(capsys):
+    """Issue 12, item 8: no developer text, every option described, each as it is."""
+    top = _help(capsys)
+    assert "SUBCOMMANDS" not in top and "Adding a stage" not in top and ":data:" not in top
+    assert "exit status" in top.lower()
+    report = _help(capsys, "report")
+    assert "-o OUTPUT, --output OUTPUT the HTML report" in report
+    potency = _help(capsys, "potency")
+    assert "grid fit weights" not in potency
+    assert "dose-response curves are fitted unweighted" in potency
+    rates = _help(capsys, "rates")
+    for option in ("--method {linear,curve}", "--direction {increase,decrease}",
+                   "--time-unit {s,ms,min,h}", "--rate-time-unit {s,ms,min,h}",
+                   "--time COLUMN", "--signal COLUMN", "--rate COLUMN"):
+        described = rates.split(option, 1)[-1].split(" --", 1)[0].strip()
+        assert option in rates and len(described) > 10, option
+
+
+DEMO = Path(__file__).resolve().parents[1] / "data_demo"
+
+
+def test_rates_stage_reads_the_demo_headers(tmp_path):
+    """Issue 12, item 9: the demo's own reads (time_s, product_uM) feed the rates stage,
+    with the units read from the headers, and the rates equal the Python API's."""
+    from inhibkin.rates import initial_rates
+
+    done = run("rates", DEMO / "invented_moa_reads.csv", "--plate-map",
+               DEMO / "invented_moa_plate_map.csv", "--signal", "product_uM",
+               "--rate-time-unit", "min", "--method", "curve", "--rate", "rate_uM_per_min",
+               "-o", "rates.csv", "--quiet", cwd=tmp_path)
+    assert done.returncode in (0, 1), done.stderr
+    got = read_table(tmp_path / "rates.csv")
+    expected = initial_rates(read_table(DEMO / "invented_moa_reads.csv"),
+                             read_table(DEMO / "invented_moa_plate_map.csv"), time="time_s",
+                             signal="product_uM", substrate="substrate_uM",
+                             inhibitor="inhibitor_nM", rate_time_unit="min",
+                             signal_unit="uM", method="curve").table
+    np.testing.assert_allclose(got["rate_uM_per_min"], expected["rate"], rtol=1e-9)
+    # A missing signal column is named with the option that names it.
+    done = run("rates", DEMO / "invented_moa_reads.csv", "--plate-map",
+               DEMO / "invented_moa_plate_map.csv", "-o", "r.csv", cwd=tmp_path)
+    assert done.returncode == 2 and "--signal" in done.stderr and "product_uM" in done.stderr

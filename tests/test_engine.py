@@ -458,11 +458,12 @@ def test_batch_of_one_and_of_zero():
 def test_bad_tables_fail_alone():
     tables, _ = _simulated_tables(3, SEED + 7)
     negative = tables[1].copy()
-    negative.loc[5, "rate"] = -2.0
+    negative.loc[5, "inhibitor"] = -2.0
     missing = tables[2].drop(columns="inhibitor")
     fits = fit_mechanisms_batch([tables[0], negative, missing])
     assert [f.verdict == "failed" for f in fits] == [False, True, True]
-    assert "'rate'" in fits[1].reason and "row 5" in fits[1].reason and "-2.0" in fits[1].reason
+    assert "'inhibitor'" in fits[1].reason and "row 5" in fits[1].reason
+    assert "-2.0" in fits[1].reason
     assert "'inhibitor'" in fits[2].reason and "missing" in fits[2].reason
     assert fits[0].verdict == ik.fit_mechanisms(tables[0], intervals="wald").verdict
     with pytest.raises(ik.DataError, match="weighting"):
@@ -527,3 +528,24 @@ def test_benchmark_smoke():
     text = main(smoke=True)
     assert "curve_fit loop" in text and "lmfit loop" in text
     assert text.count("ratio") >= 2 and "peak memory" in text
+
+
+@pytest.mark.parametrize("weighting", ["uniform", "relative"])
+def test_negative_rates_are_fitted_as_on_the_lmfit_path(weighting):
+    """A slightly negative well is data on both solvers (issue 12, item 4); rates with no
+    signal at all fail on both, with the same reason."""
+    tables, _ = _simulated_tables(10, SEED + 11)
+    for table in tables:
+        table.loc[table["true_rate"].idxmin(), "rate"] = -0.01 * table["rate"].max()
+    silent = tables[0].assign(rate=np.random.default_rng(SEED).normal(-0.01, 0.05,
+                                                                      len(tables[0])))
+    fits = fit_mechanisms_batch([*tables, silent], weighting=weighting)
+    reference = [ik.fit_mechanisms(t, intervals="wald", weighting=weighting) for t in tables]
+    assert [f.verdict for f in fits[:-1]] == [r.verdict for r in reference]
+    assert "failed" not in [f.verdict for f in fits[:-1]]
+    for fit, ref in zip(fits, reference):
+        np.testing.assert_allclose(fit.data["weight"], ref.data["weight"], rtol=1e-5)
+    assert fits[-1].verdict == "failed" and "no signal" in fits[-1].reason
+    # The array entry point checks the same rule without a table.
+    s, i, v, mask = _arrays([silent])
+    assert "no signal" in fit_mechanism_arrays(s, i, v, mask).reason[0]

@@ -153,3 +153,29 @@ def test_michaelis_menten_bad_input_names_the_value():
         ik.fit_michaelis_menten([1, 2, 3], [1, 2])
     with pytest.raises(ik.DataError, match="negative value"):
         ik.fit_michaelis_menten([1, 2, -3, 4], [1, 2, 3, 4])
+    with pytest.raises(ik.DataError, match=r"column 'v' \(value -0.25\): the rates carry no "
+                                           "signal"):
+        ik.fit_michaelis_menten([1, 2, 3, 4], [-1, 0.5, -0.5, 0])
+    # One rate read below zero is data (issue 12, item 4).
+    fit = ik.fit_michaelis_menten([0.1, 1, 2, 5, 10, 20], [-0.05, 3.3, 5.0, 7.1, 8.3, 9.1])
+    assert fit.converged
+
+
+def test_starts_follow_the_scale_of_small_and_negative_rates():
+    """Rates of order 1e-3 with negative wells (issue 12, item 4): the fallback start of
+    vmax is on the rates' scale, not 1.1, and the engine starts at the same place."""
+    from inhibkin.engine.starts import mechanism_starts
+    from inhibkin.starts import michaelis_menten_start, starting_values
+
+    s = np.array([1.0, 2.0, 4.0, 8.0])
+    vmax, km = michaelis_menten_start(s, [0.004, -0.001, 0.003, 0.002])
+    assert vmax == pytest.approx(1.1 * 0.004) and km > 0
+    vmax, km = michaelis_menten_start(s, [-0.004, -0.001, -0.003, -0.002])
+    assert vmax == pytest.approx(1.1 * 0.004) and km > 0
+    i = np.array([0.0, 0.0, 1.0, 1.0])
+    v = np.array([0.004, -0.001, 0.003, -0.002])
+    for model in ("none", "competitive", "mixed"):
+        expected = starting_values(model, s, i, v)
+        got = mechanism_starts(model, s[None], i[None], v[None], np.ones((1, 4), bool))[0]
+        np.testing.assert_allclose(got, list(expected.values()), rtol=1e-12)
+        assert all(np.isfinite(x) and x > 0 for x in expected.values())

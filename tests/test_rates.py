@@ -305,3 +305,23 @@ def test_bad_options_are_refused():
         initial_rates(reads, plate_map, method="spline")
     with pytest.raises(DataError, match="min_points"):
         initial_rates(reads, plate_map, min_points=3)
+
+
+def test_units_are_read_from_the_headers_of_the_reads():
+    """Issue 12, item 9: 'time_min' and 'product_uM' declare their units, as the plate
+    map's 'substrate_uM' does; a unit given as an option must agree with the header."""
+    curve = 0.5 + 0.2 * TIMES  # µM, 0.2 µM/s
+    reads, plate_map = plate([curve], [100.0])
+    minutes = reads.rename(columns={"signal": "product_uM"}).assign(time_min=TIMES / 60.0)
+    minutes = minutes.drop(columns="time")
+    plate_map = plate_map.rename(columns={"substrate": "substrate_uM"})
+    res = initial_rates(minutes, plate_map, time="time", signal="product_uM",
+                        substrate="substrate_uM", rate_time_unit="s")
+    assert res.table["rate"].iloc[0] == pytest.approx(0.2, rel=1e-9)
+    assert res.units["rate"] == "uM/s" and res.units["time"] == "min"
+    with pytest.raises(DataError, match=r"'time_min'.*contradicts"):
+        initial_rates(minutes, plate_map, time="time_min", time_unit="s", signal="product_uM",
+                      substrate="substrate_uM")
+    with pytest.raises(DataError, match=r"'product_uM'.*contradicts"):
+        initial_rates(minutes, plate_map, time="time_min", signal="product_uM",
+                      signal_unit="nM", substrate="substrate_uM")

@@ -192,6 +192,8 @@ BAD_CELLS = [np.nan, np.inf, -np.inf, -2.5, "n/a", None, "1,5"]
 def test_one_bad_cell_is_named_by_column_and_row(seed, name, row, bad):
     """One bad cell in a valid grid: a DataError whose problems name that column and
     row label (the label, not the position: the index is shuffled)."""
+    # A negative rate is data (noise around zero), not a bad cell.
+    assume(not (name == "rate" and bad == -2.5))
     table = _valid_grid(seed % 50)
     table.index = np.random.default_rng(seed).permutation(np.arange(100, 100 + len(table)))
     table[name] = table[name].astype(object)

@@ -27,11 +27,11 @@ from scipy import stats
 from .. import fitting as _fitting
 from .. import mechanism as _mechanism
 from ..compare import VerdictOptions, decide_from
-from ..errors import DataError
+from ..errors import DataError, Problem
 from ..fitting import ModelFit, fit_model, fixed_alpha_ssr
 from ..mechanism import WEIGHTINGS, MechanismFit, _mixed_starts, relative_weights
 from ..models import MODEL_NAMES, MODELS, nested_pairs
-from ..validate import check_grid
+from ..validate import NO_SIGNAL, check_grid
 from . import lm
 from .chunks import concat_batches, run_chunks
 from .starts import _count_unique, mechanism_log_bounds, mechanism_starts
@@ -352,9 +352,11 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition):
 
     for name, x in values:
         flag(np.any(~np.isfinite(x) & mask, axis=1), f"non-finite value (NaN or inf) in {name}")
+    # Rates may be negative (noise around zero); concentrations and sd may not.
     for name, x in values:
-        flag(np.any((x < 0) & mask, axis=1),
-             f"negative value in {name}; concentrations and rates must be ≥ 0")
+        if name != "rate":
+            flag(np.any((x < 0) & mask, axis=1),
+                 f"negative value in {name}; concentrations must be ≥ 0")
     if sd is not None:
         flag(np.any((sd == 0) & mask, axis=1), "standard deviation must be > 0")
     flag(_count_unique(s, mask) < 2, "need at least two substrate concentrations")
@@ -362,6 +364,11 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition):
         flag(_count_unique(i, mask) < 2, "only one inhibitor level; inhibition models need at "
              "least two (include the uninhibited rate, I = 0)")
     flag(np.all((v == 0) | ~mask, axis=1), "all rates are zero; nothing to fit")
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.sum(np.where(mask, v, 0.0), axis=1) / mask.sum(axis=1)
+    silent = ~(mean > 0) & np.isfinite(mean)
+    for c in np.flatnonzero(silent & (reason == "")):
+        reason[c] = str(Problem("rate", None, float(mean[c]), NO_SIGNAL))
     n_params = 4 if need_inhibition else 2
     flag(mask.sum(axis=1) <= n_params, f"no more points than the largest model's {n_params} "
          "parameters")

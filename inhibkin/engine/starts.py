@@ -49,8 +49,11 @@ def _median(values, mask):
 def _michaelis_menten_start(s, v, use):
     """Vectorised :func:`inhibkin.starts.michaelis_menten_start` over the points ``use``."""
     keep = use & (s > 0) & (v > 0)
-    vmax_fb = 1.1 * np.max(np.where(keep, v, -np.inf), axis=1, initial=1.0)
     any_kept = keep.any(axis=1)
+    magnitude = np.max(np.where(use, np.abs(v), 0.0), axis=1, initial=0.0)
+    scale = np.where(any_kept, np.max(np.where(keep, v, -np.inf), axis=1, initial=-np.inf),
+                     np.where(magnitude > 0, magnitude, 1.0))
+    vmax_fb = 1.1 * scale
     km_fb = np.where(any_kept, _median(s, keep), 1.0)
     n = keep.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
