@@ -37,9 +37,11 @@ import pandas as pd
 from scipy import stats
 
 from inhibkin.design import CALL_OUTCOMES, call_outcome
+from inhibkin.errors import DataError
 from inhibkin.mechanism import fit_mechanisms
 from inhibkin.models import MODELS
 from inhibkin.simulate import simulate_grid, standard_design
+from inhibkin.validate import check_grid
 
 __all__ = [
     "Case",
@@ -150,7 +152,8 @@ def outcome(truth_model: str, verdict: str) -> str:
     ``failed``
         The fit failed.
     ``rejected``
-        The input checks refused the data set (negative rates from constant-SD noise).
+        The input checks refused the data set (rates with no signal at all; negative
+        readings alone are data and are fitted).
     """
     if verdict == "rejected":
         return "rejected"
@@ -216,17 +219,10 @@ def simulate_case(case: Case, rng: np.random.Generator) -> pd.DataFrame:
                          **case.constants)
 
 
-def _rejected(data: pd.DataFrame) -> dict | None:
-    """The record of a data set the input checks refuse, or None.
-
-    Constant-SD noise on tiny rates gives negative readings, which the checks refuse;
-    such a data set is counted as ``rejected``, with the reason kept.
-    """
-    negative = int((data["rate"] < 0).sum())
-    if not negative:
-        return None
+def _rejected(reason: str) -> dict:
+    """The record of a data set the input checks refuse (e.g. rates with no signal)."""
     return {"verdict": "rejected", "outcome": "rejected", "candidates": "",
-            "reason": f"{negative} negative rates refused by the input checks",
+            "reason": f"refused by the input checks: {reason}",
             "true_model_converged": False}
 
 
@@ -259,11 +255,11 @@ def fit_case(case: Case, rng: np.random.Generator, *, intervals="wald") -> dict:
     """Simulate one data set of ``case``, fit it with the lmfit path
     (:func:`inhibkin.fit_mechanisms`) and return its record (:func:`record_of`)."""
     data = simulate_case(case, rng)
-    rejected = _rejected(data)
-    if rejected:
-        return rejected
-    fit = fit_mechanisms(data, weighting=NOISES[case.noise][1], intervals=intervals,
-                         level=LEVEL)
+    try:
+        fit = fit_mechanisms(data, weighting=NOISES[case.noise][1], intervals=intervals,
+                             level=LEVEL)
+    except DataError as err:
+        return _rejected(str(err))
     return record_of(case, fit)
 
 
@@ -276,10 +272,13 @@ def fit_cases_engine(case: Case, rngs: Sequence[np.random.Generator]) -> list[di
     usable = []
     for rng in rngs:
         data = simulate_case(case, rng)
-        rejected = _rejected(data)
-        records.append(rejected)
-        if rejected is None:
-            usable.append(data)
+        try:
+            check_grid(data, substrate="substrate", inhibitor="inhibitor", rate="rate")
+        except DataError as err:
+            records.append(_rejected(str(err)))
+            continue
+        records.append(None)
+        usable.append(data)
     fits = iter(fit_mechanisms_batch(usable, weighting=NOISES[case.noise][1], level=LEVEL))
     return [r if r is not None else record_of(case, next(fits)) for r in records]
 
@@ -496,7 +495,7 @@ def render(tables, intervals="log-scale Wald") -> str:
     return "\n\n".join([
         "Outcome classes, % of data sets (correct / ambiguous / wrong = confidently wrong /"
         "\nlarger = a model nesting the truth / missed = 'none' for an inhibitor / failed /"
-        "\nrejected = negative rates refused by the input checks)",
+        "\nrejected = refused by the input checks, e.g. rates with no signal)",
         _pct(out.drop(columns="n")),
         "Verdicts, % of data sets (confusion matrix)",
         _pct(tables["confusion"]),

@@ -32,6 +32,7 @@ from .errors import FitError
 from .models import MODELS
 from .profile import profile_crossing
 from .starts import log_bounds, starting_values
+from .text import MISSING
 
 __all__ = ["ModelFit", "fit_model", "fit_michaelis_menten", "fixed_alpha_ssr",
            "INTERVAL_METHODS"]
@@ -128,8 +129,9 @@ class ModelFit:
         lines = [head, f"  {'parameter':<10} {'estimate':>12} {'se':>12}  {pct} interval "
                        f"({self.interval_method})"]
         for name, row in self.params.iterrows():
-            lines.append(f"  {name:<10} {format_estimate(row):>12} {row['se']:>12.4g}  "
-                         f"[{row['ci_low']:.4g}, {row['ci_high']:.4g}]")
+            se, low, high = (MISSING if np.isnan(x) else f"{x:.4g}"
+                             for x in (row["se"], row["ci_low"], row["ci_high"]))
+            lines.append(f"  {name:<10} {format_estimate(row):>12} {se:>12}  [{low}, {high}]")
         if not self.converged:
             lines.append(f"  not converged: {self.message}")
         return "\n".join(lines)

@@ -23,8 +23,8 @@ _MAX_ROWS_LISTED = 5
 MAX_MAGNITUDE = 1e100
 MIN_MAGNITUDE = 1e-100
 #: Why a table whose rates average to zero or less is refused (the value is the mean).
-NO_SIGNAL = ("the rates carry no signal: their mean (the value) is not above zero, so no "
-             "enzyme activity is seen; nothing to fit")
+NO_SIGNAL = ("the rates carry no signal: their mean (value shown) is ≤ 0, so no enzyme "
+             "activity is seen; nothing to fit")
 
 
 def check_columns(df, columns, context=None) -> None:

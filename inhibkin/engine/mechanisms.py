@@ -356,7 +356,7 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition):
     for name, x in values:
         if name != "rate":
             flag(np.any((x < 0) & mask, axis=1),
-                 f"negative value in {name}; concentrations must be ≥ 0")
+                 f"negative value in {name}; it must be ≥ 0")
     if sd is not None:
         flag(np.any((sd == 0) & mask, axis=1), "standard deviation must be > 0")
     flag(_count_unique(s, mask) < 2, "need at least two substrate concentrations")
