@@ -20,13 +20,19 @@ Ranking
     (``ki_low_M`` = x, ``ki_M`` and ``pki`` empty), ranked after every determined
     value by that lower limit;
 ``inactive``
-    no inhibition detected (the verdict is ``none``);
+    no inhibition detected (the grid's verdict is ``none``, or the dose-response
+    curve's class is ``inactive``: "IC50 > the highest tested concentration");
 ``failed``
     the data could not be used or the fit gave no answer; ``reason`` says why.
 
-Bounds and failures never appear as numbers in ``ki_M`` or ``pki``. For the mixed
-mechanism the reported Ki is the tighter (smaller) of kic and kiu, and
-``ki_parameter`` says which. ``ki_source`` says where the Ki came from: ``grid fit``
+Bounds and failures never appear as numbers in ``ki_M`` or ``pki``.
+
+The ranking constant is one rule for both routes (:func:`ranking_constant`):
+competitive ranks by kic, uncompetitive by kiu, noncompetitive by ki (= kic = kiu),
+mixed by the tighter (smaller) of kic and kiu — on the grid route the smaller of the
+two the fit determined, on the IC50 route kic·min(1, alpha) with alpha = kiu/kic from
+the mechanism fit. ``ki_parameter`` says which constant it is on every row that
+reports a Ki or a bound. ``ki_source`` says where the Ki came from: ``grid fit``
 (global fit of a substrate × inhibitor grid) or ``converted IC50`` (a dose-response
 IC50 converted by :func:`~inhibkin.potency_table.potency_table`, Cheng–Prusoff by mechanism
 or a Morrison fit).
@@ -87,6 +93,7 @@ __all__ = [
     "simulate_campaign",
     "simulate_dose_campaign",
     "parse_concentration",
+    "ranking_constant",
     "RANKING_COLUMNS",
     "PLATE_COLUMNS",
     "STATUSES",
@@ -134,6 +141,32 @@ _SUMMARY_ROWS = 10
 # The constant that ranks a compound, by mechanism (mixed: the tighter of two).
 _RANKING_CONSTANT = {"competitive": ("kic",), "uncompetitive": ("kiu",),
                      "noncompetitive": ("ki",), "mixed": ("kic", "kiu")}
+
+
+def ranking_constant(mechanism: str, alpha=None) -> tuple[str, float]:
+    """Which constant ranks a compound of ``mechanism``, and its ratio to kic.
+
+    The one rule both routes follow: competitive → kic, uncompetitive → kiu,
+    noncompetitive → ki, mixed → the tighter of kic and kiu = alpha·kic.
+
+    Parameters
+    ----------
+    mechanism : str
+        One of the four inhibition mechanisms.
+    alpha : float, optional
+        kiu/kic (mixed only).
+
+    Returns
+    -------
+    (str, float)
+        The parameter name and the factor f with constant = f·(the constant an IC50
+        converts to: kic for mixed, the mechanism's own constant otherwise).
+    """
+    if mechanism == "mixed":
+        if alpha is not None and np.isfinite(alpha) and alpha < 1.0:
+            return "kiu", float(alpha)
+        return "kic", 1.0
+    return _RANKING_CONSTANT[mechanism][0], 1.0
 
 
 @dataclass(frozen=True)
@@ -854,18 +887,39 @@ def _dose_row(compound, potency: dict) -> dict:
         flags.append(f"mechanism assumed ({row['mechanism']}) for the IC50 conversion")
     if potency.get("ki_method") == "morrison":
         flags.append("Ki from a Morrison tight-binding fit")
-    if potency.get("mechanism") == "mixed" and np.isfinite(potency.get("alpha", np.nan)):
-        row["alpha"] = float(potency["alpha"])
+    mechanism = potency.get("mechanism", "") or ""
+    alpha = float(potency.get("alpha", np.nan))
+    if mechanism == "mixed" and np.isfinite(alpha):
+        row["alpha"] = alpha
+    # The converted IC50 is the mechanism's constant (kic for mixed); the ranking
+    # constant follows the rule of ranking_constant, as on the grid route.
+    parameter, factor = (ranking_constant(mechanism, alpha) if mechanism in CONVERSIONS
+                         else ("", 1.0))
     ki, bound = float(potency.get("ki", np.nan)), potency.get("ki_bound", "") or ""
-    if np.isfinite(ki) and ki > 0:
-        low, high = float(potency["ki_low"]), float(potency["ki_high"])
+    ic50_bound = potency.get("ic50_bound", "") or ""
+    if potency.get("curve_class") == "inactive":
+        # No curve: not a potency, whatever the fitted midpoint.
+        _, top = _bound(ic50_bound) if ic50_bound else (">", np.nan)
+        row.update(status="inactive", ic50_M=np.nan, ic50_low_M=np.nan, ic50_high_M=np.nan,
+                   pic50=np.nan, hill=np.nan, ki_parameter=parameter,
+                   ki_reported=f"inactive: IC50 > {top:.3g} M, the highest concentration "
+                               f"tested")
+        if bound:
+            _, value = _bound(bound)
+            row.update(ki_low_M=value * factor, ki_high_M=np.inf)
+            row["ki_reported"] += f" (Ki > {value * factor:.3g} M)"
+    elif np.isfinite(ki) and ki > 0:
+        ki = ki * factor
+        low, high = float(potency["ki_low"]) * factor, float(potency["ki_high"]) * factor
         row.update(status="determined", ki_M=ki, ki_low_M=low, ki_high_M=high,
                    pki=-math.log10(ki), pki_low=-math.log10(high) if high > 0 else np.nan,
                    pki_high=-math.log10(low) if low > 0 else np.nan,
-                   ki_reported=f"{ki:.3g} M [{low:.3g}, {high:.3g}]")
+                   ki_parameter=parameter, ki_reported=f"{ki:.3g} M [{low:.3g}, {high:.3g}]")
     elif bound:
         side, value = _bound(bound)
-        row.update(status="bound", ki_reported=f"{side} {value:.3g} M")
+        value *= factor
+        row.update(status="bound", ki_parameter=parameter,
+                   ki_reported=f"{side} {value:.3g} M")
         if side == ">":
             row.update(ki_low_M=value, ki_high_M=np.inf, pki_high=-math.log10(value))
         else:
@@ -873,6 +927,13 @@ def _dose_row(compound, potency: dict) -> dict:
     else:
         row.update(status="failed", verdict="failed",
                    reason=row["reason"] or "the IC50 could not be converted to a Ki")
+    if row["status"] == "determined":
+        for name, column in (("kic", "kic_M"), ("kiu", "kiu_M")):
+            if mechanism == "noncompetitive" or _RANKING_CONSTANT.get(mechanism) == (name,):
+                row[column] = row["ki_M"]
+        if mechanism == "mixed" and np.isfinite(alpha):
+            kic = row["ki_M"] / factor
+            row.update(kic_M=kic, kiu_M=alpha * kic)
     row["flags"] = "; ".join(dict.fromkeys(flags))
     return row
 
