@@ -62,7 +62,6 @@ from __future__ import annotations
 
 import math
 import multiprocessing
-import re
 import sys
 import time
 import warnings
@@ -78,12 +77,18 @@ import pandas as pd
 
 from .conversion import CONVERSIONS
 from .engine import fit_mechanism_arrays, pad
-from .errors import DataError, InhibkinError, Problem, UnitsError
-from .mechanism import MechanismFit, fit_mechanisms
+from .errors import DataError, InhibkinError, Problem
+from .mechanism import DEFAULT_WEIGHTING, MechanismFit, fit_mechanisms
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
 from .potency_table import EngineFitter, potency_table
 from .simulate import simulate_grid
-from .units import CONCENTRATION_UNITS, from_molar, normalise_unit, resolve_units, to_molar
+from .units import (
+    CONCENTRATION_UNITS,
+    from_molar,
+    parse_concentration,
+    resolve_units,
+    to_molar,
+)
 from .validate import check_columns, check_grid
 
 __all__ = [
@@ -847,7 +852,7 @@ def _dose_results(frame, names, settings, mechanisms, keep_fits):
         result = potency_table(frame, compound=settings.compound, plate=columns["plate"],
                                role=columns["role"], concentration=columns["inhibitor"],
                                response=columns["response"], substrate=columns["substrate"],
-                               km=settings.km, enzyme=settings.enzyme,
+                               substrate_unit="M", km=settings.km, enzyme=settings.enzyme,
                                mechanisms={n: mechanisms[n] for n in names if n in mechanisms},
                                fitter=fitter, **dict(settings.options))
     extra = "; ".join(dict.fromkeys(str(w.message) for w in caught))
@@ -1033,7 +1038,7 @@ def _grid_mechanism(row: dict):
 def fit_campaign(table=None, *, dose_response=None, compound="compound",
                  substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
                  plate="plate", role="role", response="signal", km=None, enzyme=None,
-                 units=None, weighting="uniform", intervals="wald", level=0.95, alpha=0.05,
+                 units=None, weighting=DEFAULT_WEIGHTING, intervals="wald", level=0.95, alpha=0.05,
                  min_delta_aicc=2.0, determination_factor=10.0, potency_options=None,
                  heavy_atoms="heavy_atoms", logp="logp", engine="auto", workers=None,
                  client=None, quiet=False, chunk_size=None,
@@ -1061,15 +1066,18 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     plate, role, response : str
         Columns of the dose-response table.
     km : float or str
-        Michaelis constant for the IC50 → Ki conversion: a number in **M**, or the base
-        name of a column with a declared unit. Required with ``dose_response``.
+        Michaelis constant for the IC50 → Ki conversion: text with its unit
+        (``"40uM"``), a number in **M** (as :func:`~inhibkin.potency_table.potency_table`
+        takes it for a table with declared units), or the base name of a column with a
+        declared unit. Required with ``dose_response``.
     enzyme : float or str, optional
         Active enzyme concentration (a number in M, or a column with a declared unit);
         enables the tight-binding flag.
     units : dict, optional
         Units declared as an option, e.g. ``{"substrate": "uM", "inhibitor": "nM"}``.
-    weighting : {"uniform", "relative", "sd"}
-        See :func:`~inhibkin.mechanism.fit_mechanisms`.
+    weighting : {"relative", "uniform", "sd"}
+        Default ``"relative"`` (:data:`~inhibkin.mechanism.DEFAULT_WEIGHTING`); see
+        :func:`~inhibkin.mechanism.fit_mechanisms`.
     intervals : {"wald", "profile"}
         Interval method of both the grid and the curve fits; ``wald`` by default at
         campaign scale (see the module notes).
@@ -1190,6 +1198,10 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     if dose_response is not None:
         if isinstance(km, (int, float)) and not isinstance(km, bool):
             km = float(km)
+        elif isinstance(km, str) and not any(
+                c == km or c.startswith(f"{km}_") or c.startswith(f"{km} ")
+                for c in map(str, dose_response.columns)):
+            km = parse_concentration(km)  # text with its unit, e.g. "40uM"
         frame, columns, km_spec, enzyme_spec, dose_units = _prepare_dose(
             dose_response, compound=compound, inhibitor=inhibitor, substrate=substrate,
             plate=plate, role=role, response=response, km=km, enzyme=enzyme, units=units)
@@ -1237,25 +1249,6 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     })
     return Campaign(ranking, MappingProxyType(grid_fits), run_options,
                     MappingProxyType(potency_fits), plates)
-
-
-def parse_concentration(text) -> float:
-    """A concentration written with its unit ("20 uM", "5nM") in M.
-
-    Raises
-    ------
-    UnitsError
-        When the unit is missing or unknown; never guessed.
-    """
-    match = re.fullmatch(r"\s*([-+0-9.eE]+)\s*([A-Za-zµμ]*)\s*", str(text))
-    if not match or not match.group(2):
-        raise UnitsError(Problem(None, None, text, "write a concentration with its unit, "
-                                                   "e.g. '20uM' or '5 nM'"))
-    try:
-        value = float(match.group(1))
-    except ValueError:
-        raise UnitsError(Problem(None, None, text, "not a number")) from None
-    return to_molar(value, normalise_unit(match.group(2)))
 
 
 def simulate_campaign(n_compounds, *, seed, cv=0.05, km_uM=20.0, vmax=100.0,

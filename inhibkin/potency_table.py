@@ -33,6 +33,7 @@ from .potency import (
     _fixed,
     _from_estimates,
 )
+from .units import from_molar, normalise_unit, parse_concentration, split_unit
 from .validate import check_columns
 
 __all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table"]
@@ -137,6 +138,29 @@ def _mechanism_of(name, mechanisms, default_mechanism, default_alpha):
         return mech, (np.nan if alpha is None else float(alpha)), "mechanism fit"
     return default_mechanism, (np.nan if default_alpha is None else float(default_alpha)), \
         "default"
+
+
+def _km_in_substrate_unit(km, df, substrate, substrate_unit):
+    """Km as the fit uses it: a column name, or a number in the substrate's unit."""
+    if isinstance(km, str) and km in df.columns:
+        return km
+    declared = (normalise_unit(substrate_unit) if substrate_unit is not None
+                else split_unit(substrate)[1])
+    if declared is not None:
+        declared = normalise_unit(declared)
+    if isinstance(km, str):
+        molar = parse_concentration(km)
+        if declared is None:
+            raise DataError(Problem(substrate, None, km,
+                                    f"km is given with a unit but column {substrate!r} "
+                                    "declares none; name its unit (substrate_unit='uM', "
+                                    "or a header such as 'substrate_uM')"))
+        return float(from_molar(molar, declared))
+    if isinstance(km, bool) or not isinstance(km, (int, float, np.floating, np.integer)) \
+            or not np.isfinite(km) or km <= 0:
+        raise DataError(Problem("km", None, km, "km must be a positive number, text with "
+                                                "its unit (e.g. '40uM') or a column name"))
+    return float(from_molar(float(km), declared)) if declared is not None else float(km)
 
 
 def _convert_bound(bound, factor):
@@ -245,8 +269,9 @@ class EngineFitter:
 
 def potency_table(df, *, compound="compound", plate="plate", role="role",
                   concentration="inhibitor", response="signal", substrate="substrate", km,
-                  km_se=None, enzyme=None, mechanisms=None, default_mechanism="competitive",
-                  default_alpha=None, normalise=True, fix_top=None, fix_bottom=None,
+                  substrate_unit=None, km_se=None, enzyme=None, mechanisms=None,
+                  default_mechanism="competitive", default_alpha=None, normalise=True,
+                  fix_top=None, fix_bottom=None,
                   intervals="profile", level=0.95, z_prime_threshold=Z_PRIME_THRESHOLD,
                   tight_binding="flag", tight_binding_factor=TIGHT_BINDING_FACTOR,
                   curve_rules: CurveClassRules = DEFAULT_RULES,
@@ -264,8 +289,15 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         Column names. ``substrate`` holds the substrate concentration of the assay
         (one value per compound).
     km : float or str
-        Michaelis constant (substrate's unit), or the column holding it.
+        Michaelis constant: text with its unit (``"40uM"``), a number, or the column
+        holding it (in the substrate column's unit). A number is in **M** when the
+        substrate's unit is declared (``substrate_unit``, or a header such as
+        ``substrate_uM``), as in :func:`~inhibkin.batch.fit_campaign`; in a table
+        whose substrate carries no unit, a number is in the substrate's own unit.
+    substrate_unit : str, optional
+        Unit of the substrate column, when its header does not carry it.
     km_se : float, optional
+        In the unit Km is used in (the substrate's).
         Standard error of Km, propagated into Ki (delta method; see
         :func:`cheng_prusoff`). Without it the Ki interval is the IC50 interval
         times the conversion factor.
@@ -323,6 +355,7 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     if tight_binding not in ("flag", "morrison"):
         raise DataError(Problem(None, None, tight_binding,
                                 "tight_binding must be 'flag' or 'morrison'"))
+    km = _km_in_substrate_unit(km, df, substrate, substrate_unit)
     columns = [compound, plate, role, concentration, response, substrate]
     columns += [c for c in (km, enzyme) if isinstance(c, str)]
     check_columns(df, columns)
