@@ -287,7 +287,7 @@ def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
                    ki_reported=f"no inhibition detected up to {i_max:.3g} M")
         low = _inactive_bound(fit)
         if low is not None:
-            row.update(ki_low_M=low, ki_high_M=np.inf,
+            row.update(ki_low_M=low, ki_high_M=np.inf, ki_parameter="ki",
                        ki_reported=f"{row['ki_reported']}; Ki > {low:.3g} M whatever the "
                                    f"mechanism")
         row["flags"] = "; ".join(flags)
