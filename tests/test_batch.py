@@ -400,7 +400,7 @@ def test_one_ki_rule_for_a_mixed_inhibitor_on_both_routes():
               "signal": 1000.0 / (1 + c / ic50_nM) + rng.normal(0, 5.0), "substrate_uM": s_uM}
              for c in conc]
     by_grid = fit_campaign(grid, quiet=True).ranking.iloc[0]
-    by_ic50 = fit_campaign(dose_response=pd.DataFrame(rows), km=f"{km_uM}uM", quiet=True,
+    by_ic50 = fit_campaign(dose_response=pd.DataFrame(rows), km=km_uM * 1e-6, quiet=True,
                            potency_options={"default_mechanism": "mixed",
                                             "default_alpha": kiu_nM / kic_nM}).ranking.iloc[0]
     assert by_grid["mechanism"] == by_ic50["mechanism"] == "mixed"
