@@ -9,6 +9,7 @@ from . import figures
 from .batch import Campaign, fit_campaign, simulate_campaign
 from .compare import VerdictOptions
 from .conversion import cheng_prusoff, ic50_from_ki
+from .curve_class import CurveClassRules
 from .design import GridPlan, plan_grid
 from .engine import fit_logistic_batch, fit_mechanism_arrays, fit_mechanisms_batch
 from .errors import DataError, FitError, InhibkinError, InhibkinWarning, UnitsError
@@ -61,6 +62,7 @@ __all__ = [
     "ic50_from_ki",
     "plate_qc",
     "potency_table",
+    "CurveClassRules",
     "z_prime",
     "FitError",
     "InhibkinError",

@@ -20,13 +20,19 @@ Ranking
     (``ki_low_M`` = x, ``ki_M`` and ``pki`` empty), ranked after every determined
     value by that lower limit;
 ``inactive``
-    no inhibition detected (the verdict is ``none``);
+    no inhibition detected (the grid's verdict is ``none``, or the dose-response
+    curve's class is ``inactive``: "IC50 > the highest tested concentration");
 ``failed``
     the data could not be used or the fit gave no answer; ``reason`` says why.
 
-Bounds and failures never appear as numbers in ``ki_M`` or ``pki``. For the mixed
-mechanism the reported Ki is the tighter (smaller) of kic and kiu, and
-``ki_parameter`` says which. ``ki_source`` says where the Ki came from: ``grid fit``
+Bounds and failures never appear as numbers in ``ki_M`` or ``pki``.
+
+The ranking constant is one rule for both routes (:func:`ranking_constant`):
+competitive ranks by kic, uncompetitive by kiu, noncompetitive by ki (= kic = kiu),
+mixed by the tighter (smaller) of kic and kiu — on the grid route the smaller of the
+two the fit determined, on the IC50 route kic·min(1, alpha) with alpha = kiu/kic from
+the mechanism fit. ``ki_parameter`` says which constant it is on every row that
+reports a Ki or a bound. ``ki_source`` says where the Ki came from: ``grid fit``
 (global fit of a substrate × inhibitor grid) or ``converted IC50`` (a dose-response
 IC50 converted by :func:`~inhibkin.potency_table.potency_table`, Cheng–Prusoff by mechanism
 or a Morrison fit).
@@ -56,7 +62,6 @@ from __future__ import annotations
 
 import math
 import multiprocessing
-import re
 import sys
 import time
 import warnings
@@ -72,13 +77,19 @@ import pandas as pd
 
 from .conversion import CONVERSIONS
 from .engine import fit_mechanism_arrays, pad
-from .errors import DataError, InhibkinError, Problem, UnitsError
-from .mechanism import MechanismFit, fit_mechanisms
+from .errors import DataError, InhibkinError, Problem
+from .mechanism import DEFAULT_WEIGHTING, MechanismFit, fit_mechanisms
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
 from .potency_table import EngineFitter, potency_table
 from .simulate import simulate_grid
 from .text import text_table
-from .units import CONCENTRATION_UNITS, from_molar, normalise_unit, resolve_units, to_molar
+from .units import (
+    CONCENTRATION_UNITS,
+    from_molar,
+    parse_concentration,
+    resolve_units,
+    to_molar,
+)
 from .validate import check_columns, check_grid
 
 __all__ = [
@@ -88,6 +99,7 @@ __all__ = [
     "simulate_campaign",
     "simulate_dose_campaign",
     "parse_concentration",
+    "ranking_constant",
     "RANKING_COLUMNS",
     "PLATE_COLUMNS",
     "STATUSES",
@@ -135,6 +147,32 @@ _SUMMARY_ROWS = 10
 # The constant that ranks a compound, by mechanism (mixed: the tighter of two).
 _RANKING_CONSTANT = {"competitive": ("kic",), "uncompetitive": ("kiu",),
                      "noncompetitive": ("ki",), "mixed": ("kic", "kiu")}
+
+
+def ranking_constant(mechanism: str, alpha=None) -> tuple[str, float]:
+    """Which constant ranks a compound of ``mechanism``, and its ratio to kic.
+
+    The one rule both routes follow: competitive → kic, uncompetitive → kiu,
+    noncompetitive → ki, mixed → the tighter of kic and kiu = alpha·kic.
+
+    Parameters
+    ----------
+    mechanism : str
+        One of the four inhibition mechanisms.
+    alpha : float, optional
+        kiu/kic (mixed only).
+
+    Returns
+    -------
+    (str, float)
+        The parameter name and the factor f with constant = f·(the constant an IC50
+        converts to: kic for mixed, the mechanism's own constant otherwise).
+    """
+    if mechanism == "mixed":
+        if alpha is not None and np.isfinite(alpha) and alpha < 1.0:
+            return "kiu", float(alpha)
+        return "kic", 1.0
+    return _RANKING_CONSTANT[mechanism][0], 1.0
 
 
 @dataclass(frozen=True)
@@ -250,7 +288,7 @@ def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
                    ki_reported=f"no inhibition detected up to {i_max:.3g} M")
         low = _inactive_bound(fit)
         if low is not None:
-            row.update(ki_low_M=low, ki_high_M=np.inf,
+            row.update(ki_low_M=low, ki_high_M=np.inf, ki_parameter="ki",
                        ki_reported=f"{row['ki_reported']}; Ki > {low:.3g} M whatever the "
                                    f"mechanism")
         row["flags"] = "; ".join(flags)
@@ -814,7 +852,7 @@ def _dose_results(frame, names, settings, mechanisms, keep_fits):
         result = potency_table(frame, compound=settings.compound, plate=columns["plate"],
                                role=columns["role"], concentration=columns["inhibitor"],
                                response=columns["response"], substrate=columns["substrate"],
-                               km=settings.km, enzyme=settings.enzyme,
+                               substrate_unit="M", km=settings.km, enzyme=settings.enzyme,
                                mechanisms={n: mechanisms[n] for n in names if n in mechanisms},
                                fitter=fitter, **dict(settings.options))
     extra = "; ".join(dict.fromkeys(str(w.message) for w in caught))
@@ -854,18 +892,39 @@ def _dose_row(compound, potency: dict) -> dict:
         flags.append(f"mechanism assumed ({row['mechanism']}) for the IC50 conversion")
     if potency.get("ki_method") == "morrison":
         flags.append("Ki from a Morrison tight-binding fit")
-    if potency.get("mechanism") == "mixed" and np.isfinite(potency.get("alpha", np.nan)):
-        row["alpha"] = float(potency["alpha"])
+    mechanism = potency.get("mechanism", "") or ""
+    alpha = float(potency.get("alpha", np.nan))
+    if mechanism == "mixed" and np.isfinite(alpha):
+        row["alpha"] = alpha
+    # The converted IC50 is the mechanism's constant (kic for mixed); the ranking
+    # constant follows the rule of ranking_constant, as on the grid route.
+    parameter, factor = (ranking_constant(mechanism, alpha) if mechanism in CONVERSIONS
+                         else ("", 1.0))
     ki, bound = float(potency.get("ki", np.nan)), potency.get("ki_bound", "") or ""
-    if np.isfinite(ki) and ki > 0:
-        low, high = float(potency["ki_low"]), float(potency["ki_high"])
+    ic50_bound = potency.get("ic50_bound", "") or ""
+    if potency.get("curve_class") == "inactive":
+        # No curve: not a potency, whatever the fitted midpoint.
+        _, top = _bound(ic50_bound) if ic50_bound else (">", np.nan)
+        row.update(status="inactive", ic50_M=np.nan, ic50_low_M=np.nan, ic50_high_M=np.nan,
+                   pic50=np.nan, hill=np.nan, ki_parameter=parameter,
+                   ki_reported=f"inactive: IC50 > {top:.3g} M, the highest concentration "
+                               f"tested")
+        if bound:
+            _, value = _bound(bound)
+            row.update(ki_low_M=value * factor, ki_high_M=np.inf)
+            row["ki_reported"] += f" (Ki > {value * factor:.3g} M)"
+    elif np.isfinite(ki) and ki > 0:
+        ki = ki * factor
+        low, high = float(potency["ki_low"]) * factor, float(potency["ki_high"]) * factor
         row.update(status="determined", ki_M=ki, ki_low_M=low, ki_high_M=high,
                    pki=-math.log10(ki), pki_low=-math.log10(high) if high > 0 else np.nan,
                    pki_high=-math.log10(low) if low > 0 else np.nan,
-                   ki_reported=f"{ki:.3g} M [{low:.3g}, {high:.3g}]")
+                   ki_parameter=parameter, ki_reported=f"{ki:.3g} M [{low:.3g}, {high:.3g}]")
     elif bound:
         side, value = _bound(bound)
-        row.update(status="bound", ki_reported=f"{side} {value:.3g} M")
+        value *= factor
+        row.update(status="bound", ki_parameter=parameter,
+                   ki_reported=f"{side} {value:.3g} M")
         if side == ">":
             row.update(ki_low_M=value, ki_high_M=np.inf, pki_high=-math.log10(value))
         else:
@@ -873,6 +932,13 @@ def _dose_row(compound, potency: dict) -> dict:
     else:
         row.update(status="failed", verdict="failed",
                    reason=row["reason"] or "the IC50 could not be converted to a Ki")
+    if row["status"] == "determined":
+        for name, column in (("kic", "kic_M"), ("kiu", "kiu_M")):
+            if mechanism == "noncompetitive" or _RANKING_CONSTANT.get(mechanism) == (name,):
+                row[column] = row["ki_M"]
+        if mechanism == "mixed" and np.isfinite(alpha):
+            kic = row["ki_M"] / factor
+            row.update(kic_M=kic, kiu_M=alpha * kic)
     row["flags"] = "; ".join(dict.fromkeys(flags))
     return row
 
@@ -972,7 +1038,7 @@ def _grid_mechanism(row: dict):
 def fit_campaign(table=None, *, dose_response=None, compound="compound",
                  substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
                  plate="plate", role="role", response="signal", km=None, enzyme=None,
-                 units=None, weighting="uniform", intervals="wald", level=0.95, alpha=0.05,
+                 units=None, weighting=DEFAULT_WEIGHTING, intervals="wald", level=0.95, alpha=0.05,
                  min_delta_aicc=2.0, determination_factor=10.0, potency_options=None,
                  heavy_atoms="heavy_atoms", logp="logp", engine="auto", workers=None,
                  client=None, quiet=False, chunk_size=None,
@@ -1000,15 +1066,18 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     plate, role, response : str
         Columns of the dose-response table.
     km : float or str
-        Michaelis constant for the IC50 → Ki conversion: a number in **M**, or the base
-        name of a column with a declared unit. Required with ``dose_response``.
+        Michaelis constant for the IC50 → Ki conversion: text with its unit
+        (``"40uM"``), a number in **M** (as :func:`~inhibkin.potency_table.potency_table`
+        takes it for a table with declared units), or the base name of a column with a
+        declared unit. Required with ``dose_response``.
     enzyme : float or str, optional
         Active enzyme concentration (a number in M, or a column with a declared unit);
         enables the tight-binding flag.
     units : dict, optional
         Units declared as an option, e.g. ``{"substrate": "uM", "inhibitor": "nM"}``.
-    weighting : {"uniform", "relative", "sd"}
-        See :func:`~inhibkin.mechanism.fit_mechanisms`.
+    weighting : {"relative", "uniform", "sd"}
+        Default ``"relative"`` (:data:`~inhibkin.mechanism.DEFAULT_WEIGHTING`); see
+        :func:`~inhibkin.mechanism.fit_mechanisms`.
     intervals : {"wald", "profile"}
         Interval method of both the grid and the curve fits; ``wald`` by default at
         campaign scale (see the module notes).
@@ -1129,6 +1198,10 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     if dose_response is not None:
         if isinstance(km, (int, float)) and not isinstance(km, bool):
             km = float(km)
+        elif isinstance(km, str) and not any(
+                c == km or c.startswith(f"{km}_") or c.startswith(f"{km} ")
+                for c in map(str, dose_response.columns)):
+            km = parse_concentration(km)  # text with its unit, e.g. "40uM"
         frame, columns, km_spec, enzyme_spec, dose_units = _prepare_dose(
             dose_response, compound=compound, inhibitor=inhibitor, substrate=substrate,
             plate=plate, role=role, response=response, km=km, enzyme=enzyme, units=units)
@@ -1176,25 +1249,6 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     })
     return Campaign(ranking, MappingProxyType(grid_fits), run_options,
                     MappingProxyType(potency_fits), plates)
-
-
-def parse_concentration(text) -> float:
-    """A concentration written with its unit ("20 uM", "5nM") in M.
-
-    Raises
-    ------
-    UnitsError
-        When the unit is missing or unknown; never guessed.
-    """
-    match = re.fullmatch(r"\s*([-+0-9.eE]+)\s*([A-Za-zµμ]*)\s*", str(text))
-    if not match or not match.group(2):
-        raise UnitsError(Problem(None, None, text, "write a concentration with its unit, "
-                                                   "e.g. '20uM' or '5 nM'"))
-    try:
-        value = float(match.group(1))
-    except ValueError:
-        raise UnitsError(Problem(None, None, text, "not a number")) from None
-    return to_molar(value, normalise_unit(match.group(2)))
 
 
 def simulate_campaign(n_compounds, *, seed, cv=0.05, km_uM=20.0, vmax=100.0,

@@ -120,7 +120,8 @@ def _execution(args):
 
 
 def _fit_options(args) -> dict:
-    return dict(compound=args.compound, units=_units(args.units), weighting=args.weighting,
+    return dict(compound=args.compound, units=_units(args.units),
+                weighting=_weighting(args.weighting),
                 intervals=args.intervals, level=args.level, quiet=args.quiet,
                 chunk_size=args.chunk_size, engine=args.engine)
 
@@ -140,6 +141,13 @@ def _finish(campaign, output, args) -> int:
     return EXIT_OK
 
 
+def _weighting(chosen):
+    """--weighting, or the library's default (the fitting modules only when a stage runs)."""
+    from .mechanism import DEFAULT_WEIGHTING
+
+    return chosen or DEFAULT_WEIGHTING
+
+
 def _km(text):
     """--km: a concentration with its unit (in M), or a column name."""
     from .batch import parse_concentration
@@ -152,13 +160,14 @@ def _km(text):
 
 
 def _fit_arguments(parser, output="ranked table (.csv or .parquet)",
-                   weighting="weights of the grid fits: uniform, relative (constant CV) or sd"):
+                   weighting="weights of the grid fits: uniform, relative (constant CV; the default) or sd"):
     parser.add_argument("-o", "--output", required=True, help=output)
     parser.add_argument("--units", action="append", metavar="NAME=UNIT",
                         help="declare a concentration unit when the header does not carry "
                              "one (repeatable), e.g. --units inhibitor=nM")
     parser.add_argument("--compound", default="compound", help="compound column")
-    parser.add_argument("--weighting", choices=("uniform", "relative", "sd"), default="uniform",
+    # None: the library's default (relative), read when the stage runs.
+    parser.add_argument("--weighting", choices=("uniform", "relative", "sd"), default=None,
                         help=weighting)
     parser.add_argument("--intervals", choices=("wald", "profile"), default="wald",
                         help="confidence intervals: wald (fast, default) or profile")

@@ -48,14 +48,14 @@ def _mechanisms(ranking: pd.DataFrame) -> dict:
     return out
 
 
-def _km_uM(campaign) -> float:
-    """Km of the enzyme (µM): median over the compounds' best models (all share the enzyme)."""
+def _km_M(campaign) -> float:
+    """Km of the enzyme (M): median over the compounds' best models (all share the enzyme)."""
     values = [float(fit.best_fit.params.loc["km", "estimate"]) for fit in campaign.fits.values()
               if fit.best_fit is not None and bool(fit.best_fit.params.loc["km", "determined"])]
     if not values:
         raise DataError("no compound's grid fit determined Km; the screen cannot be converted "
                         "to Ki")
-    return float(from_molar(np.median(values), "uM"))
+    return float(np.median(values))
 
 
 def run_demo(output_dir=None, *, data_dir=None) -> str:
@@ -106,20 +106,33 @@ def run_demo(output_dir=None, *, data_dir=None) -> str:
     lines += ["   " + row for row in
               comparison.to_string(float_format=lambda x: f"{x:.4g}").splitlines()]
 
-    km = _km_uM(campaign)
+    km = _km_M(campaign)
     screen = read_table(data / "invented_screen_wells.csv")
-    # Log-scale Wald intervals: a few seconds for the whole screen.
+    # Log-scale Wald intervals: a few seconds for the whole screen. Km in M: the
+    # substrate column declares its unit (µM), and both potency_table and
+    # fit_campaign take a bare number as M.
     potency = potency_table(screen, concentration="inhibitor_uM", response="signal",
                             substrate="substrate_uM", km=km,
                             mechanisms=_mechanisms(campaign.ranking), intervals="wald")
+    # The ranked table of the screen, concentrations in M: the grids give the Ki of
+    # the compounds they settled and their mechanisms to the IC50 conversion.
+    screen_campaign = fit_campaign(usable, dose_response=screen, compound="compound",
+                                   substrate="substrate", inhibitor="inhibitor",
+                                   rate="rate", km=km, weighting="relative",
+                                   intervals="wald", quiet=True)
+    counts = screen_campaign.counts
+    below = screen_campaign.ranking["ki_reported"].astype(str).str.startswith("<")
     lines.append(f"3. potency: {len(potency.table)} compounds on {len(potency.plates.table)} "
-                 f"plates, Km = {km:.3g} µM from the grids; plates below Z' "
-                 f"{potency.plates.threshold:g}: {', '.join(map(str, potency.plates.flagged))}")
+                 f"plates, Km = {from_molar(km, 'uM'):.3g} µM from the grids; plates below "
+                 f"Z' {potency.plates.threshold:g}: "
+                 f"{', '.join(map(str, potency.plates.flagged))}")
+    lines.append(f"   ranked: {counts['determined']} determined, {counts['bound']} bounds "
+                 f"({int(below.sum())} below the tested range), {counts['inactive']} "
+                 f"inactive, {counts['failed']} failed")
 
     write_table(table, out / "initial_rates.csv")
     write_table(campaign.ranking, out / "mechanism_ranking.csv")
-    write_table(potency.table.sort_values("pki", ascending=False, na_position="last"),
-                out / "potency_ranking.csv")
+    write_table(screen_campaign.ranking, out / "potency_ranking.csv")
     lines.append(f"4. ranked tables: {out / 'mechanism_ranking.csv'}, "
                  f"{out / 'potency_ranking.csv'}")
 

@@ -27,9 +27,15 @@ from .starts import log_bounds, starting_values
 from .text import text_table
 from .validate import check_grid
 
-__all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "relative_weights"]
+__all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "DEFAULT_WEIGHTING",
+           "relative_weights"]
 
 WEIGHTINGS = ("uniform", "relative", "sd")
+#: The weighting of rate tables when none is asked for, everywhere (API, campaigns, CLI):
+#: initial rates spread over a wide range carry a roughly constant coefficient of
+#: variation, and on such data relative weighting calls the mechanism right more often
+#: and sets pKi closer than uniform weighting (README, "Weighting").
+DEFAULT_WEIGHTING = "relative"
 
 # Iterations of the reweighting that sets the constant-CV weights.
 _REWEIGHT_ITERATIONS = 3
@@ -78,7 +84,7 @@ class MechanismFit:
     comparison: pd.DataFrame = field(repr=False)
     ftests: pd.DataFrame = field(repr=False)
     data: pd.DataFrame = field(repr=False)
-    weighting: str = "uniform"
+    weighting: str = DEFAULT_WEIGHTING
     options: VerdictOptions = VerdictOptions()
 
     @property
@@ -208,7 +214,7 @@ def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr) -> pd.DataFrame:
 
 
 def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
-                   weighting="uniform", models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
+                   weighting=DEFAULT_WEIGHTING, models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
                    alpha_factor=5.0, intervals="profile", level=0.95, determination_factor=10.0,
                    context=None) -> MechanismFit:
     """Fit every reversible mechanism to one compound's grid and decide between them.
@@ -222,9 +228,10 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         substrate's unit, the inhibition constants in the inhibitor's, vmax in the rate's.
     sd : str, optional
         Column of the standard deviation of each rate; required for ``weighting="sd"``.
-    weighting : {"uniform", "relative", "sd"}
-        ``uniform``: equal weights. ``relative``: constant coefficient of variation
-        (weights 1/v̂, see :func:`relative_weights`). ``sd``: weights 1/sd.
+    weighting : {"relative", "uniform", "sd"}
+        ``relative`` (default, :data:`DEFAULT_WEIGHTING`): constant coefficient of
+        variation (weights 1/v̂, see :func:`relative_weights`). ``uniform``: equal
+        weights (constant standard deviation). ``sd``: weights 1/sd.
     models : sequence of str
         Models to fit; the verdict needs ``none`` and ``mixed`` among them.
     alpha : float

@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, stats
 
+from .curve_class import DEFAULT_RULES, CurveClassRules, classify_curves
 from .errors import DataError, FitError, Problem
 from .fitting import INTERVAL_METHODS
 from .logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
@@ -59,6 +60,12 @@ FLAGS = {
     "rising": "the fitted curve rises with concentration; IC50 is its midpoint",
     "not_converged": "the optimiser stopped before converging; read the estimates with care",
     "tight_binding": "IC50 within 10x of the enzyme concentration: Cheng–Prusoff is biased",
+    "inactive": "no curve: too little activity removed, or a trend no better than a flat "
+                "line (see inhibkin.curve_class); IC50 above the highest concentration",
+    "single_point_activity": "only the highest tested concentration shows activity; IC50 "
+                             "reported as a lower bound",
+    "incomplete_curve": "one plateau of the curve lies outside the tested range",
+    "hill_at_bound": "the Hill slope stopped at its fitting bound; not determined",
     "low_z_prime": "a plate of this compound has Z' below the threshold",
 }
 
@@ -298,6 +305,15 @@ class DoseResponseFit:
         Covariance of the free parameters (order of ``free``) on the fitted scale.
     free : tuple of str
         Names (from ``PARAM_NAMES``) that were fitted.
+    curve_class : str
+        One of :data:`inhibkin.curve_class.CURVE_CLASSES`, decided before the IC50 is
+        believed.
+    class_reason : str
+        The class in words.
+    not_determined : tuple of str
+        "parameter: why" for every free parameter the data do not set (a Hill slope at
+        its fitting bound, a plateau outside the tested range, any parameter of an
+        inactive curve); their properties (``hill``, ``top``, ``bottom``) are NaN.
     """
 
     compound: str | None
@@ -318,9 +334,17 @@ class DoseResponseFit:
     fitted: np.ndarray = field(repr=False)
     covariance: np.ndarray | None = field(default=None, repr=False)
     free: tuple = PARAM_NAMES
+    curve_class: str = "complete"
+    class_reason: str = ""
+    not_determined: tuple = ()
 
     def _value(self, name):
         return float(self.params.loc[name, "estimate"])
+
+    def _result(self, name):
+        """The estimate when the data set it (or it was fixed), else NaN."""
+        row = self.params.loc[name]
+        return float(row["estimate"]) if row["fixed"] or row["determined"] else np.nan
 
     @property
     def estimates(self) -> dict[str, float]:
@@ -339,15 +363,18 @@ class DoseResponseFit:
 
     @property
     def hill(self) -> float:
-        return self._value("hill")
+        """Hill slope, NaN when not determined (see ``not_determined``)."""
+        return self._result("hill")
 
     @property
     def top(self) -> float:
-        return self._value("top")
+        """Response without inhibitor, NaN when not determined."""
+        return self._result("top")
 
     @property
     def bottom(self) -> float:
-        return self._value("bottom")
+        """Response at full effect, NaN when not determined."""
+        return self._result("bottom")
 
     @property
     def reported_ic50(self) -> str:
@@ -370,6 +397,7 @@ class DoseResponseFit:
         who = f"{self.compound}: " if self.compound is not None else ""
         lines = [f"{who}4PL, n = {self.n_obs}, free = {self.n_free}, SSR = {self.ssr:.6g}, "
                  f"residual SE = {self.residual_se:.4g}, converged = {self.converged}",
+                 f"  class: {self.class_reason or self.curve_class}",
                  f"  IC50 = {self.reported_ic50}",
                  f"  {'parameter':<10} {'estimate':>12} {'se':>12}  "
                  f"{100 * self.level:g}% interval ({self.interval_method})"]
@@ -379,6 +407,8 @@ class DoseResponseFit:
             else:
                 lines.append(f"  {name:<10} {row['estimate']:>12.6g} {row['se']:>12.4g}  "
                              f"[{row['ci_low']:.4g}, {row['ci_high']:.4g}]")
+        for what in self.not_determined:
+            lines.append(f"  not determined: {what}")
         for flag in self.flags:
             lines.append(f"  flag {flag}: {FLAGS[flag]}")
         return "\n".join(lines)
@@ -404,8 +434,18 @@ def _logistic_curve(x, y, w, fixed: dict, direction="any") -> _Curve:
                   upper)
 
 
-def _curve_flags(x, est, *, direction, hill_range, min_points_each_side, partial_efficacy):
-    """Flags and the IC50 bound text from the curve's shape and the design."""
+def _curve_flags(curve: _Curve, est, *, n_free, direction, hill_range, min_points_each_side,
+                partial_efficacy, full_activity=None, zero_activity=0.0,
+                curve_rules: CurveClassRules = DEFAULT_RULES):
+    """Flags, the IC50 bound text, the curve's class and what the data do not set."""
+    x = curve.x
+    theta = np.array([est[n] for n in PARAM_NAMES])
+    hill_limit = max(abs(curve.lower[3]), abs(curve.upper[3]))
+    classes = classify_curves(x[None, :], curve.y[None, :], np.ones((1, x.size), bool),
+                              theta[None, :], weights=curve.w[None, :], n_free=n_free,
+                              full_activity=full_activity, zero_activity=zero_activity,
+                              hill_limit=hill_limit, rules=curve_rules)
+    kind = str(classes.curve_class[0])
     flags = []
     bound = None
     log_ic50, hill = est["log_ic50"], est["hill"]
@@ -418,12 +458,25 @@ def _curve_flags(x, est, *, direction, hill_range, min_points_each_side, partial
         reached = est["top"] <= 0 or logistic4(x.max(), **est) <= 0.5 * est["top"]
     else:
         reached = direction != "falling"
-    if log_ic50 > x.max() or not reached:
+    if kind == "inactive":
+        # No curve: whatever the fitted midpoint, nothing was seen up to the top dose.
+        flags += ["inactive", "ic50_above_range"]
+        bound = f"> {10 ** x.max():.3g}"
+    elif kind == "single_point":
+        flags.append("single_point_activity")
+        edge = x.max() if (log_ic50 > x.max() or not reached) else classes.x_next[0]
+        bound = f"> {10 ** edge:.3g}"
+    elif log_ic50 > x.max() or not reached:
         flags.append("ic50_above_range")
         bound = f"> {10 ** x.max():.3g}"
-    elif log_ic50 < x.min():
+    elif log_ic50 < x.min() or classes.below_range[0]:
         flags.append("ic50_below_range")
         bound = f"< {10 ** x.min():.3g}"
+    if kind == "incomplete":
+        flags.append("incomplete_curve")
+    at_limit = bool(classes.hill_at_limit[0])
+    if at_limit and kind != "inactive":
+        flags.append("hill_at_bound")
     # With only a bound on IC50 the slope and the midpoint's neighbours describe an
     # extrapolation (or noise on an inactive compound): those flags would mislead.
     if bound is None:
@@ -436,15 +489,33 @@ def _curve_flags(x, est, *, direction, hill_range, min_points_each_side, partial
             flags.append("few_points_below")
         if np.sum(levels > log_ic50) < min_points_each_side:
             flags.append("few_points_above")
-    if not falling:
-        flags.append("rising")
-    elif est["top"] > 0 and est["bottom"] > partial_efficacy * est["top"]:
-        flags.append("partial_efficacy")
-    return flags, bound
+    if kind != "inactive":
+        if not falling:
+            flags.append("rising")
+        elif (bool(classes.bottom_seen[0]) and est["top"] > 0
+              and est["bottom"] > partial_efficacy * est["top"]):
+            flags.append("partial_efficacy")
+    # What the data do not set: never shown as a result.
+    missing = {}
+    if kind == "inactive":
+        for name in ("top", "bottom", "hill"):
+            missing[name] = "the curve is inactive (no curve within the tested range)"
+    else:
+        if not classes.top_seen[0]:
+            missing["top"] = "its plateau is not reached within the tested range"
+        if not classes.bottom_seen[0]:
+            missing["bottom"] = "its plateau is not reached within the tested range"
+        if at_limit:
+            missing["hill"] = f"at its fitting bound ({hill_limit:g})"
+        elif bound is not None:
+            missing["hill"] = "the IC50 is only a bound"
+    return flags, bound, kind, str(classes.reason[0]), missing
 
 
 def _build_dose_response(curve: _Curve, phi, ssr, converged, message, *, conc, compound,
-                         method, level, hill_range, min_points_each_side, partial_efficacy):
+                         method, level, hill_range, min_points_each_side, partial_efficacy,
+                         full_activity=None, zero_activity=0.0,
+                         curve_rules: CurveClassRules = DEFAULT_RULES):
     n, k = len(curve.y), int(curve.free.sum())
     dof = n - k
     covariance = _covariance(curve, phi, ssr, dof)
@@ -464,13 +535,16 @@ def _build_dose_response(curve: _Curve, phi, ssr, converged, message, *, conc, c
     se[curve.free], low[curve.free], high[curve.free] = se_free, low_free, high_free
     direction = ("falling" if curve.lower[3] == 0.0 else
                  "rising" if curve.upper[3] == 0.0 else "any")
-    flags, bound = _curve_flags(curve.x, est, direction=direction, hill_range=hill_range,
-                                min_points_each_side=min_points_each_side,
-                                partial_efficacy=partial_efficacy)
+    flags, bound, kind, class_reason, missing = _curve_flags(
+        curve, est, n_free=k, direction=direction, hill_range=hill_range,
+        min_points_each_side=min_points_each_side, partial_efficacy=partial_efficacy,
+        full_activity=full_activity, zero_activity=zero_activity, curve_rules=curve_rules)
     if not converged:
         flags.insert(0, "not_converged")
     fixed = ~curve.free
-    determined = curve.free & np.isfinite(se) & np.isfinite(low) & np.isfinite(high)
+    missing = {n: why for n, why in missing.items() if curve.free[PARAM_NAMES.index(n)]}
+    determined = curve.free & np.isfinite(se) & np.isfinite(low) & np.isfinite(high) & \
+        np.array([n not in missing for n in PARAM_NAMES])
     j = PARAM_NAMES.index("log_ic50")
     with np.errstate(over="ignore"):
         ic50 = 10.0 ** theta[j]
@@ -490,7 +564,8 @@ def _build_dose_response(curve: _Curve, phi, ssr, converged, message, *, conc, c
     return DoseResponseFit(compound, params, tuple(flags), bound, n, k, dof, ssr,
                            float(np.sqrt(ssr / dof)) if dof > 0 else np.nan, converged,
                            message, level, method, conc, curve.y, fitted, covariance,
-                           tuple(np.asarray(PARAM_NAMES)[curve.free]))
+                           tuple(np.asarray(PARAM_NAMES)[curve.free]), kind, class_reason,
+                           tuple(f"{n}: {why}" for n, why in missing.items()))
 
 
 def _fixed(fix_top, fix_bottom) -> dict:
@@ -506,7 +581,9 @@ def fit_dose_response(conc, response, *, fix_top=None, fix_bottom=None, weights=
                       intervals="profile", level=0.95, direction="any", compound=None,
                       hill_range=HILL_RANGE,
                       min_points_each_side=MIN_POINTS_EACH_SIDE,
-                      partial_efficacy=PARTIAL_EFFICACY_FRACTION) -> DoseResponseFit:
+                      partial_efficacy=PARTIAL_EFFICACY_FRACTION, full_activity=None,
+                      zero_activity=0.0,
+                      curve_rules: CurveClassRules = DEFAULT_RULES) -> DoseResponseFit:
     """Fit the four-parameter logistic to a dose-response curve.
 
     Parameters
@@ -536,11 +613,22 @@ def fit_dose_response(conc, response, *, fix_top=None, fix_bottom=None, weights=
     min_points_each_side : int
         Distinct concentrations wanted on each side of the midpoint.
     partial_efficacy : float
-        A falling curve whose bottom exceeds this fraction of its top is flagged.
+        A falling curve whose bottom exceeds this fraction of its top is flagged (only
+        when the bottom plateau is seen).
+    full_activity, zero_activity : float, optional
+        The responses at full and at zero activity (100 and 0 for percent activity
+        from plate controls), against which the curve's efficacy is measured for its
+        class (:mod:`inhibkin.curve_class`); without ``full_activity`` the curve's
+        value at the lowest concentration stands in.
+    curve_rules : CurveClassRules
+        Thresholds of the curve classes.
 
     Returns
     -------
     DoseResponseFit
+        An inactive curve (no activity, or a trend no better than a flat line) reports
+        its IC50 as a bound above the highest concentration, whatever its fitted
+        midpoint; parameters the data do not set are listed in ``not_determined``.
 
     Raises
     ------
@@ -568,7 +656,8 @@ def fit_dose_response(conc, response, *, fix_top=None, fix_bottom=None, weights=
     return _fit_logistic(c, y, w, fixed, compound=compound, method=intervals, level=level,
                          direction=direction, hill_range=hill_range,
                          min_points_each_side=min_points_each_side,
-                         partial_efficacy=partial_efficacy)
+                         partial_efficacy=partial_efficacy, full_activity=full_activity,
+                         zero_activity=zero_activity, curve_rules=curve_rules)
 
 
 def _fit_logistic(c, y, w, fixed, *, compound, method, level, direction="any",
@@ -605,7 +694,10 @@ def dose_response_from_estimates(conc, response, estimates, *, weights=None, fix
                                  message="fitted elsewhere", direction="any",
                                  hill_range=HILL_RANGE,
                                  min_points_each_side=MIN_POINTS_EACH_SIDE,
-                                 partial_efficacy=PARTIAL_EFFICACY_FRACTION) -> DoseResponseFit:
+                                 partial_efficacy=PARTIAL_EFFICACY_FRACTION,
+                                 full_activity=None, zero_activity=0.0,
+                                 curve_rules: CurveClassRules = DEFAULT_RULES
+                                 ) -> DoseResponseFit:
     """A :class:`DoseResponseFit` from 4PL estimates found elsewhere (a batched engine).
 
     Standard errors, Wald intervals and flags are computed here from the analytic
@@ -614,7 +706,8 @@ def dose_response_from_estimates(conc, response, estimates, *, weights=None, fix
 
     Parameters
     ----------
-    conc, response, weights, fix_top, fix_bottom, level, compound, direction
+    conc, response, weights, fix_top, fix_bottom, level, compound, direction,
+    full_activity, zero_activity, curve_rules
         As for :func:`fit_dose_response`; ``direction`` sets the Hill-slope sign the
         fit was held to, which the flags and the slope's interval (clipped at 0) follow.
     estimates : mapping
@@ -631,7 +724,8 @@ def dose_response_from_estimates(conc, response, estimates, *, weights=None, fix
     return _from_estimates(c, y, w, fixed, estimates, level=level, compound=compound,
                            converged=converged, message=message, direction=direction,
                            hill_range=hill_range, min_points_each_side=min_points_each_side,
-                           partial_efficacy=partial_efficacy)
+                           partial_efficacy=partial_efficacy, full_activity=full_activity,
+                           zero_activity=zero_activity, curve_rules=curve_rules)
 
 
 def _from_estimates(c, y, w, fixed, estimates, *, level, compound, converged, message,

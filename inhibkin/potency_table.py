@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from .conversion import CONVERSIONS, cheng_prusoff
+from .curve_class import CURVE_CLASSES, DEFAULT_RULES, CurveClassRules, classify_curves
 from .errors import DataError, FitError, InhibkinError, Problem
 from .morrison import fit_morrison
 from .plates import Z_PRIME_THRESHOLD, PlateQC, percent_activity, plate_qc
@@ -32,6 +33,7 @@ from .potency import (
     _fixed,
     _from_estimates,
 )
+from .units import from_molar, normalise_unit, parse_concentration, split_unit
 from .validate import check_columns
 
 __all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table"]
@@ -41,7 +43,8 @@ TIGHT_BINDING_FACTOR = 10.0
 
 #: Columns of :attr:`PotencyTable.table`, in order.
 TABLE_COLUMNS = (
-    "compound", "status", "reason", "plate", "n_points", "ic50", "ic50_low", "ic50_high",
+    "compound", "status", "curve_class", "reason", "plate", "n_points", "ic50", "ic50_low",
+    "ic50_high",
     "ic50_bound", "pic50", "hill", "hill_low", "hill_high", "top", "bottom", "substrate", "km",
     "enzyme", "ki", "ki_low", "ki_high", "ki_bound", "pki", "mechanism", "alpha",
     "mechanism_source", "ki_method", "flags",
@@ -60,7 +63,12 @@ class PotencyTable:
     ----------
     table : pandas.DataFrame
         One row per compound, columns :data:`TABLE_COLUMNS`. ``status`` is ``"ok"`` or
-        ``"failed"`` (with the ``reason``); IC50 and Ki in the concentration's unit
+        ``"failed"`` (with the ``reason``); ``curve_class`` is one of
+        :data:`~inhibkin.curve_class.CURVE_CLASSES` (an ``inactive`` curve reports
+        "IC50 > highest concentration"), and for fitted compounds ``reason`` says why
+        that class and which parameters the data do not set (their columns are empty:
+        a Hill slope at its fitting bound, a plateau outside the tested range);
+        IC50 and Ki in the concentration's unit
         (``ic50_bound``/``ki_bound`` hold "> x" text when only a bound is known);
         ``mechanism_source`` is ``"mechanism fit"`` or ``"default"``; ``ki_method`` is
         ``"cheng-prusoff"`` or ``"morrison"``; ``flags`` joins
@@ -132,12 +140,35 @@ def _mechanism_of(name, mechanisms, default_mechanism, default_alpha):
         "default"
 
 
+def _km_in_substrate_unit(km, df, substrate, substrate_unit):
+    """Km as the fit uses it: a column name, or a number in the substrate's unit."""
+    if isinstance(km, str) and km in df.columns:
+        return km
+    declared = (normalise_unit(substrate_unit) if substrate_unit is not None
+                else split_unit(substrate)[1])
+    if declared is not None:
+        declared = normalise_unit(declared)
+    if isinstance(km, str):
+        molar = parse_concentration(km)
+        if declared is None:
+            raise DataError(Problem(substrate, None, km,
+                                    f"km is given with a unit but column {substrate!r} "
+                                    "declares none; name its unit (substrate_unit='uM', "
+                                    "or a header such as 'substrate_uM')"))
+        return float(from_molar(molar, declared))
+    if isinstance(km, bool) or not isinstance(km, (int, float, np.floating, np.integer)) \
+            or not np.isfinite(km) or km <= 0:
+        raise DataError(Problem("km", None, km, "km must be a positive number, text with "
+                                                "its unit (e.g. '40uM') or a column name"))
+    return float(from_molar(float(km), declared)) if declared is not None else float(km)
+
+
 def _convert_bound(bound, factor):
     sign, value = bound.split(" ", 1)
     return f"{sign} {float(value) * factor:.3g}"
 
 
-def _default_fitter(curves, *, fix_top, fix_bottom, intervals, level):
+def _default_fitter(curves, *, fix_top, fix_bottom, intervals, level, class_options=None):
     out = {}
     fixed = _fixed(fix_top, fix_bottom)
     for name, (conc, response) in curves.items():
@@ -147,7 +178,8 @@ def _default_fitter(curves, *, fix_top, fix_bottom, intervals, level):
                                       direction="falling",
                                       hill_range=HILL_RANGE,
                                       min_points_each_side=MIN_POINTS_EACH_SIDE,
-                                      partial_efficacy=PARTIAL_EFFICACY_FRACTION)
+                                      partial_efficacy=PARTIAL_EFFICACY_FRACTION,
+                                      **dict(class_options or {}))
         except InhibkinError as error:
             out[name] = error
     return out
@@ -167,9 +199,11 @@ class EngineFitter:
     tested range (noise on an inactive compound, a partial or rising curve) has a flat
     least-squares surface with several minima, where two optimisers from different
     starts can settle on different ones. So an engine solution is kept only when it
-    converged strictly inside the bounds to a falling curve whose IC50 lies within the
-    tested range; every other curve is refitted by the lmfit path, and its compound is
-    recorded in :attr:`refitted`.
+    converged strictly inside the bounds to a falling curve whose class
+    (:func:`~inhibkin.curve_class.classify_curves`, the rule the lmfit path applies,
+    here over the whole batch at once) is complete or incomplete and whose IC50 lies
+    within the tested range; every other curve is refitted by the lmfit path, and its
+    compound is recorded in :attr:`refitted`.
 
     With ``intervals="profile"`` every curve takes the lmfit path (the engine gives
     Wald intervals only), and none is counted as refitted.
@@ -184,11 +218,13 @@ class EngineFitter:
     def __init__(self):
         self.refitted: list = []
 
-    def __call__(self, curves, *, fix_top, fix_bottom, intervals, level) -> dict:
+    def __call__(self, curves, *, fix_top, fix_bottom, intervals, level,
+                 class_options=None) -> dict:
         from .engine import fit_logistic_batch  # the engine only when asked for
 
+        class_options = dict(class_options or {})
         options = dict(fix_top=fix_top, fix_bottom=fix_bottom, intervals=intervals,
-                       level=level)
+                       level=level, class_options=class_options)
         if intervals != "wald" or not curves:
             return _default_fitter(curves, **options)
         names = list(curves)
@@ -201,6 +237,11 @@ class EngineFitter:
             mask[k, :len(conc)] = True
         batch = fit_logistic_batch(x, y, mask, fix_top=fix_top, fix_bottom=fix_bottom,
                                    level=level)
+        classes = classify_curves(
+            x, y, mask, batch.estimate, n_free=batch.n_params,
+            full_activity=class_options.get("full_activity"),
+            zero_activity=class_options.get("zero_activity", 0.0),
+            hill_limit=_HILL_MAX, rules=class_options.get("curve_rules", DEFAULT_RULES))
         out = {}
         for k, name in enumerate(names):
             conc, response = curves[name]
@@ -208,7 +249,8 @@ class EngineFitter:
             x_min, x_max = x[k, mask[k]].min(), x[k, mask[k]].max()
             inside = (bool(batch.converged[k]) and 0.0 < estimates["hill"] < _HILL_MAX
                       and x_min - _LOG_IC50_MARGIN < estimates["log_ic50"]
-                      < x_max + _LOG_IC50_MARGIN)
+                      < x_max + _LOG_IC50_MARGIN
+                      and classes.curve_class[k] in CURVE_CLASSES[:2])
             if inside:
                 # potency_table checked the curves; the flags follow _default_fitter's.
                 fit = _from_estimates(
@@ -216,7 +258,7 @@ class EngineFitter:
                     estimates, level=level, compound=name, converged=True,
                     message=f"batched engine: {batch.reason[k]}", direction="falling",
                     hill_range=HILL_RANGE, min_points_each_side=MIN_POINTS_EACH_SIDE,
-                    partial_efficacy=PARTIAL_EFFICACY_FRACTION)
+                    partial_efficacy=PARTIAL_EFFICACY_FRACTION, **class_options)
                 if fit.ic50_bound is None and "rising" not in fit.flags:
                     out[name] = fit
                     continue
@@ -227,10 +269,12 @@ class EngineFitter:
 
 def potency_table(df, *, compound="compound", plate="plate", role="role",
                   concentration="inhibitor", response="signal", substrate="substrate", km,
-                  km_se=None, enzyme=None, mechanisms=None, default_mechanism="competitive",
-                  default_alpha=None, normalise=True, fix_top=None, fix_bottom=None,
+                  substrate_unit=None, km_se=None, enzyme=None, mechanisms=None,
+                  default_mechanism="competitive", default_alpha=None, normalise=True,
+                  fix_top=None, fix_bottom=None,
                   intervals="profile", level=0.95, z_prime_threshold=Z_PRIME_THRESHOLD,
                   tight_binding="flag", tight_binding_factor=TIGHT_BINDING_FACTOR,
+                  curve_rules: CurveClassRules = DEFAULT_RULES,
                   fitter: Fitter | None = None) -> PotencyTable:
     """IC50, Hill slope, Ki and pKi of every compound of a tidy dose-response table.
 
@@ -245,8 +289,15 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         Column names. ``substrate`` holds the substrate concentration of the assay
         (one value per compound).
     km : float or str
-        Michaelis constant (substrate's unit), or the column holding it.
+        Michaelis constant: text with its unit (``"40uM"``), a number, or the column
+        holding it (in the substrate column's unit). A number is in **M** when the
+        substrate's unit is declared (``substrate_unit``, or a header such as
+        ``substrate_uM``), as in :func:`~inhibkin.batch.fit_campaign`; in a table
+        whose substrate carries no unit, a number is in the substrate's own unit.
+    substrate_unit : str, optional
+        Unit of the substrate column, when its header does not carry it.
     km_se : float, optional
+        In the unit Km is used in (the substrate's).
         Standard error of Km, propagated into Ki (delta method; see
         :func:`cheng_prusoff`). Without it the Ki interval is the IC50 interval
         times the conversion factor.
@@ -274,10 +325,16 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         :func:`fit_morrison` fit of the same points instead of Cheng–Prusoff.
     tight_binding_factor : float
         IC50 below this multiple of the enzyme concentration is tight binding.
+    curve_rules : CurveClassRules
+        Thresholds of the curve classes (:mod:`inhibkin.curve_class`); efficacy is
+        measured against the plate controls (100 % and 0 % activity) when
+        ``normalise`` is on.
     fitter : callable, optional
         Replaces the per-compound lmfit loop, e.g. by a batched engine:
-        ``fitter(curves, *, fix_top, fix_bottom, intervals, level)`` with ``curves``
-        mapping compound to (conc, response) arrays already validated, returning
+        ``fitter(curves, *, fix_top, fix_bottom, intervals, level, class_options)``
+        with ``curves`` mapping compound to (conc, response) arrays already validated
+        and ``class_options`` the keywords (full_activity, zero_activity, curve_rules)
+        to hand to :func:`~inhibkin.potency.dose_response_from_estimates`, returning
         compound to :class:`DoseResponseFit` (see
         :func:`~inhibkin.potency.dose_response_from_estimates`) or to the
         :class:`~inhibkin.errors.InhibkinError` that stopped it.
@@ -298,6 +355,7 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     if tight_binding not in ("flag", "morrison"):
         raise DataError(Problem(None, None, tight_binding,
                                 "tight_binding must be 'flag' or 'morrison'"))
+    km = _km_in_substrate_unit(km, df, substrate, substrate_unit)
     columns = [compound, plate, role, concentration, response, substrate]
     columns += [c for c in (km, enzyme) if isinstance(c, str)]
     check_columns(df, columns)
@@ -343,9 +401,15 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
             curves[name] = (conc, resp)
         except InhibkinError as error:
             rows[name]["reason"] = str(error)
+    if not isinstance(curve_rules, CurveClassRules):
+        raise DataError(Problem("curve_rules", None, curve_rules,
+                                "must be an inhibkin.curve_class.CurveClassRules"))
+    # Percent activity from the controls: the control window is 100 % to 0 %.
+    class_options = {"full_activity": 100.0 if normalise else None, "zero_activity": 0.0,
+                     "curve_rules": curve_rules}
     run = fitter or _default_fitter
     results = dict(run(curves, fix_top=fix_top, fix_bottom=fix_bottom, intervals=intervals,
-                       level=level)) if curves else {}
+                       level=level, class_options=class_options)) if curves else {}
 
     fits, morrison_fits = {}, {}
     for name in curves:
@@ -368,8 +432,8 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
             row["reason"] = f"{_context(name)}: {error}" if _context(name) not in str(error) \
                 else str(error)
     table = pd.DataFrame([rows[n] for n in rows], columns=list(TABLE_COLUMNS))
-    text = ["reason", "ic50_bound", "ki_bound", "mechanism", "mechanism_source", "ki_method",
-            "flags"]
+    text = ["curve_class", "reason", "ic50_bound", "ki_bound", "mechanism", "mechanism_source",
+            "ki_method", "flags"]
     table[text] = table[text].fillna("")
     return PotencyTable(table.reset_index(drop=True), fits, qc, morrison_fits)
 
@@ -384,9 +448,14 @@ def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, substrate
     e = _per_compound_value(enzyme, index, "enzyme", df)
     ic50_row = fit.params.loc["ic50"]
     hill_row = fit.params.loc["hill"]
-    out = {"status": "ok", "reason": "", "ic50": fit.ic50, "ic50_low": np.nan,
-           "ic50_high": np.nan, "ic50_bound": fit.ic50_bound or "", "pic50": fit.pic50,
-           "hill": fit.hill, "hill_low": hill_row["ci_low"], "hill_high": hill_row["ci_high"],
+    hill_set = np.isfinite(fit.hill)
+    why = "; ".join([fit.class_reason] + [f"{what} (not determined)"
+                                          for what in fit.not_determined])
+    out = {"status": "ok", "curve_class": fit.curve_class, "reason": why, "ic50": fit.ic50,
+           "ic50_low": np.nan, "ic50_high": np.nan, "ic50_bound": fit.ic50_bound or "",
+           "pic50": fit.pic50, "hill": fit.hill,
+           "hill_low": hill_row["ci_low"] if hill_set else np.nan,
+           "hill_high": hill_row["ci_high"] if hill_set else np.nan,
            "top": fit.top, "bottom": fit.bottom, "substrate": s, "km": km_value, "enzyme": e,
            "ki": np.nan, "ki_low": np.nan, "ki_high": np.nan, "ki_bound": "", "pki": np.nan,
            "ki_method": "cheng-prusoff"}
@@ -400,7 +469,8 @@ def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, substrate
         flags.append("tight_binding")
     out["flags"] = ", ".join(flags)
     if mech not in CONVERSIONS:
-        out["reason"] = f"mechanism {mech!r}: no IC50 to Ki conversion; Ki not reported"
+        out["reason"] = "; ".join(filter(None, (
+            why, f"mechanism {mech!r}: no IC50 to Ki conversion; Ki not reported")))
         return out
     factor = cheng_prusoff(1.0, s, km_value, mech, None if np.isnan(alpha) else alpha)
     if fit.ic50_bound:

@@ -22,6 +22,7 @@ __all__ = [
     "split_unit",
     "resolve_units",
     "normalise_unit",
+    "parse_concentration",
 ]
 
 # Factor that turns one of each unit into molar. Both the micro sign (U+00B5) and the
@@ -217,3 +218,22 @@ def resolve_units(columns, names, *, units=None, context=None):
     if problems:
         raise UnitsError(problems, context)
     return found
+
+
+def parse_concentration(text) -> float:
+    """A concentration written with its unit ("20 uM", "5nM", "4e-5 M") in M.
+
+    Raises
+    ------
+    UnitsError
+        When the unit is missing or unknown; never guessed.
+    """
+    match = re.fullmatch(r"\s*([-+0-9.eE]+)\s*([A-Za-zµμ]*)\s*", str(text))
+    if not match or not match.group(2):
+        raise UnitsError(Problem(None, None, text, "write a concentration with its unit, "
+                                                   "e.g. '20uM' or '5 nM'"))
+    try:
+        value = float(match.group(1))
+    except ValueError:
+        raise UnitsError(Problem(None, None, text, "not a number")) from None
+    return to_molar(value, normalise_unit(match.group(2)))

@@ -377,3 +377,80 @@ def test_campaign_carries_the_plate_qc_table():
     grid, _ = simulate_campaign(2, seed=3)
     empty = fit_campaign(grid, quiet=True).plates
     assert empty.empty and list(empty.columns) == list(PLATE_COLUMNS)
+
+
+def test_one_ki_rule_for_a_mixed_inhibitor_on_both_routes():
+    # Issue 12, item 3: the grid route and the IC50 route rank a mixed inhibitor by the
+    # same constant, the tighter of kic and kiu, and say which.
+    kic_nM, kiu_nM, km_uM, s_uM = 50.0, 10.0, 20.0, 20.0
+    grid = simulate_grid("mixed", vmax=100.0, km=km_uM, kic=kic_nM, kiu=kiu_nM,
+                         s=km_uM * np.geomspace(0.2, 10.0, 8),
+                         i=np.array([0.0, 5.0, 10.0, 20.0, 40.0]), cv=0.02, seed=5)
+    grid = pd.DataFrame({"compound": "MIX", "substrate_uM": grid["substrate"],
+                         "inhibitor_nM": grid["inhibitor"], "rate": grid["rate"]})
+    # The mixed-inhibition IC50, (Km + S)/(Km/kic + S/kiu) (Cheng & Prusoff 1973;
+    # Cortés et al. 2001, Biochem. J. 357:263).
+    ic50_nM = (km_uM + s_uM) / (km_uM / kic_nM + s_uM / kiu_nM)
+    rng = np.random.default_rng(11)
+    conc = np.repeat(ic50_nM * np.geomspace(1 / 100, 100, 11), 2)
+    rows = [{"compound": None, "plate": "P1", "role": role, "inhibitor_nM": np.nan,
+             "signal": level + rng.normal(0, 5.0), "substrate_uM": np.nan}
+            for role, level in (("max", 1000.0), ("min", 0.0)) for _ in range(8)]
+    rows += [{"compound": "MIX", "plate": "P1", "role": "sample", "inhibitor_nM": c,
+              "signal": 1000.0 / (1 + c / ic50_nM) + rng.normal(0, 5.0), "substrate_uM": s_uM}
+             for c in conc]
+    by_grid = fit_campaign(grid, quiet=True).ranking.iloc[0]
+    by_ic50 = fit_campaign(dose_response=pd.DataFrame(rows), km=km_uM * 1e-6, quiet=True,
+                           potency_options={"default_mechanism": "mixed",
+                                            "default_alpha": kiu_nM / kic_nM}).ranking.iloc[0]
+    assert by_grid["mechanism"] == by_ic50["mechanism"] == "mixed"
+    assert by_grid["ki_parameter"] == by_ic50["ki_parameter"] == "kiu"
+    # Both near the true kiu (pKi 8.0); 0.1 log units covers the 2 % noise of either.
+    assert by_grid["pki"] == pytest.approx(8.0, abs=0.1)
+    assert by_ic50["pki"] == pytest.approx(8.0, abs=0.1)
+    assert by_ic50["kiu_M"] == pytest.approx(by_ic50["ki_M"], rel=1e-12)
+    assert by_ic50["kic_M"] == pytest.approx(by_ic50["ki_M"] * kic_nM / kiu_nM, rel=1e-12)
+
+
+def test_km_takes_one_declared_unit_in_potency_table_and_fit_campaign():
+    # Issue 12, item 2: km as text with its unit, or a number in M, means the same in both.
+    from inhibkin.potency_table import potency_table
+
+    rng = np.random.default_rng(4)
+    rows = [{"compound": None, "plate": "P1", "role": role, "inhibitor_uM": np.nan,
+             "signal": level + rng.normal(0, 5.0), "substrate_uM": np.nan}
+            for role, level in (("max", 1000.0), ("min", 0.0)) for _ in range(8)]
+    rows += [{"compound": "A", "plate": "P1", "role": "sample", "inhibitor_uM": c,
+              "signal": 1000.0 / (1 + c / 0.2) + rng.normal(0, 5.0), "substrate_uM": 40.0}
+             for c in np.repeat(np.geomspace(1e-3, 30, 10), 2)]
+    plates = pd.DataFrame(rows)
+    options = dict(concentration="inhibitor_uM", substrate="substrate_uM", intervals="wald")
+    as_text = potency_table(plates, km="40uM", **options).table.iloc[0]
+    as_molar = potency_table(plates, km=40e-6, **options).table.iloc[0]
+    # Competitive, S = Km: Ki = IC50/2 (Cheng & Prusoff 1973).
+    assert as_text["ki"] == pytest.approx(as_text["ic50"] / 2, rel=1e-12)
+    assert as_molar["ki"] == pytest.approx(as_text["ki"], rel=1e-12)
+    campaign = fit_campaign(dose_response=plates, km="40uM", intervals="wald", quiet=True)
+    again = fit_campaign(dose_response=plates, km=40e-6, intervals="wald", quiet=True)
+    assert campaign.ranking.iloc[0]["ki_M"] == pytest.approx(as_text["ki"] * 1e-6, rel=1e-9)
+    assert again.ranking.iloc[0]["ki_M"] == pytest.approx(campaign.ranking.iloc[0]["ki_M"],
+                                                          rel=1e-12)
+    with pytest.raises(DataError, match="declares none"):
+        potency_table(plates.rename(columns={"substrate_uM": "substrate"}), km="40uM",
+                      concentration="inhibitor_uM", substrate="substrate")
+
+
+def test_default_weighting_is_relative_everywhere(tmp_path, capsys):
+    # Issue 12, item 6: one default for rate tables (README, "Weighting").
+    import inspect
+
+    from inhibkin.cli import main
+    from inhibkin.engine import fit_mechanisms_batch
+
+    for function in (fit_mechanisms, fit_campaign, fit_mechanisms_batch):
+        assert inspect.signature(function).parameters["weighting"].default == "relative"
+    table, _ = simulate_campaign(2, seed=3)
+    assert fit_campaign(table, quiet=True).options["weighting"] == "relative"
+    table.to_csv(tmp_path / "grid.csv", index=False)
+    main(["rank", "--grid", str(tmp_path / "grid.csv"), "-o", str(tmp_path / "r.csv")])
+    assert "relative weighting" in capsys.readouterr().out

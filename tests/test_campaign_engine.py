@@ -52,7 +52,8 @@ def _inputs(n_grids, n_curves, n_shared, seed):
 @pytest.fixture(scope="module")
 def both_paths():
     grid, plates = _inputs(N_GRIDS, N_CURVES, N_SHARED, SEED)
-    common = dict(dose_response=plates, km=KM_M, quiet=True)
+    # Equal weights, named since the default became relative (issue 12).
+    common = dict(dose_response=plates, km=KM_M, quiet=True, weighting="uniform")
     engine = fit_campaign(grid, engine="batched", **common)
     reference = fit_campaign(grid, engine="lmfit", **common)
     return engine, reference
@@ -250,11 +251,11 @@ def test_engine_fits_it_cannot_converge_are_refitted_and_counted(monkeypatch):
     grid, _ = simulate_campaign(8, seed=6)
     starved = functools.partial(batch.fit_mechanism_arrays, max_iterations=2)
     monkeypatch.setattr(batch, "fit_mechanism_arrays", starved)
-    campaign = fit_campaign(grid, quiet=True, engine="batched")
+    campaign = fit_campaign(grid, quiet=True, engine="batched", weighting="uniform")
     refitted = sum(m.message.startswith("refitted by the lmfit path")
                    for fit in campaign.fits.values() for m in fit.models.values())
     assert campaign.options["n_fallback_grid"] == refitted > 0
-    reference = fit_campaign(grid, quiet=True, engine="lmfit").ranking
+    reference = fit_campaign(grid, quiet=True, engine="lmfit", weighting="uniform").ranking
     assert campaign.ranking["verdict"].tolist() == reference["verdict"].tolist()
 
 

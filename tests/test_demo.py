@@ -4,6 +4,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
 from test_report import assert_self_contained, render_in_browser
@@ -48,6 +49,33 @@ def test_demo_calls_the_invented_mechanisms(demo):
     for compound in ("INV-0007", "INV-0019", "INV-0023", "INV-0031", "INV-0042"):
         expected = truth.set_index("compound").loc[compound, "mechanism"]
         assert called[compound] == expected, compound
+
+
+def test_demo_potency_ranking_is_molar_and_ranks_no_flat_compound(demo):
+    # Issue 12, items 1 and 2: the ranked-table columns the README documents, pIC50 and
+    # pKi as −log10(value / 1 M), and no inactive compound of the screen's truth reported
+    # as a bound below the tested range or ranked among the actives.
+    from inhibkin.batch import RANKING_COLUMNS
+
+    out, _ = demo
+    ranking = pd.read_csv(out / "potency_ranking.csv")
+    assert list(ranking.columns[:len(RANKING_COLUMNS)]) == list(RANKING_COLUMNS)
+    assert not {"km", "substrate", "ic50", "ki"} & set(ranking.columns)
+    screen = pd.read_csv(DEMO_DATA / "invented_screen_wells.csv")
+    assert sorted(ranking["compound"]) == sorted(screen["compound"].dropna().unique())
+    fitted = ranking.dropna(subset=["ic50_M"])
+    np.testing.assert_allclose(fitted["pic50"], -np.log10(fitted["ic50_M"]), rtol=1e-12)
+    determined = ranking[ranking["status"] == "determined"]
+    np.testing.assert_allclose(determined["pki"], -np.log10(determined["ki_M"]), rtol=1e-12)
+    # The screen was tested up to 30 µM: every determined pKi lies well above 4.
+    assert (determined["pki"] > 4).all() and (determined["pki"] < 12).all()
+    truth = pd.read_csv(DEMO_DATA / "invented_screen_truth.csv").set_index("compound")
+    flat = ranking[ranking["compound"].map(~truth["active"])]
+    assert not flat["ki_reported"].astype(str).str.startswith("<").any()
+    assert not (flat["status"] == "determined").any()
+    assert (flat["status"] == "inactive").mean() > 0.95
+    last_active = ranking.index[ranking["status"].isin(["determined", "bound"])].max()
+    assert (ranking.index[ranking["status"] == "inactive"] > last_active).all()
 
 
 def test_demo_report_names_every_compound_and_the_poor_plate(demo):

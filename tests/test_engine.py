@@ -90,8 +90,10 @@ def _simulated_curves(n, seed, points=10):
 def grid_set():
     tables, truth = _simulated_tables(N_GRIDS, SEED)
     s, i, v, mask = _arrays(tables)
-    batch = fit_mechanism_arrays(s, i, v, mask)
-    reference = [ik.fit_mechanisms(t, intervals="wald") for t in tables]
+    # Equal weights, named since the default became relative (issue 12): the agreement
+    # of the two paths under relative weighting is its own test below.
+    batch = fit_mechanism_arrays(s, i, v, mask, weighting="uniform")
+    reference = [ik.fit_mechanisms(t, intervals="wald", weighting="uniform") for t in tables]
     return tables, truth, batch, reference
 
 
@@ -108,7 +110,8 @@ def test_misra1d_certified_values(misra1d, start):
     # b1*b2*x/(1+b2*x) is the 'none' rate law with vmax = b1, km = 1/b2.
     s, i, v = _misra_arrays(misra1d)
     if start is None:
-        batch = fit_mechanism_arrays(s, i, v, models=("none",))
+        # NIST StRD certified values are for unweighted least squares.
+        batch = fit_mechanism_arrays(s, i, v, models=("none",), weighting="uniform")
         model = batch.models["none"]
         vmax, km = model.estimate[0, :2]
         vmax_se, km_se = model.se[0, :2]
@@ -131,7 +134,8 @@ def test_misra1d_certified_values(misra1d, start):
 
 def test_misra1d_agrees_with_scipy_and_lmfit_path(misra1d):
     s, i, v = _misra_arrays(misra1d)
-    model = fit_mechanism_arrays(s, i, v, models=("none",)).models["none"]
+    model = fit_mechanism_arrays(s, i, v, models=("none",),
+                                 weighting="uniform").models["none"]
     # scipy.optimize.curve_fit (MINPACK LM), an independent implementation.
     popt, pcov = optimize.curve_fit(lambda x, b1, b2: b1 * b2 * x / (1 + b2 * x), s[0], v[0],
                                     p0=[500.0, 1e-4], xtol=POLISH_TOL, ftol=POLISH_TOL)
@@ -264,7 +268,8 @@ def test_agreement_with_lmfit_path(grid_set, capsys):
 
 def test_vectorised_verdicts_equal_compare_rules(grid_set):
     tables, _, _, reference = grid_set
-    fits = fit_mechanisms_batch({f"C{c}": t for c, t in enumerate(tables[:60])})
+    fits = fit_mechanisms_batch({f"C{c}": t for c, t in enumerate(tables[:60])},
+                                weighting="uniform")
     assert list(fits) == [f"C{c}" for c in range(60)]
     for c, fit in enumerate(fits.values()):
         # The tables built from arrays are the ones inhibkin.compare builds from the fits.
@@ -403,11 +408,12 @@ def test_mixed_lengths_masks_and_nan_do_not_leak():
     bad.iloc[3, bad.columns.get_loc("rate")] = np.nan
     s2, i2, v2, mask2 = (np.concatenate([a, b]) for a, b in
                          zip((s, i, v, mask), _arrays([bad, *tables[:1]])))
-    batch = fit_mechanism_arrays(s2, i2, v2, mask2)
+    batch = fit_mechanism_arrays(s2, i2, v2, mask2, weighting="uniform")
     assert batch.verdict[6] == "failed" and "non-finite" in batch.reason[6]
     assert not batch.valid[6] and batch.valid[:6].all()
     for c in range(6):
-        single = fit_mechanism_arrays(*(a[[c]][:, mask[c]] for a in (s, i, v)))
+        single = fit_mechanism_arrays(*(a[[c]][:, mask[c]] for a in (s, i, v)),
+                                      weighting="uniform")
         for name in batch.models:
             padded, alone = batch.models[name], single.models[name]
             np.testing.assert_array_equal(padded.determined[c], alone.determined[0])
@@ -488,17 +494,18 @@ def test_parameter_beyond_the_data_ends_at_its_bound():
 def test_fallback_refits_with_lmfit_and_counts():
     tables, _ = _simulated_tables(5, SEED + 8)
     s, i, v, mask = _arrays(tables)
-    batch = fit_mechanism_arrays(s, i, v, mask, max_iterations=2)
+    batch = fit_mechanism_arrays(s, i, v, mask, max_iterations=2, weighting="uniform")
     assert batch.n_fallback == sum(int(m.fallback.sum()) for m in batch.models.values()) > 0
     for c, t in enumerate(tables):
-        ref = ik.fit_mechanisms(t, intervals="wald")
+        ref = ik.fit_mechanisms(t, intervals="wald", weighting="uniform")
         assert batch.verdict[c] == ref.verdict
         for name, model in batch.models.items():
             if model.fallback[c]:
                 assert model.reason[c].startswith("refitted by the lmfit path")
                 np.testing.assert_allclose(model.estimate[c], ref.models[name].params["estimate"],
                                            rtol=AGREEMENT_RTOL)
-    without = fit_mechanism_arrays(s, i, v, mask, max_iterations=2, fallback=False)
+    without = fit_mechanism_arrays(s, i, v, mask, max_iterations=2, fallback=False,
+                                   weighting="uniform")
     assert without.n_fallback == 0
     assert (without.models["mixed"].reason == lm.STATUS_REASONS[lm.FAILED_ITERATIONS]).all()
 

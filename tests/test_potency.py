@@ -459,11 +459,12 @@ def test_fitter_can_be_swapped_for_prefitted_estimates(rng):
     df = _plate_table(rng, {"A": 0.05, "B": 0.5})
     reference = potency_table(df, km=1.0, intervals="wald")
 
-    def outside(curves, *, fix_top, fix_bottom, intervals, level):
+    def outside(curves, *, fix_top, fix_bottom, intervals, level, class_options):
         out = {}
         for name, (conc, y) in curves.items():
             est = reference.fits[name].estimates
-            out[name] = dose_response_from_estimates(conc, y, est, compound=name, level=level)
+            out[name] = dose_response_from_estimates(conc, y, est, compound=name, level=level,
+                                                     **class_options)
         return out
 
     swapped = potency_table(df, km=1.0, intervals="wald", fitter=outside)
@@ -519,4 +520,6 @@ def test_noise_on_an_inactive_compound_is_a_bound_when_only_falling_curves_are_a
     y = 100 + rng.normal(0, 3, conc.size)
     fit = fit_dose_response(conc, y, direction="falling")
     assert fit.ic50_bound == "> 100" and np.isnan(fit.ic50)
-    assert fit.hill >= 0 and fit.params.loc["hill", "ci_low"] >= 0
+    assert fit.estimates["hill"] >= 0 and fit.params.loc["hill", "ci_low"] >= 0
+    # A flat curve has no Hill slope to report (issue 12, item 1).
+    assert fit.curve_class == "inactive" and np.isnan(fit.hill)

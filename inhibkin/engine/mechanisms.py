@@ -29,7 +29,13 @@ from .. import mechanism as _mechanism
 from ..compare import VerdictOptions, decide_from
 from ..errors import DataError, Problem
 from ..fitting import ModelFit, fit_model, fixed_alpha_ssr
-from ..mechanism import WEIGHTINGS, MechanismFit, _mixed_starts, relative_weights
+from ..mechanism import (
+    DEFAULT_WEIGHTING,
+    WEIGHTINGS,
+    MechanismFit,
+    _mixed_starts,
+    relative_weights,
+)
 from ..models import MODEL_NAMES, MODELS, nested_pairs
 from ..validate import NO_SIGNAL, check_grid
 from . import lm
@@ -193,7 +199,7 @@ class MechanismBatch:
     weights: np.ndarray = field(repr=False)
     valid: np.ndarray = field(repr=False)
     weight_fallback: np.ndarray = field(repr=False)
-    weighting: str = "uniform"
+    weighting: str = DEFAULT_WEIGHTING
     options: VerdictOptions = VerdictOptions()
     level: float = 0.95
 
@@ -764,7 +770,7 @@ def _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor):
     _fill_from_lmfit(res, c, fit)
 
 
-def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting="uniform",
+def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGHTING,
                          models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0,
                          level=0.95, determination_factor=10.0, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None,
@@ -782,8 +788,8 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting="uniform",
         True for real points (default: all).
     sd : array_like, shape (B, n), optional
         Standard deviations of the rates, for ``weighting="sd"``.
-    weighting : {"uniform", "relative", "sd"}
-        As :func:`inhibkin.mechanism.fit_mechanisms`.
+    weighting : {"relative", "uniform", "sd"}
+        As :func:`inhibkin.mechanism.fit_mechanisms` (default relative).
     models : sequence of str
         Models to fit, in fitting order; the verdict needs ``none`` and ``mixed``.
     alpha, min_delta_aicc, alpha_factor : float
@@ -859,7 +865,8 @@ def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition
 
 
 def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="inhibitor",
-                         rate="rate", sd=None, weighting="uniform", models=MODEL_NAMES,
+                         rate="rate", sd=None, weighting=DEFAULT_WEIGHTING,
+                         models=MODEL_NAMES,
                          alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0, level=0.95,
                          determination_factor=10.0, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None, chunk_size=None):

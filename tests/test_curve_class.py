@@ -1,0 +1,116 @@
+"""Curve classes (issue 12, item 1): a flat curve is inactive, never a potent bound; a
+parameter at its fitting bound is never a result; one rule for the lmfit path and the
+batched engine."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from inhibkin.batch import fit_campaign
+from inhibkin.curve_class import CURVE_CLASSES, CurveClassRules, classify_curves
+from inhibkin.demo import DEMO_DATA
+from inhibkin.engine import fit_logistic_batch
+from inhibkin.errors import DataError
+from inhibkin.logistic import logistic4
+from inhibkin.plates import percent_activity, plate_qc
+from inhibkin.potency import fit_dose_response
+
+# Demo compounds whose activity stays flat near 100 % (invented_screen_truth.csv marks
+# them inactive) that were reported "bound, Ki < 7.6e-10 M" with Hill ≈ 20 (issue 12).
+FLAT_DEMO = ("INV-0113", "INV-0144", "INV-0245", "INV-0331")
+# Real actives of the same screen, for the ranking.
+ACTIVE_DEMO = ("INV-0296", "INV-0263")
+NOISE = 5.0  # % activity, the standard deviation of the simulated wells below
+
+
+def _demo_wells(compounds):
+    screen = pd.read_csv(DEMO_DATA / "invented_screen_wells.csv")
+    samples = screen[screen["compound"].isin(compounds)]
+    controls = screen[(screen["role"] != "sample") & screen["plate"].isin(samples["plate"])]
+    return pd.concat([samples, controls])
+
+
+def _percent(wells, compound):
+    qc = plate_qc(wells, plate="plate", role="role", response="signal", strict=False)
+    y = percent_activity(wells, qc, plate="plate", response="signal")
+    here = (wells["compound"] == compound).to_numpy()
+    return wells.loc[here, "inhibitor_uM"].to_numpy(float), y[here]
+
+
+def test_flat_demo_compounds_are_inactive_and_ranked_after_every_active():
+    campaign = fit_campaign(dose_response=_demo_wells(FLAT_DEMO + ACTIVE_DEMO), km=40e-6,
+                            engine="lmfit", quiet=True)
+    ranking = campaign.ranking.set_index("compound")
+    for name in FLAT_DEMO:
+        row = ranking.loc[name]
+        assert row["status"] == "inactive", (name, row["status"], row["ki_reported"])
+        assert row["ki_reported"].startswith("inactive: IC50 > 3e-05 M")
+        assert np.isnan(row["ki_M"]) and np.isnan(row["pki"]) and np.isnan(row["hill"])
+        assert "<" not in row["ki_reported"]
+    order = list(campaign.ranking["compound"])
+    assert max(order.index(n) for n in ACTIVE_DEMO) < min(order.index(n) for n in FLAT_DEMO)
+
+
+def test_flat_curve_reports_no_parameter_at_its_bound():
+    wells = _demo_wells(("INV-0113",))
+    conc, y = _percent(wells, "INV-0113")
+    fit = fit_dose_response(conc, y, direction="falling", full_activity=100.0,
+                            intervals="wald")
+    assert fit.curve_class == "inactive"
+    assert fit.ic50_bound == "> 30" and np.isnan(fit.ic50)
+    assert np.isnan(fit.hill) and np.isnan(fit.top) and np.isnan(fit.bottom)
+    assert "inactive" in fit.flags and "ic50_below_range" not in fit.flags
+    assert any(text.startswith("hill:") for text in fit.not_determined)
+
+
+def test_hill_at_its_fitting_bound_is_not_determined():
+    # A step between two tested concentrations: the slope runs to the bound (20).
+    conc = np.geomspace(1e-3, 10, 9)
+    y = np.where(conc < 0.05, 100.0, 0.0)
+    fit = fit_dose_response(conc, y, direction="falling", full_activity=100.0,
+                            intervals="wald")
+    assert fit.estimates["hill"] == pytest.approx(20.0, rel=1e-3)
+    assert np.isnan(fit.hill) and "hill_at_bound" in fit.flags
+    assert "hill: at its fitting bound (20)" in fit.not_determined
+
+
+@pytest.mark.parametrize("case, expected", [
+    ("complete", "complete"), ("midpoint past the top", "incomplete"),
+    ("top dose only", "single_point"), ("flat", "inactive"), ("weak", "inactive"),
+    ("potent, below range", "incomplete"),
+])
+def test_each_class_from_simulated_curves(case, expected):
+    rng = np.random.default_rng(12)
+    x = np.log10(np.geomspace(1e-3, 30, 10))
+    truth = {"complete": (100, 0, -1.0, 1.0), "midpoint past the top": (100, 0, 1.2, 1.0),
+             "top dose only": (100, 0, 1.35, 6.0), "flat": (100, 100, 0.0, 1.0),
+             "weak": (100, 85, -1.0, 1.0), "potent, below range": (100, 0, -4.5, 1.0)}[case]
+    y = logistic4(np.repeat(x, 2), *truth) + rng.normal(0, NOISE, 2 * x.size)
+    fit = fit_dose_response(10 ** np.repeat(x, 2), y, direction="falling",
+                            full_activity=100.0, intervals="wald")
+    assert fit.curve_class == expected, fit.class_reason
+    if expected == "inactive":
+        assert fit.ic50_bound == "> 30"
+
+
+def test_engine_and_lmfit_path_share_the_rule():
+    rng = np.random.default_rng(3)
+    x = np.tile(np.log10(np.geomspace(1e-3, 30, 10)), (4, 1))
+    mids = np.array([[-1.0], [0.5], [3.0], [-2.0]])
+    y = 100 / (1 + 10 ** (x - mids)) + rng.normal(0, NOISE, x.shape)
+    y[2] = 100 + rng.normal(0, NOISE, x.shape[1])  # flat
+    batch = fit_logistic_batch(x, y)
+    classes = classify_curves(x, y, np.ones(x.shape, bool), batch.estimate,
+                              n_free=batch.n_params, full_activity=100.0)
+    for k in range(len(x)):
+        one = classify_curves(x[k:k + 1], y[k:k + 1], np.ones((1, x.shape[1]), bool),
+                              batch.estimate[k:k + 1], full_activity=100.0)
+        assert one.curve_class[0] == classes.curve_class[k]
+    assert classes.curve_class[2] == "inactive"
+    assert set(classes.curve_class) <= set(CURVE_CLASSES)
+    assert "4 curves" in classes.summary() and len(classes.to_frame()) == 4
+
+
+def test_rules_are_checked():
+    with pytest.raises(DataError, match="min_efficacy"):
+        CurveClassRules(min_efficacy=1.5)
