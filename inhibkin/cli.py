@@ -160,7 +160,8 @@ def _km(text):
 
 
 def _fit_arguments(parser, output="ranked table (.csv or .parquet)",
-                   weighting="weights of the grid fits: uniform, relative (constant CV; the default) or sd"):
+                   weighting="weights of the grid fits: uniform, relative (constant CV; "
+                             "the default) or sd"):
     parser.add_argument("-o", "--output", required=True, help=output)
     parser.add_argument("--units", action="append", metavar="NAME=UNIT",
                         help="declare a concentration unit when the header does not carry "
