@@ -237,7 +237,8 @@ def test_ambiguous_constants_are_labelled_as_the_comparison_table_has_them():
     from inhibkin.batch import fit_campaign
 
     data = _ambiguous_where_mixed_has_the_lowest_aicc()
-    fit = ik.fit_mechanisms(data, intervals="wald")
+    # The seed was found under uniform weighting.
+    fit = ik.fit_mechanisms(data, weighting="uniform", intervals="wald")
     assert fit.verdict == "ambiguous" and fit.best == "competitive"
     delta = fit.comparison["delta_aicc"]
     assert delta.idxmin() == "mixed" and delta["competitive"] > 0
