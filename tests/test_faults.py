@@ -47,8 +47,9 @@ def dying_engine(data, *, context=None, **options):
 
 
 def _campaign_table(fault_names):
-    """Eight simulated compounds, ``fault_names`` among them (each a real grid)."""
-    table, _ = simulate_campaign(8, seed=11)
+    """Five simulated compounds, ``fault_names`` among them (each a real grid): enough for
+    two chunks of three, so a lost chunk has neighbours that must come back too."""
+    table, _ = simulate_campaign(5, seed=11)
     names = sorted(table["compound"].unique())
     rename = dict(zip(names[2:2 + len(fault_names)], fault_names))
     table["compound"] = table["compound"].replace(rename)
