@@ -89,9 +89,10 @@ def _check_output(path) -> Path:
     from .io import TABLE_FORMATS
 
     path = Path(path)
-    if path.suffix.lower() not in TABLE_FORMATS:
+    if path.suffix.lower() not in (*TABLE_FORMATS, ".xlsx"):
         raise DataError(Problem("--output", None, str(path),
-                                f"unknown table format; use one of {', '.join(TABLE_FORMATS)}"))
+                                f"unknown table format; use one of {', '.join(TABLE_FORMATS)}, "
+                                f".xlsx"))
     if not (path.parent if str(path.parent) else Path(".")).is_dir():
         raise DataError(Problem("--output", None, str(path), "the directory does not exist"))
     return path
@@ -119,8 +120,45 @@ def _execution(args):
         yield {"workers": getattr(args, "workers", None)}
 
 
+def _read(path, args, *, required, context):
+    """A table from CSV, Parquet, .xlsx or a plate matrix, its headers mapped to the
+    stage's names by the column options (see :mod:`inhibkin.inputs.columns`)."""
+    from .inputs.columns import standardise_columns
+    from .inputs.files import read_any_table
+
+    names = {role: getattr(args, role) for role in _COLUMN_OPTIONS if getattr(args, role, None)}
+    return standardise_columns(read_any_table(path, plate=getattr(args, "plate", None)),
+                               required=required, context=context, options={
+                                   role: f"--{role}" for role in names}, **names)
+
+
+# The column options every stage that reads a table may take (role = option name).
+_COLUMN_OPTIONS = ("compound", "substrate", "inhibitor", "rate", "time", "signal")
+
+
+def _column_arguments(parser, roles=("compound", "substrate", "inhibitor")):
+    """--compound / --substrate / --inhibitor: the header of each column, matched without
+    regard to case, its unit written _uM, (uM), [uM] or µM."""
+    for role in roles:
+        parser.add_argument(f"--{role}", default=role, metavar="COLUMN",
+                            help=f"{role} column (default: '{role}'; matched ignoring case "
+                                 f"and a unit written _uM, (uM) or [uM])")
+
+
+def _write_output(table, path, *, campaign=None):
+    """A table, or (.xlsx) a workbook with the campaign's parameters and plate QC too."""
+    from .io import write_table
+
+    if Path(path).suffix.lower() != ".xlsx":
+        return write_table(table, path)
+    from .excel import campaign_sheets, write_workbook
+
+    sheets = campaign_sheets(campaign) if campaign is not None else {"table": table}
+    return write_workbook(sheets, path)
+
+
 def _fit_options(args) -> dict:
-    return dict(compound=args.compound, units=_units(args.units),
+    return dict(compound="compound", units=_units(args.units),
                 weighting=_weighting(args.weighting),
                 intervals=args.intervals, level=args.level, quiet=args.quiet,
                 chunk_size=args.chunk_size, engine=args.engine)
@@ -128,9 +166,8 @@ def _fit_options(args) -> dict:
 
 def _finish(campaign, output, args) -> int:
     """Write the ranking, report on stdout/stderr, and choose the exit status."""
-    from .io import write_table
-
-    write_table(campaign.ranking, output)
+    _write_output(campaign.ranking, output, campaign=campaign)
+    _keep(campaign, output, args)
     if not args.quiet:
         print(campaign.summary())
     n_failed = campaign.counts["failed"]
@@ -159,14 +196,49 @@ def _km(text):
     return text
 
 
-def _fit_arguments(parser, output="ranked table (.csv or .parquet)",
+def _keep(campaign, output, args) -> None:
+    """--store: write the campaign, with its provenance, to the results store."""
+    if not getattr(args, "store", None):
+        return
+    from .store import write_campaign
+
+    written = write_campaign(args.store, campaign, name=args.campaign or Path(output).stem,
+                             inputs=_input_paths(args), notes=args.notes or "",
+                             options=_stored_options(args))
+    if not args.quiet:
+        print(f"campaign {written.name!r} version {written.version} stored in {args.store}")
+
+
+def _input_paths(args) -> list:
+    return [getattr(args, name) for name in ("grid", "plates", "dose_response")
+            if getattr(args, name, None)]
+
+
+def _stored_options(args) -> dict:
+    skip = {"handler", "store", "notes", "campaign", "quiet"}
+    return {k: v for k, v in vars(args).items() if k not in skip}
+
+
+def _store_arguments(parser):
+    parser.add_argument("--store", metavar="FILE_OR_URL",
+                        help="also keep the campaign in a results store: an SQLite file "
+                             "(created when missing) or a postgresql:// URL")
+    parser.add_argument("--campaign", metavar="NAME",
+                        help="the campaign's name in the store (default: the output's stem); "
+                             "writing a name again adds a new version")
+    parser.add_argument("--notes", metavar="TEXT", help="free-text assay description kept "
+                                                        "with the campaign")
+
+
+def _fit_arguments(parser, output="ranked table (.csv, .parquet or .xlsx)",
                    weighting="weights of the grid fits: uniform, relative (constant CV; "
                              "the default) or sd"):
     parser.add_argument("-o", "--output", required=True, help=output)
     parser.add_argument("--units", action="append", metavar="NAME=UNIT",
                         help="declare a concentration unit when the header does not carry "
                              "one (repeatable), e.g. --units inhibitor=nM")
-    parser.add_argument("--compound", default="compound", help="compound column")
+    _column_arguments(parser)
+    _store_arguments(parser)
     # None: the library's default (relative), read when the stage runs.
     parser.add_argument("--weighting", choices=("uniform", "relative", "sd"), default=None,
                         help=weighting)
@@ -200,7 +272,9 @@ def _dose_options(args) -> dict:
 
 
 def _rates_arguments(parser):
-    parser.add_argument("reads", help="kinetic reads: plate, well, time, signal")
+    parser.add_argument("reads", help="kinetic reads: a table (plate, well, time, signal; "
+                                      "CSV, Parquet or .xlsx) or a plate-reader matrix of "
+                                      "blocks (see README, 'Plate matrices')")
     parser.add_argument("--plate-map", required=True,
                         help="one row per well: plate, well, compound, substrate_<unit>, "
                              "inhibitor_<unit>, role")
@@ -215,6 +289,10 @@ def _rates_arguments(parser):
     parser.add_argument("--rate", default="rate", metavar="COLUMN",
                         help="name of the rate column written (default: 'rate'; give the "
                              "same --rate to the mechanism stage)")
+    _column_arguments(parser)
+    parser.add_argument("--plate", metavar="NAME",
+                        help="plate name of plate-matrix blocks that name none (default: "
+                             "the file's name)")
     parser.add_argument("--time-unit", choices=("s", "ms", "min", "h"),
                         help="unit of the times (default: the time header's unit, else s)")
     parser.add_argument("--rate-time-unit", choices=("s", "ms", "min", "h"),
@@ -235,45 +313,45 @@ def _rates_arguments(parser):
                              "carry none")
 
 
-def _check_read_columns(reads, args) -> None:
-    """Name the option when the column it names (or its default) is not in the reads."""
-    from .units import split_unit
+class _ReadsOnly:
+    """The rates stage's options that name columns of the reads (time, signal)."""
 
-    have = [str(c) for c in reads.columns]
-    for option, name, kind in (("--time", args.time, "time"),
-                               ("--signal", args.signal, "concentration")):
-        if name in have or any(split_unit(c, kind=kind)[0] == name
-                               and split_unit(c, kind=kind)[1] for c in have):
-            continue
-        raise DataError(Problem(option, None, name,
-                                f"no such column in the reads; they have: "
-                                f"{', '.join(map(repr, have[:20]))}; name the column with "
-                                f"{option}"))
+    def __init__(self, args):
+        self.time, self.signal, self.plate = args.time, args.signal, args.plate
+
+
+class _MapOnly:
+    """The rates stage's options that name columns of the plate map."""
+
+    def __init__(self, args):
+        self.compound, self.substrate, self.inhibitor = (args.compound, args.substrate,
+                                                         args.inhibitor)
 
 
 def _rates(args) -> int:
-    from .io import read_table, write_table
     from .rates import initial_rates
     from .signal import BeerLambert
     from .units import resolve_units
 
     output = _check_output(args.output)
-    reads, plate_map = read_table(args.reads), read_table(args.plate_map)
-    _check_read_columns(reads, args)
+    reads = _read(args.reads, _ReadsOnly(args), required=("plate", "well", "time", "signal"),
+                  context="reads")
+    plate_map = _read(args.plate_map, _MapOnly(args), required=("plate", "well"),
+                      context="plate map")
     found = resolve_units(plate_map.columns, ["substrate", "inhibitor"],
                           units=_units(args.units), context="plate map")
     (substrate, substrate_unit), (inhibitor, inhibitor_unit) = (found["substrate"],
                                                                 found["inhibitor"])
     conversion = (BeerLambert.of(args.chromophore, path_length=args.path_length)
                   if args.chromophore else None)
-    result = initial_rates(reads, plate_map, time=args.time, signal=args.signal,
+    result = initial_rates(reads, plate_map, time="time", signal="signal",
                            time_unit=args.time_unit,
                            rate_time_unit=args.rate_time_unit, method=args.method,
                            conversion=conversion, signal_unit=args.signal_unit,
                            substrate=substrate, inhibitor=inhibitor,
                            substrate_unit=substrate_unit, inhibitor_unit=inhibitor_unit,
                            direction=args.direction)
-    write_table(result.to_frame().rename(columns={"rate": args.rate}), output)
+    _write_output(result.to_frame().rename(columns={"rate": args.rate}), output)
     if not args.quiet:
         print(result.summary())
     n_failed = int((result.table["status"] == "failed").sum())
@@ -298,15 +376,20 @@ def _rate_column_argument(parser):
                         help="rate column of the grid (default: 'rate')")
 
 
+# Columns each kind of table must have (roles of inhibkin.inputs.columns).
+_GRID_COLUMNS = ("compound", "substrate", "inhibitor", "rate")
+_DOSE_COLUMNS = ("compound", "inhibitor")
+
+
 def _mechanism(args) -> int:
     from .batch import fit_campaign
-    from .io import read_table, write_table
+    from .io import write_table
 
     output = _check_output(args.output)
     params = _check_output(args.params) if args.params else None
-    table = read_table(args.grid)
+    table = _read(args.grid, args, required=_GRID_COLUMNS, context="grid")
     with _execution(args) as where:
-        campaign = fit_campaign(table, rate=args.rate, **_fit_options(args), **where)
+        campaign = fit_campaign(table, rate="rate", **_fit_options(args), **where)
     if params is not None:
         write_table(campaign.parameters(), params)
     return _finish(campaign, output, args)
@@ -324,14 +407,22 @@ def _potency_arguments(parser):
 
 def _potency(args) -> int:
     from .batch import fit_campaign
-    from .io import read_table
 
     output = _check_output(args.output)
-    table = read_table(args.plates)
+    table = _read(args.plates, _DoseColumns(args), required=_DOSE_COLUMNS,
+                  context="dose-response table")
     with _execution(args) as where:
         campaign = fit_campaign(dose_response=table, **_dose_options(args),
                                 **_fit_options(args), **where)
     return _finish(campaign, output, args)
+
+
+class _DoseColumns:
+    """Column options for a dose-response table: its signal is the 'signal' column."""
+
+    def __init__(self, args):
+        self.compound, self.substrate, self.inhibitor = (args.compound, args.substrate,
+                                                         args.inhibitor)
 
 
 def _rank_arguments(parser):
@@ -345,13 +436,14 @@ def _rank_arguments(parser):
 def _whole_campaign(args):
     """fit_campaign over --grid and/or --dose-response (the rank and report stages)."""
     from .batch import fit_campaign
-    from .io import read_table
 
-    grid = read_table(args.grid) if args.grid else None
-    dose = read_table(args.dose_response) if args.dose_response else None
+    grid = (_read(args.grid, args, required=_GRID_COLUMNS, context="grid")
+            if args.grid else None)
+    dose = (_read(args.dose_response, _DoseColumns(args), required=_DOSE_COLUMNS,
+                  context="dose-response table") if args.dose_response else None)
     dose_options = _dose_options(args) if dose is not None else {}
     with _execution(args) as where:
-        return fit_campaign(grid, dose_response=dose, rate=args.rate, **dose_options,
+        return fit_campaign(grid, dose_response=dose, rate="rate", **dose_options,
                             **_fit_options(args), **where)
 
 
@@ -374,7 +466,6 @@ def _report_arguments(parser):
 
 
 def _report(args) -> int:
-    from .io import write_table
     from .report import report
 
     if not args.grid and not args.dose_response:
@@ -387,7 +478,8 @@ def _report(args) -> int:
     ranking = _check_output(args.ranking) if args.ranking else None
     campaign = _whole_campaign(args)
     if ranking is not None:
-        write_table(campaign.ranking, ranking)
+        _write_output(campaign.ranking, ranking, campaign=campaign)
+    _keep(campaign, ranking or output, args)
     path = report(campaign, output, rate_unit=args.rate_unit)
     if not args.quiet:
         print(f"report written to {path.resolve()}")
