@@ -334,10 +334,12 @@ def _rates(args) -> int:
     from .units import resolve_units
 
     output = _check_output(args.output)
-    reads = _read(args.reads, _ReadsOnly(args), required=("plate", "well", "time", "signal"),
+    reads = _read(args.reads, _ReadsOnly(args), required=("plate", "well", "signal"),
                   context="reads")
     plate_map = _read(args.plate_map, _MapOnly(args), required=("plate", "well"),
                       context="plate map")
+    if not any(c == "time" or c.startswith("time_") for c in map(str, reads.columns)):
+        return _endpoint(reads, plate_map, output, args)
     found = resolve_units(plate_map.columns, ["substrate", "inhibitor"],
                           units=_units(args.units), context="plate map")
     (substrate, substrate_unit), (inhibitor, inhibitor_unit) = (found["substrate"],
@@ -359,6 +361,118 @@ def _rates(args) -> int:
         print(f"inhibkin rates: {n_failed} wells failed; see the 'flags' and 'status' columns "
               f"of {output}", file=sys.stderr)
         return EXIT_SOME_FAILED
+    return EXIT_OK
+
+
+def _endpoint(reads, plate_map, output, args) -> int:
+    """Reads without a time (one block per plate): each well's signal joined to the plate
+    map, the dose-response table of the potency stage."""
+    from .inputs.layouts import join_layout
+
+    if args.time != "time":
+        raise DataError(Problem("--time", None, args.time,
+                                "no such column in the reads, and they hold no read times"))
+    table = join_layout(reads, plate_map)
+    _write_output(table, output)
+    if not args.quiet:
+        print(f"endpoint reads: {len(table)} wells of {table['plate'].nunique()} plates "
+              f"joined to the plate map, written to {output}")
+    return EXIT_OK
+
+
+def _layout_arguments(parser):
+    parser.add_argument("kind", choices=("dilution", "grid", "show"),
+                        help="dilution: one compound per row, a dilution series along the "
+                             "columns, control columns; grid: one compound's substrate "
+                             "levels along rows × inhibitor levels along columns; show: "
+                             "print an existing layout (FILE) as a plate")
+    parser.add_argument("file", nargs="?", help="the layout to show (with 'show')")
+    parser.add_argument("-o", "--output", help="write the layout (.csv, .parquet or .xlsx)")
+    parser.add_argument("--plate", default="P1", help="plate name")
+    parser.add_argument("--wells", type=int, default=96, choices=(96, 384, 1536))
+    parser.add_argument("--compounds", help="dilution: compounds, comma-separated, one per row")
+    parser.add_argument("--compound", help="grid: the compound")
+    parser.add_argument("--top", type=float, help="dilution: top inhibitor concentration")
+    parser.add_argument("--factor", type=float, default=3.0, help="dilution factor")
+    parser.add_argument("--unit", default="uM", help="inhibitor concentration unit")
+    parser.add_argument("--substrate", help="dilution: the assay's substrate concentration; "
+                                            "grid: the substrate levels, comma-separated")
+    parser.add_argument("--substrate-unit", default="uM")
+    parser.add_argument("--inhibitor", help="grid: the inhibitor levels, comma-separated")
+    parser.add_argument("--replicates", type=int, default=1, help="grid: wells per pair")
+    parser.add_argument("--value", default="compound",
+                        help="column shown in the printed plate (default: compound)")
+
+
+def _layout(args) -> int:
+    from .inputs.columns import standardise_columns
+    from .inputs.files import read_any_table
+    from .inputs.layouts import dilution_layout, grid_layout, plate_grid
+
+    output = _check_output(args.output) if args.output else None
+    if args.kind == "show":
+        if not args.file:
+            raise DataError(Problem("file", None, None, "name the layout to show"))
+        layout = standardise_columns(read_any_table(args.file), required=("plate", "well"),
+                                     context="layout")
+    elif args.kind == "dilution":
+        if not args.compounds or args.top is None:
+            raise DataError("a dilution layout needs --compounds and --top")
+        layout = dilution_layout(
+            [c.strip() for c in args.compounds.split(",") if c.strip()], top=args.top,
+            factor=args.factor, unit=args.unit, plate=args.plate, wells=args.wells,
+            substrate=float(args.substrate) if args.substrate else None,
+            substrate_unit=args.substrate_unit)
+    else:
+        if not args.compound or not args.substrate or not args.inhibitor:
+            raise DataError("a grid layout needs --compound, --substrate and --inhibitor")
+        layout = grid_layout(args.compound, substrate=_levels(args.substrate, "--substrate"),
+                             inhibitor=_levels(args.inhibitor, "--inhibitor"),
+                             substrate_unit=args.substrate_unit, inhibitor_unit=args.unit,
+                             plate=args.plate, wells=args.wells, replicates=args.replicates)
+    if output is not None:
+        _write_output(layout, output)
+    print(plate_grid(layout, value=args.value))
+    return EXIT_OK
+
+
+def _store_stage_arguments(parser):
+    parser.add_argument("store", metavar="FILE_OR_URL",
+                        help="the results store: an SQLite file or a postgresql:// URL")
+    parser.add_argument("what", choices=("campaigns", "campaign", "history", "msr"),
+                        help="campaigns: every campaign kept; campaign NAME: its ranked "
+                             "table (--table for another); history COMPOUND: the compound "
+                             "across campaigns; msr: minimum significant ratio of pKi and "
+                             "pIC50 from compounds measured more than once")
+    parser.add_argument("name", nargs="?", help="the campaign or the compound")
+    parser.add_argument("--version", type=int, help="campaign version (default: the latest)")
+    parser.add_argument("--table", default="ranking",
+                        choices=("ranking", "parameters", "comparisons", "plates"),
+                        help="which of the campaign's tables (with 'campaign')")
+    parser.add_argument("-o", "--output", help="also write the table (.csv, .parquet, .xlsx)")
+
+
+def _store_stage(args) -> int:
+    from . import store
+    from .text import text_table
+
+    output = _check_output(args.output) if args.output else None
+    if args.what in ("campaign", "history") and not args.name:
+        thing = "compound" if args.what == "history" else "campaign"
+        raise DataError(Problem("name", None, None, f"name the {thing}"))
+    with store.ResultStore(args.store, create=False) as kept:
+        if args.what == "campaigns":
+            table = kept.campaigns()
+        elif args.what == "campaign":
+            table = kept.campaign_table(args.name, args.table, version=args.version)
+        elif args.what == "history":
+            table = kept.history(args.name)
+        else:
+            table = kept.msr().to_frame()
+    if output is not None:
+        _write_output(table, output)
+    if not args.quiet:
+        print(text_table(table, index=False))
     return EXIT_OK
 
 
@@ -613,6 +727,21 @@ SUBCOMMANDS = [
         "--substrate 0.01,0.02,0.04,0.08,0.16,0.32,0.64,1.28,2.56,5.12,10.24,20.48 "
         "--inhibitor 0.001,0.003,0.009,0.027,0.081,0.243,0.729,2.187 -o layout.csv",
         _design_arguments, _design, parallel=False),
+    Subcommand(
+        "layout", "write a usual plate layout, or print a layout as a plate for review",
+        "inhibkin layout dilution --compounds CPD-1,CPD-2 --top 30 --unit uM --factor 3 "
+        "--substrate 40 -o layout.csv\n"
+        "  inhibkin layout grid --compound CPD-1 --substrate 2,5,10,20,40,80,160,320 "
+        "--inhibitor 0,10,30,100 --unit nM --replicates 3 -o grid_map.csv\n"
+        "  inhibkin layout show layout.csv --value role",
+        _layout_arguments, _layout, parallel=False),
+    Subcommand(
+        "store", "read back the results store: campaigns, a compound's history, the MSR",
+        "inhibkin rank --grid grid.csv -o ranking.csv --store results.sqlite "
+        "--campaign week-12 --notes 'kinase X, 1 mM ATP'\n"
+        "  inhibkin store results.sqlite history CPD-0007\n"
+        "  inhibkin store results.sqlite msr",
+        _store_stage_arguments, _store_stage, parallel=False),
     Subcommand("demo", "run the demo flow on invented data", "inhibkin demo",
                _demo_arguments, _demo, parallel=False),
 ]
