@@ -57,7 +57,7 @@ def read_any_table(path, *, sheet=None, plate=None, missing=()):
     if not path.is_file():
         raise DataError("no such file", context)
     if suffix == ".xlsx":
-        from .excel import read_workbook_rows, rows_to_table
+        from ..excel import read_workbook_rows, rows_to_table
 
         rows = read_workbook_rows(path, sheet=sheet)
         if looks_like_plate_matrix(rows):
