@@ -56,7 +56,8 @@ __all__ = ["read_plate_matrix", "parse_plate_matrix", "looks_like_plate_matrix",
 #: Cell texts read as a missing read (compared case-insensitively).
 MISSING_MARKS = ("", "nan", "na", "n/a", "-")
 _ROWS_FOR_COLUMNS = {columns: rows for rows, columns in PLATE_FORMATS.values()}
-_HEADER_KEY = re.compile(r"(?i)\b(plate|time)\b\s*[:=]?\s*([^,;\t]*)")
+_HEADER_KEY = re.compile(r"(?i)\b(plate|time)\b\s*[:=]?\s*"
+                         r"([^,;\t]*?)(?=\s+(?:plate|time)\b|[,;\t]|$)")
 _CLOCK = re.compile(r"^\s*(?:(\d+):)?(\d+):(\d+(?:\.\d*)?)\s*$")
 _TIME_WITH_UNIT = re.compile(r"^\s*([-+]?[0-9]*\.?[0-9]+(?:[eE][-+]?[0-9]+)?)\s*([A-Za-z]*)\s*$")
 
