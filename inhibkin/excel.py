@@ -6,7 +6,9 @@ value as an empty cell), and every text cell as text — including text that sta
 otherwise run as a formula (formula injection: a compound named ``=HYPERLINK(...)``).
 Such cells are written as strings with the quote-prefix style, so the workbook shows the
 exact input text and never evaluates it. :func:`campaign_sheets` gives a campaign's
-ranked table, parameters and plate QC.
+ranked table, parameters and plate QC. Numbers carry 16 significant digits (openpyxl's
+number format; Excel shows 15): for copies exact to the bit use Parquet, CSV or the
+results store.
 
 In: :func:`read_workbook_rows` gives a sheet's rows of cell values (what the formulas
 last computed, never the formulas); :func:`rows_to_table` turns them into a table.
