@@ -158,6 +158,15 @@ def _write_output(table, path, *, campaign=None):
 
 
 def _fit_options(args) -> dict:
+    if getattr(args, "figures", None):  # checked before the fits, not after
+        from .figure_files import MIN_DPI
+
+        folder = Path(args.figures)
+        if not (folder.parent if str(folder.parent) else Path(".")).is_dir():
+            raise DataError(Problem("--figures", None, args.figures,
+                                    "the parent directory does not exist"))
+        if args.figure_format == "png" and not args.dpi >= MIN_DPI:
+            raise DataError(Problem("--dpi", None, args.dpi, f"must be at least {MIN_DPI}"))
     return dict(compound="compound", units=_units(args.units),
                 weighting=_weighting(args.weighting),
                 intervals=args.intervals, level=args.level, quiet=args.quiet,
@@ -168,6 +177,7 @@ def _finish(campaign, output, args) -> int:
     """Write the ranking, report on stdout/stderr, and choose the exit status."""
     _write_output(campaign.ranking, output, campaign=campaign)
     _keep(campaign, output, args)
+    _draw(campaign, args)
     if not args.quiet:
         print(campaign.summary())
     n_failed = campaign.counts["failed"]
@@ -209,6 +219,14 @@ def _keep(campaign, output, args) -> None:
         print(f"campaign {written.name!r} version {written.version} stored in {args.store}")
 
 
+def _draw(campaign, args) -> None:
+    """--figures DIR: every compound's figures as files (PNG at --dpi, or SVG)."""
+    if getattr(args, "figures", None):
+        from .figure_files import write_figures
+
+        write_figures(campaign, args.figures, format=args.figure_format, dpi=args.dpi)
+
+
 def _input_paths(args) -> list:
     return [getattr(args, name) for name in ("grid", "plates", "dose_response")
             if getattr(args, name, None)]
@@ -239,6 +257,13 @@ def _fit_arguments(parser, output="ranked table (.csv, .parquet or .xlsx)",
                              "one (repeatable), e.g. --units inhibitor=nM")
     _column_arguments(parser)
     _store_arguments(parser)
+    parser.add_argument("--figures", metavar="DIR",
+                        help="also write every compound's figures into DIR (created when "
+                             "missing), with an index.csv of compound -> files")
+    parser.add_argument("--figure-format", choices=("png", "svg"), default="png",
+                        help="format of --figures (default png)")
+    parser.add_argument("--dpi", type=float, default=150.0,
+                        help="resolution of PNG --figures, at least 150 (default 150)")
     # None: the library's default (relative), read when the stage runs.
     parser.add_argument("--weighting", choices=("uniform", "relative", "sd"), default=None,
                         help=weighting)
@@ -594,6 +619,7 @@ def _report(args) -> int:
     if ranking is not None:
         _write_output(campaign.ranking, ranking, campaign=campaign)
     _keep(campaign, ranking or output, args)
+    _draw(campaign, args)
     path = report(campaign, output, rate_unit=args.rate_unit)
     if not args.quiet:
         print(f"report written to {path.resolve()}")
