@@ -124,7 +124,8 @@ def test_matrix_refusals_name_the_line(edit, message):
 def test_headers_match_without_regard_to_case_and_unit_spelling():
     table = pd.DataFrame({"Compound": ["x"], "Substrate (uM)": [1.0], "inhibitor [nM]": [2.0],
                           "Rate (mOD/min)": [3.0], "Well": ["B03"]})
-    out = standardise_columns(table, required=("compound", "substrate", "inhibitor", "rate"))
+    out = standardise_columns(table, required=("compound", "substrate", "inhibitor", "rate",
+                                                "well"))
     assert list(out.columns) == ["compound", "substrate_uM", "inhibitor_nM", "rate", "well"]
     assert out["well"].tolist() == ["B3"]
     for header, unit in (("substrate (uM)", "uM"), ("SUBSTRATE_µM", "uM"),

@@ -156,7 +156,7 @@ def standardise_columns(table, *, required=(), context=None, options=None, **nam
         The table with each found role's header renamed to the role (``compound``,
         ``rate``, ``signal``), or ``role_<unit>`` for a concentration or time header
         that carries a unit (``substrate_uM``, ``time_min``). Other columns are kept as
-        they are.
+        they are. When ``well`` is required its names are normalised (``A01`` -> ``A1``).
 
     Raises
     ------
@@ -191,7 +191,7 @@ def standardise_columns(table, *, required=(), context=None, options=None, **nam
         raise DataError(f"renaming the matched headers would repeat {sorted(clashes)}; "
                         f"rename or drop the other column", context)
     out = table.rename(columns=renames)
-    if "well" in out.columns:
+    if "well" in required:  # a table that is read by well (reads, plate maps, layouts)
         from .wells import normalise_wells
 
         out["well"] = normalise_wells(out["well"], context=context).to_numpy()
