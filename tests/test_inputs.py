@@ -71,7 +71,7 @@ def test_matrix_variants_are_read(rng):
     cell, clock times, comma / space / semicolon cells, decimal commas, trailing
     separators, a 1536-well block, plate named once for a kinetic series."""
     v96 = rng.uniform(size=(8, 12)).round(4)
-    lines = ["Instrument export", "Protocol: kinetic, 2 reads", ""]
+    lines = ["Instrument export", "Protocol: kinetic, 2 reads", "1,2,3", ""]
     lines += _block(v96, head="Plate: K1; Time: 0:00:30")
     lines += ["", "some footer text", ""]
     lines += [line + "\t" for line in _block(v96 * 2, corner="0:01:00")]  # trailing tabs

@@ -200,6 +200,12 @@ def _blocks(lines, missing, context):
             k += 1
             continue
         n_columns, corner = found
+        if n_columns not in _ROWS_FOR_COLUMNS and not _row_a_follows(records, k):
+            # A line of numbers in the free text between blocks ("1,2,3" of a setting).
+            previous_nonblank = (number, lines[number - 1] if isinstance(
+                lines[number - 1], str) else cells)
+            k += 1
+            continue
         if n_columns not in _ROWS_FOR_COLUMNS:
             raise DataError(f"line {number}: a column line numbered 1 to {n_columns}; a plate "
                             f"has 12, 24 or 48 columns", context)
@@ -314,12 +320,18 @@ def parse_plate_matrix(lines, *, plate="plate", missing=(), context=None) -> pd.
     return table
 
 
+def _row_a_follows(records, k) -> bool:
+    following = _trim(records[k + 1][1]) if k + 1 < len(records) else []
+    return bool(following) and row_index(_text(following[0])) == 0
+
+
 def looks_like_plate_matrix(lines) -> bool:
-    """Whether ``lines`` hold a column line directly followed by a row ``A``."""
+    """Whether ``lines`` hold a column line of 12, 24 or 48 columns directly followed by a
+    row ``A``."""
     records = list(_records(lines))
-    for (_, cells, _), (_, following, _) in zip(records, records[1:]):
-        following = _trim(following)
-        if _column_line(cells) and following and row_index(_text(following[0])) == 0:
+    for k, (_, cells, _) in enumerate(records[:-1]):
+        found = _column_line(cells)
+        if found and found[0] in _ROWS_FOR_COLUMNS and _row_a_follows(records, k):
             return True
     return False
 
