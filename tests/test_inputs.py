@@ -6,6 +6,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from inhibkin.cli import main
 from inhibkin.errors import DataError
@@ -279,3 +281,19 @@ def test_layout_stage_writes_and_shows(tmp_path, capsys):
     assert main(["layout", "show", str(out), "--value", "inhibitor_nM"]) == 0
     shown = capsys.readouterr().out
     assert "plate P1 (inhibitor_nM)" in shown and shown.count("10") >= 3
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.lists(st.text(alphabet="AB H1203.,;\t-:ptimelas", max_size=40), max_size=30),
+       st.integers(0, 9))
+def test_matrix_reader_refuses_garbage_only_with_data_errors(noise, at):
+    """Any text, and any text spliced into a valid block: a table or a DataError with a
+    line, never another exception."""
+    block = _block(np.full((8, 12), 0.25))
+    for lines in (noise, block[:at] + noise + block[at:]):
+        try:
+            table = parse_plate_matrix(lines)
+        except DataError as err:
+            assert str(err)
+        else:
+            assert list(table.columns)[:2] == ["plate", "well"]
