@@ -167,6 +167,10 @@ def _fit_options(args) -> dict:
                                     "the parent directory does not exist"))
         if args.figure_format == "png" and not args.dpi >= MIN_DPI:
             raise DataError(Problem("--dpi", None, args.dpi, f"must be at least {MIN_DPI}"))
+    if getattr(args, "store", None):  # a store that cannot be opened stops the run now
+        from .store import ResultStore
+
+        ResultStore(args.store).close()
     return dict(compound="compound", units=_units(args.units),
                 weighting=_weighting(args.weighting),
                 intervals=args.intervals, level=args.level, quiet=args.quiet,

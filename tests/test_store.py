@@ -224,6 +224,12 @@ def test_history_and_msr_from_two_campaigns(tmp_path, campaigns, capsys):
                                rtol=1e-12)
     assert main(["store", str(store), "campaigns"]) == 0
     assert "re-run" in capsys.readouterr().out
+    # A store that cannot be opened is refused before the fits, and nothing is written.
+    assert main(["rank", "--grid", str(paths[0]), "-o", str(tmp_path / "r3.csv"), "--quiet",
+                 "--store", str(tmp_path / "no" / "such" / "dir.sqlite")]) == 2
+    assert "cannot open the results store" in capsys.readouterr().err
+    assert not (tmp_path / "r3.csv").exists()
+    assert main(["store", str(tmp_path / "absent.sqlite"), "campaigns"]) == 2
 
 
 def test_msr_pooled_sd_against_statsmodels_and_a_known_sd():
