@@ -461,7 +461,8 @@ def _layout(args) -> int:
                              plate=args.plate, wells=args.wells, replicates=args.replicates)
     if output is not None:
         _write_output(layout, output)
-    print(plate_grid(layout, value=args.value))
+    if args.kind == "show" or not args.quiet:
+        print(plate_grid(layout, value=args.value))
     return EXIT_OK
 
 
