@@ -146,9 +146,14 @@ def test_a_missing_column_is_answered_with_the_closest_header():
                                         r"column; did you mean 'Substrat \(uM\)'\?"):
         standardise_columns(table, required=("substrate",), options={"substrate": "--substrate"})
     with pytest.raises(DataError, match=r"several columns match 'inhibitor'"):
-        standardise_columns(pd.DataFrame({"inhibitor_nM": [1], "Inhibitor (uM)": [1]}))
+        standardise_columns(pd.DataFrame({"inhibitor_nM": [1], "Inhibitor (uM)": [1]}),
+                            required=("inhibitor",))
+    # Columns the stage does not read are left alone, even when they would clash.
+    kept = standardise_columns(pd.DataFrame({"Plate": [1], "PLATE": [2], "rate": [1.0]}),
+                               required=("rate",))
+    assert list(kept.columns) == ["Plate", "PLATE", "rate"]
     with pytest.raises(DataError, match=r"unknown concentration unit in the header"):
-        standardise_columns(pd.DataFrame({"substrate (furlongs)": [1]}))
+        standardise_columns(pd.DataFrame({"substrate (furlongs)": [1]}), required=("substrate",))
 
 
 # ---------------------------------------------------------------- the rates stage

@@ -171,8 +171,13 @@ def standardise_columns(table, *, required=(), context=None, options=None, **nam
     renames, problems = {}, []
     for role, kind in ROLES.items():
         name = names.get(role) or role
-        found = find_column(columns, name, kind=kind, label_ok=role in _LABEL_OK,
-                            context=context, option=options.get(role))
+        try:
+            found = find_column(columns, name, kind=kind, label_ok=role in _LABEL_OK,
+                                context=context, option=options.get(role))
+        except DataError:
+            if role in required or role in names:
+                raise
+            continue  # a column the stage does not read: left as it is
         if found is None:
             if role in required:
                 problems.append(Problem(options.get(role, role), None, name,
