@@ -13,7 +13,9 @@ from .curve_class import CurveClassRules
 from .design import GridPlan, plan_grid
 from .engine import fit_logistic_batch, fit_mechanism_arrays, fit_mechanisms_batch
 from .errors import DataError, FitError, InhibkinError, InhibkinWarning, UnitsError
+from .excel import write_workbook
 from .fitting import ModelFit, fit_michaelis_menten
+from .inputs import read_any_table, read_plate_matrix, standardise_columns
 from .io import read_table, write_table
 from .mechanism import MechanismFit, fit_mechanisms
 from .models import MODELS, RateLaw
@@ -25,6 +27,7 @@ from .rates import InitialRates, initial_rates
 from .report import fit_html, report
 from .signal import CHROMOPHORES, BeerLambert, StandardCurve, fit_standard_curve
 from .simulate import simulate_grid, standard_design
+from .store import ResultStore, minimum_significant_ratio, write_campaign
 from .units import from_molar, to_molar
 
 __version__ = "0.1.0"
@@ -77,4 +80,11 @@ __all__ = [
     "fit_michaelis_menten",
     "simulate_grid",
     "standard_design",
+    "read_any_table",
+    "read_plate_matrix",
+    "standardise_columns",
+    "write_workbook",
+    "ResultStore",
+    "minimum_significant_ratio",
+    "write_campaign",
 ]

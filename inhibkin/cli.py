@@ -89,9 +89,10 @@ def _check_output(path) -> Path:
     from .io import TABLE_FORMATS
 
     path = Path(path)
-    if path.suffix.lower() not in TABLE_FORMATS:
+    if path.suffix.lower() not in (*TABLE_FORMATS, ".xlsx"):
         raise DataError(Problem("--output", None, str(path),
-                                f"unknown table format; use one of {', '.join(TABLE_FORMATS)}"))
+                                f"unknown table format; use one of {', '.join(TABLE_FORMATS)}, "
+                                f".xlsx"))
     if not (path.parent if str(path.parent) else Path(".")).is_dir():
         raise DataError(Problem("--output", None, str(path), "the directory does not exist"))
     return path
@@ -119,8 +120,58 @@ def _execution(args):
         yield {"workers": getattr(args, "workers", None)}
 
 
+def _read(path, args, *, required, context):
+    """A table from CSV, Parquet, .xlsx or a plate matrix, its headers mapped to the
+    stage's names by the column options (see :mod:`inhibkin.inputs.columns`)."""
+    from .inputs.columns import standardise_columns
+    from .inputs.files import read_any_table
+
+    names = {role: getattr(args, role) for role in _COLUMN_OPTIONS if getattr(args, role, None)}
+    return standardise_columns(read_any_table(path, plate=getattr(args, "plate", None)),
+                               required=required, context=context, options={
+                                   role: f"--{role}" for role in names}, **names)
+
+
+# The column options every stage that reads a table may take (role = option name).
+_COLUMN_OPTIONS = ("compound", "substrate", "inhibitor", "rate", "time", "signal")
+
+
+def _column_arguments(parser, roles=("compound", "substrate", "inhibitor")):
+    """--compound / --substrate / --inhibitor: the header of each column, matched without
+    regard to case, its unit written _uM, (uM), [uM] or µM."""
+    for role in roles:
+        parser.add_argument(f"--{role}", default=role, metavar="COLUMN",
+                            help=f"{role} column (default: '{role}'; matched ignoring case "
+                                 f"and a unit written _uM, (uM) or [uM])")
+
+
+def _write_output(table, path, *, campaign=None):
+    """A table, or (.xlsx) a workbook with the campaign's parameters and plate QC too."""
+    from .io import write_table
+
+    if Path(path).suffix.lower() != ".xlsx":
+        return write_table(table, path)
+    from .excel import campaign_sheets, write_workbook
+
+    sheets = campaign_sheets(campaign) if campaign is not None else {"table": table}
+    return write_workbook(sheets, path)
+
+
 def _fit_options(args) -> dict:
-    return dict(compound=args.compound, units=_units(args.units),
+    if getattr(args, "figures", None):  # checked before the fits, not after
+        from .figure_files import MIN_DPI
+
+        folder = Path(args.figures)
+        if not (folder.parent if str(folder.parent) else Path(".")).is_dir():
+            raise DataError(Problem("--figures", None, args.figures,
+                                    "the parent directory does not exist"))
+        if args.figure_format == "png" and not args.dpi >= MIN_DPI:
+            raise DataError(Problem("--dpi", None, args.dpi, f"must be at least {MIN_DPI}"))
+    if getattr(args, "store", None):  # a store that cannot be opened stops the run now
+        from .store import ResultStore
+
+        ResultStore(args.store).close()
+    return dict(compound="compound", units=_units(args.units),
                 weighting=_weighting(args.weighting),
                 intervals=args.intervals, level=args.level, quiet=args.quiet,
                 chunk_size=args.chunk_size, engine=args.engine)
@@ -128,9 +179,9 @@ def _fit_options(args) -> dict:
 
 def _finish(campaign, output, args) -> int:
     """Write the ranking, report on stdout/stderr, and choose the exit status."""
-    from .io import write_table
-
-    write_table(campaign.ranking, output)
+    _write_output(campaign.ranking, output, campaign=campaign)
+    _keep(campaign, output, args)
+    _draw(campaign, args)
     if not args.quiet:
         print(campaign.summary())
     n_failed = campaign.counts["failed"]
@@ -159,14 +210,64 @@ def _km(text):
     return text
 
 
-def _fit_arguments(parser, output="ranked table (.csv or .parquet)",
+def _keep(campaign, output, args) -> None:
+    """--store: write the campaign, with its provenance, to the results store."""
+    if not getattr(args, "store", None):
+        return
+    from .store import write_campaign
+
+    written = write_campaign(args.store, campaign, name=args.campaign or Path(output).stem,
+                             inputs=_input_paths(args), notes=args.notes or "",
+                             options=_stored_options(args))
+    if not args.quiet:
+        print(f"campaign {written.name!r} version {written.version} stored in {args.store}")
+
+
+def _draw(campaign, args) -> None:
+    """--figures DIR: every compound's figures as files (PNG at --dpi, or SVG)."""
+    if getattr(args, "figures", None):
+        from .figure_files import write_figures
+
+        write_figures(campaign, args.figures, format=args.figure_format, dpi=args.dpi)
+
+
+def _input_paths(args) -> list:
+    return [getattr(args, name) for name in ("grid", "plates", "dose_response")
+            if getattr(args, name, None)]
+
+
+def _stored_options(args) -> dict:
+    skip = {"handler", "store", "notes", "campaign", "quiet"}
+    return {k: v for k, v in vars(args).items() if k not in skip}
+
+
+def _store_arguments(parser):
+    parser.add_argument("--store", metavar="FILE_OR_URL",
+                        help="also keep the campaign in a results store: an SQLite file "
+                             "(created when missing) or a postgresql:// URL")
+    parser.add_argument("--campaign", metavar="NAME",
+                        help="the campaign's name in the store (default: the output's stem); "
+                             "writing a name again adds a new version")
+    parser.add_argument("--notes", metavar="TEXT", help="free-text assay description kept "
+                                                        "with the campaign")
+
+
+def _fit_arguments(parser, output="ranked table (.csv, .parquet or .xlsx)",
                    weighting="weights of the grid fits: uniform, relative (constant CV; "
                              "the default) or sd"):
     parser.add_argument("-o", "--output", required=True, help=output)
     parser.add_argument("--units", action="append", metavar="NAME=UNIT",
                         help="declare a concentration unit when the header does not carry "
                              "one (repeatable), e.g. --units inhibitor=nM")
-    parser.add_argument("--compound", default="compound", help="compound column")
+    _column_arguments(parser)
+    _store_arguments(parser)
+    parser.add_argument("--figures", metavar="DIR",
+                        help="also write every compound's figures into DIR (created when "
+                             "missing), with an index.csv of compound -> files")
+    parser.add_argument("--figure-format", choices=("png", "svg"), default="png",
+                        help="format of --figures (default png)")
+    parser.add_argument("--dpi", type=float, default=150.0,
+                        help="resolution of PNG --figures, at least 150 (default 150)")
     # None: the library's default (relative), read when the stage runs.
     parser.add_argument("--weighting", choices=("uniform", "relative", "sd"), default=None,
                         help=weighting)
@@ -200,7 +301,9 @@ def _dose_options(args) -> dict:
 
 
 def _rates_arguments(parser):
-    parser.add_argument("reads", help="kinetic reads: plate, well, time, signal")
+    parser.add_argument("reads", help="kinetic reads: a table (plate, well, time, signal; "
+                                      "CSV, Parquet or .xlsx) or a plate-reader matrix of "
+                                      "blocks (see README, 'Plate matrices')")
     parser.add_argument("--plate-map", required=True,
                         help="one row per well: plate, well, compound, substrate_<unit>, "
                              "inhibitor_<unit>, role")
@@ -215,6 +318,10 @@ def _rates_arguments(parser):
     parser.add_argument("--rate", default="rate", metavar="COLUMN",
                         help="name of the rate column written (default: 'rate'; give the "
                              "same --rate to the mechanism stage)")
+    _column_arguments(parser)
+    parser.add_argument("--plate", metavar="NAME",
+                        help="plate name of plate-matrix blocks that name none (default: "
+                             "the file's name)")
     parser.add_argument("--time-unit", choices=("s", "ms", "min", "h"),
                         help="unit of the times (default: the time header's unit, else s)")
     parser.add_argument("--rate-time-unit", choices=("s", "ms", "min", "h"),
@@ -235,45 +342,47 @@ def _rates_arguments(parser):
                              "carry none")
 
 
-def _check_read_columns(reads, args) -> None:
-    """Name the option when the column it names (or its default) is not in the reads."""
-    from .units import split_unit
+class _ReadsOnly:
+    """The rates stage's options that name columns of the reads (time, signal)."""
 
-    have = [str(c) for c in reads.columns]
-    for option, name, kind in (("--time", args.time, "time"),
-                               ("--signal", args.signal, "concentration")):
-        if name in have or any(split_unit(c, kind=kind)[0] == name
-                               and split_unit(c, kind=kind)[1] for c in have):
-            continue
-        raise DataError(Problem(option, None, name,
-                                f"no such column in the reads; they have: "
-                                f"{', '.join(map(repr, have[:20]))}; name the column with "
-                                f"{option}"))
+    def __init__(self, args):
+        self.time, self.signal, self.plate = args.time, args.signal, args.plate
+
+
+class _MapOnly:
+    """The rates stage's options that name columns of the plate map."""
+
+    def __init__(self, args):
+        self.compound, self.substrate, self.inhibitor = (args.compound, args.substrate,
+                                                         args.inhibitor)
 
 
 def _rates(args) -> int:
-    from .io import read_table, write_table
     from .rates import initial_rates
     from .signal import BeerLambert
     from .units import resolve_units
 
     output = _check_output(args.output)
-    reads, plate_map = read_table(args.reads), read_table(args.plate_map)
-    _check_read_columns(reads, args)
+    reads = _read(args.reads, _ReadsOnly(args), required=("plate", "well", "signal"),
+                  context="reads")
+    plate_map = _read(args.plate_map, _MapOnly(args), required=("plate", "well"),
+                      context="plate map")
+    if not any(c == "time" or c.startswith("time_") for c in map(str, reads.columns)):
+        return _endpoint(reads, plate_map, output, args)
     found = resolve_units(plate_map.columns, ["substrate", "inhibitor"],
                           units=_units(args.units), context="plate map")
     (substrate, substrate_unit), (inhibitor, inhibitor_unit) = (found["substrate"],
                                                                 found["inhibitor"])
     conversion = (BeerLambert.of(args.chromophore, path_length=args.path_length)
                   if args.chromophore else None)
-    result = initial_rates(reads, plate_map, time=args.time, signal=args.signal,
+    result = initial_rates(reads, plate_map, time="time", signal="signal",
                            time_unit=args.time_unit,
                            rate_time_unit=args.rate_time_unit, method=args.method,
                            conversion=conversion, signal_unit=args.signal_unit,
                            substrate=substrate, inhibitor=inhibitor,
                            substrate_unit=substrate_unit, inhibitor_unit=inhibitor_unit,
                            direction=args.direction)
-    write_table(result.to_frame().rename(columns={"rate": args.rate}), output)
+    _write_output(result.to_frame().rename(columns={"rate": args.rate}), output)
     if not args.quiet:
         print(result.summary())
     n_failed = int((result.table["status"] == "failed").sum())
@@ -281,6 +390,119 @@ def _rates(args) -> int:
         print(f"inhibkin rates: {n_failed} wells failed; see the 'flags' and 'status' columns "
               f"of {output}", file=sys.stderr)
         return EXIT_SOME_FAILED
+    return EXIT_OK
+
+
+def _endpoint(reads, plate_map, output, args) -> int:
+    """Reads without a time (one block per plate): each well's signal joined to the plate
+    map, the dose-response table of the potency stage."""
+    from .inputs.layouts import join_layout
+
+    if args.time != "time":
+        raise DataError(Problem("--time", None, args.time,
+                                "no such column in the reads, and they hold no read times"))
+    table = join_layout(reads, plate_map)
+    _write_output(table, output)
+    if not args.quiet:
+        print(f"endpoint reads: {len(table)} wells of {table['plate'].nunique()} plates "
+              f"joined to the plate map, written to {output}")
+    return EXIT_OK
+
+
+def _layout_arguments(parser):
+    parser.add_argument("kind", choices=("dilution", "grid", "show"),
+                        help="dilution: one compound per row, a dilution series along the "
+                             "columns, control columns; grid: one compound's substrate "
+                             "levels along rows × inhibitor levels along columns; show: "
+                             "print an existing layout (FILE) as a plate")
+    parser.add_argument("file", nargs="?", help="the layout to show (with 'show')")
+    parser.add_argument("-o", "--output", help="write the layout (.csv, .parquet or .xlsx)")
+    parser.add_argument("--plate", default="P1", help="plate name")
+    parser.add_argument("--wells", type=int, default=96, choices=(96, 384, 1536))
+    parser.add_argument("--compounds", help="dilution: compounds, comma-separated, one per row")
+    parser.add_argument("--compound", help="grid: the compound")
+    parser.add_argument("--top", type=float, help="dilution: top inhibitor concentration")
+    parser.add_argument("--factor", type=float, default=3.0, help="dilution factor")
+    parser.add_argument("--unit", default="uM", help="inhibitor concentration unit")
+    parser.add_argument("--substrate", help="dilution: the assay's substrate concentration; "
+                                            "grid: the substrate levels, comma-separated")
+    parser.add_argument("--substrate-unit", default="uM")
+    parser.add_argument("--inhibitor", help="grid: the inhibitor levels, comma-separated")
+    parser.add_argument("--replicates", type=int, default=1, help="grid: wells per pair")
+    parser.add_argument("--value", default="compound",
+                        help="column shown in the printed plate (default: compound)")
+
+
+def _layout(args) -> int:
+    from .inputs.columns import standardise_columns
+    from .inputs.files import read_any_table
+    from .inputs.layouts import dilution_layout, grid_layout, plate_grid
+
+    output = _check_output(args.output) if args.output else None
+    if args.kind == "show":
+        if not args.file:
+            raise DataError(Problem("file", None, None, "name the layout to show"))
+        layout = standardise_columns(read_any_table(args.file), required=("plate", "well"),
+                                     context="layout")
+    elif args.kind == "dilution":
+        if not args.compounds or args.top is None:
+            raise DataError("a dilution layout needs --compounds and --top")
+        layout = dilution_layout(
+            [c.strip() for c in args.compounds.split(",") if c.strip()], top=args.top,
+            factor=args.factor, unit=args.unit, plate=args.plate, wells=args.wells,
+            substrate=float(args.substrate) if args.substrate else None,
+            substrate_unit=args.substrate_unit)
+    else:
+        if not args.compound or not args.substrate or not args.inhibitor:
+            raise DataError("a grid layout needs --compound, --substrate and --inhibitor")
+        layout = grid_layout(args.compound, substrate=_levels(args.substrate, "--substrate"),
+                             inhibitor=_levels(args.inhibitor, "--inhibitor"),
+                             substrate_unit=args.substrate_unit, inhibitor_unit=args.unit,
+                             plate=args.plate, wells=args.wells, replicates=args.replicates)
+    if output is not None:
+        _write_output(layout, output)
+    if args.kind == "show" or not args.quiet:
+        print(plate_grid(layout, value=args.value))
+    return EXIT_OK
+
+
+def _store_stage_arguments(parser):
+    parser.add_argument("store", metavar="FILE_OR_URL",
+                        help="the results store: an SQLite file or a postgresql:// URL")
+    parser.add_argument("what", choices=("campaigns", "campaign", "history", "msr"),
+                        help="campaigns: every campaign kept; campaign NAME: its ranked "
+                             "table (--table for another); history COMPOUND: the compound "
+                             "across campaigns; msr: minimum significant ratio of pKi and "
+                             "pIC50 from compounds measured more than once")
+    parser.add_argument("name", nargs="?", help="the campaign or the compound")
+    parser.add_argument("--version", type=int, help="campaign version (default: the latest)")
+    parser.add_argument("--table", default="ranking",
+                        choices=("ranking", "parameters", "comparisons", "plates"),
+                        help="which of the campaign's tables (with 'campaign')")
+    parser.add_argument("-o", "--output", help="also write the table (.csv, .parquet, .xlsx)")
+
+
+def _store_stage(args) -> int:
+    from . import store
+    from .text import text_table
+
+    output = _check_output(args.output) if args.output else None
+    if args.what in ("campaign", "history") and not args.name:
+        thing = "compound" if args.what == "history" else "campaign"
+        raise DataError(Problem("name", None, None, f"name the {thing}"))
+    with store.ResultStore(args.store, create=False) as kept:
+        if args.what == "campaigns":
+            table = kept.campaigns()
+        elif args.what == "campaign":
+            table = kept.campaign_table(args.name, args.table, version=args.version)
+        elif args.what == "history":
+            table = kept.history(args.name)
+        else:
+            table = kept.msr().to_frame()
+    if output is not None:
+        _write_output(table, output)
+    if not args.quiet:
+        print(text_table(table, index=False))
     return EXIT_OK
 
 
@@ -298,15 +520,20 @@ def _rate_column_argument(parser):
                         help="rate column of the grid (default: 'rate')")
 
 
+# Columns each kind of table must have (roles of inhibkin.inputs.columns).
+_GRID_COLUMNS = ("compound", "substrate", "inhibitor", "rate")
+_DOSE_COLUMNS = ("compound", "inhibitor")
+
+
 def _mechanism(args) -> int:
     from .batch import fit_campaign
-    from .io import read_table, write_table
+    from .io import write_table
 
     output = _check_output(args.output)
     params = _check_output(args.params) if args.params else None
-    table = read_table(args.grid)
+    table = _read(args.grid, args, required=_GRID_COLUMNS, context="grid")
     with _execution(args) as where:
-        campaign = fit_campaign(table, rate=args.rate, **_fit_options(args), **where)
+        campaign = fit_campaign(table, rate="rate", **_fit_options(args), **where)
     if params is not None:
         write_table(campaign.parameters(), params)
     return _finish(campaign, output, args)
@@ -324,14 +551,22 @@ def _potency_arguments(parser):
 
 def _potency(args) -> int:
     from .batch import fit_campaign
-    from .io import read_table
 
     output = _check_output(args.output)
-    table = read_table(args.plates)
+    table = _read(args.plates, _DoseColumns(args), required=_DOSE_COLUMNS,
+                  context="dose-response table")
     with _execution(args) as where:
         campaign = fit_campaign(dose_response=table, **_dose_options(args),
                                 **_fit_options(args), **where)
     return _finish(campaign, output, args)
+
+
+class _DoseColumns:
+    """Column options for a dose-response table: its signal is the 'signal' column."""
+
+    def __init__(self, args):
+        self.compound, self.substrate, self.inhibitor = (args.compound, args.substrate,
+                                                         args.inhibitor)
 
 
 def _rank_arguments(parser):
@@ -345,13 +580,14 @@ def _rank_arguments(parser):
 def _whole_campaign(args):
     """fit_campaign over --grid and/or --dose-response (the rank and report stages)."""
     from .batch import fit_campaign
-    from .io import read_table
 
-    grid = read_table(args.grid) if args.grid else None
-    dose = read_table(args.dose_response) if args.dose_response else None
+    grid = (_read(args.grid, args, required=_GRID_COLUMNS, context="grid")
+            if args.grid else None)
+    dose = (_read(args.dose_response, _DoseColumns(args), required=_DOSE_COLUMNS,
+                  context="dose-response table") if args.dose_response else None)
     dose_options = _dose_options(args) if dose is not None else {}
     with _execution(args) as where:
-        return fit_campaign(grid, dose_response=dose, rate=args.rate, **dose_options,
+        return fit_campaign(grid, dose_response=dose, rate="rate", **dose_options,
                             **_fit_options(args), **where)
 
 
@@ -374,7 +610,6 @@ def _report_arguments(parser):
 
 
 def _report(args) -> int:
-    from .io import write_table
     from .report import report
 
     if not args.grid and not args.dose_response:
@@ -387,7 +622,9 @@ def _report(args) -> int:
     ranking = _check_output(args.ranking) if args.ranking else None
     campaign = _whole_campaign(args)
     if ranking is not None:
-        write_table(campaign.ranking, ranking)
+        _write_output(campaign.ranking, ranking, campaign=campaign)
+    _keep(campaign, ranking or output, args)
+    _draw(campaign, args)
     path = report(campaign, output, rate_unit=args.rate_unit)
     if not args.quiet:
         print(f"report written to {path.resolve()}")
@@ -521,6 +758,21 @@ SUBCOMMANDS = [
         "--substrate 0.01,0.02,0.04,0.08,0.16,0.32,0.64,1.28,2.56,5.12,10.24,20.48 "
         "--inhibitor 0.001,0.003,0.009,0.027,0.081,0.243,0.729,2.187 -o layout.csv",
         _design_arguments, _design, parallel=False),
+    Subcommand(
+        "layout", "write a usual plate layout, or print a layout as a plate for review",
+        "inhibkin layout dilution --compounds CPD-1,CPD-2 --top 30 --unit uM --factor 3 "
+        "--substrate 40 -o layout.csv\n"
+        "  inhibkin layout grid --compound CPD-1 --substrate 2,5,10,20,40,80,160,320 "
+        "--inhibitor 0,10,30,100 --unit nM --replicates 3 -o grid_map.csv\n"
+        "  inhibkin layout show layout.csv --value role",
+        _layout_arguments, _layout, parallel=False),
+    Subcommand(
+        "store", "read back the results store: campaigns, a compound's history, the MSR",
+        "inhibkin rank --grid grid.csv -o ranking.csv --store results.sqlite "
+        "--campaign week-12 --notes 'kinase X, 1 mM ATP'\n"
+        "  inhibkin store results.sqlite history CPD-0007\n"
+        "  inhibkin store results.sqlite msr",
+        _store_stage_arguments, _store_stage, parallel=False),
     Subcommand("demo", "run the demo flow on invented data", "inhibkin demo",
                _demo_arguments, _demo, parallel=False),
 ]
