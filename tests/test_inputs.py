@@ -302,3 +302,10 @@ def test_matrix_reader_refuses_garbage_only_with_data_errors(noise, at):
             assert str(err)
         else:
             assert list(table.columns)[:2] == ["plate", "well"]
+
+
+def test_a_superscript_digit_is_not_a_column_number():
+    # str.isdigit accepts '²' (int() does not); found by the hostile-table property test.
+    from inhibkin.inputs.plate_matrix import looks_like_plate_matrix
+
+    assert not looks_like_plate_matrix(["compound,hostile", "²,True", ",True"])

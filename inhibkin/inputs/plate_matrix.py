@@ -101,7 +101,8 @@ def _integer(cell) -> int | None:
         return int(cell)
     if isinstance(cell, float) and cell.is_integer():
         return int(cell)
-    if isinstance(cell, str) and cell.strip().isdigit():
+    # ASCII digits only: str.isdigit accepts superscripts such as '²', which int() refuses.
+    if isinstance(cell, str) and cell.strip().isascii() and cell.strip().isdigit():
         return int(cell.strip())
     return None
 
