@@ -34,7 +34,7 @@ from .potency import (
     _from_estimates,
 )
 from .units import from_molar, normalise_unit, parse_concentration, split_unit
-from .validate import check_columns
+from .validate import check_columns, row_kind
 
 __all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table"]
 
@@ -375,8 +375,8 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         raise DataError(Problem(role, None, "sample", "the table has no 'sample' wells"))
     nameless = samples[compound].isna().to_numpy()
     if nameless.any():
-        raise DataError([Problem(compound, r, None, "a 'sample' well has no compound")
-                         for r in samples.index[nameless][:5]])
+        raise DataError([Problem(compound, r, None, "a 'sample' well has no compound",
+                                 row_kind(df)) for r in samples.index[nameless][:5]])
     y_samples = pd.Series(y_all[is_sample], index=samples.index)
     unusable = qc.unusable
     low_plates = set(qc.flagged)

@@ -70,7 +70,7 @@ from scipy import stats
 from .errors import DataError, Problem, UnitsError
 from .signal import BeerLambert, StandardCurve, blank_signal
 from .units import from_molar, normalise_unit, split_unit, to_molar, to_seconds
-from .validate import check_columns, numeric_column
+from .validate import check_columns, numeric_column, row_kind
 
 __all__ = ["InitialRates", "RateOptions", "initial_rates", "FLAGS", "METHODS", "ROLES"]
 
@@ -429,7 +429,7 @@ def _duplicates(df, columns, problems, what):
         for row in rows[:5]:
             value = tuple(_plain(df.loc[row, c]) for c in columns)
             problems.append(Problem(", ".join(columns), row, value,
-                                    f"duplicated {what}; each must appear once"))
+                                    f"duplicated {what}; each must appear once", row_kind(df)))
         if len(rows) > 5:
             problems.append(Problem(", ".join(columns), None, None,
                                     f"and {len(rows) - 5} more duplicated rows"))
@@ -470,7 +470,8 @@ def _read_table(reads, *, time, signal, plate, well):
         missing = reads[column].isna().to_numpy()
         if missing.any():
             row = reads.index[missing][0]
-            problems.append(Problem(column, row, None, "missing plate or well label"))
+            problems.append(Problem(column, row, None, "missing plate or well label",
+                                    row_kind(reads)))
     if problems:
         raise DataError(problems, "reads")
     _duplicates(reads, [plate, well, time], problems, "(plate, well, time)")
@@ -488,7 +489,8 @@ def _read_map(plate_map, *, plate, well, compound, substrate, inhibitor, role):
     bad_role = ~np.isin(roles, ROLES)
     if bad_role.any():
         for row, value in list(zip(plate_map.index[bad_role], plate_map[role][bad_role]))[:5]:
-            problems.append(Problem(role, row, value, f"unknown role; use one of {ROLES}"))
+            problems.append(Problem(role, row, value, f"unknown role; use one of {ROLES}",
+                                    row_kind(plate_map)))
     s = numeric_column(plate_map, substrate, problems, allow_nan=True)
     i = numeric_column(plate_map, inhibitor, problems, allow_nan=True)
     needs = roles != "blank"
@@ -497,7 +499,7 @@ def _read_map(plate_map, *, plate, well, compound, substrate, inhibitor, role):
         for row in plate_map.index[missing][:5]:
             problems.append(Problem(column, row, None,
                                     "missing concentration in a sample or control well "
-                                    "(write 0 for none)"))
+                                    "(write 0 for none)", row_kind(plate_map)))
     if problems:
         raise DataError(problems, "plate map")
     _duplicates(plate_map, [plate, well], problems, "(plate, well)")
