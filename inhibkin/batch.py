@@ -90,7 +90,7 @@ from .units import (
     resolve_units,
     to_molar,
 )
-from .validate import check_columns, check_grid, check_options, row_kind
+from .validate import check_columns, check_grid, check_options, normalise_roles, row_kind
 
 __all__ = [
     "Campaign",
@@ -1015,6 +1015,7 @@ def _prepare_dose(dose_response, *, compound, inhibitor, substrate, plate, role,
     names = [inhibitor, substrate] + [c for c in (km, enzyme) if isinstance(c, str)]
     resolved = resolve_units(dose_response.columns, names, units=units, context=context)
     frame = dose_response.copy()
+    frame[role] = normalise_roles(frame[role]).to_numpy(dtype=object)
     for name in names:
         column, unit = resolved[name]
         frame[column] = _molar_column(frame[column], unit)

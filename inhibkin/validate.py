@@ -16,7 +16,8 @@ from .errors import DataError, Problem
 from .io import LINE_INDEX
 
 __all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_menten",
-           "NO_SIGNAL", "row_kind", "check_options", "OPTION_LIMITS", "Limit"]
+           "NO_SIGNAL", "row_kind", "check_options", "OPTION_LIMITS", "Limit",
+           "normalise_roles"]
 
 # How many bad rows of one kind a message lists before it summarises the rest.
 _MAX_ROWS_LISTED = 5
@@ -33,6 +34,16 @@ NO_SIGNAL = ("the rates carry no signal: their mean (value shown) is ≤ 0, so n
 def row_kind(df) -> str:
     """``"line"`` for a table read from a file (labels are its lines), else ``"row"``."""
     return "line" if getattr(df.index, "name", None) == LINE_INDEX else "row"
+
+
+def normalise_roles(values) -> pd.Series:
+    """Role labels as the one rule reads them everywhere: trimmed, lower case.
+
+    ``"MAX"``, ``" Sample"`` and ``"min "`` are the roles ``max``, ``sample``, ``min`` in
+    plate maps and dose-response tables alike; a missing role stays missing.
+    """
+    values = pd.Series(values)
+    return values.where(values.isna(), values.astype(str).str.strip().str.lower())
 
 
 def check_columns(df, columns, context=None) -> None:
