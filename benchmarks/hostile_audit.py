@@ -529,9 +529,8 @@ def upper_case_roles_in_plate_map(tmp):
 @case("result")
 def dose_table_with_duplicate_index(tmp):
     plates, _ = simulate_dose_campaign(2, seed=1)
-    samples = plates[plates["role"] == "sample"]
-    controls = plates[plates["role"] != "sample"]
-    table = pd.concat([samples.reset_index(drop=True), controls.reset_index(drop=True)])
+    replicate = plates.assign(plate=plates["plate"] + "b")  # the same compounds, again
+    table = pd.concat([plates, replicate])  # no ignore_index: every label twice
     campaign = fit_campaign(dose_response=table, km="20uM", quiet=True, engine="lmfit")
     failed = campaign.ranking[campaign.ranking["status"] == "failed"]
     if len(failed):
@@ -549,14 +548,16 @@ def grid_table_with_duplicate_index(tmp):
 
 @case("result")
 def unusable_controls_flag_text(tmp):
-    plates, _ = simulate_dose_campaign(2, seed=1, per_plate=1)
-    plates = plates[~((plates["plate"] == "P1") & (plates["role"] == "min"))]
+    plates, _ = simulate_dose_campaign(2, seed=1)
+    one_min = plates.index[plates["role"] == "min"][1:]
+    plates = plates.drop(index=one_min)  # one 'min' control well left: unusable plate
     with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
+        # As in a fresh process, where the first occurrence of a warning is shown.
+        warnings.simplefilter("always")
         campaign = fit_campaign(dose_response=plates, km="20uM", quiet=True)
     text = " ".join(campaign.ranking["flags"].astype(str)) + " ".join(
         campaign.ranking["reason"].astype(str))
-    if "Warning" in text or "deprecated" in text:
+    if any(word in text for word in ("Warning", "deprecated", "future version")):
         raise Wrong(f"a library warning leaked into the table: {text[:200]}")
     _expect_compounds(campaign.ranking, ["DR-1", "DR-2"])
 
@@ -577,12 +578,15 @@ def z_prime_one_control(tmp):
 
 @case("result")
 def zero_spread_controls_flagged(tmp):
-    frame = pd.DataFrame({"plate": "P", "role": ["max"] * 3 + ["min"] * 3,
-                          "signal": [100.0] * 3 + [5.0] * 3})
-    qc = ik.plate_qc(frame)
-    problem = str(qc.table["problem"].iloc[0])
-    if not qc.table["flagged"].iloc[0] or not problem:
-        raise Wrong(f"Z' {qc.table['z_prime'].iloc[0]} on identical controls, unflagged")
+    plates, _ = simulate_dose_campaign(2, seed=1)
+    controls = plates["role"] != "sample"
+    plates.loc[controls, "signal"] = plates.loc[controls, "role"].map({"max": 1000.0,
+                                                                       "min": 50.0})
+    campaign = fit_campaign(dose_response=plates, km="20uM", quiet=True)
+    qc = campaign.plates
+    flags = " ".join(campaign.ranking["flags"].astype(str))
+    if not qc["flagged"].all() or "spread" not in flags:
+        raise Wrong(f"Z' {qc['z_prime'].tolist()} on identical controls; flags: {flags!r}")
 
 
 # ---------------------------------------------------------------- item 10: messages
@@ -630,9 +634,9 @@ def run_case(function, expect):
     with tempfile.TemporaryDirectory() as directory:
         tmp = Path(directory)
         try:
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                function(tmp)
+            # Warnings keep the interpreter's filters: inhibkin records some of them in
+            # its tables, and silencing them here would hide exactly that.
+            function(tmp)
         except Lost as err:
             return "lost", str(err)
         except Skip as err:

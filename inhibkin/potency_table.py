@@ -440,7 +440,9 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     table = pd.DataFrame([rows[n] for n in rows], columns=list(TABLE_COLUMNS))
     text = ["curve_class", "reason", "ic50_bound", "ki_bound", "mechanism", "mechanism_source",
             "ki_method", "flags"]
-    table[text] = table[text].fillna("")
+    # As object first: filling an all-missing float column with text would warn, and the
+    # batch's warning capture would write that warning into the flags.
+    table[text] = table[text].astype(object).fillna("")
     return PotencyTable(table.reset_index(drop=True), fits, qc, morrison_fits)
 
 
