@@ -1165,9 +1165,13 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     Raises
     ------
     DataError
-        Only for problems of a whole table (not a DataFrame, a missing column, an
-        undeclared unit, rows without a compound, unknown roles, unreadable controls);
-        a problem of one compound's data fails that compound in the ranking instead.
+        Only for problems of a whole table (not a DataFrame, a column named twice, a
+        missing column, an undeclared unit, rows without a compound, unknown roles,
+        unreadable controls) or of an option (outside
+        :data:`~inhibkin.validate.OPTION_LIMITS`, e.g. ``level=95`` or ``km=0``), before
+        any fit; a problem of one compound's data fails that compound in the ranking
+        instead. Compounds are told apart by their exact identifiers: ``"1"`` and
+        ``"1.0"`` are two compounds.
 
     Examples
     --------
