@@ -90,7 +90,7 @@ from .units import (
     resolve_units,
     to_molar,
 )
-from .validate import check_columns, check_grid
+from .validate import check_columns, check_grid, check_options, normalise_roles, row_kind
 
 __all__ = [
     "Campaign",
@@ -991,7 +991,8 @@ def _check_dose_table(frame, *, compound, plate, role, response, context):
     unknown = ~np.isin(roles, ROLES)
     if unknown.any():
         rows = frame.index[unknown]
-        raise DataError([Problem(role, r, roles[k], f"unknown role; use one of {ROLES}")
+        raise DataError([Problem(role, r, roles[k], f"unknown role; use one of {ROLES}",
+                                 row_kind(frame))
                          for r, k in zip(rows[:5], np.flatnonzero(unknown)[:5])], context)
     samples = frame[roles == "sample"]
     if samples.empty:
@@ -999,8 +1000,8 @@ def _check_dose_table(frame, *, compound, plate, role, response, context):
                         context)
     nameless = samples.index[samples[compound].isna().to_numpy()]
     if len(nameless):
-        raise DataError([Problem(compound, r, None, "a 'sample' well has no compound")
-                         for r in nameless[:5]], context)
+        raise DataError([Problem(compound, r, None, "a 'sample' well has no compound",
+                                 row_kind(frame)) for r in nameless[:5]], context)
     # The controls of every plate must be readable; a damaged plate fails its compounds.
     plate_qc(frame[roles != "sample"], plate=plate, role=role, response=response,
              strict=False)
@@ -1014,6 +1015,7 @@ def _prepare_dose(dose_response, *, compound, inhibitor, substrate, plate, role,
     names = [inhibitor, substrate] + [c for c in (km, enzyme) if isinstance(c, str)]
     resolved = resolve_units(dose_response.columns, names, units=units, context=context)
     frame = dose_response.copy()
+    frame[role] = normalise_roles(frame[role]).to_numpy(dtype=object)
     for name in names:
         column, unit = resolved[name]
         frame[column] = _molar_column(frame[column], unit)
@@ -1024,6 +1026,33 @@ def _prepare_dose(dose_response, *, compound, inhibitor, substrate, plate, role,
     km_spec = resolved[km][0] if isinstance(km, str) else km
     enzyme_spec = resolved[enzyme][0] if isinstance(enzyme, str) else enzyme
     return frame, columns, km_spec, enzyme_spec, {n: resolved[n][1] for n in names}
+
+
+def _concentration_option(name, value, table):
+    """km= / enzyme=: a column name of ``table`` kept as it is, else a checked number in M.
+
+    Text that names no column is read as a concentration with its unit ("40uM").
+    """
+    if value is None:
+        return None
+    if isinstance(value, str):
+        if any(c == value or c.startswith(f"{value}_") or c.startswith(f"{value} ")
+               for c in map(str, table.columns)):
+            return value
+        value = parse_concentration(value)
+    check_options({name: value})
+    return float(value)
+
+
+def _unique_index(table):
+    """The table itself, or a copy labelled 0…n-1 when its index labels repeat.
+
+    Rows are picked by label past the boundary; repeated labels (``pd.concat`` without
+    ``ignore_index``) would pick several rows for one.
+    """
+    if table is None or not isinstance(table, pd.DataFrame) or table.index.is_unique:
+        return table
+    return table.reset_index(drop=True)
 
 
 def _grid_mechanism(row: dict):
@@ -1136,9 +1165,13 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     Raises
     ------
     DataError
-        Only for problems of a whole table (not a DataFrame, a missing column, an
-        undeclared unit, rows without a compound, unknown roles, unreadable controls);
-        a problem of one compound's data fails that compound in the ranking instead.
+        Only for problems of a whole table (not a DataFrame, a column named twice, a
+        missing column, an undeclared unit, rows without a compound, unknown roles,
+        unreadable controls) or of an option (outside
+        :data:`~inhibkin.validate.OPTION_LIMITS`, e.g. ``level=95`` or ``km=0``), before
+        any fit; a problem of one compound's data fails that compound in the ranking
+        instead. Compounds are told apart by their exact identifiers: ``"1"`` and
+        ``"1.0"`` are two compounds.
 
     Examples
     --------
@@ -1159,7 +1192,10 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     if dose_response is not None and km is None:
         raise DataError("the dose-response table needs km= (a number in M, or a column) to "
                         "convert IC50 to Ki")
+    check_options({"level": level, "alpha": alpha, "min_delta_aicc": min_delta_aicc,
+                   "determination_factor": determination_factor})
     _check_engine(engine)
+    table, dose_response = _unique_index(table), _unique_index(dose_response)
     started = time.perf_counter()
     used, refits = {"grid": "", "dose": ""}, {"grid": 0, "dose": 0}
     execution = dict(workers=workers, client=client, quiet=quiet)
@@ -1173,7 +1209,8 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         unnamed = table.index[table[compound].isna().to_numpy()]
         if len(unnamed):
             raise DataError([Problem(compound, r, None, "row has no compound; fill it in or "
-                                                        "drop the row") for r in unnamed[:5]]
+                                                        "drop the row", row_kind(table))
+                             for r in unnamed[:5]]
                             + ([Problem(compound, None, None, f"and {len(unnamed) - 5} more "
                                                               "rows")]
                                if len(unnamed) > 5 else []), "grid table")
@@ -1196,12 +1233,9 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                 grid_fits[name] = fit
     dose_rows, potency_fits, plates = {}, {}, _plates_frame(None)
     if dose_response is not None:
-        if isinstance(km, (int, float)) and not isinstance(km, bool):
-            km = float(km)
-        elif isinstance(km, str) and not any(
-                c == km or c.startswith(f"{km}_") or c.startswith(f"{km} ")
-                for c in map(str, dose_response.columns)):
-            km = parse_concentration(km)  # text with its unit, e.g. "40uM"
+        check_columns(dose_response, [], "dose-response table")
+        km = _concentration_option("km", km, dose_response)
+        enzyme = _concentration_option("enzyme", enzyme, dose_response)
         frame, columns, km_spec, enzyme_spec, dose_units = _prepare_dose(
             dose_response, compound=compound, inhibitor=inhibitor, substrate=substrate,
             plate=plate, role=role, response=response, km=km, enzyme=enzyme, units=units)

@@ -11,6 +11,8 @@ A stage is one arguments function, one run function and one entry in SUBCOMMANDS
 from __future__ import annotations
 
 import argparse
+import os
+import re
 import sys
 from collections.abc import Callable
 from contextlib import contextmanager
@@ -42,6 +44,9 @@ orthogonal experiments. No output is for clinical or dosing use."""
 
 # Seconds to wait for a Dask scheduler before giving up.
 _SCHEDULER_TIMEOUT = "20s"
+# A scheduler address: [protocol://]host:port (host a name, IPv4 or [IPv6]).
+_SCHEDULER_ADDRESS = re.compile(r"((tcp|tls|ucx|ws|wss|inproc)://)?"
+                                r"(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9_.-]+):[0-9]{1,5}")
 
 
 @dataclass(frozen=True)
@@ -84,18 +89,76 @@ def _units(pairs) -> dict:
     return out
 
 
-def _check_output(path) -> Path:
-    """Refuse an output path we could not write *before* the work starts."""
+def _check_output(path, option="--output", suffixes=None) -> Path:
+    """Refuse an output path we could not write *before* the work starts.
+
+    The suffix must name a known format; the path must not be a directory; its
+    directory must exist and be writable (the table goes to a temporary file there).
+    """
     from .io import TABLE_FORMATS
 
+    suffixes = suffixes or (*TABLE_FORMATS, ".xlsx")
     path = Path(path)
-    if path.suffix.lower() not in (*TABLE_FORMATS, ".xlsx"):
-        raise DataError(Problem("--output", None, str(path),
-                                f"unknown table format; use one of {', '.join(TABLE_FORMATS)}, "
-                                f".xlsx"))
-    if not (path.parent if str(path.parent) else Path(".")).is_dir():
-        raise DataError(Problem("--output", None, str(path), "the directory does not exist"))
+    if path.suffix.lower() not in suffixes:
+        raise DataError(Problem(option, None, str(path),
+                                f"unknown output format; use one of {', '.join(suffixes)}"))
+    if path.is_dir():
+        raise DataError(Problem(option, None, str(path), "is a directory; give a file name"))
+    directory = path.parent if str(path.parent) else Path(".")
+    if not directory.is_dir():
+        raise DataError(Problem(option, None, str(path), "the directory does not exist"))
+    if not os.access(directory, os.W_OK | os.X_OK):
+        raise DataError(Problem(option, None, str(path),
+                                "the directory is not writable; choose another place"))
     return path
+
+
+def _check_paths(inputs: dict, outputs: dict) -> None:
+    """Refuse an output that is one of the inputs or another output, before any work.
+
+    Paths are compared after resolving links and ``..``, and by device and inode for
+    files that exist (hard links), so no spelling of a path lets a run overwrite its
+    own data or write two tables to one file.
+    """
+    def key(path):
+        resolved = Path(path).resolve()
+        if resolved.exists():
+            info = resolved.stat()
+            return ("inode", info.st_dev, info.st_ino)
+        return ("path", str(resolved))
+
+    seen = {key(path): option for option, path in inputs.items() if path}
+    for option, path in outputs.items():
+        if not path:
+            continue
+        here = key(path)
+        if here in seen:
+            what = "an input" if seen[here] in inputs else "another output"
+            raise DataError(Problem(option, None, str(path),
+                                    f"is the same file as {seen[here]} ({what}); writing it "
+                                    f"would destroy that table. Choose another name"))
+        seen[here] = option
+
+
+def _check_scheduler(args) -> None:
+    """--scheduler must look like [protocol://]host:port before anything is read."""
+    address = getattr(args, "scheduler", None)
+    if address and not _SCHEDULER_ADDRESS.fullmatch(address.strip()):
+        raise DataError(Problem("--scheduler", None, address,
+                                "not a scheduler address; write [protocol://]host:port, "
+                                "e.g. tcp://10.0.0.5:8786"))
+
+
+def _check_fit_arguments(args) -> None:
+    """The range checks of the fitting options, before any file is read."""
+    from .validate import check_options
+
+    check_options({"--level": args.level})
+    _check_scheduler(args)
+    for option in ("km", "enzyme"):
+        value = _km(getattr(args, option, None))
+        if value is not None and not isinstance(value, str):
+            check_options({f"--{option}": value})
 
 
 @contextmanager
@@ -127,7 +190,9 @@ def _read(path, args, *, required, context):
     from .inputs.files import read_any_table
 
     names = {role: getattr(args, role) for role in _COLUMN_OPTIONS if getattr(args, role, None)}
-    return standardise_columns(read_any_table(path, plate=getattr(args, "plate", None)),
+    text = [args.compound] if getattr(args, "compound", None) else []
+    table = read_any_table(path, plate=getattr(args, "plate", None), text_columns=text)
+    return standardise_columns(table,
                                required=required, context=context, options={
                                    role: f"--{role}" for role in names}, **names)
 
@@ -205,7 +270,7 @@ def _km(text):
 
     if text is None:
         return None
-    if text[:1].isdigit() or text[:1] == ".":
+    if text[:1].isdigit() or text[:1] in ".+-":
         return parse_concentration(text)
     return text
 
@@ -363,6 +428,7 @@ def _rates(args) -> int:
     from .units import resolve_units
 
     output = _check_output(args.output)
+    _check_paths({"reads": args.reads, "--plate-map": args.plate_map}, {"--output": output})
     reads = _read(args.reads, _ReadsOnly(args), required=("plate", "well", "signal"),
                   context="reads")
     plate_map = _read(args.plate_map, _MapOnly(args), required=("plate", "well"),
@@ -530,7 +596,9 @@ def _mechanism(args) -> int:
     from .io import write_table
 
     output = _check_output(args.output)
-    params = _check_output(args.params) if args.params else None
+    params = _check_output(args.params, "--params") if args.params else None
+    _check_paths({"grid": args.grid}, {"--output": output, "--params": params})
+    _check_fit_arguments(args)
     table = _read(args.grid, args, required=_GRID_COLUMNS, context="grid")
     with _execution(args) as where:
         campaign = fit_campaign(table, rate="rate", **_fit_options(args), **where)
@@ -553,6 +621,8 @@ def _potency(args) -> int:
     from .batch import fit_campaign
 
     output = _check_output(args.output)
+    _check_paths({"plates": args.plates}, {"--output": output})
+    _check_fit_arguments(args)
     table = _read(args.plates, _DoseColumns(args), required=_DOSE_COLUMNS,
                   context="dose-response table")
     with _execution(args) as where:
@@ -595,6 +665,9 @@ def _rank(args) -> int:
     if not args.grid and not args.dose_response:
         raise DataError("give --grid, --dose-response, or both")
     output = _check_output(args.output)
+    _check_paths({"--grid": args.grid, "--dose-response": args.dose_response},
+                 {"--output": output})
+    _check_fit_arguments(args)
     return _finish(_whole_campaign(args), output, args)
 
 
@@ -614,12 +687,11 @@ def _report(args) -> int:
 
     if not args.grid and not args.dose_response:
         raise DataError("give --grid, --dose-response, or both")
-    output = Path(args.output)
-    if output.suffix.lower() not in (".html", ".htm"):
-        raise DataError(Problem("--output", None, str(output), "the report is an .html file"))
-    if not output.parent.is_dir():
-        raise DataError(Problem("--output", None, str(output), "the directory does not exist"))
-    ranking = _check_output(args.ranking) if args.ranking else None
+    output = _check_output(args.output, suffixes=(".html", ".htm"))
+    ranking = _check_output(args.ranking, "--ranking") if args.ranking else None
+    _check_paths({"--grid": args.grid, "--dose-response": args.dose_response},
+                 {"--output": output, "--ranking": ranking})
+    _check_fit_arguments(args)
     campaign = _whole_campaign(args)
     if ranking is not None:
         _write_output(campaign.ranking, ranking, campaign=campaign)
@@ -695,7 +767,8 @@ def _simulate(args) -> int:
     from .io import write_table
 
     output = _check_output(args.output)
-    truth_path = _check_output(args.truth) if args.truth else None
+    truth_path = _check_output(args.truth, "--truth") if args.truth else None
+    _check_paths({}, {"--output": output, "--truth": truth_path})
     if args.compounds < 1:
         raise DataError(Problem("--compounds", None, args.compounds, "must be at least 1"))
     table, truth = simulate_campaign(args.compounds, seed=args.seed, cv=args.cv)
@@ -806,6 +879,13 @@ def main(argv=None) -> int:
         return args.handler(args)
     except InhibkinError as err:
         print(f"inhibkin {args.command}: {err}", file=sys.stderr)
+        return EXIT_UNUSABLE_INPUT
+    except OSError as err:
+        # Reading or writing failed (disk full, permissions changed mid-run): one line,
+        # and the atomic writes have left every earlier file as it was.
+        where = f" {err.filename!r}" if err.filename else ""
+        print(f"inhibkin {args.command}: cannot read or write{where}: "
+              f"{err.strerror or err}", file=sys.stderr)
         return EXIT_UNUSABLE_INPUT
 
 

@@ -43,19 +43,25 @@ class Problem:
         The offending value, as found.
     message : str
         What is wrong and, where possible, how to fix it.
+    row_kind : str
+        How ``row`` is printed: ``"row"`` (a DataFrame label) or ``"line"`` (the line
+        of the file the table was read from).
     """
 
     column: str | None
     row: object
     value: object
     message: str
+    row_kind: str = "row"
 
     def __str__(self) -> str:
         where = []
         if self.column is not None:
-            where.append(f"column {self.column!r}")
+            # Command-line options ('--level') are named as options, not columns.
+            kind = "option" if str(self.column).startswith("--") else "column"
+            where.append(f"{kind} {self.column!r}")
         if self.row is not None:
-            where.append(f"row {_plain(self.row)!r}")
+            where.append(f"{self.row_kind} {_plain(self.row)!r}")
         text = repr(_plain(self.value))
         if len(text) > _MAX_VALUE_CHARS:
             text = text[: _MAX_VALUE_CHARS - 3] + "..."

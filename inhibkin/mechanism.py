@@ -25,7 +25,7 @@ from .fitting import ModelFit, fit_model, fixed_alpha_ssr
 from .models import MODEL_NAMES, MODELS
 from .starts import log_bounds, starting_values
 from .text import text_table
-from .validate import check_grid
+from .validate import check_grid, check_options
 
 __all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "DEFAULT_WEIGHTING",
            "relative_weights"]
@@ -277,6 +277,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     unknown = [m for m in models if m not in MODELS]
     if unknown:
         raise DataError(f"unknown models {unknown}; known: {', '.join(MODELS)}", context)
+    check_options({"level": level, "alpha": alpha, "min_delta_aicc": min_delta_aicc,
+                   "determination_factor": determination_factor})
     need_inhibition = any(m != "none" for m in models)
     s, i, v, sigma = check_grid(df, substrate=substrate, inhibitor=inhibitor, rate=rate,
                                 sd=sd if weighting == "sd" else None,

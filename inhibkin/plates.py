@@ -28,10 +28,10 @@ import numpy as np
 import pandas as pd
 
 from .errors import DataError, Problem
-from .validate import check_columns, numeric_column
+from .validate import check_columns, normalise_roles, numeric_column, row_kind
 
 __all__ = ["ROLES", "Z_PRIME_THRESHOLD", "PlateQC", "z_prime", "plate_qc", "percent_activity",
-           "no_controls"]
+           "no_controls", "ZERO_SPREAD"]
 
 #: The role names understood in the ``role`` column.
 ROLES = ("sample", "max", "min")
@@ -39,8 +39,26 @@ ROLES = ("sample", "max", "min")
 #: Plates with Z' below this are flagged (common practice).
 Z_PRIME_THRESHOLD = 0.5
 
+#: The flag of a compound on a plate whose control wells of one kind read exactly alike:
+#: Z' = 1 then says nothing about the assay's noise (a saturated detector, copied values).
+ZERO_SPREAD = "controls_without_spread"
+
 # Control wells needed of each kind for a standard deviation.
 _MIN_CONTROLS = 2
+
+
+def _control_signals(values, name) -> np.ndarray:
+    """Control signals as a float array, or a DataError naming what is wrong."""
+    problems: list[Problem] = []
+    frame = pd.DataFrame({name: np.atleast_1d(np.asarray(values, dtype=object)).ravel()})
+    signal = numeric_column(frame, name, problems, allow_negative=True)
+    if problems:
+        raise DataError(problems, "z_prime")
+    if signal.size < _MIN_CONTROLS:
+        raise DataError(Problem(name, None, signal.size, f"{signal.size} control wells; a "
+                                                         f"standard deviation needs at least "
+                                                         f"{_MIN_CONTROLS}"), "z_prime")
+    return signal
 
 
 def z_prime(max_signal, min_signal) -> float:
@@ -56,9 +74,15 @@ def z_prime(max_signal, min_signal) -> float:
     float
         1 − 3(σ_max + σ_min)/|μ_max − μ_min| (Zhang, Chung & Oldenburg 1999), sample
         standard deviations; −inf when the two means are equal.
+
+    Raises
+    ------
+    DataError
+        When a signal is not a finite number, or either kind has fewer than two wells
+        (a standard deviation needs two).
     """
-    hi = np.asarray(max_signal, dtype=float)
-    lo = np.asarray(min_signal, dtype=float)
+    hi = _control_signals(max_signal, "max_signal")
+    lo = _control_signals(min_signal, "min_signal")
     window = abs(hi.mean() - lo.mean())
     spread = 3.0 * (hi.std(ddof=1) + lo.std(ddof=1))
     if window == 0:
@@ -86,6 +110,14 @@ class PlateQC:
     def flagged(self) -> tuple:
         """Plates whose Z' is below the threshold (or that could not be normalised)."""
         return tuple(self.table.index[self.table["flagged"]])
+
+    @property
+    def no_spread(self) -> tuple:
+        """Plates whose control wells of one kind read exactly alike (flagged; see
+        :data:`ZERO_SPREAD`)."""
+        table = self.table
+        alike = (table["sd_max"] == 0) | (table["sd_min"] == 0)
+        return tuple(table.index[alike.to_numpy()])
 
     @property
     def unusable(self) -> dict:
@@ -131,11 +163,13 @@ def _read(df, *, plate, role, response) -> _Controls:
         raise DataError("the table has no rows")
     problems: list[Problem] = []
     signal = numeric_column(df, response, problems, allow_negative=True)
-    roles = df[role].to_numpy(dtype=object)
+    given = df[role].to_numpy(dtype=object)
+    roles = normalise_roles(df[role]).to_numpy(dtype=object)
     labels = df.index.to_numpy()
     unknown = ~np.isin(roles, ROLES)
-    for row, value in list(zip(labels[unknown], roles[unknown]))[:5]:
-        problems.append(Problem(role, row, value, f"unknown role; use one of {ROLES}"))
+    for row, value in list(zip(labels[unknown], given[unknown]))[:5]:
+        problems.append(Problem(role, row, value, f"unknown role; use one of {ROLES}",
+                                row_kind(df)))
     if problems:
         raise DataError(problems)
     return _Controls(df[plate].to_numpy(dtype=object), roles, signal)
@@ -206,6 +240,11 @@ def plate_qc(df, *, plate="plate", role="role", response="signal",
             z = z_prime(hi, lo)
             row.update(mean_max=hi.mean(), sd_max=hi.std(ddof=1), mean_min=lo.mean(),
                        sd_min=lo.std(ddof=1), z_prime=z, flagged=bool(z < threshold))
+            if row["sd_max"] == 0 or row["sd_min"] == 0:
+                # Identical readings give Z' = 1 without measuring any noise: a saturated
+                # detector or copied values, not a perfect assay. The plate can still be
+                # normalised, so it is flagged, not unusable.
+                row.update(flagged=True)
         rows.append(row)
     if problems and strict:
         raise DataError(problems)

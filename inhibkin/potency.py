@@ -31,7 +31,7 @@ from .errors import DataError, FitError, Problem
 from .fitting import INTERVAL_METHODS
 from .logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
 from .profile import profile_crossing
-from .validate import numeric_column
+from .validate import numeric_column, row_kind
 
 __all__ = [
     "FLAGS",
@@ -241,7 +241,7 @@ def _check_curve(conc, response, weights, *, context, columns=("conc", "response
            "concentration must be > 0 (the curve is fitted on log concentration; "
            "no-inhibitor wells belong in the 'max' controls)")
     for row, value in list(zip(labels[bad], c[bad]))[:5]:
-        problems.append(Problem(columns[0], row, float(value), why))
+        problems.append(Problem(columns[0], row, float(value), why, row_kind(frame)))
     if w is not None:
         zero = np.isfinite(w) & (w == 0)
         for row in labels[zero][:5]:

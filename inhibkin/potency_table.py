@@ -18,7 +18,7 @@ from .conversion import CONVERSIONS, cheng_prusoff
 from .curve_class import CURVE_CLASSES, DEFAULT_RULES, CurveClassRules, classify_curves
 from .errors import DataError, FitError, InhibkinError, Problem
 from .morrison import fit_morrison
-from .plates import Z_PRIME_THRESHOLD, PlateQC, percent_activity, plate_qc
+from .plates import Z_PRIME_THRESHOLD, ZERO_SPREAD, PlateQC, percent_activity, plate_qc
 from .potency import (
     _HILL_MAX,
     _LOG_IC50_MARGIN,
@@ -34,7 +34,7 @@ from .potency import (
     _from_estimates,
 )
 from .units import from_molar, normalise_unit, parse_concentration, split_unit
-from .validate import check_columns
+from .validate import check_columns, normalise_roles, row_kind
 
 __all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table"]
 
@@ -359,6 +359,10 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     columns = [compound, plate, role, concentration, response, substrate]
     columns += [c for c in (km, enzyme) if isinstance(c, str)]
     check_columns(df, columns)
+    if not df.index.is_unique:
+        # Rows are picked by label below; repeated labels would pick several.
+        df = df.reset_index(drop=True)
+    df = df.assign(**{role: normalise_roles(df[role]).to_numpy(dtype=object)})
     if default_mechanism not in CONVERSIONS:
         raise DataError(Problem("default_mechanism", None, default_mechanism,
                                 f"must be one of {CONVERSIONS}"))
@@ -375,11 +379,12 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         raise DataError(Problem(role, None, "sample", "the table has no 'sample' wells"))
     nameless = samples[compound].isna().to_numpy()
     if nameless.any():
-        raise DataError([Problem(compound, r, None, "a 'sample' well has no compound")
-                         for r in samples.index[nameless][:5]])
+        raise DataError([Problem(compound, r, None, "a 'sample' well has no compound",
+                                 row_kind(df)) for r in samples.index[nameless][:5]])
     y_samples = pd.Series(y_all[is_sample], index=samples.index)
     unusable = qc.unusable
-    low_plates = set(qc.flagged)
+    no_spread = set(qc.no_spread)
+    low_plates = set(qc.flagged) - no_spread
 
     rows, curves, info = {}, {}, {}
     for name in pd.unique(samples[compound]):
@@ -422,6 +427,7 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         fits[name] = outcome
         try:
             row.update(_potency_row(name, outcome, df, info[name], low_plates=low_plates,
+                                    no_spread=no_spread,
                                     substrate=substrate, km=km, km_se=km_se, enzyme=enzyme,
                                     mechanisms=mechanisms, default_mechanism=default_mechanism,
                                     default_alpha=default_alpha, level=level,
@@ -434,13 +440,15 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     table = pd.DataFrame([rows[n] for n in rows], columns=list(TABLE_COLUMNS))
     text = ["curve_class", "reason", "ic50_bound", "ki_bound", "mechanism", "mechanism_source",
             "ki_method", "flags"]
-    table[text] = table[text].fillna("")
+    # As object first: filling an all-missing float column with text would warn, and the
+    # batch's warning capture would write that warning into the flags.
+    table[text] = table[text].astype(object).fillna("")
     return PotencyTable(table.reset_index(drop=True), fits, qc, morrison_fits)
 
 
-def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, substrate, km, km_se,
-                 enzyme, mechanisms, default_mechanism, default_alpha, level, tight_binding,
-                 tight_binding_factor, morrison_fits, intervals) -> dict:
+def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, no_spread, substrate,
+                 km, km_se, enzyme, mechanisms, default_mechanism, default_alpha, level,
+                 tight_binding, tight_binding_factor, morrison_fits, intervals) -> dict:
     index, plates = where
     flags = list(fit.flags)
     s = _per_compound_value(substrate, index, "substrate", df)
@@ -463,6 +471,8 @@ def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, substrate
         out["ic50_low"], out["ic50_high"] = ic50_row["ci_low"], ic50_row["ci_high"]
     if any(p in low_plates for p in plates):
         flags.append("low_z_prime")
+    if any(p in no_spread for p in plates):
+        flags.append(ZERO_SPREAD)
     mech, alpha, source = _mechanism_of(name, mechanisms, default_mechanism, default_alpha)
     out.update(mechanism=mech, alpha=alpha, mechanism_source=source)
     if np.isfinite(e) and np.isfinite(fit.ic50) and fit.ic50 < tight_binding_factor * e:

@@ -61,6 +61,7 @@ no usable window or no reads has no rate (``status="failed"``).
 from __future__ import annotations
 
 import html
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -70,7 +71,7 @@ from scipy import stats
 from .errors import DataError, Problem, UnitsError
 from .signal import BeerLambert, StandardCurve, blank_signal
 from .units import from_molar, normalise_unit, split_unit, to_molar, to_seconds
-from .validate import check_columns, numeric_column
+from .validate import check_columns, normalise_roles, numeric_column, row_kind
 
 __all__ = ["InitialRates", "RateOptions", "initial_rates", "FLAGS", "METHODS", "ROLES"]
 
@@ -94,6 +95,11 @@ FLAGS = {
     "negative_slope": "the signal moves against the product (rate < −2 standard errors)",
     "noisy": "the rate's standard error exceeds max_rate_cv of the rate",
 }
+
+# A well label: row letters and a column number; "A01", "a1" and " A1" are one well.
+_WELL_LABEL = r"^([A-Z]+)0*([0-9]+)$"
+# Control characters (C0, DEL) have no place in a label; one would also break the key.
+_CONTROL_CHARACTER = re.compile(r"[\x00-\x1f\x7f]")
 
 # Slopes within this many standard errors of zero are "flat" (about a 95 % two-sided test).
 _FLAT_T = 2.0
@@ -422,14 +428,16 @@ def _plain(value):
     return value.item() if isinstance(value, np.generic) else value
 
 
-def _duplicates(df, columns, problems, what):
+def _duplicates(df, columns, problems, what, shown=None):
+    """Rows of ``df`` repeating ``columns``; the values listed are those of ``shown``."""
+    shown = df if shown is None else shown
     dup = df.duplicated(columns, keep=False).to_numpy()
     if dup.any():
         rows = df.index.to_numpy()[dup]
-        for row in rows[:5]:
-            value = tuple(_plain(df.loc[row, c]) for c in columns)
+        for position, row in zip(np.flatnonzero(dup)[:5], rows[:5]):
+            value = tuple(_plain(shown[c].iloc[position]) for c in columns)
             problems.append(Problem(", ".join(columns), row, value,
-                                    f"duplicated {what}; each must appear once"))
+                                    f"duplicated {what}; each must appear once", row_kind(df)))
         if len(rows) > 5:
             problems.append(Problem(", ".join(columns), None, None,
                                     f"and {len(rows) - 5} more duplicated rows"))
@@ -461,19 +469,51 @@ def _check_options(method, direction, alpha, max_bias, max_conversion, min_point
         raise DataError(problems, "initial_rates options")
 
 
+def _plate_labels(values) -> pd.Series:
+    """Plate labels as they are matched: the text, trimmed of surrounding spaces."""
+    return pd.Series(values).astype(str).str.strip()
+
+
+def _well_labels(values) -> pd.Series:
+    """Well labels as they are matched: trimmed, upper case, no leading zeros (A01 = A1)."""
+    text = pd.Series(values).astype(str).str.strip().str.upper()
+    return text.str.replace(_WELL_LABEL, r"\1\2", regex=True)
+
+
+def _label_problems(frame, plate, well, problems):
+    """A plate or well label holding a control character (a tab, a unit separator…)."""
+    for column in (plate, well):
+        text = frame[column].astype(str)
+        bad = text.str.contains(_CONTROL_CHARACTER).to_numpy() & frame[column].notna().to_numpy()
+        for row, value in list(zip(frame.index[bad], text[bad]))[:5]:
+            problems.append(Problem(column, row, value, "the label holds a control character "
+                                                        "(a tab, line break or other invisible "
+                                                        "code); retype it", row_kind(frame)))
+
+
+def _matching_labels(frame, plate, well):
+    """A copy of ``frame`` whose plate and well columns are the labels as matched."""
+    return frame.assign(**{plate: _plate_labels(frame[plate]).to_numpy(),
+                           well: _well_labels(frame[well]).to_numpy()})
+
+
 def _read_table(reads, *, time, signal, plate, well):
     check_columns(reads, [plate, well, time, signal], "reads")
     problems: list[Problem] = []
+    _label_problems(reads, plate, well, problems)
     t = numeric_column(reads, time, problems)
     y = numeric_column(reads, signal, problems, allow_negative=True, allow_nan=True)
     for column in (plate, well):
         missing = reads[column].isna().to_numpy()
         if missing.any():
             row = reads.index[missing][0]
-            problems.append(Problem(column, row, None, "missing plate or well label"))
+            problems.append(Problem(column, row, None, "missing plate or well label",
+                                    row_kind(reads)))
     if problems:
         raise DataError(problems, "reads")
-    _duplicates(reads, [plate, well, time], problems, "(plate, well, time)")
+    # Duplicates are looked for among the labels as matched: " A1" and "A1" are one well.
+    _duplicates(_matching_labels(reads, plate, well), [plate, well, time], problems,
+                "(plate, well, time) after trimming spaces and case (A01 = A1)", reads)
     if problems:
         raise DataError(problems, "reads")
     return t, y
@@ -483,12 +523,14 @@ def _read_map(plate_map, *, plate, well, compound, substrate, inhibitor, role):
     columns = [plate, well, compound, substrate, inhibitor]
     check_columns(plate_map, columns, "plate map")
     problems: list[Problem] = []
-    roles = (plate_map[role].astype(str).str.strip().str.lower().to_numpy()
+    _label_problems(plate_map, plate, well, problems)
+    roles = (normalise_roles(plate_map[role]).to_numpy(dtype=object)
              if role in plate_map.columns else np.full(len(plate_map), "sample"))
     bad_role = ~np.isin(roles, ROLES)
     if bad_role.any():
         for row, value in list(zip(plate_map.index[bad_role], plate_map[role][bad_role]))[:5]:
-            problems.append(Problem(role, row, value, f"unknown role; use one of {ROLES}"))
+            problems.append(Problem(role, row, value, f"unknown role; use one of {ROLES}",
+                                    row_kind(plate_map)))
     s = numeric_column(plate_map, substrate, problems, allow_nan=True)
     i = numeric_column(plate_map, inhibitor, problems, allow_nan=True)
     needs = roles != "blank"
@@ -497,17 +539,33 @@ def _read_map(plate_map, *, plate, well, compound, substrate, inhibitor, role):
         for row in plate_map.index[missing][:5]:
             problems.append(Problem(column, row, None,
                                     "missing concentration in a sample or control well "
-                                    "(write 0 for none)"))
+                                    "(write 0 for none)", row_kind(plate_map)))
     if problems:
         raise DataError(problems, "plate map")
-    _duplicates(plate_map, [plate, well], problems, "(plate, well)")
+    _duplicates(_matching_labels(plate_map, plate, well), [plate, well], problems,
+                "(plate, well) after trimming spaces and case (A01 = A1)", plate_map)
     if problems:
         raise DataError(problems, "plate map")
     return roles, s, i
 
 
 def _key(frame, plate, well):
-    return frame[plate].astype(str).str.strip() + "\x1f" + frame[well].astype(str).str.strip()
+    return _plate_labels(frame[plate]) + "\x1f" + _well_labels(frame[well])
+
+
+def _check_some_match(read_key, map_key):
+    """Refuse reads of which not one well is in the plate map, naming the labels."""
+    if len(read_key) == 0 or np.isin(read_key, map_key).any():
+        return
+    def plates(keys):
+        return sorted({k.split("\x1f")[0] for k in keys})[:5]
+    def wells(keys):
+        return sorted({k.split("\x1f")[1] for k in keys})[:5]
+    raise DataError(f"no well of the reads is in the plate map: the reads have plates "
+                    f"{plates(read_key)} and wells {wells(read_key)}, the plate map plates "
+                    f"{plates(map_key)} and wells {wells(map_key)}. Labels are compared as "
+                    f"text (spaces trimmed, A01 = A1), so plate '1' and '1.0' differ",
+                    "reads and plate map")
 
 
 def _unit_of(column, declared, kind="concentration"):
@@ -680,6 +738,7 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
 
     map_key = _key(plate_map, plate, well).to_numpy()
     read_key = _key(reads, plate, well).to_numpy()
+    _check_some_match(read_key, map_key)
     map_index = pd.Index(map_key)
     where = map_index.get_indexer(read_key)
     in_map = where >= 0

@@ -7,13 +7,17 @@ checks trusts its inputs.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import pandas as pd
 
 from .errors import DataError, Problem
+from .io import LINE_INDEX
 
 __all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_menten",
-           "NO_SIGNAL"]
+           "NO_SIGNAL", "row_kind", "check_options", "OPTION_LIMITS", "Limit",
+           "normalise_roles"]
 
 # How many bad rows of one kind a message lists before it summarises the rest.
 _MAX_ROWS_LISTED = 5
@@ -27,10 +31,29 @@ NO_SIGNAL = ("the rates carry no signal: their mean (value shown) is ≤ 0, so n
              "activity is seen; nothing to fit")
 
 
+def row_kind(df) -> str:
+    """``"line"`` for a table read from a file (labels are its lines), else ``"row"``."""
+    return "line" if getattr(df.index, "name", None) == LINE_INDEX else "row"
+
+
+def normalise_roles(values) -> pd.Series:
+    """Role labels as the one rule reads them everywhere: trimmed, lower case.
+
+    ``"MAX"``, ``" Sample"`` and ``"min "`` are the roles ``max``, ``sample``, ``min`` in
+    plate maps and dose-response tables alike; a missing role stays missing.
+    """
+    values = pd.Series(values)
+    return values.where(values.isna(), values.astype(str).str.strip().str.lower())
+
+
 def check_columns(df, columns, context=None) -> None:
-    """Raise when ``df`` is not a DataFrame or lacks any of ``columns``."""
+    """Raise when ``df`` is not a DataFrame, names a column twice, or lacks any of ``columns``."""
     if not isinstance(df, pd.DataFrame):
         raise DataError(f"expected a pandas DataFrame, got {type(df).__name__}", context)
+    twice = pd.unique(df.columns[df.columns.duplicated()])
+    if len(twice):
+        raise DataError([Problem(c, None, None, "the table has two columns of this name; "
+                                                "rename or drop one") for c in twice], context)
     missing = [c for c in columns if c not in df.columns]
     if missing:
         have = ", ".join(map(repr, df.columns[:20]))
@@ -40,9 +63,9 @@ def check_columns(df, columns, context=None) -> None:
         )
 
 
-def _listed(problems, column, rows, values, message):
+def _listed(problems, column, rows, values, message, kind="row"):
     for row, value in list(zip(rows, values))[:_MAX_ROWS_LISTED]:
-        problems.append(Problem(column, row, value, message))
+        problems.append(Problem(column, row, value, message, kind))
     extra = len(rows) - _MAX_ROWS_LISTED
     if extra > 0:
         problems.append(Problem(column, None, None, f"and {extra} more rows: {message}"))
@@ -57,15 +80,16 @@ def numeric_column(df, column, problems, *, allow_negative=False, allow_nan=Fals
     raw = df[column]
     values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
     labels = df.index.to_numpy()
+    kind = row_kind(df)
     text = np.isnan(values) & raw.notna().to_numpy()
     if text.any():
-        _listed(problems, column, labels[text], raw.to_numpy()[text], "not a number")
+        _listed(problems, column, labels[text], raw.to_numpy()[text], "not a number", kind)
     missing = np.isnan(values) & ~text
     if missing.any() and not allow_nan:
-        _listed(problems, column, labels[missing], values[missing], "missing value (NaN)")
+        _listed(problems, column, labels[missing], values[missing], "missing value (NaN)", kind)
     infinite = np.isinf(values)
     if infinite.any():
-        _listed(problems, column, labels[infinite], values[infinite], "infinite value")
+        _listed(problems, column, labels[infinite], values[infinite], "infinite value", kind)
     with np.errstate(invalid="ignore"):
         magnitude = np.abs(values)
         huge = np.isfinite(values) & (magnitude > MAX_MAGNITUDE)
@@ -74,12 +98,12 @@ def numeric_column(df, column, problems, *, allow_negative=False, allow_nan=Fals
                         (tiny, f"too small to fit (magnitude below {MIN_MAGNITUDE:g})")):
         if wrong.any():
             _listed(problems, column, labels[wrong], values[wrong],
-                    f"{what}; rescale the column, e.g. express it in another unit")
+                    f"{what}; rescale the column, e.g. express it in another unit", kind)
     if not allow_negative:
         negative = values < 0
         if negative.any():
             _listed(problems, column, labels[negative], values[negative],
-                    "negative value; concentrations and rates must be ≥ 0")
+                    "negative value; concentrations and rates must be ≥ 0", kind)
     return values
 
 
@@ -126,7 +150,8 @@ def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True,
         labels = df.index.to_numpy()
         zero = sigma == 0
         if zero.any():
-            _listed(problems, sd, labels[zero], sigma[zero], "standard deviation must be > 0")
+            _listed(problems, sd, labels[zero], sigma[zero], "standard deviation must be > 0",
+                    row_kind(df))
     if problems:
         raise DataError(problems, context)
     if np.unique(s).size < 2:
@@ -188,3 +213,70 @@ def check_michaelis_menten(s, v, weights=None):
                                 "all rates are equal: they do not depend on the substrate, so "
                                 "km cannot be determined"))
     return s_arr, v_arr, w_arr
+
+
+@dataclass(frozen=True)
+class Limit:
+    """The range an option must lie in: ``low``/``high`` with open or closed ends."""
+
+    low: float
+    high: float
+    low_open: bool = True
+    high_open: bool = True
+    hint: str = ""
+
+    def describe(self) -> str:
+        left = "(" if self.low_open else "["
+        right = ")" if self.high_open else "]"
+        return f"a number in {left}{self.low:g}, {self.high:g}{right}"
+
+    def holds(self, value: float) -> bool:
+        above = value > self.low if self.low_open else value >= self.low
+        below = value < self.high if self.high_open else value <= self.high
+        return bool(above and below)
+
+
+#: The limits of the numeric options, declared once for the Python API and the CLI.
+OPTION_LIMITS = {
+    "level": Limit(0.0, 1.0, hint="a fraction, e.g. 0.95 for 95 % intervals"),
+    "alpha": Limit(0.0, 1.0, hint="a test level, e.g. 0.05"),
+    "min_delta_aicc": Limit(0.0, np.inf, low_open=False),
+    "determination_factor": Limit(1.0, np.inf, low_open=False),
+    # Concentrations in M: positive and finite (1e-100 M to 1e100 M, as for table values).
+    "km": Limit(MIN_MAGNITUDE, MAX_MAGNITUDE, low_open=False, high_open=False,
+                hint="Km in M, or text with its unit such as '20uM'"),
+    "enzyme": Limit(MIN_MAGNITUDE, MAX_MAGNITUDE, low_open=False, high_open=False,
+                    hint="[E] in M, or text with its unit such as '2nM'"),
+}
+
+
+def _option_problem(name, value):
+    limit = OPTION_LIMITS[name.lstrip("-").replace("-", "_")]
+    is_number = isinstance(value, (int, float, np.integer, np.floating))
+    # An option of the command line is the Problem's column ("option '--level'"); a
+    # keyword of the Python API is named in the message.
+    column, head = (name, "") if name.startswith("--") else (None, f"{name} ")
+    if isinstance(value, (bool, np.bool_)) or not is_number:
+        return Problem(column, None, value, f"{head}must be {limit.describe()}, got "
+                                            f"{type(value).__name__}")
+    if limit.holds(float(value)):
+        return None
+    hint = f" ({limit.hint})" if limit.hint else ""
+    if name.lstrip("-") == "level" and 1 < value < 100:
+        hint = f"; {value:g} looks like a percent: write {value / 100:g}"
+    return Problem(column, None, value, f"{head}must be {limit.describe()}{hint}")
+
+
+def check_options(options) -> None:
+    """Raise one DataError listing every option outside its :data:`OPTION_LIMITS`.
+
+    Parameters
+    ----------
+    options : dict
+        Option name (a key of :data:`OPTION_LIMITS`, or its command-line spelling such as
+        ``"--level"``) to value; None values are skipped (not given).
+    """
+    problems = [p for name, value in options.items() if value is not None
+                if (p := _option_problem(name, value)) is not None]
+    if problems:
+        raise DataError(problems, "options")

@@ -21,7 +21,7 @@ READABLE_SUFFIXES = (".csv", ".txt", ".tsv", ".parquet", ".pq", ".xlsx")
 _SNIFF_LINES = 2000
 
 
-def read_any_table(path, *, sheet=None, plate=None, missing=()):
+def read_any_table(path, *, sheet=None, plate=None, missing=(), text_columns=()):
     """Read a table from CSV, Parquet, ``.xlsx`` or a plate-reader matrix.
 
     Parameters
@@ -33,6 +33,9 @@ def read_any_table(path, *, sheet=None, plate=None, missing=()):
         Plate name of matrix blocks that name none (default the file's stem).
     missing : iterable of str
         Further cell texts of a matrix read as a missing read.
+    text_columns : iterable of str
+        Columns of a CSV file read as exact text besides :data:`inhibkin.io.TEXT_COLUMNS`
+        (see :func:`inhibkin.io.read_table`).
 
     Returns
     -------
@@ -65,7 +68,7 @@ def read_any_table(path, *, sheet=None, plate=None, missing=()):
                                       context=context)
         return rows_to_table(rows, context=context)
     if suffix in (".parquet", ".pq"):
-        return read_table(path)
+        return read_table(path, text_columns=text_columns)
     try:
         with open(path, encoding="utf-8-sig") as handle:
             head = [line for _, line in zip(range(_SNIFF_LINES), handle)]
@@ -76,6 +79,6 @@ def read_any_table(path, *, sheet=None, plate=None, missing=()):
 
         return read_plate_matrix(path, plate=plate, missing=missing)
     if suffix == ".csv":
-        return read_table(path)
+        return read_table(path, text_columns=text_columns)
     raise DataError("a text file that holds no plate block (a line of column numbers "
                     "followed by row A); a tidy table must be a .csv file", context)
