@@ -488,12 +488,12 @@ SUBCOMMANDS = [
         "--chromophore NADH --direction decrease -o rates.csv\n"
         "  inhibkin rates data_demo/invented_moa_reads.csv --plate-map "
         "data_demo/invented_moa_plate_map.csv --signal product_uM --rate-time-unit min "
-        "-o rates.csv",
+        "-o demo_rates.csv",
         _rates_arguments, _rates, parallel=False),
     Subcommand(
         "mechanism", "fit every mechanism to each compound's substrate × inhibitor grid",
         "inhibkin mechanism rates.csv --weighting relative -o mechanisms.csv "
-        "--params parameters.csv --workers 2",
+        "--params parameters.csv",
         _mechanism_arguments, _mechanism),
     Subcommand(
         "potency", "IC50, Hill slope and Ki from dose-response plates",
@@ -502,7 +502,7 @@ SUBCOMMANDS = [
     Subcommand(
         "rank", "the whole campaign: grids and dose-response curves, ranked by pKi",
         "inhibkin simulate --compounds 50 --seed 1 -o grid.csv\n"
-        "  inhibkin rank --grid grid.csv --weighting relative -o ranking.csv --workers 2\n"
+        "  inhibkin rank --grid grid.csv --weighting relative -o ranking.csv\n"
         "  inhibkin rank --grid grid.csv --dose-response plates.csv --km 20uM -o ranking.parquet"
         " --scheduler tcp://127.0.0.1:8786",
         _rank_arguments, _rank),
