@@ -460,6 +460,8 @@ def _design(args) -> int:
         write_table(plan.layout(), output)
     if not args.quiet:
         print(plan.summary())
+        if output is not None:
+            print(f"wrote the {plan.choice} grid, {len(plan.layout())} wells, to {output}")
     return EXIT_OK
 
 
