@@ -540,7 +540,7 @@ SUBCOMMANDS = [
         "inhibkin design --km-range 1 5 --ki-range 0.05 0.5 --wells 48 "
         "--substrate 0.01,0.02,0.04,0.08,0.16,0.32,0.64,1.28,2.56,5.12,10.24,20.48 "
         "--inhibitor 0.001,0.003,0.009,0.027,0.081,0.243,0.729,2.187 "
-        "--substrate-unit uM --inhibitor-unit uM --simulations 40 -o layout.csv",
+        "--substrate-unit uM --inhibitor-unit uM --simulations 20 -o layout.csv",
         _design_arguments, _design, parallel=False),
     Subcommand("demo", "run the demo flow on invented data", "inhibkin demo",
                _demo_arguments, _demo, parallel=False),
