@@ -112,7 +112,7 @@ def _nadh_reads(path_length, time_unit):
 def scheduler():
     distributed = pytest.importorskip("distributed")
     with distributed.LocalCluster(n_workers=1, threads_per_worker=2, processes=False,
-                                  dashboard_address=None) as cluster:
+                                  dashboard_address=":0") as cluster:
         yield cluster.scheduler_address
 
 
