@@ -19,14 +19,19 @@ a floor: without the floor, constant-CV noise would make a rate a thousand times
 vmax as informative as one near it, and the search would run to the ends of the
 dilution series. The Jacobian is the analytic one of :mod:`inhibkin.models`; the
 search is a level exchange (swap one level for an unused one while the criterion
-improves) over every grid shape that fills the budget.
+improves) over every grid shape that fills the budget, among the levels of the series
+within :data:`WINDOW_FACTOR` of the prior ranges (the window).
 
-The criterion is a proxy. The plan also reports what matters, estimated by
-simulation: the rate of correct verdicts of :func:`inhibkin.fit_mechanisms` (weights
-from the assumed noise model) on data drawn from the prior (each of the four
-inhibition mechanisms in turn), for the
-proposed grid and, on the same simulated truths and noise draws, for a naive grid of
-the same shape with its levels evenly spaced through the allowed series.
+The criterion is a proxy, so it only proposes candidates: for every grid shape its
+optimum within the window, and levels evenly spaced within the window. The choice among
+them is made on what users care about, estimated by simulation: the share of correct
+verdicts and the RMS pKi error of the batched engine (the rules of
+:func:`inhibkin.fit_mechanisms` with Wald intervals; weights from the assumed noise
+model) on data drawn from the prior, each of the four inhibition mechanisms in turn.
+The chosen design is then compared, on fresh draws (the same truths and noise for
+both), with a naive grid of the same shape whose levels are evenly spaced through the
+whole series; when the design does not beat it on both counts, the plan says so and
+proposes the naive grid.
 """
 
 from __future__ import annotations
@@ -595,10 +600,14 @@ def plan_grid(*, km_range, ki_range, n_wells, substrate_choices, inhibitor_choic
     n_prior : int
         Prior draws averaged in the criterion.
     n_simulations : int
-        Simulated data sets per grid for the expected correct-call rate (0 skips the
-        simulation; each costs one :func:`inhibkin.fit_mechanisms`, ~50 ms).
+        Simulated data sets per grid, for choosing among the candidates and again,
+        fresh, for the comparison with the naive grid (0 skips both: the design is then
+        the best candidate on the criterion, and ``beats_naive`` is None).
     seed : int, optional
         Seed of every random draw (prior and noise).
+    substrate_unit, inhibitor_unit : str, optional
+        Units of the substrate and inhibitor levels, carried into :meth:`GridPlan.layout`
+        headers (``substrate_uM``); the planner itself works in any one unit per factor.
 
     Returns
     -------
@@ -611,9 +620,9 @@ def plan_grid(*, km_range, ki_range, n_wells, substrate_choices, inhibitor_choic
 
     Notes
     -----
-    The criterion is described in the module docstring. The naive grid has the same
-    numbers of levels, evenly spaced by position through each series (so, for a
-    dilution series, evenly on the log scale), ends included.
+    The criterion and the choice are described in the module docstring. The naive grid
+    has the design's numbers of levels, evenly spaced by position through each series
+    (so, for a dilution series, evenly on the log scale), ends included.
 
     Examples
     --------
