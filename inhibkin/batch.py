@@ -442,11 +442,27 @@ def _chunks(groups, chunk_size):
         yield chunk
 
 
-def _progress(total, quiet):
-    from tqdm.auto import tqdm
+class _NoProgress:
+    """The progress bar of a quiet run: nothing drawn, nothing imported."""
 
-    silent = quiet or not (hasattr(sys.stderr, "isatty") and sys.stderr.isatty())
-    return tqdm(total=total, disable=silent, unit="compound", desc="fitting", leave=False)
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+    def update(self, n=1):
+        pass
+
+
+def _progress(total, quiet):
+    # A bar only on a terminal. tqdm.auto is not used: in a notebook kernel without
+    # ipywidgets its import alone warns (TqdmWarning), even for a quiet run.
+    if quiet or not (hasattr(sys.stderr, "isatty") and sys.stderr.isatty()):
+        return _NoProgress()
+    from tqdm import tqdm
+
+    return tqdm(total=total, unit="compound", desc="fitting", leave=False)
 
 
 def _run(function, chunks, arguments, *, workers, client, quiet, sizes, split, lost):

@@ -726,7 +726,14 @@ def _design_arguments(parser):
     parser.add_argument("--simulations", type=int, default=200,
                         help="simulated data sets per grid for the correct-call rate")
     parser.add_argument("--seed", type=int, default=0)
-    parser.add_argument("-o", "--output", help="write the proposed layout, one row per well")
+    parser.add_argument("--substrate-unit", metavar="UNIT",
+                        help="unit of --km-range and --substrate, e.g. uM (needed with -o: "
+                             "the layout's headers carry it)")
+    parser.add_argument("--inhibitor-unit", metavar="UNIT",
+                        help="unit of --ki-range and --inhibitor, e.g. nM (needed with -o)")
+    parser.add_argument("-o", "--output",
+                        help="write the proposed layout: plate, well, substrate_<unit>, "
+                             "inhibitor_<unit>, replicate (from 1)")
 
 
 def _levels(text, option):
@@ -740,17 +747,30 @@ def _levels(text, option):
 def _design(args) -> int:
     from .design import plan_grid
     from .io import write_table
+    from .units import normalise_unit
 
     output = _check_output(args.output) if args.output else None
+    units = {}
+    for option, value in (("--substrate-unit", args.substrate_unit),
+                          ("--inhibitor-unit", args.inhibitor_unit)):
+        if value is None and output is not None:
+            raise DataError(Problem(option, None, None,
+                                    "the layout's headers carry the units; give "
+                                    f"{option} (e.g. uM)"))
+        units[option] = normalise_unit(value) if value is not None else None
     plan = plan_grid(km_range=tuple(args.km_range), ki_range=tuple(args.ki_range),
                      n_wells=args.wells, substrate_choices=_levels(args.substrate, "--substrate"),
                      inhibitor_choices=_levels(args.inhibitor, "--inhibitor"), cv=args.cv,
                      floor_sd=args.floor_sd, replicates=args.replicates,
-                     n_simulations=args.simulations, seed=args.seed)
+                     n_simulations=args.simulations, seed=args.seed,
+                     substrate_unit=units["--substrate-unit"],
+                     inhibitor_unit=units["--inhibitor-unit"])
     if output is not None:
         write_table(plan.layout(), output)
     if not args.quiet:
         print(plan.summary())
+        if output is not None:
+            print(f"wrote the {plan.choice} grid, {len(plan.layout())} wells, to {output}")
     return EXIT_OK
 
 
@@ -798,12 +818,12 @@ SUBCOMMANDS = [
         "--chromophore NADH --direction decrease -o rates.csv\n"
         "  inhibkin rates data_demo/invented_moa_reads.csv --plate-map "
         "data_demo/invented_moa_plate_map.csv --signal product_uM --rate-time-unit min "
-        "-o rates.csv",
+        "-o demo_rates.csv",
         _rates_arguments, _rates, parallel=False),
     Subcommand(
         "mechanism", "fit every mechanism to each compound's substrate × inhibitor grid",
         "inhibkin mechanism rates.csv --weighting relative -o mechanisms.csv "
-        "--params parameters.csv --workers 2",
+        "--params parameters.csv",
         _mechanism_arguments, _mechanism),
     Subcommand(
         "potency", "IC50, Hill slope and Ki from dose-response plates",
@@ -812,7 +832,7 @@ SUBCOMMANDS = [
     Subcommand(
         "rank", "the whole campaign: grids and dose-response curves, ranked by pKi",
         "inhibkin simulate --compounds 50 --seed 1 -o grid.csv\n"
-        "  inhibkin rank --grid grid.csv --weighting relative -o ranking.csv --workers 2\n"
+        "  inhibkin rank --grid grid.csv --weighting relative -o ranking.csv\n"
         "  inhibkin rank --grid grid.csv --dose-response plates.csv --km 20uM -o ranking.parquet"
         " --scheduler tcp://127.0.0.1:8786",
         _rank_arguments, _rank),
@@ -829,7 +849,8 @@ SUBCOMMANDS = [
         "design", "propose substrate × inhibitor levels that tell the mechanisms apart",
         "inhibkin design --km-range 1 5 --ki-range 0.05 0.5 --wells 48 "
         "--substrate 0.01,0.02,0.04,0.08,0.16,0.32,0.64,1.28,2.56,5.12,10.24,20.48 "
-        "--inhibitor 0.001,0.003,0.009,0.027,0.081,0.243,0.729,2.187 -o layout.csv",
+        "--inhibitor 0.001,0.003,0.009,0.027,0.081,0.243,0.729,2.187 "
+        "--substrate-unit uM --inhibitor-unit uM --simulations 20 -o layout.csv",
         _design_arguments, _design, parallel=False),
     Subcommand(
         "layout", "write a usual plate layout, or print a layout as a plate for review",

@@ -17,14 +17,19 @@ al. 2006, PNAS 103:11473; the rules and thresholds below are this package's own)
     no activity worth the name: the curve removes less than ``min_efficacy`` of the
     control window by the highest concentration, or its trend is not distinguishable
     from a flat line (and activity is not already removed at the lowest
-    concentration).
+    concentration). For activity, which an inhibitor can only lower
+    (``falling_only=True``, the potency and campaign path), a curve that *rises* with
+    concentration removes nothing: activity above full activity is activation, not
+    inhibition, so it is inactive however large the rise, with that reason.
 
 The quantities, all read off the fitted curve at the tested concentrations:
 
 efficacy
     |full − y(highest)| / (full − zero): the fraction of the control window (full
     activity ``full``, zero activity ``zero``; 100 and 0 for percent activity from
-    plate controls) that the curve has moved by the highest concentration. Without a
+    plate controls) that the curve has moved by the highest concentration (with
+    ``falling_only``, (full − y(highest)) / (full − zero), floored at 0: only a move
+    towards zero activity counts). Without a
     full-activity level the curve's own value at the lowest concentration stands in
     for it, and a curve already at full effect there cannot be told from a flat one.
 trend
@@ -169,7 +174,7 @@ def _per_curve(value, n_batch, default):
 
 
 def classify_curves(x, y, mask, estimate, *, weights=None, n_free=4, full_activity=None,
-                    zero_activity=0.0, hill_limit=np.inf,
+                    zero_activity=0.0, hill_limit=np.inf, falling_only=False,
                     rules: CurveClassRules = DEFAULT_RULES) -> CurveClasses:
     """The class of every fitted 4PL curve of a batch.
 
@@ -194,6 +199,10 @@ def classify_curves(x, y, mask, estimate, *, weights=None, n_free=4, full_activi
         concentration is used.
     hill_limit : float
         The bound the fit put on |hill| (``inf`` when none).
+    falling_only : bool
+        The responses are activity, which an inhibitor can only lower: a curve that
+        rises with concentration shows no inhibition and is ``inactive`` (module
+        docstring). False (any direction counts) for a readout that may rise.
     rules : CurveClassRules
 
     Returns
@@ -220,12 +229,16 @@ def classify_curves(x, y, mask, estimate, *, weights=None, n_free=4, full_activi
     zero = _per_curve(zero_activity, n_batch, 0.0)
     have_full = full_activity is not None
     full = _per_curve(full_activity, n_batch, np.nan) if have_full else y_low
+    # Activity can only be removed by an inhibitor: with falling_only a move above full
+    # activity counts as nothing, not as efficacy.
+    moved = (lambda d: np.clip(d, 0.0, None)) if falling_only else np.abs
     with np.errstate(divide="ignore", invalid="ignore"):
         window = full - zero
-        efficacy = np.abs(full - y_high) / window
-        efficacy_next = np.abs(full - y_next) / window
-        efficacy_lowest = (np.abs(full - y_low) / window if have_full
+        efficacy = moved(full - y_high) / window
+        efficacy_next = moved(full - y_next) / window
+        efficacy_lowest = (moved(full - y_low) / window if have_full
                            else np.zeros(n_batch))
+        rise = np.where(np.isfinite(window) & (window > 0), (y_high - y_low) / window, 0.0)
     # No usable window, or a failed fit (NaN estimates): nothing seen.
     valid = np.isfinite(window) & (window > 0)
     efficacy, efficacy_next, efficacy_lowest = (
@@ -272,6 +285,8 @@ def classify_curves(x, y, mask, estimate, *, weights=None, n_free=4, full_activi
     curve_class = np.select([complete, incomplete, single], CURVE_CLASSES[:3],
                             default="inactive").astype(object)
     below_range = below_range & active
+    # Activity that rises across the range by at least what would count as efficacy.
+    rising = falling_only & (np.nan_to_num(rise) >= rules.min_efficacy) & trend
     percent = np.round(100 * efficacy).astype(int)
     reason = np.empty(n_batch, dtype=object)
     for b in range(n_batch):
@@ -290,6 +305,10 @@ def classify_curves(x, y, mask, estimate, *, weights=None, n_free=4, full_activi
         elif curve_class[b] == "single_point":
             reason[b] = (f"activity at the highest concentration only ({percent[b]} % "
                          f"removed there, {round(100 * efficacy_next[b])} % at the next)")
+        elif rising[b]:
+            reason[b] = (f"inactive: activity rises with concentration (by "
+                         f"{round(100 * rise[b])} % of the control window across the tested "
+                         f"range): activation, no inhibition")
         elif efficacy[b] < rules.min_efficacy:
             reason[b] = (f"inactive: {percent[b]} % of the control window removed by the "
                          f"highest concentration (below {100 * rules.min_efficacy:g} %)")

@@ -19,14 +19,19 @@ a floor: without the floor, constant-CV noise would make a rate a thousand times
 vmax as informative as one near it, and the search would run to the ends of the
 dilution series. The Jacobian is the analytic one of :mod:`inhibkin.models`; the
 search is a level exchange (swap one level for an unused one while the criterion
-improves) over every grid shape that fills the budget.
+improves) over every grid shape that fills the budget, among the levels of the series
+within :data:`WINDOW_FACTOR` of the prior ranges (the window).
 
-The criterion is a proxy. The plan also reports what matters, estimated by
-simulation: the rate of correct verdicts of :func:`inhibkin.fit_mechanisms` (weights
-from the assumed noise model) on data drawn from the prior (each of the four
-inhibition mechanisms in turn), for the
-proposed grid and, on the same simulated truths and noise draws, for a naive grid of
-the same shape with its levels evenly spaced through the allowed series.
+The criterion is a proxy, so it only proposes candidates: for every grid shape its
+optimum within the window, and levels evenly spaced within the window. The choice among
+them is made on what users care about, estimated by simulation: the share of correct
+verdicts and the RMS pKi error of the batched engine (the rules of
+:func:`inhibkin.fit_mechanisms` with Wald intervals; weights from the assumed noise
+model) on data drawn from the prior, each of the four inhibition mechanisms in turn.
+The chosen design is then compared, on fresh draws (the same truths and noise for
+both), with a naive grid of the same shape whose levels are evenly spaced through the
+whole series; when the design does not beat it on both counts, the plan says so and
+proposes the naive grid.
 """
 
 from __future__ import annotations
@@ -39,8 +44,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .errors import DataError, InhibkinError
-from .mechanism import fit_mechanisms
+from .engine import fit_mechanism_arrays
+from .errors import DataError
 from .models import MODELS
 from .simulate import simulate_grid
 
@@ -56,6 +61,13 @@ SIMULATED_MECHANISMS = ("competitive", "uncompetitive", "noncompetitive", "mixed
 CALL_OUTCOMES = ("correct", "ambiguous", "wrong", "larger", "missed", "failed")
 #: Level of the Clopper–Pearson bands on the simulated rates.
 BAND_LEVEL = 0.95
+# A 96-well plate, filled row by row (A1, A2, … H12).
+_PLATE_ROWS, _PLATE_COLUMNS = "ABCDEFGH", 12
+_PLATE_WELLS = len(_PLATE_ROWS) * _PLATE_COLUMNS
+#: Candidate levels lie within this factor of the prior ranges (below the low end of the
+#: km or Ki range, above its high end): a level far outside the prior (I = 0.001 for Ki
+#: between 0.05 and 0.5) spends wells on rates that tell nothing the prior allows apart.
+WINDOW_FACTOR = 5.0
 # Passes of the level exchange; each pass tries every swap, and the search stops at the
 # first pass without improvement (a handful suffice in practice).
 _MAX_EXCHANGE_PASSES = 20
@@ -155,8 +167,20 @@ def naive_levels(choices, n) -> np.ndarray:
     return choices[idx]
 
 
-def _exchange(info, s_idx, i_idx, n_s_all, n_i_all, replicates):
-    """Swap single levels for unused ones while the criterion improves.
+def _window(choices, low, high, n) -> np.ndarray:
+    """Indices of the sorted ``choices`` within [low / WINDOW_FACTOR, high · WINDOW_FACTOR];
+    when fewer than ``n`` lie there, the ``n`` nearest to it on the log scale."""
+    log_c = np.log(choices)
+    distance = (np.maximum(np.log(low / WINDOW_FACTOR) - log_c, 0.0)
+                + np.maximum(log_c - np.log(high * WINDOW_FACTOR), 0.0))
+    inside = np.flatnonzero(distance == 0)
+    if inside.size >= n:
+        return inside
+    return np.sort(np.argsort(distance, kind="stable")[:n])
+
+
+def _exchange(info, s_idx, i_idx, s_allowed, i_allowed, replicates):
+    """Swap single levels for unused allowed ones while the criterion improves.
 
     Index 0 of the inhibitor axis is I = 0 and always stays in the design.
     """
@@ -164,11 +188,12 @@ def _exchange(info, s_idx, i_idx, n_s_all, n_i_all, replicates):
     best = _log_det(info, s_idx, i_idx, replicates)
     for _ in range(_MAX_EXCHANGE_PASSES):
         improved = False
-        for axis, current, total in (("s", s_idx, n_s_all), ("i", i_idx, n_i_all)):
+        for axis, current, allowed in (("s", s_idx, s_allowed), ("i", i_idx, i_allowed)):
             for pos in range(len(current)):
                 if axis == "i" and current[pos] == 0:
                     continue
-                for cand in range(total):
+                for cand in allowed:
+                    cand = int(cand)
                     if cand in current or (axis == "i" and cand == 0):
                         continue
                     trial = current.copy()
@@ -266,44 +291,70 @@ def _simulate_calls(grids, *, km_range, ki_range, cv, floor_sd, replicates, n_si
     rows = []
     draws = _prior_draws(km_range, ki_range, n_simulations, rng)
     noise_seeds = rng.integers(0, 2**63, size=n_simulations)
+    truths = []
     for k in range(n_simulations):
         mechanism = SIMULATED_MECHANISMS[k % len(SIMULATED_MECHANISMS)]
         km, kic, kiu = draws[k]
         constants = {"competitive": {"kic": kic}, "uncompetitive": {"kiu": kiu},
                      "noncompetitive": {"kic": kic},
                      "mixed": {"kic": kic, "kiu": kiu}}[mechanism]
-        for grid, (s, i) in grids.items():
+        truths.append((mechanism, km, constants))
+    for grid, (s, i) in grids.items():
+        columns = []
+        for k, (mechanism, km, constants) in enumerate(truths):
             data = simulate_grid(mechanism, vmax=1.0, km=km, s=s, i=i, replicates=replicates,
                                  cv=cv, sd=floor_sd, seed=int(noise_seeds[k]), **constants)
-            # The noise floor makes some readings of fully inhibited wells negative; the
-            # input checks refuse those, and a plate reader pipeline reports them as 0.
-            data["rate"] = data["rate"].clip(lower=0.0)
-            # Weights from the noise model itself, the same rule for both grids, so the
+            # Weights from the noise model itself, the same rule for every grid, so the
             # comparison is about the levels and not about a weighting that suits one.
-            data["sd"] = np.sqrt((cv * data["true_rate"]) ** 2 + floor_sd**2)
-            try:
-                fit = fit_mechanisms(data, sd="sd", weighting="sd", intervals="wald")
-                verdict = fit.verdict
-                error = _pki_error(fit.models[mechanism], constants)
-            except InhibkinError:
-                verdict, error = "failed", np.nan
+            # Readings below zero (the noise floor on fully inhibited wells) are data.
+            sd = np.sqrt((cv * data["true_rate"]) ** 2 + floor_sd**2)
+            columns.append((data["substrate"], data["inhibitor"], data["rate"], sd))
+        if not columns:
+            continue
+        # The batched engine: the rules of fit_mechanisms(..., intervals="wald"), every
+        # data set of the grid at once (its verdicts agree with the lmfit path,
+        # tests/test_engine.py); read from its arrays, without a MechanismFit per set.
+        s_, i_, v_, sd_ = (np.stack([np.asarray(c[j], dtype=float) for c in columns])
+                           for j in range(4))
+        batch = fit_mechanism_arrays(s_, i_, v_, np.ones(v_.shape, bool), sd=sd_,
+                                     weighting="sd")
+        for k, (mechanism, _, constants) in enumerate(truths):
+            verdict = str(batch.verdict[k])
             rows.append({"simulation": k, "grid": grid, "mechanism": mechanism,
                          "verdict": verdict, "outcome": call_outcome(mechanism, verdict),
-                         "pki_error": error})
+                         "pki_error": _pki_error(batch.models[mechanism], k, constants)})
     return pd.DataFrame(rows, columns=["simulation", "grid", "mechanism", "verdict",
                                        "outcome", "pki_error"])
 
 
-def _pki_error(model_fit, constants) -> float:
+def _preference(candidate):
+    """Order of the candidates on the selection draws: those at least as good as the
+    naive grid of their shape on both counts first; then the share of correct verdicts
+    less the RMS pKi error (log10 units: 0.01 in pKi weighs as one call in a hundred),
+    so neither figure is bought with the other; the criterion breaks ties."""
+    return (candidate["dominates"], candidate["correct"] - candidate["pki_rmse"],
+            candidate["criterion"])
+
+
+def _score(sims, grid):
+    """(share of correct verdicts, RMS pKi error) of ``grid`` in a simulation table."""
+    here = sims[sims["grid"] == grid]
+    if not len(here):
+        return np.nan, np.nan
+    errors = here["pki_error"].to_numpy(dtype=float)
+    rmse = float(np.sqrt(np.nanmean(errors**2))) if np.isfinite(errors).any() else np.inf
+    return float((here["outcome"] == "correct").mean()), rmse
+
+
+def _pki_error(model_batch, k, constants) -> float:
     """Largest |pKi error| (log10 units) over the inhibition constants of the true
-    model's fit; NaN when it did not converge."""
-    if not model_fit.converged:
+    model's fit to data set ``k``; NaN when it did not converge."""
+    if not model_batch.converged[k]:
         return np.nan
-    est = model_fit.best_values
-    truth = dict(constants)
-    if "ki" in est:
-        truth = {"ki": constants["kic"]}
-    return float(max(abs(np.log10(est[n] / v)) for n, v in truth.items()))
+    names = list(model_batch.names)
+    truth = {"ki": constants["kic"]} if "ki" in names else dict(constants)
+    return float(max(abs(np.log10(model_batch.estimate[k, names.index(n)] / v))
+                     for n, v in truth.items()))
 
 
 @dataclass(frozen=True)
@@ -332,8 +383,22 @@ class GridPlan:
     simulations : pandas.DataFrame
         One row per simulated data set and grid: simulation, grid ("proposed" or
         "naive"), mechanism, verdict, outcome (see :func:`call_outcome`), pki_error
-        (largest |pKi error| of the true model's constants, log10 units).
+        (largest |pKi error| of the true model's constants, log10 units). These draws
+        are fresh: not the ones the candidates were chosen on.
     seed : int or None
+    candidates : pandas.DataFrame
+        Every grid considered, one row each: candidate, kind ("ds-optimal" within the
+        window around the prior, "window" evenly spaced within it, "naive"), n_substrate,
+        n_inhibitor, substrate, inhibitor (tuples of levels), criterion, correct and
+        pki_rmse (on the selection draws), chosen.
+    beats_naive : bool or None
+        Whether the design beats the naive grid on the fresh draws: at least as many
+        correct verdicts *and* an RMS pKi error no larger, one of them strictly better.
+        None without simulations.
+    choice : {"design", "naive"}
+        The grid the plan proposes: the naive one when the design does not beat it.
+    substrate_unit, inhibitor_unit : str or None
+        Units of the levels, for the layout's headers.
     """
 
     substrate: tuple[float, ...]
@@ -351,6 +416,31 @@ class GridPlan:
     ki_range: tuple[float, float]
     simulations: pd.DataFrame = field(repr=False)
     seed: int | None = None
+    candidates: pd.DataFrame = field(default_factory=pd.DataFrame, repr=False)
+    beats_naive: bool | None = None
+    choice: str = "design"
+    substrate_unit: str | None = None
+    inhibitor_unit: str | None = None
+
+    @property
+    def chosen_substrate(self) -> tuple[float, ...]:
+        """Substrate levels of the grid the plan proposes (:attr:`choice`)."""
+        return self.naive_substrate if self.choice == "naive" else self.substrate
+
+    @property
+    def chosen_inhibitor(self) -> tuple[float, ...]:
+        """Inhibitor levels of the grid the plan proposes (:attr:`choice`)."""
+        return self.naive_inhibitor if self.choice == "naive" else self.inhibitor
+
+    @property
+    def naive_score(self) -> tuple[float, float]:
+        """(share of correct verdicts, RMS pKi error) of the naive grid, fresh draws."""
+        return self._rate("naive"), self.pki_rmse("naive")
+
+    @property
+    def score(self) -> tuple[float, float]:
+        """(share of correct verdicts, RMS pKi error) of the design, fresh draws."""
+        return self._rate("proposed"), self.pki_rmse("proposed")
 
     @property
     def wells_used(self) -> int:
@@ -392,10 +482,25 @@ class GridPlan:
         return out
 
     def layout(self) -> pd.DataFrame:
-        """The proposed plate: one row per well (substrate, inhibitor, replicate)."""
-        s, i, r = np.meshgrid(self.substrate, self.inhibitor, np.arange(self.replicates),
-                              indexing="ij")
-        return pd.DataFrame({"substrate": s.ravel(), "inhibitor": i.ravel(),
+        """The proposed plate (:attr:`choice`): one row per well.
+
+        Columns plate (1, 2, … for every 96 wells), well (A1 … H12, row by row),
+        substrate and inhibitor (headers ``substrate_<unit>`` and ``inhibitor_<unit>``
+        when the units are known, as every stage reads them), replicate (1, 2, …).
+        """
+        s, i, r = np.meshgrid(self.chosen_substrate, self.chosen_inhibitor,
+                              np.arange(1, self.replicates + 1), indexing="ij")
+        n = s.size
+        position = np.arange(n) % _PLATE_WELLS
+        wells = [f"{_PLATE_ROWS[p // _PLATE_COLUMNS]}{p % _PLATE_COLUMNS + 1}"
+                 for p in position]
+
+        def header(name, unit):
+            return f"{name}_{unit}" if unit else name
+
+        return pd.DataFrame({"plate": np.arange(n) // _PLATE_WELLS + 1, "well": wells,
+                             header("substrate", self.substrate_unit): s.ravel(),
+                             header("inhibitor", self.inhibitor_unit): i.ravel(),
                              "replicate": r.ravel()})
 
     def to_frame(self) -> pd.DataFrame:
@@ -416,7 +521,8 @@ class GridPlan:
                  f"{'pKi RMSE':>9}"]
         for grid, value in (("proposed", self.criterion_value),
                             ("naive", self.naive_criterion_value)):
-            lines.append(f"  {grid:<10} {value:>10.2f} {self._rate(grid):>8.1%} "
+            label = "design" if grid == "proposed" else grid
+            lines.append(f"  {label:<10} {value:>10.2f} {self._rate(grid):>8.1%} "
                          f"{self._rate(grid, 'wrong'):>7.1%} "
                          f"{self._rate(grid, 'ambiguous'):>10.1%} {self.pki_rmse(grid):>9.3f}")
         return lines
@@ -433,16 +539,29 @@ class GridPlan:
             f"  prior: km in [{self.km_range[0]:.4g}, {self.km_range[1]:.4g}], "
             f"Ki in [{self.ki_range[0]:.4g}, {self.ki_range[1]:.4g}]; noise: CV "
             f"{self.cv:.1%} plus SD {self.floor_sd:.1%} of vmax",
-            f"  proposed substrate: {fmt(self.substrate)}",
-            f"  proposed inhibitor: {fmt(self.inhibitor)}",
+            f"  design substrate:   {fmt(self.substrate)}",
+            f"  design inhibitor:   {fmt(self.inhibitor)}",
             f"  naive substrate:    {fmt(self.naive_substrate)}",
             f"  naive inhibitor:    {fmt(self.naive_inhibitor)}",
             f"  criterion: {self.criterion}",
             f"  simulated verdicts ({n_sim} prior draws, mechanisms "
             f"{', '.join(SIMULATED_MECHANISMS)} in turn):",
             *self._comparison_lines(),
+            f"  {self._conclusion()}",
         ]
         return "\n".join(lines)
+
+    def _conclusion(self) -> str:
+        if self.beats_naive is None:
+            return ("not checked by simulation (n_simulations=0): the design is proposed on "
+                    "its criterion alone")
+        (correct, rmse), (naive_correct, naive_rmse) = self.score, self.naive_score
+        figures = (f"correct {correct:.1%} vs {naive_correct:.1%}, pKi RMSE {rmse:.3f} vs "
+                   f"{naive_rmse:.3f}")
+        if self.beats_naive:
+            return f"the design beats the naive grid ({figures}): proposed"
+        return (f"the design does not beat the naive grid for this prior ({figures}): the "
+                f"naive grid is proposed")
 
     def _repr_html_(self) -> str:
         return ("<div><pre>" + html.escape(self.summary()) + "</pre>"
@@ -455,8 +574,8 @@ CRITERION = ("Bayesian Ds-optimality: mean over log-uniform prior draws of "
 
 
 def plan_grid(*, km_range, ki_range, n_wells, substrate_choices, inhibitor_choices, cv=0.05,
-              floor_sd=0.01, replicates=2, n_prior=64, n_simulations=200,
-              seed=None) -> GridPlan:
+              floor_sd=0.01, replicates=2, n_prior=64, n_simulations=200, seed=None,
+              substrate_unit=None, inhibitor_unit=None) -> GridPlan:
     """Propose substrate and inhibitor levels that determine the mechanism and Ki.
 
     Parameters
@@ -481,10 +600,14 @@ def plan_grid(*, km_range, ki_range, n_wells, substrate_choices, inhibitor_choic
     n_prior : int
         Prior draws averaged in the criterion.
     n_simulations : int
-        Simulated data sets per grid for the expected correct-call rate (0 skips the
-        simulation; each costs one :func:`inhibkin.fit_mechanisms`, ~50 ms).
+        Simulated data sets per grid, for choosing among the candidates and again,
+        fresh, for the comparison with the naive grid (0 skips both: the design is then
+        the best candidate on the criterion, and ``beats_naive`` is None).
     seed : int, optional
         Seed of every random draw (prior and noise).
+    substrate_unit, inhibitor_unit : str, optional
+        Units of the substrate and inhibitor levels, carried into :meth:`GridPlan.layout`
+        headers (``substrate_uM``); the planner itself works in any one unit per factor.
 
     Returns
     -------
@@ -497,9 +620,9 @@ def plan_grid(*, km_range, ki_range, n_wells, substrate_choices, inhibitor_choic
 
     Notes
     -----
-    The criterion is described in the module docstring. The naive grid has the same
-    numbers of levels, evenly spaced by position through each series (so, for a
-    dilution series, evenly on the log scale), ends included.
+    The criterion and the choice are described in the module docstring. The naive grid
+    has the design's numbers of levels, evenly spaced by position through each series
+    (so, for a dilution series, evenly on the log scale), ends included.
 
     Examples
     --------
@@ -517,28 +640,81 @@ def plan_grid(*, km_range, ki_range, n_wells, substrate_choices, inhibitor_choic
     rng = np.random.default_rng(seed)
     draws = _prior_draws(km_range, ki_range, n_prior, rng)
     info = _cell_information(s_all, i_all, draws, cv, floor_sd)
-    best = None
+    candidates, naive_of_shape = [], {}
     for n_s, n_i in _shapes(s_all.size, i_all.size, n_wells, replicates):
         s0 = np.searchsorted(s_all, naive_levels(s_all, n_s))
         i0 = np.concatenate([[0], np.searchsorted(i_all, naive_levels(i_all[1:], n_i - 1))])
-        naive_value = _log_det(info, s0, i0, replicates)
-        s_idx, i_idx, value = _exchange(info, s0, i0, s_all.size, i_all.size, replicates)
-        if best is None or value > best[2]:
-            best = (s_idx, i_idx, value, s0, i0, naive_value)
-    s_idx, i_idx, value, s0, i0, naive_value = best
-    grids = {"proposed": (s_all[s_idx], i_all[i_idx]), "naive": (s_all[s0], i_all[i0])}
+        # Candidate levels: the series within the window around the prior.
+        s_win = _window(s_all, *km_range, n_s)
+        i_win = np.concatenate([[0], 1 + _window(i_all[1:], *ki_range, n_i - 1)])
+        s_even = s_win[np.round(np.linspace(0, s_win.size - 1, n_s)).astype(int)]
+        i_even = np.concatenate([[0], i_win[1:][np.round(
+            np.linspace(0, i_win.size - 2, n_i - 1)).astype(int)]])
+        s_idx, i_idx, value = _exchange(info, s_even, i_even, s_win, i_win[1:], replicates)
+        for kind, (s, i) in (("ds-optimal", (s_idx, i_idx)), ("window", (s_even, i_even))):
+            s, i = sorted(set(map(int, s))), sorted(set(map(int, i)))
+            candidates.append({"kind": kind, "s": s, "i": i,
+                               "criterion": _log_det(info, s, i, replicates)})
+        naive_of_shape[n_s, n_i] = {"kind": "naive", "s": list(map(int, s0)),
+                                    "i": list(map(int, i0)),
+                                    "criterion": _log_det(info, s0, i0, replicates)}
+    # Drop repeats (the window can leave a shape only one way to fill it).
+    unique = {}
+    for c in candidates:
+        unique.setdefault((tuple(c["s"]), tuple(c["i"])), c)
+    candidates = list(unique.values())
+    if n_simulations:
+        # Choose on one set of draws, compare with the naive grid on fresh ones, so the
+        # reported figures carry no selection bias.
+        grids = {f"candidate {k}": (s_all[c["s"]], i_all[c["i"]])
+                 for k, c in enumerate(candidates)}
+        grids.update({f"naive {n_s}x{n_i}": (s_all[c["s"]], i_all[c["i"]])
+                      for (n_s, n_i), c in naive_of_shape.items()})
+        selection = _simulate_calls(grids, km_range=km_range, ki_range=ki_range, cv=cv,
+                                    floor_sd=floor_sd, replicates=replicates,
+                                    n_simulations=n_simulations, rng=rng)
+        for k, c in enumerate(candidates):
+            c["correct"], c["pki_rmse"] = _score(selection, f"candidate {k}")
+            naive_correct, naive_rmse = _score(selection,
+                                               f"naive {len(c['s'])}x{len(c['i'])}")
+            c["dominates"] = c["correct"] >= naive_correct and c["pki_rmse"] <= naive_rmse
+        best = max(candidates, key=_preference)
+    else:
+        for c in candidates:
+            c["correct"], c["pki_rmse"] = np.nan, np.nan
+        best = max((c for c in candidates if c["kind"] == "ds-optimal"),
+                   key=lambda c: c["criterion"])
+    # The naive grid has the shape of the design: the comparison is about the levels.
+    naive = naive_of_shape[len(best["s"]), len(best["i"])]
+    grids = {"proposed": (s_all[best["s"]], i_all[best["i"]]),
+             "naive": (s_all[naive["s"]], i_all[naive["i"]])}
     sims = _simulate_calls(grids, km_range=km_range, ki_range=ki_range, cv=cv,
                            floor_sd=floor_sd, replicates=replicates,
                            n_simulations=n_simulations, rng=rng)
+    beats = None
+    if n_simulations:
+        (correct, rmse), (naive_correct, naive_rmse) = (_score(sims, "proposed"),
+                                                        _score(sims, "naive"))
+        beats = bool(correct >= naive_correct and rmse <= naive_rmse
+                     and (correct > naive_correct or rmse < naive_rmse))
+    table = pd.DataFrame([{
+        "candidate": k, "kind": c["kind"], "n_substrate": len(c["s"]),
+        "n_inhibitor": len(c["i"]),
+        "substrate": tuple(float(x) for x in s_all[c["s"]]),
+        "inhibitor": tuple(float(x) for x in i_all[c["i"]]),
+        "criterion": c["criterion"], "correct": c["correct"], "pki_rmse": c["pki_rmse"],
+        "chosen": c is best} for k, c in enumerate(candidates)])
     return GridPlan(
-        substrate=tuple(float(x) for x in s_all[s_idx]),
-        inhibitor=tuple(float(x) for x in i_all[i_idx]),
+        substrate=tuple(float(x) for x in s_all[best["s"]]),
+        inhibitor=tuple(float(x) for x in i_all[best["i"]]),
         replicates=int(replicates), n_wells=int(n_wells), criterion=CRITERION,
-        criterion_value=value,
-        naive_substrate=tuple(float(x) for x in s_all[s0]),
-        naive_inhibitor=tuple(float(x) for x in i_all[i0]),
-        naive_criterion_value=naive_value, cv=float(cv), floor_sd=float(floor_sd),
+        criterion_value=best["criterion"],
+        naive_substrate=tuple(float(x) for x in s_all[naive["s"]]),
+        naive_inhibitor=tuple(float(x) for x in i_all[naive["i"]]),
+        naive_criterion_value=naive["criterion"], cv=float(cv), floor_sd=float(floor_sd),
         km_range=(float(km_range[0]), float(km_range[1])),
         ki_range=(float(ki_range[0]), float(ki_range[1])),
-        simulations=sims, seed=seed,
+        simulations=sims, seed=seed, candidates=table, beats_naive=beats,
+        choice="naive" if beats is False else "design",
+        substrate_unit=substrate_unit, inhibitor_unit=inhibitor_unit,
     )

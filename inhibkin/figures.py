@@ -5,7 +5,9 @@ Every function takes the result (or the data) first, options by keyword, draws o
 multi-panel views). Nothing here touches pyplot: figures are plain
 :class:`matplotlib.figure.Figure` objects, drawn by the Agg renderer when saved, so no
 display is ever needed, a notebook's own backend is left alone, and a report that
-draws hundreds of figures leaks none of them into pyplot's global state.
+draws hundreds of figures leaks none of them into pyplot's global state. Because no
+backend is asked for, the figures draw themselves in a notebook (:class:`NotebookFigure`,
+a PNG through ``_repr_png_``) without ``%matplotlib inline``.
 
 Colour scheme
 -------------
@@ -31,6 +33,7 @@ and writes the reason on the axes instead of raising.
 
 from __future__ import annotations
 
+import io
 import textwrap
 from dataclasses import dataclass
 
@@ -52,6 +55,7 @@ __all__ = [
     "level_palette",
     "model_colours",
     "new_figure",
+    "NotebookFigure",
     "plot_global_fit",
     "plot_residuals",
     "plot_residual_grid",
@@ -78,6 +82,8 @@ DIAGNOSTIC_PREFIX = "Diagnostic only (linearised view, not the fit)"
 _CURVE_POINTS = 200
 # Figure sizes in inches; the report scales them down.
 _PANEL_SIZE = (4.8, 3.6)
+# Resolution (dpi) of the PNG a figure shows in a notebook: matplotlib's default figure.dpi.
+_NOTEBOOK_DPI = 100
 # Characters per line of a reason written on a failed figure.
 _WRAP = 48
 # Normal quantile of the default 95 % band (common practice: 1.96 for a two-sided 95 %).
@@ -129,9 +135,25 @@ def model_colours() -> dict:
     return dict(zip(MODEL_NAMES, colours))
 
 
+class NotebookFigure(Figure):
+    """A plain matplotlib Figure that shows itself as a PNG in a notebook.
+
+    Figures made outside pyplot get no display hook from a notebook's backend, so a
+    notebook would print only ``<Figure size ... with n Axes>``; ``_repr_png_`` (the
+    hook IPython looks for on any object) renders the figure with the Agg canvas the
+    figure already has.
+    """
+
+    def _repr_png_(self) -> bytes:
+        buffer = io.BytesIO()
+        self.savefig(buffer, format="png", dpi=_NOTEBOOK_DPI)
+        return buffer.getvalue()
+
+
 def new_figure(nrows=1, ncols=1, *, size=_PANEL_SIZE, **kwargs):
-    """A figure not attached to pyplot's state (safe in threads and loops, no leaks)."""
-    fig = Figure(figsize=(size[0] * ncols, size[1] * nrows), layout="constrained")
+    """A figure not attached to pyplot's state (safe in threads and loops, no leaks),
+    shown as an image in a notebook (:class:`NotebookFigure`)."""
+    fig = NotebookFigure(figsize=(size[0] * ncols, size[1] * nrows), layout="constrained")
     axes = fig.subplots(nrows, ncols, squeeze=False, **kwargs)
     return fig, axes
 

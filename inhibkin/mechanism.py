@@ -25,10 +25,11 @@ from .fitting import ModelFit, fit_model, fixed_alpha_ssr
 from .models import MODEL_NAMES, MODELS
 from .starts import log_bounds, starting_values
 from .text import text_table
+from .units import header_column, to_molar
 from .validate import check_grid, check_options
 
 __all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "DEFAULT_WEIGHTING",
-           "relative_weights"]
+           "relative_weights", "molar_grid"]
 
 WEIGHTINGS = ("uniform", "relative", "sd")
 #: The weighting of rate tables when none is asked for, everywhere (API, campaigns, CLI):
@@ -154,6 +155,52 @@ class MechanismFit:
         return fit_html(self)
 
 
+def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
+               need_inhibition=True, context=None):
+    """One compound's grid validated, its concentrations in M where the headers declare a unit.
+
+    ``substrate`` and ``inhibitor`` are found as :func:`inhibkin.units.header_column`
+    finds them: ``"substrate"`` names a column ``substrate`` (values in its own unit) or
+    one header that declares the unit, ``substrate_uM`` or ``substrate (mM)``, whose
+    values are converted to M. The checks (:func:`inhibkin.validate.check_grid`) run on
+    the table as given, so a message names the header, row and value the user wrote.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        One row per observed rate.
+    substrate, inhibitor, rate, sd : str
+        Column names or base names (see above); ``sd`` is optional.
+    need_inhibition : bool
+        Require at least two inhibitor levels.
+    context : str, optional
+        Put in front of error messages (e.g. the compound).
+
+    Returns
+    -------
+    s, i, v, sd : numpy.ndarray
+        Substrate and inhibitor (M when declared, else the column's unit), rates, and
+        standard deviations (None when ``sd`` is not given).
+    units : dict
+        ``{"substrate": unit or None, "inhibitor": unit or None}`` as declared.
+
+    Raises
+    ------
+    DataError
+        As :func:`inhibkin.validate.check_grid`; UnitsError when two headers declare
+        one concentration.
+    """
+    (s_column, s_unit), (i_column, i_unit) = (header_column(df.columns, name)
+                                              for name in (substrate, inhibitor))
+    s, i, v, sigma = check_grid(df, substrate=s_column, inhibitor=i_column, rate=rate, sd=sd,
+                                need_inhibition=need_inhibition, context=context)
+    if s_unit:
+        s = to_molar(s, s_unit)
+    if i_unit:
+        i = to_molar(i, i_unit)
+    return s, i, v, sigma, {"substrate": s_unit, "inhibitor": i_unit}
+
+
 def relative_weights(s, i, v) -> np.ndarray:
     """Residual multipliers 1/v̂ for constant-CV noise, v̂ from the mixed model.
 
@@ -224,8 +271,12 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     df : pandas.DataFrame
         One row per observed initial rate (replicates as separate rows).
     substrate, inhibitor, rate : str
-        Column names. Concentrations in any one unit per column; km comes out in the
-        substrate's unit, the inhibition constants in the inhibitor's, vmax in the rate's.
+        Column names. A header that declares its unit (``substrate_uM``,
+        ``inhibitor_nM``, as the command line writes them) is found by its base name and
+        read in M, so km and the inhibition constants come out in M; a plain header
+        (``substrate``) keeps its values' own unit, and km comes out in the substrate's
+        unit, the inhibition constants in the inhibitor's (see :func:`molar_grid`).
+        vmax is in the rate's unit.
     sd : str, optional
         Column of the standard deviation of each rate; required for ``weighting="sd"``.
     weighting : {"relative", "uniform", "sd"}
@@ -280,9 +331,9 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     check_options({"level": level, "alpha": alpha, "min_delta_aicc": min_delta_aicc,
                    "determination_factor": determination_factor})
     need_inhibition = any(m != "none" for m in models)
-    s, i, v, sigma = check_grid(df, substrate=substrate, inhibitor=inhibitor, rate=rate,
-                                sd=sd if weighting == "sd" else None,
-                                need_inhibition=need_inhibition, context=context)
+    s, i, v, sigma, _ = molar_grid(df, substrate=substrate, inhibitor=inhibitor, rate=rate,
+                                   sd=sd if weighting == "sd" else None,
+                                   need_inhibition=need_inhibition, context=context)
     if weighting == "sd":
         w = 1.0 / sigma
     elif weighting == "relative":

@@ -60,8 +60,9 @@ FLAGS = {
     "rising": "the fitted curve rises with concentration; IC50 is its midpoint",
     "not_converged": "the optimiser stopped before converging; read the estimates with care",
     "tight_binding": "IC50 within 10x of the enzyme concentration: Cheng–Prusoff is biased",
-    "inactive": "no curve: too little activity removed, or a trend no better than a flat "
-                "line (see inhibkin.curve_class); IC50 above the highest concentration",
+    "inactive": "no curve: too little activity removed, a trend no better than a flat "
+                "line, or activity that rises with concentration (see "
+                "inhibkin.curve_class); IC50 above the highest concentration",
     "single_point_activity": "only the highest tested concentration shows activity; IC50 "
                              "reported as a lower bound",
     "incomplete_curve": "one plateau of the curve lies outside the tested range",
@@ -444,7 +445,8 @@ def _curve_flags(curve: _Curve, est, *, n_free, direction, hill_range, min_point
     classes = classify_curves(x[None, :], curve.y[None, :], np.ones((1, x.size), bool),
                               theta[None, :], weights=curve.w[None, :], n_free=n_free,
                               full_activity=full_activity, zero_activity=zero_activity,
-                              hill_limit=hill_limit, rules=curve_rules)
+                              hill_limit=hill_limit, falling_only=direction == "falling",
+                              rules=curve_rules)
     kind = str(classes.curve_class[0])
     flags = []
     bound = None

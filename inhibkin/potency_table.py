@@ -241,7 +241,8 @@ class EngineFitter:
             x, y, mask, batch.estimate, n_free=batch.n_params,
             full_activity=class_options.get("full_activity"),
             zero_activity=class_options.get("zero_activity", 0.0),
-            hill_limit=_HILL_MAX, rules=class_options.get("curve_rules", DEFAULT_RULES))
+            hill_limit=_HILL_MAX, falling_only=True,
+            rules=class_options.get("curve_rules", DEFAULT_RULES))
         out = {}
         for k, name in enumerate(names):
             conc, response = curves[name]

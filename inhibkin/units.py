@@ -20,6 +20,7 @@ __all__ = [
     "from_molar",
     "to_seconds",
     "split_unit",
+    "header_column",
     "resolve_units",
     "normalise_unit",
     "parse_concentration",
@@ -139,6 +140,58 @@ def split_unit(column_name, *, kind="concentration"):
     if match and match.group("unit") in table:
         return match.group("base"), match.group("unit")
     return str(column_name), None
+
+
+def header_column(columns, name, *, kind="concentration"):
+    """The column that holds ``name``, and the unit its header declares, if any.
+
+    The Python path's counterpart of :func:`resolve_units`: a plain header (``substrate``)
+    is accepted without a unit (the values are then in the column's own unit), while a
+    header that declares one (``substrate_uM``, ``substrate (mM)``) is found by its base
+    name, so a table written by the command line or :func:`inhibkin.simulate_campaign`
+    can be passed as it stands.
+
+    Parameters
+    ----------
+    columns : iterable of str
+        The headers of the table.
+    name : str
+        The column asked for: a base name (``"substrate"``) or a full header
+        (``"inhibitor_nM"``).
+    kind : {"concentration", "time"}
+        Which family of units a header suffix must belong to.
+
+    Returns
+    -------
+    (str, str or None)
+        The column and its canonical unit, or ``(name, None)`` when the header declares
+        none (or no column matches: the caller's column check then names it).
+
+    Raises
+    ------
+    UnitsError
+        When several headers declare ``name`` with a unit and none is ``name`` itself.
+
+    Examples
+    --------
+    >>> header_column(["compound", "substrate_uM", "rate"], "substrate")
+    ('substrate_uM', 'uM')
+    >>> header_column(["substrate", "rate"], "substrate")
+    ('substrate', None)
+    """
+    columns = [str(c) for c in columns]
+    if name in columns:
+        unit = split_unit(name, kind=kind)[1]
+        return name, normalise_unit(unit, kind=kind) if unit else None
+    with_unit = [c for c in columns
+                 if split_unit(c, kind=kind)[0] == name and split_unit(c, kind=kind)[1]]
+    if len(with_unit) > 1:
+        raise UnitsError(Problem(name, None, None,
+                                 f"several columns declare {name!r}: {with_unit}; keep one "
+                                 f"or name it in full"))
+    if with_unit:
+        return with_unit[0], normalise_unit(split_unit(with_unit[0], kind=kind)[1], kind=kind)
+    return name, None
 
 
 def resolve_units(columns, names, *, units=None, context=None):

@@ -180,7 +180,9 @@ def test_same_data_in_nM_and_uM_gives_the_same_ki_in_molar():
     np.testing.assert_allclose(a["ki_M"], c["ki_M"], rtol=UNIT_RTOL)
     # And Ki in M is the Ki in the table's own unit times 1e-9 (a fit of the raw nM grid).
     first = table[table["compound"] == a["compound"].iloc[0]]
-    raw = fit_mechanisms(first, substrate="substrate_uM", inhibitor="inhibitor_nM",
+    # (plain headers: the values stay in the table's own units, nM for the inhibitor)
+    raw = fit_mechanisms(first.rename(columns={"substrate_uM": "substrate",
+                                               "inhibitor_nM": "inhibitor"}),
                          intervals="wald")
     raw_ki = raw.constants().loc[a["ki_parameter"].iloc[0], "estimate"]
     assert a["ki_M"].iloc[0] == pytest.approx(raw_ki * 1e-9, rel=UNIT_RTOL)

@@ -174,10 +174,20 @@ def test_report_stage_writes_html_and_ranking(grid_file, tmp_path):
 def test_design_stage_writes_a_layout(tmp_path):
     done = run("design", "--km-range", 1, 5, "--ki-range", 0.05, 0.5, "--wells", 24,
                "--substrate", "0.25,0.5,1,2,4,8,16", "--inhibitor", "0.01,0.03,0.1,0.3,1",
-               "--simulations", 8, "-o", "layout.csv", cwd=tmp_path)
+               "--simulations", 8, "--substrate-unit", "uM", "--inhibitor-unit", "nM",
+               "-o", "layout.csv", cwd=tmp_path)
     assert done.returncode == 0, done.stderr
     layout = read_table(tmp_path / "layout.csv")
     assert len(layout) == 24 and "Grid plan" in done.stdout
+    # Wells labelled, units in the headers, replicates numbered from 1 (issue 12, item 10).
+    assert list(layout.columns) == ["plate", "well", "substrate_uM", "inhibitor_nM",
+                                    "replicate"]
+    assert layout["well"].iloc[0] == "A1" and layout["replicate"].min() == 1
+    unitless = run("design", "--km-range", 1, 5, "--ki-range", 0.05, 0.5, "--wells", 24,
+                   "--substrate", "0.25,0.5,1,2,4,8,16", "--inhibitor", "0.01,0.03,0.1,0.3,1",
+                   "--simulations", 0, "-o", "layout2.csv", cwd=tmp_path)
+    assert unitless.returncode == 2 and "--substrate-unit" in unitless.stderr
+    assert not (tmp_path / "layout2.csv").exists()
     bad = run("design", "--km-range", 1, 5, "--ki-range", 0.05, 0.5, "--wells", 24,
               "--substrate", "1,x", "--inhibitor", "1", cwd=tmp_path)
     assert bad.returncode == 2 and "must be numbers" in bad.stderr

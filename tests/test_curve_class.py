@@ -114,3 +114,48 @@ def test_engine_and_lmfit_path_share_the_rule():
 def test_rules_are_checked():
     with pytest.raises(DataError, match="min_efficacy"):
         CurveClassRules(min_efficacy=1.5)
+
+
+def _rising_plate(seed=3):
+    """One plate: an activator (activity rising to 200 % by the top dose, midpoint 100 nM),
+    a competitive inhibitor (IC50 100 nM) and a flat compound, 10 concentrations in
+    duplicate, 4 controls of each kind; noise 2 % of the control window (invented)."""
+    rng = np.random.default_rng(seed)
+    high, low, sd = 1000.0, 50.0, 20.0
+    rows = []
+    conc = np.repeat(np.geomspace(1, 1e4, 10), 2)
+    activity = {"ACT-1": 1.0 + (conc / 100) / (1 + conc / 100),
+                "INH-1": 1.0 / (1 + conc / 100), "FLAT-1": np.ones_like(conc)}
+    for name, act in activity.items():
+        signal = low + (high - low) * act + sd * rng.normal(size=conc.size)
+        rows += [(name, "P1", "sample", c, y, 20.0) for c, y in zip(conc, signal)]
+    for kind, level in (("max", high), ("min", low)):
+        rows += [(None, "P1", kind, 0.0, level + sd * rng.normal(), 20.0) for _ in range(4)]
+    return pd.DataFrame(rows, columns=["compound", "plate", "role", "inhibitor_nM", "signal",
+                                       "substrate_uM"])
+
+
+@pytest.mark.parametrize("engine", ["lmfit", "batched"])
+def test_rising_activity_is_inactive_not_a_potency(engine):
+    # Percent activity that rises with the compound is activation: no inhibition, so no
+    # IC50, and ranked with the inactive compounds (was: class complete, flag rising,
+    # a Ki bound ranked before the flat compound).
+    campaign = fit_campaign(dose_response=_rising_plate(), km="20uM", engine=engine,
+                            quiet=True)
+    ranking = campaign.ranking.set_index("compound")
+    row = ranking.loc["ACT-1"]
+    assert row["status"] == "inactive"
+    assert row["ki_reported"].startswith("inactive")
+    assert np.isnan(row["ic50_M"]) and np.isnan(row["ki_M"]) and np.isnan(row["pki"])
+    assert "activity rises" in row["reason"]
+    assert list(campaign.ranking["compound"]) == ["INH-1", "ACT-1", "FLAT-1"]
+    assert campaign.potency_fits["ACT-1"].curve_class == "inactive"
+
+
+def test_rising_curve_without_direction_keeps_its_midpoint():
+    # A readout allowed to rise (direction="any", e.g. a signal that grows as activity
+    # falls) is still a curve: the rule above is for activity, which inhibitors lower.
+    conc = np.geomspace(1, 1e4, 10)
+    y = logistic4(np.log10(conc), 0.0, 100.0, 2.0, 1.0)
+    fit = fit_dose_response(conc, y, intervals="wald")
+    assert fit.curve_class == "complete" and "rising" in fit.flags

@@ -8,6 +8,7 @@ import pytest
 from scipy import stats
 
 from inhibkin.design import (
+    WINDOW_FACTOR,
     GridPlan,
     call_outcome,
     design_criterion,
@@ -117,20 +118,30 @@ def test_plan_beats_naive_grid_in_simulation(plan):
     assert plan.correct_rate >= plan.naive_correct_rate
 
 
-def test_plan_is_a_local_optimum_within_budget_and_series(plan):
+def test_plan_is_a_local_optimum_within_budget_and_window(plan):
     assert plan.wells_used <= SCENARIO["n_wells"]
     assert set(plan.substrate) <= set(SCENARIO["substrate_choices"])
     assert 0.0 in plan.inhibitor
     assert set(plan.inhibitor) - {0.0} <= set(SCENARIO["inhibitor_choices"])
     common = dict(km_range=SCENARIO["km_range"], ki_range=SCENARIO["ki_range"],
                   cv=SCENARIO["cv"], replicates=SCENARIO["replicates"], seed=8)
-    best = design_criterion(plan.substrate, plan.inhibitor, **common)
-    assert best == pytest.approx(plan.criterion_value, rel=CRITERION_RTOL)
-    unused = [x for x in SCENARIO["substrate_choices"] if x not in plan.substrate]
-    for pos, new in itertools.product(range(len(plan.substrate)), unused):
-        trial = list(plan.substrate)
-        trial[pos] = new
-        assert design_criterion(trial, plan.inhibitor, **common) <= best + 1e-9
+    assert design_criterion(plan.substrate, plan.inhibitor, **common) == \
+        pytest.approx(plan.criterion_value, rel=CRITERION_RTOL)
+    # Every Ds-optimal candidate: no single swap within the window improves it.
+    low, high = (SCENARIO["km_range"][0] / WINDOW_FACTOR,
+                 SCENARIO["km_range"][1] * WINDOW_FACTOR)
+    allowed = [x for x in SCENARIO["substrate_choices"] if low <= x <= high]
+    ds = plan.candidates[plan.candidates["kind"] == "ds-optimal"]
+    assert len(ds)
+    for _, row in ds.iterrows():
+        s, i = list(row["substrate"]), list(row["inhibitor"])
+        best = design_criterion(s, i, **common)
+        assert best == pytest.approx(row["criterion"], rel=CRITERION_RTOL)
+        for pos, new in itertools.product(range(len(s)), allowed):
+            if new in s:
+                continue
+            trial = sorted([*s[:pos], new, *s[pos + 1:]])
+            assert design_criterion(trial, i, **common) <= best + 1e-6 * abs(best)
 
 
 def test_exchange_finds_the_exhaustive_optimum_on_a_small_problem():
@@ -149,7 +160,7 @@ def test_exchange_finds_the_exhaustive_optimum_on_a_small_problem():
 
 def test_result_reports_and_is_frozen(plan):
     text = plan.summary()
-    assert "proposed substrate" in text and "naive" in text and "Ds-optimality" in text
+    assert "design substrate" in text and "naive" in text and "Ds-optimality" in text
     assert "<pre>" in plan._repr_html_()
     frame = plan.to_frame()
     assert set(frame["grid"]) == {"proposed", "naive"}
@@ -208,3 +219,60 @@ def test_every_input_problem_is_listed():
 )
 def test_call_outcome_classes(truth, verdict, expected):
     assert call_outcome(truth, verdict) == expected
+
+
+# The `inhibkin design --help` example: a prior of Ki 0.05-0.5 and a 3-fold series from
+# 0.001. The earlier planner put I = 0.001 in its proposal, 50 times below the prior.
+HELP_EXAMPLE = dict(km_range=(1.0, 5.0), ki_range=(0.05, 0.5), n_wells=48,
+                    substrate_choices=[0.01 * 2**k for k in range(12)],
+                    inhibitor_choices=[0.001 * 3**k for k in range(8)], cv=0.05)
+
+
+def test_no_candidate_level_far_outside_the_prior():
+    plan = plan_grid(**HELP_EXAMPLE, n_simulations=0, seed=0)
+    for _, row in plan.candidates.iterrows():
+        if row["kind"] == "naive":
+            continue
+        for levels, series, (low, high) in (
+                (row["substrate"], HELP_EXAMPLE["substrate_choices"], HELP_EXAMPLE["km_range"]),
+                ([x for x in row["inhibitor"] if x > 0], HELP_EXAMPLE["inhibitor_choices"],
+                 HELP_EXAMPLE["ki_range"])):
+            low, high = low / WINDOW_FACTOR, high * WINDOW_FACTOR
+            outside = [x for x in levels if not low <= x <= high]
+            # Outside the window only when the window holds too few levels for the shape,
+            # and then only the nearest ones.
+            inside = [x for x in series if low <= x <= high]
+            assert not outside or len(inside) < len(levels), (row, outside)
+            nearest = sorted(series, key=lambda x: max(np.log(low / x), np.log(x / high), 0))
+            assert set(outside) <= set(nearest[:len(levels)]), (row, outside)
+    assert 0.001 not in plan.inhibitor
+
+
+def test_plan_says_whether_it_beats_the_naive_grid(plan):
+    (correct, rmse), (naive_correct, naive_rmse) = plan.score, plan.naive_score
+    assert plan.beats_naive == (correct >= naive_correct and rmse <= naive_rmse
+                                and (correct > naive_correct or rmse < naive_rmse))
+    assert plan.choice == ("design" if plan.beats_naive else "naive")
+    assert plan.candidates["chosen"].sum() == 1
+    assert {"ds-optimal", "window"} <= set(plan.candidates["kind"])
+
+
+def test_a_design_that_cannot_beat_the_naive_grid_proposes_it():
+    # One grid fills the budget (4 substrate x 3 inhibitor levels): the design is the naive
+    # grid, so it does not beat it, and the plan says so and proposes the naive grid.
+    plan = plan_grid(km_range=(1, 4), ki_range=(0.1, 1), n_wells=24, replicates=2,
+                     substrate_choices=[0.5, 1, 2, 4], inhibitor_choices=[0.1, 0.5],
+                     n_simulations=8, seed=2, substrate_unit="uM", inhibitor_unit="uM")
+    assert plan.beats_naive is False and plan.choice == "naive"
+    assert "does not beat the naive grid" in plan.summary()
+    assert plan.layout()["substrate_uM"].unique().tolist() == list(plan.naive_substrate)
+
+
+def test_layout_names_wells_units_and_replicates_from_one():
+    plan = plan_grid(**HELP_EXAMPLE, n_simulations=0, seed=0, substrate_unit="uM",
+                     inhibitor_unit="nM")
+    layout = plan.layout()
+    assert list(layout.columns) == ["plate", "well", "substrate_uM", "inhibitor_nM",
+                                    "replicate"]
+    assert layout["well"].iloc[0] == "A1" and layout["well"].iloc[12] == "B1"
+    assert layout["well"].is_unique and sorted(layout["replicate"].unique()) == [1, 2]

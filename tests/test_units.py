@@ -7,6 +7,7 @@ from inhibkin.errors import UnitsError
 from inhibkin.units import (
     CONCENTRATION_UNITS,
     from_molar,
+    header_column,
     normalise_unit,
     resolve_units,
     split_unit,
@@ -102,3 +103,19 @@ def test_two_headers_for_one_concentration_are_refused():
 def test_missing_column_is_named():
     with pytest.raises(UnitsError, match="no column 'inhibitor'"):
         resolve_units(["substrate_uM"], ["inhibitor"])
+
+
+@pytest.mark.parametrize(("columns", "name", "expected"), [
+    (["substrate_uM", "rate"], "substrate", ("substrate_uM", "uM")),
+    (["substrate (mM)", "rate"], "substrate", ("substrate (mM)", "mM")),
+    (["substrate", "rate"], "substrate", ("substrate", None)),
+    (["inhibitor_nM"], "inhibitor_nM", ("inhibitor_nM", "nM")),
+    (["rate"], "substrate", ("substrate", None)),
+])
+def test_header_column_finds_the_column_and_its_unit(columns, name, expected):
+    assert header_column(columns, name) == expected
+
+
+def test_header_column_refuses_two_headers_for_one_name():
+    with pytest.raises(UnitsError, match="several columns declare 'substrate'"):
+        header_column(["substrate_uM", "substrate_mM"], "substrate")

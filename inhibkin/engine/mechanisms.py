@@ -34,10 +34,11 @@ from ..mechanism import (
     WEIGHTINGS,
     MechanismFit,
     _mixed_starts,
+    molar_grid,
     relative_weights,
 )
 from ..models import MODEL_NAMES, MODELS, nested_pairs
-from ..validate import NO_SIGNAL, check_grid
+from ..validate import NO_SIGNAL
 from . import lm
 from .chunks import concat_batches, run_chunks
 from .starts import _count_unique, mechanism_log_bounds, mechanism_starts
@@ -842,10 +843,11 @@ def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition
     for key, item in items:
         try:
             if isinstance(item, pd.DataFrame):
-                sc, ic, vc, sdc = check_grid(item, substrate=substrate, inhibitor=inhibitor,
-                                             rate=rate, sd=sd if weighting == "sd" else None,
-                                             need_inhibition=need_inhibition,
-                                             context=f"compound {key!r}")
+                sc, ic, vc, sdc, _ = molar_grid(item, substrate=substrate,
+                                                inhibitor=inhibitor, rate=rate,
+                                                sd=sd if weighting == "sd" else None,
+                                                need_inhibition=need_inhibition,
+                                                context=f"compound {key!r}")
                 index = item.index
             else:
                 arrays = [np.asarray(a, dtype=float) for a in item]
