@@ -45,8 +45,11 @@ orthogonal experiments. No output is for clinical or dosing use."""
 # Seconds to wait for a Dask scheduler before giving up.
 _SCHEDULER_TIMEOUT = "20s"
 # A scheduler address: [protocol://]host:port (host a name, IPv4 or [IPv6]).
-_SCHEDULER_ADDRESS = re.compile(r"((tcp|tls|ucx|ws|wss|inproc)://)?"
-                                r"(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9_.-]+):[0-9]{1,5}")
+# Dask's in-process addresses (inproc://host/pid/n) carry no port; every other protocol
+# names a host and a port.
+_SCHEDULER_ADDRESS = re.compile(r"((tcp|tls|ucx|ws|wss)://)?"
+                                r"(\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9_.-]+):[0-9]{1,5}"
+                                r"|inproc://[A-Za-z0-9_.-]+(/[0-9]+)+")
 
 
 @dataclass(frozen=True)

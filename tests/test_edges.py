@@ -521,3 +521,12 @@ def test_identifier_columns_are_text_whatever_the_header_case(tmp_path):
     table = read_table(path)
     assert list(table["Compound"]) == ["007", "1e0"]
     assert list(table["Plate"]) == ["01", "1"]
+
+
+def test_an_in_process_scheduler_address_passes_the_syntax_check():
+    # Dask's inproc:// addresses have no port (found when tests/test_docs.py used one).
+    from inhibkin.cli import _SCHEDULER_ADDRESS
+
+    assert _SCHEDULER_ADDRESS.fullmatch("inproc://192.0.2.2/31764/1")
+    assert not _SCHEDULER_ADDRESS.fullmatch("inproc://192.0.2.2")
+    assert not _SCHEDULER_ADDRESS.fullmatch("notaurl")
