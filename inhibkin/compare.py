@@ -37,7 +37,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .models import nested_pairs
+from .models import ONE_CONSTANT_MODELS, nested_pairs
+
+#: An SSR below this fraction of the total weighted sum of squares of the rates is an
+#: exact fit (relative residuals of about 1e-9): noise-free data, where the F-tests
+#: would otherwise compare rounding errors.
+EXACT_FIT_RTOL = 1e-18
 
 __all__ = [
     "VerdictOptions",
@@ -48,9 +53,9 @@ __all__ = [
     "comparison_table",
     "f_test_table",
     "decide",
+    "decide_from",
+    "EXACT_FIT_RTOL",
 ]
-
-ONE_CONSTANT_MODELS = ("competitive", "uncompetitive", "noncompetitive")
 
 
 @dataclass(frozen=True)

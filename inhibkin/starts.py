@@ -15,21 +15,13 @@ from __future__ import annotations
 
 import numpy as np
 
+from .core.bounds import log_bounds_arrays
 from .models import MODELS
 
 __all__ = ["michaelis_menten_start", "starting_values", "log_bounds", "KI_GRID_POINTS"]
 
 #: Points in the log-spaced search grid for each inhibition constant.
 KI_GRID_POINTS = 13
-
-# How far past the data the bounds lie (factors, applied in log space).
-_KI_BOUND_BELOW = 1e-4
-_KI_BOUND_ABOVE = 1e6
-_KM_BOUND_BELOW = 1e-4
-_KM_BOUND_ABOVE = 1e4
-_VMAX_BOUND_BELOW = 1e-3
-_VMAX_BOUND_ABOVE = 1e4
-
 
 def michaelis_menten_start(s, v) -> tuple[float, float]:
     """Starting vmax and km from a Hanes–Woolf line through (S, S/v).
@@ -114,22 +106,12 @@ def starting_values(model: str, s, i, v, weights=None) -> dict[str, float]:
 def log_bounds(model: str, s, i, v) -> dict[str, tuple[float, float]]:
     """Bounds on the natural log of each parameter of ``model``.
 
-    They lie orders of magnitude beyond the data (see the module constants), so
-    they bind only when the data cannot determine a constant.
+    They lie orders of magnitude beyond the data (:data:`inhibkin.core.bounds.BOUND_FACTORS`,
+    by each parameter's role), so they bind only when the data cannot determine a
+    constant. One compound: :func:`inhibkin.core.bounds.log_bounds_arrays` with one row.
     """
-    s = np.asarray(s, dtype=float)
-    i = np.asarray(i, dtype=float)
-    v = np.asarray(v, dtype=float)
-    s_pos = s[s > 0]
-    vmax_top = float(np.max(np.abs(v), initial=0.0)) or 1.0
-    bounds = {
-        "vmax": (vmax_top * _VMAX_BOUND_BELOW, vmax_top * _VMAX_BOUND_ABOVE),
-        "km": (s_pos.min() * _KM_BOUND_BELOW, s_pos.max() * _KM_BOUND_ABOVE),
-    }
-    i_pos = i[i > 0]
-    for name in MODELS[model].inhibition_constants:
-        if i_pos.size:
-            bounds[name] = (i_pos.min() * _KI_BOUND_BELOW, i_pos.max() * _KI_BOUND_ABOVE)
-        else:
-            bounds[name] = (_KI_BOUND_BELOW, _KI_BOUND_ABOVE)
-    return {k: (float(np.log(lo)), float(np.log(hi))) for k, (lo, hi) in bounds.items()}
+    law = MODELS[model]
+    rows = [np.asarray(x, dtype=float)[None, :] for x in (s, i, v)]
+    lower, upper = log_bounds_arrays(law, *rows, np.ones(rows[0].shape, bool))
+    return {name: (float(lower[0, j]), float(upper[0, j]))
+            for j, name in enumerate(law.param_names)}

@@ -13,7 +13,7 @@ import pandas as pd
 from .errors import DataError, Problem
 
 __all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_menten",
-           "NO_SIGNAL"]
+           "NO_SIGNAL", "ALL_EQUAL"]
 
 # How many bad rows of one kind a message lists before it summarises the rest.
 _MAX_ROWS_LISTED = 5
@@ -25,6 +25,9 @@ MIN_MAGNITUDE = 1e-100
 #: Why a table whose rates average to zero or less is refused (the value is the mean).
 NO_SIGNAL = ("the rates carry no signal: their mean (value shown) is ≤ 0, so no enzyme "
              "activity is seen; nothing to fit")
+#: Why a grid whose rates are all equal is refused (both solvers give this reason).
+ALL_EQUAL = ("all rates are equal: they depend on neither substrate nor inhibitor, so km "
+             "and the inhibition constants cannot be determined")
 
 
 def check_columns(df, columns, context=None) -> None:
@@ -141,10 +144,7 @@ def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True,
     elif not np.mean(v) > 0:
         problems.append(Problem(rate, None, float(np.mean(v)), NO_SIGNAL))
     elif np.all(v == v[0]):
-        problems.append(Problem(rate, None, float(v[0]),
-                                "all rates are equal: they depend on neither substrate nor "
-                                "inhibitor, so km and the inhibition constants cannot be "
-                                "determined"))
+        problems.append(Problem(rate, None, float(v[0]), ALL_EQUAL))
     if np.all(s == 0):
         problems.append(Problem(substrate, None, 0.0, "all substrate concentrations are zero"))
     n_params = 4 if need_inhibition else 2

@@ -10,8 +10,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from .. import starts as _reference
+from ..core.bounds import log_bounds_arrays
 from ..models import MODELS
+from ..starts import KI_GRID_POINTS
 
 __all__ = ["mechanism_starts", "mechanism_log_bounds", "logistic_starts"]
 
@@ -101,10 +102,10 @@ def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
     w = np.ones_like(v) if weights is None else weights
     low = np.min(np.where(inhibited, i, np.inf), axis=1)[has] / 10.0
     high = np.max(np.where(inhibited, i, -np.inf), axis=1)[has] * 100.0
-    grid = np.geomspace(low, high, _reference.KI_GRID_POINTS, axis=1)
+    grid = np.geomspace(low, high, KI_GRID_POINTS, axis=1)
     m = len(names)
     # The same combinations, in the same order, as the per-problem search.
-    index = np.stack(np.meshgrid(*([np.arange(_reference.KI_GRID_POINTS)] * m), indexing="ij"),
+    index = np.stack(np.meshgrid(*([np.arange(KI_GRID_POINTS)] * m), indexing="ij"),
                      axis=-1).reshape(-1, m)
     for start in range(0, has.size, _GRID_CHUNK):
         rows = has[start:start + _GRID_CHUNK]
@@ -124,24 +125,10 @@ def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
 
 
 def mechanism_log_bounds(model, s, i, v, mask):
-    """Lower and upper bounds on log-parameters, each shape (B, k), as ``log_bounds``."""
-    law = MODELS[model]
-    vmax_top = np.max(np.where(mask, np.abs(v), 0.0), axis=1, initial=0.0)
-    vmax_top = np.where(vmax_top == 0, 1.0, vmax_top)
-    pos = mask & (s > 0)
-    s_min = np.min(np.where(pos, s, np.inf), axis=1)
-    s_max = np.max(np.where(pos, s, -np.inf), axis=1)
-    ipos = mask & (i > 0)
-    has = ipos.any(axis=1)
-    i_min = np.where(has, np.min(np.where(ipos, i, np.inf), axis=1), 1.0)
-    i_max = np.where(has, np.max(np.where(ipos, i, -np.inf), axis=1), 1.0)
-    lo = [vmax_top * _reference._VMAX_BOUND_BELOW, s_min * _reference._KM_BOUND_BELOW]
-    hi = [vmax_top * _reference._VMAX_BOUND_ABOVE, s_max * _reference._KM_BOUND_ABOVE]
-    for _ in law.inhibition_constants:
-        lo.append(i_min * _reference._KI_BOUND_BELOW)
-        hi.append(i_max * _reference._KI_BOUND_ABOVE)
+    """Lower and upper bounds on log-parameters, each shape (B, k), as ``log_bounds``
+    (both are :func:`inhibkin.core.bounds.log_bounds_arrays`)."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        return np.log(np.stack(lo, axis=1)), np.log(np.stack(hi, axis=1))
+        return log_bounds_arrays(MODELS[model], s, i, v, mask)
 
 
 def _level_means(x, y, mask):
