@@ -12,7 +12,14 @@ from .conversion import cheng_prusoff, ic50_from_ki
 from .curve_class import CurveClassRules
 from .design import GridPlan, plan_grid
 from .engine import fit_logistic_batch, fit_mechanism_arrays, fit_mechanisms_batch
-from .errors import DataError, FitError, InhibkinError, InhibkinWarning, UnitsError
+from .errors import (
+    DataError,
+    FitError,
+    InhibkinError,
+    InhibkinWarning,
+    OptionError,
+    UnitsError,
+)
 from .fitting import ModelFit, fit_michaelis_menten
 from .io import read_table, write_table
 from .mechanism import MechanismFit, fit_mechanisms
@@ -72,6 +79,7 @@ __all__ = [
     "ModelFit",
     "RateLaw",
     "UnitsError",
+    "OptionError",
     "VerdictOptions",
     "fit_mechanisms",
     "fit_michaelis_menten",

@@ -60,6 +60,7 @@ for a 96-point grid), and close to them when a constant is well determined. Ask 
 
 from __future__ import annotations
 
+import inspect
 import math
 import multiprocessing
 import sys
@@ -76,8 +77,10 @@ import numpy as np
 import pandas as pd
 
 from .conversion import CONVERSIONS
+from .core.options import FitOptions
+from .core.readonly import readonly_frame, readonly_mapping
 from .engine import fit_mechanism_arrays, pad
-from .errors import DataError, InhibkinError, Problem
+from .errors import DataError, InhibkinError, OptionError, Problem
 from .mechanism import DEFAULT_WEIGHTING, MechanismFit, fit_mechanisms
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
 from .potency_table import EngineFitter, potency_table
@@ -678,6 +681,15 @@ class Campaign:
     potency_fits: Mapping = field(default_factory=dict, repr=False)
     plates: pd.DataFrame = field(default_factory=lambda: _plates_frame(None), repr=False)
 
+    def __post_init__(self):
+        # Frozen all the way down: campaign.ranking.loc[...] = ... and
+        # campaign.options["units"][...] = ... are refused; to_frame() gives a copy to edit.
+        for name in ("ranking", "plates"):
+            object.__setattr__(self, name, readonly_frame(getattr(self, name)))
+        for name in ("fits", "potency_fits"):
+            object.__setattr__(self, name, readonly_mapping(getattr(self, name), nested=False))
+        object.__setattr__(self, "options", readonly_mapping(self.options))
+
     @property
     def counts(self) -> dict:
         """Number of compounds per status."""
@@ -761,6 +773,33 @@ def _campaign_plates(frame, *, plate, role, response, threshold) -> pd.DataFrame
     wells[response] = wells[response].astype(object).where(~samples, 0.0)
     return _plates_frame(plate_qc(wells, plate=plate, role=role, response=response,
                                   threshold=threshold, strict=False))
+
+
+# potency_table's options that fit_campaign sets itself (columns, units, Km, the fitter).
+_POTENCY_OPTIONS_SET_HERE = ("df", "compound", "plate", "role", "concentration", "response",
+                             "substrate", "substrate_unit", "km", "enzyme", "mechanisms",
+                             "fitter", "intervals", "level")
+
+
+def _check_potency_options(options) -> dict:
+    """``potency_options`` as a dict of keywords potency_table takes, checked once."""
+    if options is None:
+        return {}
+    if not isinstance(options, Mapping):
+        raise OptionError(f"potency_options must be a dict, got {type(options).__name__}")
+    known = [p for p in inspect.signature(potency_table).parameters
+             if p not in _POTENCY_OPTIONS_SET_HERE]
+    unknown = [k for k in options if k not in known]
+    if unknown:
+        raise OptionError(f"potency_options: unknown option(s) {', '.join(map(repr, unknown))}"
+                          f"; known: {', '.join(known)} (intervals and level are "
+                          f"fit_campaign's own options)")
+    threshold = options.get("z_prime_threshold", Z_PRIME_THRESHOLD)
+    if isinstance(threshold, bool) or not isinstance(threshold, (int, float)) or \
+            not threshold <= 1:
+        raise OptionError(f"potency_options: z_prime_threshold must be a number ≤ 1, got "
+                          f"{threshold!r}")
+    return dict(options)
 
 
 def _check_engine(engine):
@@ -1135,6 +1174,9 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
 
     Raises
     ------
+    OptionError
+        For an option outside its allowed values (weighting, intervals, level, alpha,
+        min_delta_aicc, determination_factor, potency_options), before any work.
     DataError
         Only for problems of a whole table (not a DataFrame, a missing column, an
         undeclared unit, rows without a compound, unknown roles, unreadable controls);
@@ -1160,6 +1202,13 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         raise DataError("the dose-response table needs km= (a number in M, or a column) to "
                         "convert IC50 to Ki")
     _check_engine(engine)
+    # Every option is checked here, once, before any compound is fitted: a bad one is
+    # one error, not the same failure repeated for every compound.
+    fit_options = FitOptions(weighting=weighting, intervals=intervals, level=level,
+                             alpha=alpha, min_delta_aicc=min_delta_aicc,
+                             determination_factor=determination_factor)
+    potency_options = _check_potency_options(potency_options)
+    z_prime_threshold = potency_options.get("z_prime_threshold", Z_PRIME_THRESHOLD)
     started = time.perf_counter()
     used, refits = {"grid": "", "dose": ""}, {"grid": 0, "dose": 0}
     execution = dict(workers=workers, client=client, quiet=quiet)
@@ -1177,15 +1226,14 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                             + ([Problem(compound, None, None, f"and {len(unnamed) - 5} more "
                                                               "rows")]
                                if len(unnamed) > 5 else []), "grid table")
-        fit_options = (("weighting", weighting), ("intervals", intervals), ("level", level),
-                       ("alpha", alpha), ("min_delta_aicc", min_delta_aicc),
-                       ("determination_factor", determination_factor))
+        grid_options = tuple((k, v) for k, v in fit_options.as_dict().items()
+                             if k != "alpha_factor")
         groups = table.groupby(compound, sort=False)
         batched = _batched(engine, intervals, groups.ngroups)
         used["grid"] = _engine_name(engine, batched)
         settings = _GridSettings(engine if callable(engine) else fit_mechanisms, s_column,
                                  i_column, rate, sd if weighting == "sd" else None, s_unit,
-                                 i_unit, fit_options, batched)
+                                 i_unit, grid_options, batched)
         chunks = list(_chunks(groups, _chunk_size(chunk_size, batched)))
         for name, row, fit in _run(_fit_chunk, chunks, (settings, keep_fits),
                                    sizes=[len(c) for c in chunks], split=_split_grid_chunk,
@@ -1206,11 +1254,10 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
             dose_response, compound=compound, inhibitor=inhibitor, substrate=substrate,
             plate=plate, role=role, response=response, km=km, enzyme=enzyme, units=units)
         declared.update({f"dose-response {k}": v for k, v in dose_units.items()})
-        options = dict(potency_options or {})
-        options.update(intervals=intervals, level=level)
+        options = dict(potency_options)
+        options.update(intervals=fit_options.intervals, level=fit_options.level)
         plates = _campaign_plates(frame, plate=plate, role=role, response=response,
-                                  threshold=options.get("z_prime_threshold",
-                                                        Z_PRIME_THRESHOLD))
+                                  threshold=z_prime_threshold)
         n_curves = int(frame.loc[frame[role] == "sample", compound].nunique())
         batched = _batched("lmfit" if callable(engine) else engine, intervals, n_curves)
         chunks, sizes = _dose_chunks(frame, compound, role, plate,
@@ -1240,7 +1287,11 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                 properties.setdefault(key, value)
     _add_efficiencies(ranking, properties, heavy_atoms, logp)
     run_options = MappingProxyType({
-        "weighting": weighting, "intervals": intervals, "level": level,
+        "weighting": fit_options.weighting, "intervals": fit_options.intervals,
+        "level": fit_options.level, "alpha": fit_options.alpha,
+        "min_delta_aicc": fit_options.min_delta_aicc,
+        "determination_factor": fit_options.determination_factor,
+        "z_prime_threshold": z_prime_threshold,
         "engine": getattr(engine, "__name__", repr(engine)) if callable(engine) else engine,
         "grid_engine": used["grid"], "dose_engine": used["dose"],
         "n_fallback": refits["grid"] + refits["dose"], "n_fallback_grid": refits["grid"],

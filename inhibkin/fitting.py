@@ -29,6 +29,8 @@ from scipy import stats
 
 from .compare import information_criteria
 from .core.determined import DETERMINATION_FACTOR, determined_flags
+from .core.options import INTERVAL_METHODS
+from .core.readonly import readonly_array, readonly_frame
 from .errors import FitError
 from .models import MODELS
 from .profile import profile_crossing
@@ -37,8 +39,6 @@ from .text import MISSING
 
 __all__ = ["ModelFit", "fit_model", "fit_michaelis_menten", "fixed_alpha_ssr",
            "INTERVAL_METHODS"]
-
-INTERVAL_METHODS = ("profile", "wald")
 
 # Convergence tolerances of MINPACK's LM (relative); tight enough that the estimates
 # are settled to well beyond the 6 significant digits the reference checks ask for.
@@ -103,6 +103,12 @@ class ModelFit:
     level: float = 0.95
     interval_method: str = "profile"
     log_covariance: np.ndarray | None = field(default=None, repr=False)
+
+    def __post_init__(self):
+        # Frozen all the way down: the tables and arrays inside cannot be edited either.
+        object.__setattr__(self, "params", readonly_frame(self.params))
+        for name in ("fitted", "residuals", "log_covariance"):
+            object.__setattr__(self, name, readonly_array(getattr(self, name)))
 
     @property
     def best_values(self) -> dict[str, float]:

@@ -23,6 +23,8 @@ from .compare import (
 )
 from .core.bounds import NESTED_FAR_FACTOR
 from .core.determined import DETERMINATION_FACTOR
+from .core.options import FitOptions
+from .core.readonly import readonly_frame, readonly_mapping
 from .core.weighting import (
     DEFAULT_WEIGHTING,
     REWEIGHT_ITERATIONS,
@@ -80,6 +82,12 @@ class MechanismFit:
     data: pd.DataFrame = field(repr=False)
     weighting: str = DEFAULT_WEIGHTING
     options: VerdictOptions = VerdictOptions()
+
+    def __post_init__(self):
+        # Frozen all the way down: fit.models["mixed"] = ... and table edits are refused.
+        object.__setattr__(self, "models", readonly_mapping(self.models, nested=False))
+        for name in ("comparison", "ftests", "data"):
+            object.__setattr__(self, name, readonly_frame(getattr(self, name)))
 
     @property
     def params(self) -> pd.DataFrame:
@@ -248,6 +256,9 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
 
     Raises
     ------
+    OptionError
+        When an option is outside its allowed values (:class:`inhibkin.core.options.FitOptions`),
+        before any fit.
     DataError
         When the table cannot be fitted (missing column, text, NaN, negative values,
         too few points or levels, all-zero rates); the message names column, row, value.
@@ -259,8 +270,10 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     >>> ik.fit_mechanisms(data, weighting="relative").verdict
     'competitive'
     """
-    if weighting not in WEIGHTINGS:
-        raise DataError(f"weighting must be one of {WEIGHTINGS}, got {weighting!r}", context)
+    fit_options = FitOptions(weighting=weighting, intervals=intervals, level=level,
+                             alpha=alpha, min_delta_aicc=min_delta_aicc,
+                             alpha_factor=alpha_factor,
+                             determination_factor=determination_factor)
     if weighting == "sd" and sd is None:
         raise DataError("weighting='sd' needs the sd= column of standard deviations", context)
     unknown = [m for m in models if m not in MODELS]
@@ -276,10 +289,11 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         w = relative_weights(s, i, v)
     else:
         w = np.ones_like(v)
-    options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc,
-                             alpha_factor=alpha_factor)
+    options = VerdictOptions(alpha=fit_options.alpha, min_delta_aicc=fit_options.min_delta_aicc,
+                             alpha_factor=fit_options.alpha_factor)
     fits: dict[str, ModelFit] = {}
-    common = dict(intervals=intervals, level=level, determination_factor=determination_factor)
+    common = dict(intervals=fit_options.intervals, level=fit_options.level,
+                  determination_factor=fit_options.determination_factor)
     for name in models:
         starts = mixed_starts(fits, s, i, v, w) if name == "mixed" else None
         fits[name] = fit_model(name, s, i, v, w, starts=starts, **common)

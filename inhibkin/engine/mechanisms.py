@@ -27,10 +27,10 @@ from scipy import stats
 from ..compare import EXACT_FIT_RTOL, VerdictOptions, decide_from
 from ..core.bounds import NESTED_FAR_FACTOR
 from ..core.determined import DETERMINATION_FACTOR, determined_flags
+from ..core.options import FitOptions
 from ..core.weighting import (
     DEFAULT_WEIGHTING,
     REWEIGHT_ITERATIONS,
-    WEIGHTINGS,
     normalise_weights,
     relative_weights_from_fitted,
 )
@@ -798,8 +798,9 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
         Every input compound appears once; compounds whose data cannot be fitted have
         the verdict ``failed`` and say why.
     """
-    if weighting not in WEIGHTINGS:
-        raise DataError(f"weighting must be one of {WEIGHTINGS}, got {weighting!r}")
+    FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
+               min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
+               determination_factor=determination_factor)
     if weighting == "sd" and sd is None:
         raise DataError("weighting='sd' needs sd=, the standard deviations of the rates")
     unknown = [m for m in models if m not in MODELS]
@@ -894,6 +895,9 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
         validation gets the verdict ``failed`` with the validation message as reason;
         it never stops the others.
     """
+    FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
+               min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
+               determination_factor=determination_factor)
     is_mapping = isinstance(tables_or_arrays, Mapping)
     items = list(tables_or_arrays.items()) if is_mapping else \
         list(enumerate(tables_or_arrays))
