@@ -82,6 +82,7 @@ from .core.readonly import readonly_frame, readonly_mapping
 from .engine import fit_mechanism_arrays, pad
 from .errors import DataError, InhibkinError, OptionError, Problem
 from .mechanism import DEFAULT_WEIGHTING, MechanismFit, fit_mechanisms
+from .models import MODELS, ONE_CONSTANT_MODELS
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
 from .potency_table import EngineFitter, potency_table
 from .simulate import simulate_grid
@@ -147,9 +148,6 @@ _MAX_ROWS_PER_CHUNK = 50_000
 _PARALLEL_PASSES = 2
 # Rows shown by Campaign.summary() and _repr_html_().
 _SUMMARY_ROWS = 10
-# The constant that ranks a compound, by mechanism (mixed: the tighter of two).
-_RANKING_CONSTANT = {"competitive": ("kic",), "uncompetitive": ("kiu",),
-                     "noncompetitive": ("ki",), "mixed": ("kic", "kiu")}
 
 
 def ranking_constant(mechanism: str, alpha=None) -> tuple[str, float]:
@@ -175,7 +173,7 @@ def ranking_constant(mechanism: str, alpha=None) -> tuple[str, float]:
         if alpha is not None and np.isfinite(alpha) and alpha < 1.0:
             return "kiu", float(alpha)
         return "kic", 1.0
-    return _RANKING_CONSTANT[mechanism][0], 1.0
+    return MODELS[mechanism].ranking[0], 1.0
 
 
 @dataclass(frozen=True)
@@ -245,7 +243,7 @@ def _failed_row(compound, reason, flags="") -> dict:
 
 def _pick_constant(constants: pd.DataFrame, mechanism: str) -> str:
     """The parameter whose value ranks the compound (see the module docstring)."""
-    names = [n for n in _RANKING_CONSTANT[mechanism] if n in constants.index]
+    names = [n for n in MODELS[mechanism].ranking if n in constants.index]
     determined = [n for n in names if bool(constants.loc[n, "determined"])]
     if determined:
         return min(determined, key=lambda n: constants.loc[n, "estimate"])
@@ -259,8 +257,8 @@ def _inactive_bound(fit: MechanismFit):
     sets none (a zero or missing limit, as log-scale Wald intervals of a constant far past
     the tested range often give; profile intervals usually set one)."""
     limits = []
-    for name, constant in (("competitive", "kic"), ("uncompetitive", "kiu"),
-                           ("noncompetitive", "ki")):
+    for name in ONE_CONSTANT_MODELS:
+        (constant,) = MODELS[name].ranking
         model = fit.models.get(name)
         if model is None or not model.converged:
             return None
@@ -972,9 +970,14 @@ def _dose_row(compound, potency: dict) -> dict:
         row.update(status="failed", verdict="failed",
                    reason=row["reason"] or "the IC50 could not be converted to a Ki")
     if row["status"] == "determined":
-        for name, column in (("kic", "kic_M"), ("kiu", "kiu_M")):
-            if mechanism == "noncompetitive" or _RANKING_CONSTANT.get(mechanism) == (name,):
-                row[column] = row["ki_M"]
+        law = MODELS.get(mechanism)
+        if law is not None and len(law.ranking) == 1:
+            # The one constant, and those of mixed it stands for (noncompetitive's ki is
+            # kic = kiu).
+            (constant,) = law.ranking
+            for name in dict(law.ties).get(constant, (constant,)):
+                if f"{name}_M" in ("kic_M", "kiu_M"):
+                    row[f"{name}_M"] = row["ki_M"]
         if mechanism == "mixed" and np.isfinite(alpha):
             kic = row["ki_M"] / factor
             row.update(kic_M=kic, kiu_M=alpha * kic)

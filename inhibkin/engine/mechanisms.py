@@ -41,7 +41,7 @@ from ..models import MODEL_NAMES, MODELS, ONE_CONSTANT_MODELS, nested_pairs, nes
 from ..validate import ALL_EQUAL, NO_SIGNAL, check_grid
 from . import lm
 from .chunks import concat_batches, run_chunks
-from .starts import _count_unique, mechanism_log_bounds, mechanism_starts
+from .starts import count_unique, mechanism_log_bounds, mechanism_starts
 
 __all__ = ["ModelBatch", "MechanismBatch", "fit_mechanism_arrays", "fit_mechanisms_batch",
            "pad"]
@@ -359,9 +359,9 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition):
                  f"negative value in {name}; it must be ≥ 0")
     if sd is not None:
         flag(np.any((sd == 0) & mask, axis=1), "standard deviation must be > 0")
-    flag(_count_unique(s, mask) < 2, "need at least two substrate concentrations")
+    flag(count_unique(s, mask) < 2, "need at least two substrate concentrations")
     if need_inhibition:
-        flag(_count_unique(i, mask) < 2, "only one inhibitor level; inhibition models need at "
+        flag(count_unique(i, mask) < 2, "only one inhibitor level; inhibition models need at "
              "least two (include the uninhibited rate, I = 0)")
     flag(np.all((v == 0) | ~mask, axis=1), "all rates are zero; nothing to fit")
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -565,9 +565,10 @@ def _verdicts(models, p_values, valid, invalid_reason, options):
 def _fixed_alpha_tests(out, s, i, v, mask, w, rows, far, exact_ssr, options,
                        max_iterations, fallback):
     """F-tests of mixed with alpha held at each edge against mixed, for every compound:
-    :func:`inhibkin.mechanism._fixed_alpha_tests` over the same starts (the mixed
-    solution, then each nested model's), the best successful SSR winning. With
-    ``fallback``, a compound none of whose starts converged is refitted by the lmfit path
+    the lmfit path's fixed-alpha tests (:func:`inhibkin.fitting.fixed_alpha_ssr`) over
+    the same starts (the mixed solution, then each nested model's), the best successful
+    SSR winning. With ``fallback``, a compound none of whose starts converged is refitted
+    by the lmfit path
     (:func:`inhibkin.fitting.fixed_alpha_ssr`) from the same starts."""
     mixed = out["mixed"]
     b = s.shape[0]
@@ -715,7 +716,7 @@ class _Combined:
 
 def _mixed_multistart(out, s, i, v, mask, w, rows, first, lower, upper, far, max_iterations):
     """fit_model's rule over mixed's starts: the first result, then any successful one
-    with a lower SSR (the starts of :func:`inhibkin.mechanism._mixed_starts`)."""
+    with a lower SSR (the starts of :func:`inhibkin.mechanism.mixed_starts`)."""
     best = _Combined(first.theta.copy(), first.ssr.copy(), first.status.copy(),
                      first.iterations.copy(), first.n_obs, first.covariance.copy())
     position = np.full(s.shape[0], -1)

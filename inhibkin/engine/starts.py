@@ -14,7 +14,7 @@ from ..core.bounds import log_bounds_arrays
 from ..models import MODELS
 from ..starts import KI_GRID_POINTS
 
-__all__ = ["mechanism_starts", "mechanism_log_bounds", "logistic_starts"]
+__all__ = ["mechanism_starts", "mechanism_log_bounds", "logistic_starts", "count_unique"]
 
 # Problems scored at once in the inhibition-constant grid search: (problems × 169 grid
 # points × n) floats should fit in cache, which is what makes the search fast.
@@ -26,7 +26,7 @@ def _sorted_valid(values, mask):
     return np.sort(np.where(mask, values, np.inf), axis=1)
 
 
-def _count_unique(values, mask):
+def count_unique(values, mask):
     """Number of distinct valid values per row."""
     ordered = _sorted_valid(values, mask)
     count = mask.sum(axis=1)
@@ -64,7 +64,7 @@ def _michaelis_menten_start(s, v, use):
         dx = np.where(keep, s - x_mean[:, None], 0.0)
         slope = np.sum(dx * (q - q_mean[:, None]) * keep, axis=1) / np.sum(dx * dx, axis=1)
         intercept = q_mean - slope * x_mean
-        line_ok = (_count_unique(s, keep) >= 2) & (slope > 0) & (intercept > 0)
+        line_ok = (count_unique(s, keep) >= 2) & (slope > 0) & (intercept > 0)
         vmax = np.where(line_ok, 1.0 / slope, vmax_fb)
         km = np.where(line_ok, intercept / slope, km_fb)
     return vmax, km
@@ -86,7 +86,7 @@ def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
     """
     law = MODELS[model]
     uninhibited = mask & (i == 0)
-    use_uninhibited = _count_unique(s, uninhibited) >= 2
+    use_uninhibited = count_unique(s, uninhibited) >= 2
     use = np.where(use_uninhibited[:, None], uninhibited, mask)
     vmax, km = _michaelis_menten_start(s, v, use)
     names = law.inhibition_constants
