@@ -744,7 +744,7 @@ class Campaign:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        from .report import campaign_html  # matplotlib only when a notebook asks
+        from .display.html import campaign_html  # matplotlib only when a notebook asks
 
         return campaign_html(self)
 

@@ -151,7 +151,7 @@ class MechanismFit:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        from .report import fit_html  # matplotlib is loaded only when a notebook asks
+        from .display.html import fit_html  # matplotlib is loaded only when a notebook asks
 
         return fit_html(self)
 

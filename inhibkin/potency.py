@@ -414,7 +414,7 @@ class DoseResponseFit:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        from .report import dose_response_html  # matplotlib only when a notebook asks
+        from .display.html import dose_response_html  # matplotlib only when a notebook asks
 
         return dose_response_html(self)
 
