@@ -892,23 +892,20 @@ def _dose_results(frame, names, settings, mechanisms, keep_fits):
                                substrate_unit="M", km=settings.km, enzyme=settings.enzyme,
                                mechanisms={n: mechanisms[n] for n in names if n in mechanisms},
                                fitter=fitter, **dict(settings.options))
-    extra = "; ".join(dict.fromkeys(str(w.message) for w in caught))
+    # Flags travel as tuples (a warning's text may hold commas) and bounds as Bound values,
+    # from the potency table's records rather than its written-out text.
+    extra = tuple(dict.fromkeys(str(w.message) for w in caught))
     refitted = set(fitter.refitted) if fitter is not None else set()
     rows = result.table.set_index("compound", drop=False)
     out = []
     for name in names:
         row = rows.loc[name].to_dict()
-        if extra:
-            row["flags"] = "; ".join(f for f in (row.get("flags", ""), extra) if f)
+        row.update(result.records.get(name, {"ic50_bound": None, "ki_bound": None,
+                                             "flags": ()}))
+        row["flags"] = tuple(dict.fromkeys(row["flags"] + extra))
         row[_REFITS] = int(name in refitted)
         out.append((name, row, result.fits.get(name) if keep_fits else None))
     return out
-
-
-def _bound(text):
-    """("<" or ">", value) of a potency bound such as "> 1.2e-05"."""
-    side, value = str(text).split(" ", 1)
-    return side, float(value)
 
 
 def _dose_row(compound, potency: dict) -> dict:
@@ -916,8 +913,7 @@ def _dose_row(compound, potency: dict) -> dict:
     row = _empty_row(compound)
     row.update(ki_source="converted IC50", reason=potency.get("reason", ""),
                mechanism=potency.get("mechanism", "") or "")
-    flags = [f.strip() for f in str(potency.get("flags", "") or "").replace(",", ";").split(";")
-             if f.strip()]
+    flags = list(potency.get("flags", ()))
     if potency.get("status") != "ok":
         row.update(status="failed", verdict="failed", ki_source="", mechanism="",
                    flags="; ".join(flags))
@@ -937,19 +933,19 @@ def _dose_row(compound, potency: dict) -> dict:
     # constant follows the rule of ranking_constant, as on the grid route.
     parameter, factor = (ranking_constant(mechanism, alpha) if mechanism in CONVERSIONS
                          else ("", 1.0))
-    ki, bound = float(potency.get("ki", np.nan)), potency.get("ki_bound", "") or ""
-    ic50_bound = potency.get("ic50_bound", "") or ""
+    ki, bound = float(potency.get("ki", np.nan)), potency.get("ki_bound")
+    ic50_bound = potency.get("ic50_bound")
     if potency.get("curve_class") == "inactive":
         # No curve: not a potency, whatever the fitted midpoint.
-        _, top = _bound(ic50_bound) if ic50_bound else (">", np.nan)
+        top = ic50_bound.value if ic50_bound is not None else np.nan
         row.update(status="inactive", ic50_M=np.nan, ic50_low_M=np.nan, ic50_high_M=np.nan,
                    pic50=np.nan, hill=np.nan, ki_parameter=parameter,
                    ki_reported=f"inactive: IC50 > {top:.3g} M, the highest concentration "
                                f"tested")
-        if bound:
-            _, value = _bound(bound)
-            row.update(ki_low_M=value * factor, ki_high_M=np.inf)
-            row["ki_reported"] += f" (Ki > {value * factor:.3g} M)"
+        if bound is not None:
+            value = bound.value * factor
+            row.update(ki_low_M=value, ki_high_M=np.inf)
+            row["ki_reported"] += f" (Ki > {value:.3g} M)"
     elif np.isfinite(ki) and ki > 0:
         ki = ki * factor
         low, high = float(potency["ki_low"]) * factor, float(potency["ki_high"]) * factor
@@ -957,15 +953,14 @@ def _dose_row(compound, potency: dict) -> dict:
                    pki=-math.log10(ki), pki_low=-math.log10(high) if high > 0 else np.nan,
                    pki_high=-math.log10(low) if low > 0 else np.nan,
                    ki_parameter=parameter, ki_reported=f"{ki:.3g} M [{low:.3g}, {high:.3g}]")
-    elif bound:
-        side, value = _bound(bound)
-        value *= factor
-        row.update(status="bound", ki_parameter=parameter,
-                   ki_reported=f"{side} {value:.3g} M")
-        if side == ">":
-            row.update(ki_low_M=value, ki_high_M=np.inf, pki_high=-math.log10(value))
+    elif bound is not None:
+        bound = bound.scaled(factor)
+        row.update(status="bound", ki_parameter=parameter, ki_reported=bound.text("M"),
+                   ki_low_M=bound.low, ki_high_M=bound.high)
+        if bound.side == ">":
+            row.update(pki_high=-math.log10(bound.value))
         else:
-            row.update(ki_low_M=0.0, ki_high_M=value, pki_low=-math.log10(value))
+            row.update(pki_low=-math.log10(bound.value))
     else:
         row.update(status="failed", verdict="failed",
                    reason=row["reason"] or "the IC50 could not be converted to a Ki")

@@ -69,7 +69,8 @@ class PotencyTable:
         that class and which parameters the data do not set (their columns are empty:
         a Hill slope at its fitting bound, a plateau outside the tested range);
         IC50 and Ki in the concentration's unit
-        (``ic50_bound``/``ki_bound`` hold "> x" text when only a bound is known);
+        (``ic50_bound``/``ki_bound`` hold "> x" text when only a bound is known; the
+        values themselves are in :attr:`records`);
         ``mechanism_source`` is ``"mechanism fit"`` or ``"default"``; ``ki_method`` is
         ``"cheng-prusoff"`` or ``"morrison"``; ``flags`` joins
         :data:`~inhibkin.potency.FLAGS` keys with ", ".
@@ -80,12 +81,17 @@ class PotencyTable:
     morrison_fits : dict
         Compound to its :class:`~inhibkin.morrison.MorrisonFit` (only with
         ``tight_binding="morrison"``).
+    records : dict
+        Compound to the values the table writes out as text: ``ic50_bound`` and
+        ``ki_bound`` (:class:`~inhibkin.core.bound.Bound` or None) and ``flags`` (a
+        tuple), for the stages downstream that need the numbers.
     """
 
     table: pd.DataFrame
     fits: dict = field(repr=False)
     plates: PlateQC = field(repr=False)
     morrison_fits: dict = field(default_factory=dict, repr=False)
+    records: dict = field(default_factory=dict, repr=False)
 
     @property
     def failed(self) -> pd.DataFrame:
@@ -161,11 +167,6 @@ def _km_in_substrate_unit(km, df, substrate, substrate_unit):
         raise DataError(Problem("km", None, km, "km must be a positive number, text with "
                                                 "its unit (e.g. '40uM') or a column name"))
     return float(from_molar(float(km), declared)) if declared is not None else float(km)
-
-
-def _convert_bound(bound, factor):
-    sign, value = bound.split(" ", 1)
-    return f"{sign} {float(value) * factor:.3g}"
 
 
 def _default_fitter(curves, *, fix_top, fix_bottom, intervals, level, class_options=None):
@@ -387,7 +388,7 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         on = [p for p in pd.unique(here[plate])]
         info[name] = (here.index, on)
         rows[name] = {"compound": name, "status": "failed", "plate": ", ".join(map(str, on)),
-                      "n_points": len(here), "flags": ""}
+                      "n_points": len(here), "flags": ()}
         bad = [unusable[p] for p in on if p in unusable]
         try:
             if bad:
@@ -431,11 +432,24 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         except InhibkinError as error:
             row["reason"] = f"{_context(name)}: {error}" if _context(name) not in str(error) \
                 else str(error)
-    table = pd.DataFrame([rows[n] for n in rows], columns=list(TABLE_COLUMNS))
+    # Bounds and flags stay values (a Bound, a tuple) in ``records``; the table is where
+    # they are written out as text.
+    records = {name: {"ic50_bound": row.get("ic50_bound"), "ki_bound": row.get("ki_bound"),
+                      "flags": tuple(row["flags"])} for name, row in rows.items()}
+    table = pd.DataFrame([_written(rows[n]) for n in rows], columns=list(TABLE_COLUMNS))
     text = ["curve_class", "reason", "ic50_bound", "ki_bound", "mechanism", "mechanism_source",
             "ki_method", "flags"]
     table[text] = table[text].fillna("")
-    return PotencyTable(table.reset_index(drop=True), fits, qc, morrison_fits)
+    return PotencyTable(table.reset_index(drop=True), fits, qc, morrison_fits, records)
+
+
+def _written(row: dict) -> dict:
+    """A result row as the table holds it: bounds as "> x" text, flags joined by ", "."""
+    out = dict(row)
+    for key in ("ic50_bound", "ki_bound"):
+        out[key] = out[key].text() if out.get(key) is not None else ""
+    out["flags"] = ", ".join(row["flags"])
+    return out
 
 
 def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, substrate, km, km_se,
@@ -452,12 +466,12 @@ def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, substrate
     why = "; ".join([fit.class_reason] + [f"{what} (not determined)"
                                           for what in fit.not_determined])
     out = {"status": "ok", "curve_class": fit.curve_class, "reason": why, "ic50": fit.ic50,
-           "ic50_low": np.nan, "ic50_high": np.nan, "ic50_bound": fit.ic50_bound or "",
+           "ic50_low": np.nan, "ic50_high": np.nan, "ic50_bound": fit.ic50_bound,
            "pic50": fit.pic50, "hill": fit.hill,
            "hill_low": hill_row["ci_low"] if hill_set else np.nan,
            "hill_high": hill_row["ci_high"] if hill_set else np.nan,
            "top": fit.top, "bottom": fit.bottom, "substrate": s, "km": km_value, "enzyme": e,
-           "ki": np.nan, "ki_low": np.nan, "ki_high": np.nan, "ki_bound": "", "pki": np.nan,
+           "ki": np.nan, "ki_low": np.nan, "ki_high": np.nan, "ki_bound": None, "pki": np.nan,
            "ki_method": "cheng-prusoff"}
     if not fit.ic50_bound:
         out["ic50_low"], out["ic50_high"] = ic50_row["ci_low"], ic50_row["ci_high"]
@@ -467,14 +481,14 @@ def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, substrate
     out.update(mechanism=mech, alpha=alpha, mechanism_source=source)
     if np.isfinite(e) and np.isfinite(fit.ic50) and fit.ic50 < tight_binding_factor * e:
         flags.append("tight_binding")
-    out["flags"] = ", ".join(flags)
+    out["flags"] = tuple(flags)
     if mech not in CONVERSIONS:
         out["reason"] = "; ".join(filter(None, (
             why, f"mechanism {mech!r}: no IC50 to Ki conversion; Ki not reported")))
         return out
     factor = cheng_prusoff(1.0, s, km_value, mech, None if np.isnan(alpha) else alpha)
     if fit.ic50_bound:
-        out["ki_bound"] = _convert_bound(fit.ic50_bound, factor)
+        out["ki_bound"] = fit.ic50_bound.scaled(factor)
         return out
     if tight_binding == "morrison" and "tight_binding" in flags:
         m = fit_morrison(fit.conc, fit.response, enzyme=e, s=s, km=km_value, mechanism=mech,
