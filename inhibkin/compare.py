@@ -37,7 +37,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .models import ONE_CONSTANT_MODELS, nested_pairs
+from .models import MODELS, ONE_CONSTANT_MODELS, nested_pairs
 
 #: An SSR below this fraction of the total weighted sum of squares of the rates is an
 #: exact fit (relative residuals of about 1e-9): noise-free data, where the F-tests
@@ -83,10 +83,9 @@ class VerdictOptions:
 
     def alpha_edges(self, model: str) -> tuple[str, ...]:
         """The fixed-alpha fits (names in the F-test table) that ``model`` must reject."""
-        return {"competitive": (self.alpha_row(self.alpha_factor),),
-                "uncompetitive": (self.alpha_row(1 / self.alpha_factor),),
-                "noncompetitive": (self.alpha_row(1 / self.alpha_factor),
-                                   self.alpha_row(self.alpha_factor))}.get(model, ())
+        at = {"low": 1 / self.alpha_factor, "high": self.alpha_factor}
+        law = MODELS.get(model)
+        return tuple(self.alpha_row(at[edge]) for edge in law.alpha_edges) if law else ()
 
     @property
     def alpha_values(self) -> tuple[float, float]:

@@ -298,7 +298,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         starts = mixed_starts(fits, s, i, v, w) if name == "mixed" else None
         fits[name] = fit_model(name, s, i, v, w, starts=starts, **common)
     # The table order is the models' own order, whatever order they were fitted in.
-    fits = {name: fits[name] for name in MODEL_NAMES if name in fits}
+    fits = {name: fits[name] for name in MODELS if name in fits}
     comparison = comparison_table(fits)
     exact_ssr = EXACT_FIT_RTOL * float(np.sum((w * v) ** 2))
     ftests = f_test_table(fits, exact_ssr=exact_ssr)

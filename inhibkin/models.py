@@ -80,6 +80,11 @@ class RateLaw:
         Quantities derived from the fitted constants (mixed: alpha = kiu/kic).
     ranking : tuple of str
         The constants a ranking by Ki reads (mixed: the tighter of kic and kiu).
+    alpha_edges : tuple of {"low", "high"}
+        Where the name places alpha = kiu/kic of mixed, as the edges the data must
+        reject before the name is called (rule 4 of :mod:`inhibkin.compare`): "high"
+        for alpha above ``alpha_factor`` (competitive), "low" for alpha below its
+        inverse (uncompetitive), both for between them (noncompetitive).
     """
 
     name: str
@@ -92,6 +97,7 @@ class RateLaw:
     ties: tuple[tuple[str, tuple[str, ...]], ...] = ()
     derived: tuple[Derived, ...] = ()
     ranking: tuple[str, ...] = ()
+    alpha_edges: tuple[str, ...] = ()
 
     def __post_init__(self):
         if len(self.roles) != len(self.param_names) or not set(self.roles) <= set(ROLES):
@@ -187,20 +193,20 @@ MODELS: dict[str, RateLaw] = {
             "competitive", ("vmax", "km", "kic"), _competitive_rate, _competitive_jac,
             nests_in=("mixed",),
             equation="v = vmax*S / (km*(1 + I/kic) + S)",
-            roles=(_RATE, _SUBSTRATE, _INHIBITOR), ranking=("kic",),
+            roles=(_RATE, _SUBSTRATE, _INHIBITOR), ranking=("kic",), alpha_edges=("high",),
         ),
         RateLaw(
             "uncompetitive", ("vmax", "km", "kiu"), _uncompetitive_rate, _uncompetitive_jac,
             nests_in=("mixed",),
             equation="v = vmax*S / (km + S*(1 + I/kiu))",
-            roles=(_RATE, _SUBSTRATE, _INHIBITOR), ranking=("kiu",),
+            roles=(_RATE, _SUBSTRATE, _INHIBITOR), ranking=("kiu",), alpha_edges=("low",),
         ),
         RateLaw(
             "noncompetitive", ("vmax", "km", "ki"), _noncompetitive_rate, _noncompetitive_jac,
             nests_in=("mixed",),
             equation="v = vmax*S / ((km + S)*(1 + I/ki))",
             roles=(_RATE, _SUBSTRATE, _INHIBITOR), ties=(("ki", ("kic", "kiu")),),
-            ranking=("ki",),
+            ranking=("ki",), alpha_edges=("low", "high"),
         ),
         RateLaw(
             "mixed", ("vmax", "km", "kic", "kiu"), _mixed_rate, _mixed_jac,

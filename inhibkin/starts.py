@@ -18,10 +18,14 @@ import numpy as np
 from .core.bounds import log_bounds_arrays
 from .models import MODELS
 
-__all__ = ["michaelis_menten_start", "starting_values", "log_bounds", "KI_GRID_POINTS"]
+__all__ = ["michaelis_menten_start", "starting_values", "log_bounds", "KI_GRID_POINTS",
+           "KI_GRID_SPAN"]
 
 #: Points in the log-spaced search grid for each inhibition constant.
 KI_GRID_POINTS = 13
+#: The grid runs from the smallest positive inhibitor level divided by the first to the
+#: largest times the second (the engine's vectorised search uses the same span).
+KI_GRID_SPAN = (10.0, 100.0)
 
 def michaelis_menten_start(s, v) -> tuple[float, float]:
     """Starting vmax and km from a Hanes–Woolf line through (S, S/v).
@@ -59,7 +63,7 @@ def michaelis_menten_start(s, v) -> tuple[float, float]:
 
 def _inhibitor_grid(i) -> np.ndarray:
     positive = i[i > 0]
-    low, high = positive.min() / 10.0, positive.max() * 100.0
+    low, high = positive.min() / KI_GRID_SPAN[0], positive.max() * KI_GRID_SPAN[1]
     return np.geomspace(low, high, KI_GRID_POINTS)
 
 

@@ -671,7 +671,7 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
             res["ssr"], n_obs, res["n_params"], sum_log_w)
         out[name] = res
     # The tables keep the models' own order, whatever order they were fitted in.
-    out = {name: out[name] for name in MODEL_NAMES if name in out}
+    out = {name: out[name] for name in MODELS if name in out}
     exact_ssr = EXACT_FIT_RTOL * np.sum((w * np.where(mask, v, 0.0)) ** 2, axis=1)
     p_values = {pair: _f_tests(out, *pair, exact_ssr) for pair in nested_pairs(tuple(out))}
     options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc,

@@ -12,7 +12,7 @@ import numpy as np
 
 from ..core.bounds import log_bounds_arrays
 from ..models import MODELS
-from ..starts import KI_GRID_POINTS
+from ..starts import KI_GRID_POINTS, KI_GRID_SPAN
 
 __all__ = ["mechanism_starts", "mechanism_log_bounds", "logistic_starts", "count_unique"]
 
@@ -100,8 +100,8 @@ def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
     if has.size == 0:
         return out
     w = np.ones_like(v) if weights is None else weights
-    low = np.min(np.where(inhibited, i, np.inf), axis=1)[has] / 10.0
-    high = np.max(np.where(inhibited, i, -np.inf), axis=1)[has] * 100.0
+    low = np.min(np.where(inhibited, i, np.inf), axis=1)[has] / KI_GRID_SPAN[0]
+    high = np.max(np.where(inhibited, i, -np.inf), axis=1)[has] * KI_GRID_SPAN[1]
     grid = np.geomspace(low, high, KI_GRID_POINTS, axis=1)
     m = len(names)
     # The same combinations, in the same order, as the per-problem search.
