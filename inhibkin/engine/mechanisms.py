@@ -24,7 +24,14 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..compare import EXACT_FIT_RTOL, VerdictOptions, decide_from
+from ..compare import (
+    EXACT_FIT_RTOL,
+    VerdictOptions,
+    akaike_weights,
+    decide_from,
+    f_test_arrays,
+    information_criteria,
+)
 from ..core.bounds import NESTED_FAR_FACTOR
 from ..core.determined import DETERMINATION_FACTOR, determined_flags
 from ..core.options import FitOptions
@@ -285,10 +292,7 @@ def _comparison_frame(models, c) -> pd.DataFrame:
     aicc = column("aicc")
     finite = np.isfinite(aicc)
     delta = aicc - np.nanmin(aicc) if finite.any() else np.full(len(names), np.nan)
-    weight = np.zeros(len(names))
-    if finite.any():
-        rel = np.exp(-0.5 * (aicc[finite] - aicc[finite].min()))
-        weight[finite] = rel / rel.sum()
+    weight = akaike_weights(aicc)
     return pd.DataFrame({
         "n_obs": [int(models[n].n_obs[c]) for n in names],
         "n_params": [models[n].n_params for n in names],
@@ -377,18 +381,6 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition):
     flag(mask.sum(axis=1) <= n_params, f"no more points than the largest model's {n_params} "
          "parameters")
     return reason
-
-
-def _criteria(ssr, n, k, sum_log_w):
-    """:func:`inhibkin.compare.information_criteria`, vectorised."""
-    ssr = np.where(ssr <= 0, np.finfo(float).tiny, ssr)
-    # Rows that were not fitted have NaN SSR (and possibly n = 0): NaN criteria.
-    with np.errstate(divide="ignore", invalid="ignore"):
-        loglik = -0.5 * n * (np.log(2 * np.pi) + np.log(ssr / n) + 1) + sum_log_w
-        aic = -2 * loglik + 2 * k
-        aicc = np.where(n > k + 1, aic + 2 * k * (k + 1) / (n - k - 1), np.inf)
-        bic = -2 * loglik + k * np.log(n)
-    return loglik, aic, aicc, bic
 
 
 def _solve_model(name, s, i, v, mask, w, rows, theta0, lower, upper, max_iterations):
@@ -518,19 +510,14 @@ def _f_tests(models, small, large, exact_ssr):
 
 
 def _f_test_arrays(ssr_small, converged_small, k_small, b, exact_ssr):
+    """:func:`inhibkin.compare.f_test_arrays` where both fits converged, with SSRs at or
+    below ``exact_ssr`` counted as exact fits (as in :func:`~inhibkin.compare.f_test_table`)."""
     n = b["n_obs"]
-    df_reduced, df_full = n - k_small, n - b["n_params"]
-    df_num = df_reduced - df_full
-    both = converged_small & b["converged"] & (df_num > 0) & (df_full > 0)
+    both = converged_small & b["converged"]
     ssr_a = np.where(ssr_small > exact_ssr, ssr_small, 0.0)
     ssr_b = np.where(b["ssr"] > exact_ssr, b["ssr"], 0.0)
-    gain = np.maximum(ssr_a - ssr_b, 0.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        f_value = np.where(ssr_b <= 0, np.where(gain > 0, np.inf, 0.0),
-                           (gain / df_num) / (ssr_b / df_full))
-    f_value = np.where(both, f_value, np.nan)
-    p_value = np.where(both, stats.f.sf(f_value, df_num, np.maximum(df_full, 1)), np.nan)
-    return f_value, p_value
+    f_value, p_value = f_test_arrays(ssr_a, n - k_small, ssr_b, n - b["n_params"])
+    return np.where(both, f_value, np.nan), np.where(both, p_value, np.nan)
 
 
 def _verdicts(models, p_values, valid, invalid_reason, options):
@@ -667,8 +654,8 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
         if fallback:
             for c in rows[~result.converged]:
                 _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor)
-        res["loglik"], res["aic"], res["aicc"], res["bic"] = _criteria(
-            res["ssr"], n_obs, res["n_params"], sum_log_w)
+        criteria = information_criteria(res["ssr"], n_obs, res["n_params"], sum_log_w)
+        res.update((key, criteria[key]) for key in ("loglik", "aic", "aicc", "bic"))
         out[name] = res
     # The tables keep the models' own order, whatever order they were fitted in.
     out = {name: out[name] for name in MODELS if name in out}
