@@ -16,6 +16,10 @@ from collections.abc import Mapping
 import numpy as np
 import pandas as pd
 
+# Copy-on-write (always on from pandas 3) keeps a result's frame apart from the frame it
+# was built from without a copy; before it, the frame is copied.
+_COPY_ON_WRITE = int(pd.__version__.split(".")[0]) >= 3
+
 __all__ = ["ReadOnlyFrame", "ReadOnlyMapping", "readonly_frame", "readonly_array",
            "readonly_mapping"]
 
@@ -83,25 +87,16 @@ class ReadOnlyFrame(pd.DataFrame):
 
 
 def readonly_frame(frame: pd.DataFrame) -> ReadOnlyFrame:
-    """A read-only copy of ``frame`` (the caller's frame is left as it was).
+    """``frame`` as a :class:`ReadOnlyFrame`.
 
-    The numeric columns' arrays are also marked read-only, so even a column taken out
-    (``table["estimate"].to_numpy()``) cannot be written back into the result.
+    Under pandas' copy-on-write (pandas ≥ 3) no data are copied: the new frame shares the
+    arrays lazily, a later edit of ``frame`` copies them first and never reaches the
+    result, and the arrays a result hands out (``table["estimate"].to_numpy()``) are
+    read-only. With older pandas the frame is copied.
     """
     if isinstance(frame, ReadOnlyFrame):
         return frame
-    out = ReadOnlyFrame(frame.copy())
-    for array in _numpy_arrays(out):
-        array.flags.writeable = False
-    return out
-
-
-def _numpy_arrays(frame):
-    for name in frame.columns:
-        values = frame[name].array
-        data = getattr(values, "_ndarray", None)
-        if isinstance(data, np.ndarray):
-            yield data
+    return ReadOnlyFrame(frame if _COPY_ON_WRITE else frame.copy())
 
 
 def readonly_array(array):
