@@ -416,7 +416,8 @@ def fixed_alpha_ssr(s, i, v, weights, alpha, starts) -> float:
     """
     problem = _make_problem("mixed", s, i, v, np.asarray(weights, dtype=float))
     names = MODELS["mixed"].param_names
-    kic, kiu = names.index("kic"), names.index("kiu")
+    (ratio,) = MODELS["mixed"].derived  # alpha = kiu/kic
+    kic, kiu = names.index(ratio.denominator), names.index(ratio.numerator)
     tie = np.delete(np.eye(len(names)), kiu, axis=1)
     tie[kiu, kic] = 1.0
     offset = np.zeros(len(names))

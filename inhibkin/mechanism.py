@@ -192,13 +192,14 @@ def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr) -> pd.DataFrame:
     """F-tests of mixed with alpha held at each edge of :meth:`VerdictOptions.alpha_values`
     against mixed (1 numerator df): rule 4 of the verdict."""
     mixed = fits["mixed"]
+    law = MODELS["mixed"]
+    (ratio,) = law.derived  # alpha = kiu/kic
     p = mixed.best_values
-    starts = [{"vmax": p["vmax"], "km": p["km"], "kic": p["kic"], "kiu": p["kiu"]},
-              *mixed_starts(fits, s, i, v, w)[1:]]
+    starts = [{name: p[name] for name in law.param_names}, *mixed_starts(fits, s, i, v, w)[1:]]
     ssr_full = mixed.ssr if mixed.ssr > exact_ssr else 0.0
     rows = []
     for value in options.alpha_values:
-        held = [{**x, "kiu": value * x["kic"]} for x in starts]
+        held = [{**x, ratio.numerator: value * x[ratio.denominator]} for x in starts]
         ssr = fixed_alpha_ssr(s, i, v, w, value, held)
         if np.isfinite(ssr):
             f_value, p_value, df_num, df_den = f_test(ssr if ssr > exact_ssr else 0.0,
