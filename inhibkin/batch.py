@@ -84,7 +84,7 @@ from .errors import DataError, InhibkinError, OptionError, Problem
 from .mechanism import DEFAULT_WEIGHTING, MechanismFit, fit_mechanisms
 from .models import MODELS, ONE_CONSTANT_MODELS
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
-from .potency_table import EngineFitter, potency_table
+from .potency_table import EngineFitter, check_potency_options, potency_table
 from .simulate import simulate_grid
 from .text import text_table
 from .units import (
@@ -792,6 +792,10 @@ def _check_potency_options(options) -> dict:
         raise OptionError(f"potency_options: unknown option(s) {', '.join(map(repr, unknown))}"
                           f"; known: {', '.join(known)} (intervals and level are "
                           f"fit_campaign's own options)")
+    try:
+        check_potency_options(**options)
+    except DataError as error:
+        raise OptionError(f"potency_options: {error}") from None
     threshold = options.get("z_prime_threshold", Z_PRIME_THRESHOLD)
     if isinstance(threshold, bool) or not isinstance(threshold, (int, float)) or \
             not threshold <= 1:

@@ -36,7 +36,8 @@ from .potency import (
 from .units import from_molar, normalise_unit, parse_concentration, split_unit
 from .validate import check_columns
 
-__all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table"]
+__all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table",
+           "check_potency_options"]
 
 #: IC50 below this multiple of the enzyme concentration is tight binding (common practice).
 TIGHT_BINDING_FACTOR = 10.0
@@ -121,6 +122,27 @@ class PotencyTable:
                 f"{len(self.table) - n_ok} failed</p>"
                 + self.table.to_html(index=False, float_format="{:.4g}".format)
                 + self.plates._repr_html_())
+
+
+def check_potency_options(*, tight_binding="flag", default_mechanism="competitive",
+                          default_alpha=None, **_) -> None:
+    """The checks of :func:`potency_table`'s options that need no table (``fit_campaign``
+    runs them once before any work; other keywords are ignored here).
+
+    Raises
+    ------
+    DataError
+        Naming the option.
+    """
+    if tight_binding not in ("flag", "morrison"):
+        raise DataError(Problem(None, None, tight_binding,
+                                "tight_binding must be 'flag' or 'morrison'"))
+    if default_mechanism not in CONVERSIONS:
+        raise DataError(Problem("default_mechanism", None, default_mechanism,
+                                f"must be one of {CONVERSIONS}"))
+    if default_mechanism == "mixed" and default_alpha is None:
+        raise DataError(Problem("default_alpha", None, None,
+                                "a mixed default mechanism needs default_alpha = Kiu/Kic"))
 
 
 def _per_compound_value(spec, rows, name, frame):
@@ -353,19 +375,12 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     """
     if intervals not in INTERVAL_METHODS:
         raise FitError(f"intervals must be one of {INTERVAL_METHODS}, got {intervals!r}")
-    if tight_binding not in ("flag", "morrison"):
-        raise DataError(Problem(None, None, tight_binding,
-                                "tight_binding must be 'flag' or 'morrison'"))
+    check_potency_options(tight_binding=tight_binding, default_mechanism=default_mechanism,
+                          default_alpha=default_alpha)
     km = _km_in_substrate_unit(km, df, substrate, substrate_unit)
     columns = [compound, plate, role, concentration, response, substrate]
     columns += [c for c in (km, enzyme) if isinstance(c, str)]
     check_columns(df, columns)
-    if default_mechanism not in CONVERSIONS:
-        raise DataError(Problem("default_mechanism", None, default_mechanism,
-                                f"must be one of {CONVERSIONS}"))
-    if default_mechanism == "mixed" and default_alpha is None:
-        raise DataError(Problem("default_alpha", None, None,
-                                "a mixed default mechanism needs default_alpha = Kiu/Kic"))
     qc = plate_qc(df, plate=plate, role=role, response=response, threshold=z_prime_threshold,
                   strict=False)
     y_all = (percent_activity(df, qc, plate=plate, response=response) if normalise else

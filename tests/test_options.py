@@ -64,6 +64,17 @@ def test_an_unknown_potency_option_is_named():
                      potency_options={"z_prime": 0.3})
 
 
+@pytest.mark.parametrize("option, message", [
+    ({"default_mechanism": "bogus"}, "default_mechanism.*must be one of"),
+    ({"tight_binding": "bogus"}, "tight_binding must be"),
+    ({"z_prime_threshold": "0.3"}, "z_prime_threshold must be a number"),
+])
+def test_bad_potency_option_values_fail_before_any_curve_is_fitted(option, message):
+    dose, _ = simulate_dose_campaign(["A"], seed=1)
+    with pytest.raises(OptionError, match=message):
+        fit_campaign(dose_response=dose, km="20uM", quiet=True, potency_options=option)
+
+
 def test_the_options_are_stored_as_checked(table):
     campaign = fit_campaign(table, quiet=True, level=0.9, alpha=0.01)
     assert campaign.options["level"] == 0.9
