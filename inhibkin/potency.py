@@ -27,6 +27,7 @@ import pandas as pd
 from scipy import optimize, stats
 
 from .core.bound import Bound
+from .core.readonly import readonly_array, readonly_frame
 from .curve_class import DEFAULT_RULES, CurveClassRules, classify_curves
 from .errors import DataError, FitError, Problem
 from .fitting import INTERVAL_METHODS
@@ -339,6 +340,12 @@ class DoseResponseFit:
     curve_class: str = "complete"
     class_reason: str = ""
     not_determined: tuple = ()
+
+    def __post_init__(self):
+        # Frozen all the way down: the parameter table and the arrays cannot be edited.
+        object.__setattr__(self, "params", readonly_frame(self.params))
+        for name in ("conc", "response", "fitted", "covariance"):
+            object.__setattr__(self, name, readonly_array(getattr(self, name)))
 
     def _value(self, name):
         return float(self.params.loc[name, "estimate"])

@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from .conversion import CONVERSIONS, cheng_prusoff
+from .core.readonly import readonly_frame, readonly_mapping
 from .curve_class import CURVE_CLASSES, DEFAULT_RULES, CurveClassRules, classify_curves
 from .errors import DataError, FitError, InhibkinError, Problem
 from .morrison import fit_morrison
@@ -93,6 +94,12 @@ class PotencyTable:
     plates: PlateQC = field(repr=False)
     morrison_fits: dict = field(default_factory=dict, repr=False)
     records: dict = field(default_factory=dict, repr=False)
+
+    def __post_init__(self):
+        # Frozen all the way down (see inhibkin.core.readonly).
+        object.__setattr__(self, "table", readonly_frame(self.table))
+        for name in ("fits", "morrison_fits", "records"):
+            object.__setattr__(self, name, readonly_mapping(getattr(self, name)))
 
     @property
     def failed(self) -> pd.DataFrame:

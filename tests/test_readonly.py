@@ -3,6 +3,7 @@ inside a frozen result cannot be edited in place."""
 
 import pickle
 
+import numpy as np
 import pytest
 
 import inhibkin as ik
@@ -73,3 +74,14 @@ def test_read_only_results_survive_pickling(fit, campaign):
     with pytest.raises(TypeError):
         again.models["mixed"] = None
     assert pickle.loads(pickle.dumps(campaign)).ranking.equals(campaign.ranking)
+
+
+def test_a_dose_response_fit_cannot_be_edited_in_place():
+    conc = np.geomspace(1e-3, 10.0, 10)
+    # A four-parameter logistic, IC50 = 0.3, Hill slope 1 (the model's own definition).
+    response = 100.0 / (1.0 + conc / 0.3)
+    fit = ik.fit_dose_response(conc, response)
+    with pytest.raises(TypeError):
+        fit.params.loc["ic50", "estimate"] = 1.0
+    with pytest.raises(ValueError, match="read-only"):
+        fit.fitted[0] = 0.0
