@@ -12,7 +12,14 @@ from .conversion import cheng_prusoff, ic50_from_ki
 from .curve_class import CurveClassRules
 from .design import GridPlan, plan_grid
 from .engine import fit_logistic_batch, fit_mechanism_arrays, fit_mechanisms_batch
-from .errors import DataError, FitError, InhibkinError, InhibkinWarning, UnitsError
+from .errors import (
+    DataError,
+    FitError,
+    InhibkinError,
+    InhibkinWarning,
+    OptionError,
+    UnitsError,
+)
 from .excel import write_workbook
 from .fitting import ModelFit, fit_michaelis_menten
 from .inputs import read_any_table, read_plate_matrix, standardise_columns
@@ -75,6 +82,7 @@ __all__ = [
     "ModelFit",
     "RateLaw",
     "UnitsError",
+    "OptionError",
     "VerdictOptions",
     "fit_mechanisms",
     "fit_michaelis_menten",

@@ -60,6 +60,7 @@ for a 96-point grid), and close to them when a constant is well determined. Ask 
 
 from __future__ import annotations
 
+import inspect
 import math
 import multiprocessing
 import sys
@@ -76,11 +77,14 @@ import numpy as np
 import pandas as pd
 
 from .conversion import CONVERSIONS
+from .core.options import FitOptions
+from .core.readonly import readonly_frame, readonly_mapping
 from .engine import fit_mechanism_arrays, pad
-from .errors import DataError, InhibkinError, Problem
+from .errors import DataError, InhibkinError, OptionError, Problem
 from .mechanism import DEFAULT_WEIGHTING, MechanismFit, fit_mechanisms
+from .models import MODELS, ONE_CONSTANT_MODELS
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
-from .potency_table import EngineFitter, potency_table
+from .potency_table import EngineFitter, check_potency_options, potency_table
 from .simulate import simulate_grid
 from .text import text_table
 from .units import (
@@ -144,9 +148,6 @@ _MAX_ROWS_PER_CHUNK = 50_000
 _PARALLEL_PASSES = 2
 # Rows shown by Campaign.summary() and _repr_html_().
 _SUMMARY_ROWS = 10
-# The constant that ranks a compound, by mechanism (mixed: the tighter of two).
-_RANKING_CONSTANT = {"competitive": ("kic",), "uncompetitive": ("kiu",),
-                     "noncompetitive": ("ki",), "mixed": ("kic", "kiu")}
 
 
 def ranking_constant(mechanism: str, alpha=None) -> tuple[str, float]:
@@ -172,7 +173,7 @@ def ranking_constant(mechanism: str, alpha=None) -> tuple[str, float]:
         if alpha is not None and np.isfinite(alpha) and alpha < 1.0:
             return "kiu", float(alpha)
         return "kic", 1.0
-    return _RANKING_CONSTANT[mechanism][0], 1.0
+    return MODELS[mechanism].ranking[0], 1.0
 
 
 @dataclass(frozen=True)
@@ -242,7 +243,7 @@ def _failed_row(compound, reason, flags="") -> dict:
 
 def _pick_constant(constants: pd.DataFrame, mechanism: str) -> str:
     """The parameter whose value ranks the compound (see the module docstring)."""
-    names = [n for n in _RANKING_CONSTANT[mechanism] if n in constants.index]
+    names = [n for n in MODELS[mechanism].ranking if n in constants.index]
     determined = [n for n in names if bool(constants.loc[n, "determined"])]
     if determined:
         return min(determined, key=lambda n: constants.loc[n, "estimate"])
@@ -256,8 +257,8 @@ def _inactive_bound(fit: MechanismFit):
     sets none (a zero or missing limit, as log-scale Wald intervals of a constant far past
     the tested range often give; profile intervals usually set one)."""
     limits = []
-    for name, constant in (("competitive", "kic"), ("uncompetitive", "kiu"),
-                           ("noncompetitive", "ki")):
+    for name in ONE_CONSTANT_MODELS:
+        (constant,) = MODELS[name].ranking
         model = fit.models.get(name)
         if model is None or not model.converged:
             return None
@@ -694,6 +695,15 @@ class Campaign:
     potency_fits: Mapping = field(default_factory=dict, repr=False)
     plates: pd.DataFrame = field(default_factory=lambda: _plates_frame(None), repr=False)
 
+    def __post_init__(self):
+        # Frozen all the way down: campaign.ranking.loc[...] = ... and
+        # campaign.options["units"][...] = ... are refused; to_frame() gives a copy to edit.
+        for name in ("ranking", "plates"):
+            object.__setattr__(self, name, readonly_frame(getattr(self, name)))
+        for name in ("fits", "potency_fits"):
+            object.__setattr__(self, name, readonly_mapping(getattr(self, name), nested=False))
+        object.__setattr__(self, "options", readonly_mapping(self.options))
+
     @property
     def counts(self) -> dict:
         """Number of compounds per status."""
@@ -750,7 +760,7 @@ class Campaign:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        from .report import campaign_html  # matplotlib only when a notebook asks
+        from .display.html import campaign_html  # matplotlib only when a notebook asks
 
         return campaign_html(self)
 
@@ -777,6 +787,37 @@ def _campaign_plates(frame, *, plate, role, response, threshold) -> pd.DataFrame
     wells[response] = wells[response].astype(object).where(~samples, 0.0)
     return _plates_frame(plate_qc(wells, plate=plate, role=role, response=response,
                                   threshold=threshold, strict=False))
+
+
+# potency_table's options that fit_campaign sets itself (columns, units, Km, the fitter).
+_POTENCY_OPTIONS_SET_HERE = ("df", "compound", "plate", "role", "concentration", "response",
+                             "substrate", "substrate_unit", "km", "enzyme", "mechanisms",
+                             "fitter", "intervals", "level")
+
+
+def _check_potency_options(options) -> dict:
+    """``potency_options`` as a dict of keywords potency_table takes, checked once."""
+    if options is None:
+        return {}
+    if not isinstance(options, Mapping):
+        raise OptionError(f"potency_options must be a dict, got {type(options).__name__}")
+    known = [p for p in inspect.signature(potency_table).parameters
+             if p not in _POTENCY_OPTIONS_SET_HERE]
+    unknown = [k for k in options if k not in known]
+    if unknown:
+        raise OptionError(f"potency_options: unknown option(s) {', '.join(map(repr, unknown))}"
+                          f"; known: {', '.join(known)} (intervals and level are "
+                          f"fit_campaign's own options)")
+    try:
+        check_potency_options(**options)
+    except DataError as error:
+        raise OptionError(f"potency_options: {error}") from None
+    threshold = options.get("z_prime_threshold", Z_PRIME_THRESHOLD)
+    if isinstance(threshold, bool) or not isinstance(threshold, (int, float)) or \
+            not threshold <= 1:
+        raise OptionError(f"potency_options: z_prime_threshold must be a number ≤ 1, got "
+                          f"{threshold!r}")
+    return dict(options)
 
 
 def _check_engine(engine):
@@ -871,23 +912,20 @@ def _dose_results(frame, names, settings, mechanisms, keep_fits):
                                substrate_unit="M", km=settings.km, enzyme=settings.enzyme,
                                mechanisms={n: mechanisms[n] for n in names if n in mechanisms},
                                fitter=fitter, **dict(settings.options))
-    extra = "; ".join(dict.fromkeys(str(w.message) for w in caught))
+    # Flags travel as tuples (a warning's text may hold commas) and bounds as Bound values,
+    # from the potency table's records rather than its written-out text.
+    extra = tuple(dict.fromkeys(str(w.message) for w in caught))
     refitted = set(fitter.refitted) if fitter is not None else set()
     rows = result.table.set_index("compound", drop=False)
     out = []
     for name in names:
         row = rows.loc[name].to_dict()
-        if extra:
-            row["flags"] = "; ".join(f for f in (row.get("flags", ""), extra) if f)
+        row.update(result.records.get(name, {"ic50_bound": None, "ki_bound": None,
+                                             "flags": ()}))
+        row["flags"] = tuple(dict.fromkeys(row["flags"] + extra))
         row[_REFITS] = int(name in refitted)
         out.append((name, row, result.fits.get(name) if keep_fits else None))
     return out
-
-
-def _bound(text):
-    """("<" or ">", value) of a potency bound such as "> 1.2e-05"."""
-    side, value = str(text).split(" ", 1)
-    return side, float(value)
 
 
 def _dose_row(compound, potency: dict) -> dict:
@@ -895,8 +933,7 @@ def _dose_row(compound, potency: dict) -> dict:
     row = _empty_row(compound)
     row.update(ki_source="converted IC50", reason=potency.get("reason", ""),
                mechanism=potency.get("mechanism", "") or "")
-    flags = [f.strip() for f in str(potency.get("flags", "") or "").replace(",", ";").split(";")
-             if f.strip()]
+    flags = list(potency.get("flags", ()))
     if potency.get("status") != "ok":
         row.update(status="failed", verdict="failed", ki_source="", mechanism="",
                    flags="; ".join(flags))
@@ -916,19 +953,19 @@ def _dose_row(compound, potency: dict) -> dict:
     # constant follows the rule of ranking_constant, as on the grid route.
     parameter, factor = (ranking_constant(mechanism, alpha) if mechanism in CONVERSIONS
                          else ("", 1.0))
-    ki, bound = float(potency.get("ki", np.nan)), potency.get("ki_bound", "") or ""
-    ic50_bound = potency.get("ic50_bound", "") or ""
+    ki, bound = float(potency.get("ki", np.nan)), potency.get("ki_bound")
+    ic50_bound = potency.get("ic50_bound")
     if potency.get("curve_class") == "inactive":
         # No curve: not a potency, whatever the fitted midpoint.
-        _, top = _bound(ic50_bound) if ic50_bound else (">", np.nan)
+        top = ic50_bound.value if ic50_bound is not None else np.nan
         row.update(status="inactive", ic50_M=np.nan, ic50_low_M=np.nan, ic50_high_M=np.nan,
                    pic50=np.nan, hill=np.nan, ki_parameter=parameter,
                    ki_reported=f"inactive: IC50 > {top:.3g} M, the highest concentration "
                                f"tested")
-        if bound:
-            _, value = _bound(bound)
-            row.update(ki_low_M=value * factor, ki_high_M=np.inf)
-            row["ki_reported"] += f" (Ki > {value * factor:.3g} M)"
+        if bound is not None:
+            value = bound.value * factor
+            row.update(ki_low_M=value, ki_high_M=np.inf)
+            row["ki_reported"] += f" (Ki > {value:.3g} M)"
     elif np.isfinite(ki) and ki > 0:
         ki = ki * factor
         low, high = float(potency["ki_low"]) * factor, float(potency["ki_high"]) * factor
@@ -936,22 +973,26 @@ def _dose_row(compound, potency: dict) -> dict:
                    pki=-math.log10(ki), pki_low=-math.log10(high) if high > 0 else np.nan,
                    pki_high=-math.log10(low) if low > 0 else np.nan,
                    ki_parameter=parameter, ki_reported=f"{ki:.3g} M [{low:.3g}, {high:.3g}]")
-    elif bound:
-        side, value = _bound(bound)
-        value *= factor
-        row.update(status="bound", ki_parameter=parameter,
-                   ki_reported=f"{side} {value:.3g} M")
-        if side == ">":
-            row.update(ki_low_M=value, ki_high_M=np.inf, pki_high=-math.log10(value))
+    elif bound is not None:
+        bound = bound.scaled(factor)
+        row.update(status="bound", ki_parameter=parameter, ki_reported=bound.text("M"),
+                   ki_low_M=bound.low, ki_high_M=bound.high)
+        if bound.side == ">":
+            row.update(pki_high=-math.log10(bound.value))
         else:
-            row.update(ki_low_M=0.0, ki_high_M=value, pki_low=-math.log10(value))
+            row.update(pki_low=-math.log10(bound.value))
     else:
         row.update(status="failed", verdict="failed",
                    reason=row["reason"] or "the IC50 could not be converted to a Ki")
     if row["status"] == "determined":
-        for name, column in (("kic", "kic_M"), ("kiu", "kiu_M")):
-            if mechanism == "noncompetitive" or _RANKING_CONSTANT.get(mechanism) == (name,):
-                row[column] = row["ki_M"]
+        law = MODELS.get(mechanism)
+        if law is not None and len(law.ranking) == 1:
+            # The one constant, and those of mixed it stands for (noncompetitive's ki is
+            # kic = kiu).
+            (constant,) = law.ranking
+            for name in dict(law.ties).get(constant, (constant,)):
+                if f"{name}_M" in ("kic_M", "kiu_M"):
+                    row[f"{name}_M"] = row["ki_M"]
         if mechanism == "mixed" and np.isfinite(alpha):
             kic = row["ki_M"] / factor
             row.update(kic_M=kic, kiu_M=alpha * kic)
@@ -1180,6 +1221,9 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
 
     Raises
     ------
+    OptionError
+        For an option outside its allowed values (weighting, intervals, level, alpha,
+        min_delta_aicc, determination_factor, potency_options), before any work.
     DataError
         Only for problems of a whole table (not a DataFrame, a column named twice, a
         missing column, an undeclared unit, rows without a compound, unknown roles,
@@ -1208,9 +1252,14 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     if dose_response is not None and km is None:
         raise DataError("the dose-response table needs km= (a number in M, or a column) to "
                         "convert IC50 to Ki")
-    check_options({"level": level, "alpha": alpha, "min_delta_aicc": min_delta_aicc,
-                   "determination_factor": determination_factor})
     _check_engine(engine)
+    # Every option is checked here, once, before any compound is fitted: a bad one is
+    # one error, not the same failure repeated for every compound.
+    fit_options = FitOptions(weighting=weighting, intervals=intervals, level=level,
+                             alpha=alpha, min_delta_aicc=min_delta_aicc,
+                             determination_factor=determination_factor)
+    potency_options = _check_potency_options(potency_options)
+    z_prime_threshold = potency_options.get("z_prime_threshold", Z_PRIME_THRESHOLD)
     table, dose_response = _unique_index(table), _unique_index(dose_response)
     started = time.perf_counter()
     used, refits = {"grid": "", "dose": ""}, {"grid": 0, "dose": 0}
@@ -1230,15 +1279,14 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                             + ([Problem(compound, None, None, f"and {len(unnamed) - 5} more "
                                                               "rows")]
                                if len(unnamed) > 5 else []), "grid table")
-        fit_options = (("weighting", weighting), ("intervals", intervals), ("level", level),
-                       ("alpha", alpha), ("min_delta_aicc", min_delta_aicc),
-                       ("determination_factor", determination_factor))
+        grid_options = tuple((k, v) for k, v in fit_options.as_dict().items()
+                             if k != "alpha_factor")
         groups = table.groupby(compound, sort=False)
         batched = _batched(engine, intervals, groups.ngroups)
         used["grid"] = _engine_name(engine, batched)
         settings = _GridSettings(engine if callable(engine) else fit_mechanisms, s_column,
                                  i_column, rate, sd if weighting == "sd" else None, s_unit,
-                                 i_unit, fit_options, batched)
+                                 i_unit, grid_options, batched)
         chunks = list(_chunks(groups, _chunk_size(chunk_size, batched)))
         for name, row, fit in _run(_fit_chunk, chunks, (settings, keep_fits),
                                    sizes=[len(c) for c in chunks], split=_split_grid_chunk,
@@ -1256,11 +1304,10 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
             dose_response, compound=compound, inhibitor=inhibitor, substrate=substrate,
             plate=plate, role=role, response=response, km=km, enzyme=enzyme, units=units)
         declared.update({f"dose-response {k}": v for k, v in dose_units.items()})
-        options = dict(potency_options or {})
-        options.update(intervals=intervals, level=level)
+        options = dict(potency_options)
+        options.update(intervals=fit_options.intervals, level=fit_options.level)
         plates = _campaign_plates(frame, plate=plate, role=role, response=response,
-                                  threshold=options.get("z_prime_threshold",
-                                                        Z_PRIME_THRESHOLD))
+                                  threshold=z_prime_threshold)
         n_curves = int(frame.loc[frame[role] == "sample", compound].nunique())
         batched = _batched("lmfit" if callable(engine) else engine, intervals, n_curves)
         chunks, sizes = _dose_chunks(frame, compound, role, plate,
@@ -1290,7 +1337,11 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                 properties.setdefault(key, value)
     _add_efficiencies(ranking, properties, heavy_atoms, logp)
     run_options = MappingProxyType({
-        "weighting": weighting, "intervals": intervals, "level": level,
+        "weighting": fit_options.weighting, "intervals": fit_options.intervals,
+        "level": fit_options.level, "alpha": fit_options.alpha,
+        "min_delta_aicc": fit_options.min_delta_aicc,
+        "determination_factor": fit_options.determination_factor,
+        "z_prime_threshold": z_prime_threshold,
         "engine": getattr(engine, "__name__", repr(engine)) if callable(engine) else engine,
         "grid_engine": used["grid"], "dose_engine": used["dose"],
         "n_fallback": refits["grid"] + refits["dose"], "n_fallback_grid": refits["grid"],

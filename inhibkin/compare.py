@@ -37,7 +37,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .models import nested_pairs
+from .models import MODELS, ONE_CONSTANT_MODELS, nested_pairs
+
+#: An SSR below this fraction of the total weighted sum of squares of the rates is an
+#: exact fit (relative residuals of about 1e-9): noise-free data, where the F-tests
+#: would otherwise compare rounding errors.
+EXACT_FIT_RTOL = 1e-18
 
 __all__ = [
     "VerdictOptions",
@@ -45,12 +50,13 @@ __all__ = [
     "information_criteria",
     "akaike_weights",
     "f_test",
+    "f_test_arrays",
     "comparison_table",
     "f_test_table",
     "decide",
+    "decide_from",
+    "EXACT_FIT_RTOL",
 ]
-
-ONE_CONSTANT_MODELS = ("competitive", "uncompetitive", "noncompetitive")
 
 
 @dataclass(frozen=True)
@@ -78,10 +84,9 @@ class VerdictOptions:
 
     def alpha_edges(self, model: str) -> tuple[str, ...]:
         """The fixed-alpha fits (names in the F-test table) that ``model`` must reject."""
-        return {"competitive": (self.alpha_row(self.alpha_factor),),
-                "uncompetitive": (self.alpha_row(1 / self.alpha_factor),),
-                "noncompetitive": (self.alpha_row(1 / self.alpha_factor),
-                                   self.alpha_row(self.alpha_factor))}.get(model, ())
+        at = {"low": 1 / self.alpha_factor, "high": self.alpha_factor}
+        law = MODELS.get(model)
+        return tuple(self.alpha_row(at[edge]) for edge in law.alpha_edges) if law else ()
 
     @property
     def alpha_values(self) -> tuple[float, float]:
@@ -117,36 +122,37 @@ class Verdict:
     reason: str
 
 
-def information_criteria(ssr: float, n_obs: int, n_params: int, sum_log_weights: float = 0.0):
-    """Gaussian log-likelihood, AIC, AICc and BIC of a least-squares fit.
+def information_criteria(ssr, n_obs, n_params, sum_log_weights=0.0):
+    """Gaussian log-likelihood, AIC, AICc and BIC of least-squares fits.
 
     Parameters
     ----------
-    ssr : float
-        Weighted sum of squared residuals, sum((w*(y - f))**2).
-    n_obs : int
+    ssr : float or numpy.ndarray
+        Weighted sum of squared residuals, sum((w*(y - f))**2), one per fit.
+    n_obs : int or numpy.ndarray
         Number of observations.
     n_params : int
         Number of fitted parameters of the mean (the variance is profiled out, as in
         statsmodels' OLS/WLS ``llf``, ``aic`` and ``bic``).
-    sum_log_weights : float
+    sum_log_weights : float or numpy.ndarray
         sum(log w) for residual multipliers w = 1/σ_rel; zero for uniform weights.
 
     Returns
     -------
     dict
-        ``loglik``, ``aic``, ``aicc``, ``bic``. AICc = AIC + 2k(k+1)/(n-k-1), infinite
-        when n ≤ k + 1.
+        ``loglik``, ``aic``, ``aicc``, ``bic`` (scalars for scalar input, else arrays;
+        the batched engine and the lmfit path share this one definition). AICc = AIC +
+        2k(k+1)/(n-k-1), infinite when n ≤ k + 1; NaN where the SSR is NaN (no fit).
     """
-    n, k = n_obs, n_params
-    if ssr <= 0:
-        # A perfect fit: the likelihood is unbounded; keep the criteria finite and ordered.
-        ssr = np.finfo(float).tiny
-    loglik = -0.5 * n * (np.log(2 * np.pi) + np.log(ssr / n) + 1) + sum_log_weights
-    aic = -2 * loglik + 2 * k
-    aicc = aic + 2 * k * (k + 1) / (n - k - 1) if n > k + 1 else np.inf
-    bic = -2 * loglik + k * np.log(n)
-    return {"loglik": loglik, "aic": aic, "aicc": aicc, "bic": bic}
+    n, k = np.asarray(n_obs), n_params
+    # A perfect fit: the likelihood is unbounded; keep the criteria finite and ordered.
+    ssr = np.where(np.asarray(ssr, dtype=float) <= 0, np.finfo(float).tiny, ssr)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        loglik = -0.5 * n * (np.log(2 * np.pi) + np.log(ssr / n) + 1) + sum_log_weights
+        aic = -2 * loglik + 2 * k
+        aicc = np.where(n > k + 1, aic + 2 * k * (k + 1) / (n - k - 1), np.inf)
+        bic = -2 * loglik + k * np.log(n)
+    return {"loglik": loglik[()], "aic": aic[()], "aicc": aicc[()], "bic": bic[()]}
 
 
 def akaike_weights(aicc) -> np.ndarray:
@@ -176,18 +182,25 @@ def f_test(ssr_reduced, df_reduced, ssr_full, df_full):
     df_num, df_den : int
         As statsmodels' ``compare_f_test`` (F, p, df difference) plus the denominator df.
     """
-    df_num = df_reduced - df_full
-    if df_num <= 0 or df_full <= 0:
-        return np.nan, np.nan, df_num, df_full
+    f_value, p_value = f_test_arrays(ssr_reduced, df_reduced, ssr_full, df_full)
+    return float(f_value), float(p_value), int(df_reduced - df_full), int(df_full)
+
+
+def f_test_arrays(ssr_reduced, df_reduced, ssr_full, df_full):
+    """:func:`f_test` over arrays of nested pairs: (f_value, p_value), NaN where the
+    degrees of freedom do not allow a test or an SSR is NaN."""
+    df_num = np.asarray(df_reduced) - np.asarray(df_full)
+    valid = (df_num > 0) & (np.asarray(df_full) > 0)
     # A reduced model cannot fit better than the model it nests in; a tiny negative
     # difference is optimiser noise and means "no improvement".
-    gain = max(ssr_reduced - ssr_full, 0.0)
-    if ssr_full <= 0:
-        f_value = np.inf if gain > 0 else 0.0
-    else:
-        f_value = (gain / df_num) / (ssr_full / df_full)
-    p_value = float(stats.f.sf(f_value, df_num, df_full))
-    return float(f_value), p_value, int(df_num), int(df_full)
+    gain = np.maximum(np.asarray(ssr_reduced, dtype=float) - ssr_full, 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f_value = np.where(np.asarray(ssr_full) <= 0, np.where(gain > 0, np.inf, 0.0),
+                           (gain / df_num) / (ssr_full / np.asarray(df_full)))
+        f_value = np.where(valid, f_value, np.nan)
+        p_value = np.where(valid, stats.f.sf(f_value, np.maximum(df_num, 1),
+                                             np.maximum(df_full, 1)), np.nan)
+    return f_value[()], p_value[()]
 
 
 def comparison_table(fits) -> pd.DataFrame:

@@ -33,7 +33,9 @@ __all__ = ["CONVERSIONS", "cheng_prusoff", "ic50_from_ki"]
 CONVERSIONS = ("competitive", "uncompetitive", "noncompetitive", "mixed")
 
 
-def _as_array(value, name, problems, index, *, positive, allow_nan=False):
+def as_array(value, name, problems, index, *, positive, allow_nan=False):
+    """``value`` broadcast over ``index`` as a checked float array; every bad entry is
+    appended to ``problems`` (shared with :mod:`inhibkin.morrison`)."""
     frame = pd.DataFrame({name: np.broadcast_to(np.asarray(value, dtype=object),
                                                 (len(index),))}, index=index)
     arr = numeric_column(frame, name, problems, allow_nan=allow_nan)
@@ -81,9 +83,9 @@ def _conversion_inputs(value, s, km, mechanism, alpha, value_name):
     def plain(v):
         return v.to_numpy() if isinstance(v, pd.Series) else v
 
-    values = _as_array(plain(value), value_name, problems, rows, positive=True, allow_nan=True)
-    s_arr = _as_array(plain(s), "s", problems, rows, positive=False)
-    km_arr = _as_array(plain(km), "km", problems, rows, positive=True)
+    values = as_array(plain(value), value_name, problems, rows, positive=True, allow_nan=True)
+    s_arr = as_array(plain(s), "s", problems, rows, positive=False)
+    km_arr = as_array(plain(km), "km", problems, rows, positive=True)
     mech = np.broadcast_to(np.asarray(plain(mechanism), dtype=object), (n,))
     labels = rows.to_numpy()
     unknown = ~np.isin(mech, CONVERSIONS)
@@ -97,7 +99,7 @@ def _conversion_inputs(value, s, km, mechanism, alpha, value_name):
             problems.append(Problem("alpha", None, None,
                                     "the mixed conversion needs alpha = Kiu/Kic"))
         else:
-            alpha_arr = _as_array(plain(alpha), "alpha", problems, rows, positive=True,
+            alpha_arr = as_array(plain(alpha), "alpha", problems, rows, positive=True,
                                   allow_nan=True)
             missing = mixed & ~np.isfinite(alpha_arr)
             for row in labels[missing][:5]:
@@ -166,10 +168,10 @@ def cheng_prusoff(ic50, s, km, mechanism="competitive", alpha=None, *, ic50_se=N
         return _shaped(ki, rows, scalar, is_series, "ki")
     problems: list[Problem] = []
     se_ic50 = (np.zeros(len(rows)) if ic50_se is None else
-               _as_array(ic50_se.to_numpy() if isinstance(ic50_se, pd.Series) else ic50_se,
+               as_array(ic50_se.to_numpy() if isinstance(ic50_se, pd.Series) else ic50_se,
                          "ic50_se", problems, rows, positive=False, allow_nan=True))
     se_km = (np.zeros(len(rows)) if km_se is None else
-             _as_array(km_se.to_numpy() if isinstance(km_se, pd.Series) else km_se, "km_se",
+             as_array(km_se.to_numpy() if isinstance(km_se, pd.Series) else km_se, "km_se",
                        problems, rows, positive=False))
     if problems:
         raise DataError(problems)

@@ -13,6 +13,7 @@ __all__ = [
     "InhibkinError",
     "DataError",
     "UnitsError",
+    "OptionError",
     "FitError",
     "Problem",
     "InhibkinWarning",
@@ -100,6 +101,10 @@ class DataError(InhibkinError, ValueError):
             lines = "\n".join(f"  - {p}" for p in self.problems)
             text = f"{head}{len(self.problems)} problems in the input:\n{lines}"
         super().__init__(text)
+
+
+class OptionError(DataError):
+    """An option (a keyword argument, not the data) is outside its allowed values."""
 
 
 class UnitsError(DataError):

@@ -28,6 +28,9 @@ import pandas as pd
 from scipy import stats
 
 from .compare import information_criteria
+from .core.determined import DETERMINATION_FACTOR, determined_flags
+from .core.options import INTERVAL_METHODS
+from .core.readonly import readonly_array, readonly_frame
 from .errors import FitError
 from .models import MODELS
 from .profile import profile_crossing
@@ -37,8 +40,6 @@ from .text import MISSING
 __all__ = ["ModelFit", "fit_model", "fit_michaelis_menten", "fixed_alpha_ssr",
            "INTERVAL_METHODS"]
 
-INTERVAL_METHODS = ("profile", "wald")
-
 # Convergence tolerances of MINPACK's LM (relative); tight enough that the estimates
 # are settled to well beyond the 6 significant digits the reference checks ask for.
 _TOL = 1e-12
@@ -47,8 +48,6 @@ _MAX_FUNCTION_EVALUATIONS = 2000
 # refit far out on a flat profile otherwise crawls along the bounds.
 _PROFILE_TOL = 1e-9
 _PROFILE_MAX_EVALUATIONS = 200
-# A log-parameter this close to its bound counts as "at the bound".
-_AT_BOUND = 1e-3
 # Profile search: first step in log units when no standard error is available, the
 # number of doublings of the step before the limit is declared open, and the
 # precision of the limit (log units; 1e-5 is 0.001 % of the value).
@@ -104,6 +103,12 @@ class ModelFit:
     level: float = 0.95
     interval_method: str = "profile"
     log_covariance: np.ndarray | None = field(default=None, repr=False)
+
+    def __post_init__(self):
+        # Frozen all the way down: the tables and arrays inside cannot be edited either.
+        object.__setattr__(self, "params", readonly_frame(self.params))
+        for name in ("fitted", "residuals", "log_covariance"):
+            object.__setattr__(self, name, readonly_array(getattr(self, name)))
 
     @property
     def best_values(self) -> dict[str, float]:
@@ -318,7 +323,7 @@ def _failed_fit(model, n_obs, message, level, method) -> ModelFit:
 
 
 def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile", level=0.95,
-              determination_factor=10.0) -> ModelFit:
+              determination_factor=DETERMINATION_FACTOR) -> ModelFit:
     """Fit one rate law to one compound's points (inputs already validated).
 
     Parameters
@@ -338,7 +343,8 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
     determination_factor : float
         An inhibition constant above this multiple of the largest inhibitor
         concentration (or km above this multiple of the largest substrate
-        concentration) is reported as a bound, not determined.
+        concentration) is reported as a bound, not determined; the whole rule is
+        :func:`inhibkin.core.determined.determined_flags`.
 
     Returns
     -------
@@ -372,41 +378,27 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
         se_log = np.sqrt(np.diag(covariance)) if covariance is not None else np.full(k, np.nan)
     estimate = np.exp(theta)
     ci_low, ci_high = _intervals(problem, theta, ssr, se_log, intervals, level, dof)
-    at_bound = (theta - problem.lower < _AT_BOUND) | (problem.upper - theta < _AT_BOUND)
-    determined = ~at_bound & np.isfinite(ci_high) & (ci_low > 0) & np.isfinite(se_log)
-    i_max = float(np.max(i, initial=0.0))
-    s_max = float(np.max(s, initial=0.0))
-    s_low = float(np.min(s[s > 0], initial=np.inf))
-    for j, name in enumerate(law.param_names):
-        if name in law.inhibition_constants and estimate[j] > determination_factor * i_max:
-            determined[j] = False
-        if name == "km" and (estimate[j] > determination_factor * s_max
-                             or not np.isfinite(ci_high[j])
-                             or problem.upper[j] - theta[j] < _AT_BOUND):
-            determined[j] = False
-            # With every S far below km only vmax/km is set; vmax is an extrapolation.
-            determined[law.param_names.index("vmax")] = False
-        if name == "km" and estimate[j] * determination_factor < s_low:
-            # Every S far above km: the rates sit on the plateau, km is below resolution.
-            determined[j] = False
+    flags = determined_flags(law, theta[None], problem.lower[None], problem.upper[None],
+                             ci_low[None], ci_high[None], se_log[None], s[None], i[None],
+                             np.ones((1, n), bool), factor=determination_factor)[0]
+    determined = flags[:k]
     table = pd.DataFrame(
         {"estimate": estimate, "se": estimate * se_log, "ci_low": ci_low, "ci_high": ci_high,
          "determined": determined},
         index=pd.Index(law.param_names, name="parameter"),
     )
-    if model == "mixed":
-        a, b = law.param_names.index("kic"), law.param_names.index("kiu")
+    for d, both in zip(law.derived, flags[k:]):
+        a, b = law.param_names.index(d.denominator), law.param_names.index(d.numerator)
         se_ratio = np.nan
         if covariance is not None:
             var = covariance[a, a] + covariance[b, b] - 2 * covariance[a, b]
             se_ratio = float(np.sqrt(var)) if var >= 0 else np.nan
-        if determined[a] and determined[b]:
+        if both:
             lo, hi = _ratio_interval(problem, theta, ssr, se_ratio, intervals, level, dof, a, b)
         else:
             lo, hi = np.nan, np.nan  # a ratio with an undetermined term has no interval
-        alpha = float(np.exp(theta[b] - theta[a]))
-        table.loc["alpha"] = [alpha, alpha * se_ratio, lo, hi,
-                              bool(determined[a] and determined[b])]
+        ratio = float(np.exp(theta[b] - theta[a]))
+        table.loc[d.name] = [ratio, ratio * se_ratio, lo, hi, bool(both)]
     fitted = law.rate(s, i, *estimate)
     criteria = information_criteria(ssr, n, k, float(np.sum(np.log(w))))
     return ModelFit(model, table, n, k, ssr, criteria["loglik"], criteria["aic"],
@@ -424,7 +416,8 @@ def fixed_alpha_ssr(s, i, v, weights, alpha, starts) -> float:
     """
     problem = _make_problem("mixed", s, i, v, np.asarray(weights, dtype=float))
     names = MODELS["mixed"].param_names
-    kic, kiu = names.index("kic"), names.index("kiu")
+    (ratio,) = MODELS["mixed"].derived  # alpha = kiu/kic
+    kic, kiu = names.index(ratio.denominator), names.index(ratio.numerator)
     tie = np.delete(np.eye(len(names)), kiu, axis=1)
     tie[kiu, kic] = 1.0
     offset = np.zeros(len(names))

@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from .compare import (
+    EXACT_FIT_RTOL,
     Verdict,
     VerdictOptions,
     comparison_table,
@@ -20,33 +21,28 @@ from .compare import (
     f_test,
     f_test_table,
 )
+from .core.bounds import NESTED_FAR_FACTOR
+from .core.determined import DETERMINATION_FACTOR
+from .core.options import FitOptions
+from .core.readonly import readonly_frame, readonly_mapping
+from .core.weighting import (
+    DEFAULT_WEIGHTING,
+    REWEIGHT_ITERATIONS,
+    WEIGHTINGS,
+    normalise_weights,
+    relative_weights_from_fitted,
+)
 from .errors import DataError
 from .fitting import ModelFit, fit_model, fixed_alpha_ssr
-from .models import MODEL_NAMES, MODELS
+from .models import MODEL_NAMES, MODELS, nested_start
 from .starts import log_bounds, starting_values
 from .text import text_table
 from .units import header_column, to_molar
-from .validate import check_grid, check_options
+from .validate import check_grid
 
 __all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "DEFAULT_WEIGHTING",
-           "relative_weights", "molar_grid"]
+           "relative_weights", "mixed_starts", "molar_grid"]
 
-WEIGHTINGS = ("uniform", "relative", "sd")
-#: The weighting of rate tables when none is asked for, everywhere (API, campaigns, CLI):
-#: initial rates spread over a wide range carry a roughly constant coefficient of
-#: variation, and on such data relative weighting calls the mechanism right more often
-#: and sets pKi closer than uniform weighting (README, "Weighting").
-DEFAULT_WEIGHTING = "relative"
-
-# Iterations of the reweighting that sets the constant-CV weights.
-_REWEIGHT_ITERATIONS = 3
-# An SSR below this fraction of the total weighted sum of squares of the rates is an
-# exact fit (relative residuals of about 1e-9): noise-free data, where the F-tests
-# would otherwise compare rounding errors.
-_EXACT_FIT_RTOL = 1e-18
-# Fitted rates below this fraction of the largest are floored before weighting, so a
-# fully inhibited point does not receive an unbounded weight.
-_WEIGHT_FLOOR = 1e-3
 
 
 @dataclass(frozen=True)
@@ -87,6 +83,12 @@ class MechanismFit:
     data: pd.DataFrame = field(repr=False)
     weighting: str = DEFAULT_WEIGHTING
     options: VerdictOptions = VerdictOptions()
+
+    def __post_init__(self):
+        # Frozen all the way down: fit.models["mixed"] = ... and table edits are refused.
+        object.__setattr__(self, "models", readonly_mapping(self.models, nested=False))
+        for name in ("comparison", "ftests", "data"):
+            object.__setattr__(self, name, readonly_frame(getattr(self, name)))
 
     @property
     def params(self) -> pd.DataFrame:
@@ -150,7 +152,7 @@ class MechanismFit:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        from .report import fit_html  # matplotlib is loaded only when a notebook asks
+        from .display.html import fit_html  # matplotlib is loaded only when a notebook asks
 
         return fit_html(self)
 
@@ -209,32 +211,27 @@ def relative_weights(s, i, v) -> np.ndarray:
     F-tests and information criteria compare like with like.
     """
     w = np.ones_like(v)
-    for _ in range(_REWEIGHT_ITERATIONS):
+    everywhere = np.ones((1, len(v)), bool)
+    for _ in range(REWEIGHT_ITERATIONS):
         fit = fit_model("mixed", s, i, v, w, intervals="wald")
         if not fit.converged:
             break
-        scale = np.maximum(fit.fitted, _WEIGHT_FLOOR * np.max(fit.fitted))
-        w = 1.0 / scale
-    return w / np.exp(np.mean(np.log(w)))
+        w = relative_weights_from_fitted(fit.fitted[None], everywhere)[0]
+    return normalise_weights(w[None], everywhere)[0]
 
 
-def _mixed_starts(fits, s, i, v, w) -> list[dict]:
+def mixed_starts(fits, s, i, v, w) -> list[dict]:
     """Starting points for mixed: the automatic one and each nested model's solution.
 
     Starting from the nested solutions guarantees the mixed SSR is no larger than any
     model nested in it, which the F-tests rely on.
     """
     starts = [starting_values("mixed", s, i, v, w)]
-    far = float(np.exp(log_bounds("mixed", s, i, v)["kic"][1])) / 10
+    far = float(np.exp(log_bounds("mixed", s, i, v)["kic"][1])) / NESTED_FAR_FACTOR
     for name, fit in fits.items():
-        if not fit.converged or name == "none":
+        if not fit.converged or name == "none" or "mixed" not in MODELS[name].nests_in:
             continue
-        p = fit.best_values
-        starts.append({
-            "vmax": p["vmax"], "km": p["km"],
-            "kic": p.get("kic", p.get("ki", far)),
-            "kiu": p.get("kiu", p.get("ki", far)),
-        })
+        starts.append(nested_start(name, fit.best_values, "mixed", far))
     return starts
 
 
@@ -242,13 +239,14 @@ def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr) -> pd.DataFrame:
     """F-tests of mixed with alpha held at each edge of :meth:`VerdictOptions.alpha_values`
     against mixed (1 numerator df): rule 4 of the verdict."""
     mixed = fits["mixed"]
+    law = MODELS["mixed"]
+    (ratio,) = law.derived  # alpha = kiu/kic
     p = mixed.best_values
-    starts = [{"vmax": p["vmax"], "km": p["km"], "kic": p["kic"], "kiu": p["kiu"]},
-              *_mixed_starts(fits, s, i, v, w)[1:]]
+    starts = [{name: p[name] for name in law.param_names}, *mixed_starts(fits, s, i, v, w)[1:]]
     ssr_full = mixed.ssr if mixed.ssr > exact_ssr else 0.0
     rows = []
     for value in options.alpha_values:
-        held = [{**x, "kiu": value * x["kic"]} for x in starts]
+        held = [{**x, ratio.numerator: value * x[ratio.denominator]} for x in starts]
         ssr = fixed_alpha_ssr(s, i, v, w, value, held)
         if np.isfinite(ssr):
             f_value, p_value, df_num, df_den = f_test(ssr if ssr > exact_ssr else 0.0,
@@ -262,8 +260,8 @@ def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr) -> pd.DataFrame:
 
 def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
                    weighting=DEFAULT_WEIGHTING, models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
-                   alpha_factor=5.0, intervals="profile", level=0.95, determination_factor=10.0,
-                   context=None) -> MechanismFit:
+                   alpha_factor=5.0, intervals="profile", level=0.95,
+                   determination_factor=DETERMINATION_FACTOR, context=None) -> MechanismFit:
     """Fit every reversible mechanism to one compound's grid and decide between them.
 
     Parameters
@@ -310,6 +308,9 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
 
     Raises
     ------
+    OptionError
+        When an option is outside its allowed values (:class:`inhibkin.core.options.FitOptions`),
+        before any fit.
     DataError
         When the table cannot be fitted (missing column, text, NaN, negative values,
         too few points or levels, all-zero rates); the message names column, row, value.
@@ -321,15 +322,15 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     >>> ik.fit_mechanisms(data, weighting="relative").verdict
     'competitive'
     """
-    if weighting not in WEIGHTINGS:
-        raise DataError(f"weighting must be one of {WEIGHTINGS}, got {weighting!r}", context)
+    fit_options = FitOptions(weighting=weighting, intervals=intervals, level=level,
+                             alpha=alpha, min_delta_aicc=min_delta_aicc,
+                             alpha_factor=alpha_factor,
+                             determination_factor=determination_factor)
     if weighting == "sd" and sd is None:
         raise DataError("weighting='sd' needs the sd= column of standard deviations", context)
     unknown = [m for m in models if m not in MODELS]
     if unknown:
         raise DataError(f"unknown models {unknown}; known: {', '.join(MODELS)}", context)
-    check_options({"level": level, "alpha": alpha, "min_delta_aicc": min_delta_aicc,
-                   "determination_factor": determination_factor})
     need_inhibition = any(m != "none" for m in models)
     s, i, v, sigma, _ = molar_grid(df, substrate=substrate, inhibitor=inhibitor, rate=rate,
                                    sd=sd if weighting == "sd" else None,
@@ -340,17 +341,18 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         w = relative_weights(s, i, v)
     else:
         w = np.ones_like(v)
-    options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc,
-                             alpha_factor=alpha_factor)
+    options = VerdictOptions(alpha=fit_options.alpha, min_delta_aicc=fit_options.min_delta_aicc,
+                             alpha_factor=fit_options.alpha_factor)
     fits: dict[str, ModelFit] = {}
-    common = dict(intervals=intervals, level=level, determination_factor=determination_factor)
+    common = dict(intervals=fit_options.intervals, level=fit_options.level,
+                  determination_factor=fit_options.determination_factor)
     for name in models:
-        starts = _mixed_starts(fits, s, i, v, w) if name == "mixed" else None
+        starts = mixed_starts(fits, s, i, v, w) if name == "mixed" else None
         fits[name] = fit_model(name, s, i, v, w, starts=starts, **common)
     # The table order is the models' own order, whatever order they were fitted in.
-    fits = {name: fits[name] for name in MODEL_NAMES if name in fits}
+    fits = {name: fits[name] for name in MODELS if name in fits}
     comparison = comparison_table(fits)
-    exact_ssr = _EXACT_FIT_RTOL * float(np.sum((w * v) ** 2))
+    exact_ssr = EXACT_FIT_RTOL * float(np.sum((w * v) ** 2))
     ftests = f_test_table(fits, exact_ssr=exact_ssr)
     if "mixed" in fits and fits["mixed"].converged:
         ftests = pd.concat([ftests, _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr)],

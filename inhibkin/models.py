@@ -11,6 +11,13 @@ sent to infinity, or tied (kic = kiu = ki for noncompetitive). Adding a mechanis
 adding one entry here; the fitting, comparison and batched engine read everything
 they need from it.
 
+Each parameter has a *role* (:data:`ROLES`): the data axis that sets its bounds, its
+starting value and its "determined" rule. ``rate`` (vmax) is set by the rates,
+``substrate`` (km) by the substrate levels, ``inhibitor`` (kic, kiu, ki) by the inhibitor
+levels. The starts (:mod:`inhibkin.starts`), the bounds and the "determined" rule
+(:mod:`inhibkin.core.determined`) read the roles, so both solvers treat a new constant
+alike without a list of names of their own.
+
 Units: S and km share the substrate's unit, I, kic, kiu and ki the inhibitor's; v and
 vmax share the rate's unit. Nothing here converts units.
 """
@@ -22,7 +29,25 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["RateLaw", "MODELS", "MODEL_NAMES", "INHIBITION_MODELS", "get_model", "nested_pairs"]
+__all__ = ["RateLaw", "Derived", "MODELS", "MODEL_NAMES", "INHIBITION_MODELS",
+           "ONE_CONSTANT_MODELS", "ROLES", "get_model", "nested_pairs", "nested_start"]
+
+#: The roles a parameter can have: the data axis that sets its bounds, start and
+#: "determined" rule.
+ROLES = ("rate", "substrate", "inhibitor")
+
+
+@dataclass(frozen=True)
+class Derived:
+    """A quantity derived from two fitted constants as their ratio, e.g. alpha = kiu/kic.
+
+    Its interval is that of the difference of the two log-parameters (the solvers give
+    both); it is determined only when both constants are.
+    """
+
+    name: str
+    numerator: str
+    denominator: str
 
 
 @dataclass(frozen=True)
@@ -45,6 +70,21 @@ class RateLaw:
         or limit away, or more).
     equation : str
         The rate law in plain text, for reports.
+    roles : tuple of str
+        One entry of :data:`ROLES` per parameter, in ``param_names`` order.
+    ties : tuple of (str, tuple of str)
+        Constants that stand for several of a larger model's (noncompetitive's ki is
+        kic = kiu of mixed): the constraint that makes the nesting. A constant of the
+        larger model that is neither shared nor tied is sent to infinity.
+    derived : tuple of Derived
+        Quantities derived from the fitted constants (mixed: alpha = kiu/kic).
+    ranking : tuple of str
+        The constants a ranking by Ki reads (mixed: the tighter of kic and kiu).
+    alpha_edges : tuple of {"low", "high"}
+        Where the name places alpha = kiu/kic of mixed, as the edges the data must
+        reject before the name is called (rule 4 of :mod:`inhibkin.compare`): "high"
+        for alpha above ``alpha_factor`` (competitive), "low" for alpha below its
+        inverse (uncompetitive), both for between them (noncompetitive).
     """
 
     name: str
@@ -53,16 +93,34 @@ class RateLaw:
     jacobian: Callable[..., np.ndarray]
     nests_in: tuple[str, ...]
     equation: str
+    roles: tuple[str, ...] = ()
+    ties: tuple[tuple[str, tuple[str, ...]], ...] = ()
+    derived: tuple[Derived, ...] = ()
+    ranking: tuple[str, ...] = ()
+    alpha_edges: tuple[str, ...] = ()
+
+    def __post_init__(self):
+        if len(self.roles) != len(self.param_names) or not set(self.roles) <= set(ROLES):
+            raise ValueError(f"{self.name}: give one role of {ROLES} per parameter")
 
     @property
     def n_params(self) -> int:
         """Number of fitted parameters."""
         return len(self.param_names)
 
+    def with_role(self, role: str) -> tuple[str, ...]:
+        """The parameters of ``role``, in parameter order."""
+        return tuple(p for p, r in zip(self.param_names, self.roles) if r == role)
+
     @property
     def inhibition_constants(self) -> tuple[str, ...]:
-        """The parameters that are inhibition constants (everything but vmax and km)."""
-        return tuple(p for p in self.param_names if p not in ("vmax", "km"))
+        """The parameters whose role is ``inhibitor`` (kic, kiu, ki)."""
+        return self.with_role("inhibitor")
+
+    @property
+    def column_names(self) -> tuple[str, ...]:
+        """The rows of a parameter table: the parameters, then the derived quantities."""
+        return self.param_names + tuple(d.name for d in self.derived)
 
 
 def _none_rate(s, i, vmax, km):
@@ -120,6 +178,8 @@ def _noncompetitive_jac(s, i, vmax, km, ki):
     return np.stack([s / d, -g * a, g * (km + s) * i / ki**2], axis=-1)
 
 
+_RATE, _SUBSTRATE, _INHIBITOR = ROLES
+
 MODELS: dict[str, RateLaw] = {
     m.name: m
     for m in (
@@ -127,32 +187,43 @@ MODELS: dict[str, RateLaw] = {
             "none", ("vmax", "km"), _none_rate, _none_jac,
             nests_in=("competitive", "uncompetitive", "noncompetitive", "mixed"),
             equation="v = vmax*S / (km + S)",
+            roles=(_RATE, _SUBSTRATE),
         ),
         RateLaw(
             "competitive", ("vmax", "km", "kic"), _competitive_rate, _competitive_jac,
             nests_in=("mixed",),
             equation="v = vmax*S / (km*(1 + I/kic) + S)",
+            roles=(_RATE, _SUBSTRATE, _INHIBITOR), ranking=("kic",), alpha_edges=("high",),
         ),
         RateLaw(
             "uncompetitive", ("vmax", "km", "kiu"), _uncompetitive_rate, _uncompetitive_jac,
             nests_in=("mixed",),
             equation="v = vmax*S / (km + S*(1 + I/kiu))",
+            roles=(_RATE, _SUBSTRATE, _INHIBITOR), ranking=("kiu",), alpha_edges=("low",),
         ),
         RateLaw(
             "noncompetitive", ("vmax", "km", "ki"), _noncompetitive_rate, _noncompetitive_jac,
             nests_in=("mixed",),
             equation="v = vmax*S / ((km + S)*(1 + I/ki))",
+            roles=(_RATE, _SUBSTRATE, _INHIBITOR), ties=(("ki", ("kic", "kiu")),),
+            ranking=("ki",), alpha_edges=("low", "high"),
         ),
         RateLaw(
             "mixed", ("vmax", "km", "kic", "kiu"), _mixed_rate, _mixed_jac,
             nests_in=(),
             equation="v = vmax*S / (km*(1 + I/kic) + S*(1 + I/kiu))",
+            roles=(_RATE, _SUBSTRATE, _INHIBITOR, _INHIBITOR),
+            derived=(Derived("alpha", "kiu", "kic"),), ranking=("kic", "kiu"),
         ),
     )
 }
 
 MODEL_NAMES: tuple[str, ...] = tuple(MODELS)
-INHIBITION_MODELS: tuple[str, ...] = tuple(n for n in MODELS if n != "none")
+INHIBITION_MODELS: tuple[str, ...] = tuple(n for n in MODELS if MODELS[n].inhibition_constants)
+#: Models with one inhibition constant that nest in a larger one: the candidates the
+#: verdict chooses between by AICc (:mod:`inhibkin.compare`).
+ONE_CONSTANT_MODELS: tuple[str, ...] = tuple(
+    n for n, m in MODELS.items() if len(m.inhibition_constants) == 1 and m.nests_in)
 
 
 def get_model(name: str) -> RateLaw:
@@ -172,3 +243,32 @@ def get_model(name: str) -> RateLaw:
 def nested_pairs(names=MODEL_NAMES) -> list[tuple[str, str]]:
     """Every (smaller, larger) pair among ``names`` in which the smaller nests in the larger."""
     return [(a, b) for a in names for b in MODELS[a].nests_in if b in names]
+
+
+def nested_start(small: str, values, large: str, far) -> dict:
+    """A start for ``large`` at the solution ``values`` of the nested model ``small``.
+
+    Shared constants keep their values, a tied constant (noncompetitive's ki) sets every
+    constant it stands for, and a constant ``small`` lacks starts at ``far`` (the limit
+    that makes the nesting: the constant sent towards infinity). Starting the larger
+    model there guarantees its SSR is no larger than the nested one's.
+
+    Parameters
+    ----------
+    small, large : str
+        Model names, ``small`` nested in ``large``.
+    values : mapping of str to float or array
+        The nested model's estimates.
+    far : float or array
+        Where a missing constant starts.
+    """
+    tied = {target: source for source, targets in MODELS[small].ties for target in targets}
+    out = {}
+    for name in MODELS[large].param_names:
+        if name in values:
+            out[name] = values[name]
+        elif name in tied:
+            out[name] = values[tied[name]]
+        else:
+            out[name] = far
+    return out

@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .conversion import _as_array, cheng_prusoff
+from .conversion import as_array, cheng_prusoff
 from .errors import DataError, FitError, Problem
 from .potency import (
     INTERVAL_METHODS,
@@ -193,7 +193,7 @@ def fit_morrison(conc, v, *, enzyme, fit_enzyme=False, s=None, km=None, mechanis
         raise FitError(f"intervals must be one of {INTERVAL_METHODS}, got {intervals!r}")
     context = _context(compound)
     problems: list[Problem] = []
-    e_value = _as_array(enzyme, "enzyme", problems, pd.RangeIndex(1), positive=True)[0]
+    e_value = as_array(enzyme, "enzyme", problems, pd.RangeIndex(1), positive=True)[0]
     if problems:
         raise DataError(problems, context)
     n_free = 3 if fit_enzyme else 2

@@ -26,6 +26,8 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, stats
 
+from .core.bound import Bound
+from .core.readonly import readonly_array, readonly_frame
 from .curve_class import DEFAULT_RULES, CurveClassRules, classify_curves
 from .errors import DataError, FitError, Problem
 from .fitting import INTERVAL_METHODS
@@ -290,8 +292,9 @@ class DoseResponseFit:
         pic50 = −log10(IC50) (a pIC50 proper when the unit is molar).
     flags : tuple of str
         Keys of :data:`FLAGS`.
-    ic50_bound : str or None
-        The IC50 as a bound ("> 30") when the midpoint lies outside the tested range.
+    ic50_bound : Bound or None
+        The IC50 as a bound (side and value, written "> 30") when the midpoint lies
+        outside the tested range.
     n_obs, n_free, dof : int
     ssr : float
         Weighted residual sum of squares.
@@ -320,7 +323,7 @@ class DoseResponseFit:
     compound: str | None
     params: pd.DataFrame
     flags: tuple
-    ic50_bound: str | None
+    ic50_bound: Bound | None
     n_obs: int
     n_free: int
     dof: int
@@ -338,6 +341,12 @@ class DoseResponseFit:
     curve_class: str = "complete"
     class_reason: str = ""
     not_determined: tuple = ()
+
+    def __post_init__(self):
+        # Frozen all the way down: the parameter table and the arrays cannot be edited.
+        object.__setattr__(self, "params", readonly_frame(self.params))
+        for name in ("conc", "response", "fitted", "covariance"):
+            object.__setattr__(self, name, readonly_array(getattr(self, name)))
 
     def _value(self, name):
         return float(self.params.loc[name, "estimate"])
@@ -380,7 +389,7 @@ class DoseResponseFit:
     @property
     def reported_ic50(self) -> str:
         """The IC50 as it should be read: a number or a bound."""
-        return self.ic50_bound or f"{self._value('ic50'):.4g}"
+        return self.ic50_bound.text() if self.ic50_bound else f"{self._value('ic50'):.4g}"
 
     def predict(self, conc) -> np.ndarray:
         """The fitted curve at concentrations ``conc`` (> 0)."""
@@ -415,7 +424,7 @@ class DoseResponseFit:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        from .report import dose_response_html  # matplotlib only when a notebook asks
+        from .display.html import dose_response_html  # matplotlib only when a notebook asks
 
         return dose_response_html(self)
 
@@ -438,7 +447,7 @@ def _logistic_curve(x, y, w, fixed: dict, direction="any") -> _Curve:
 def _curve_flags(curve: _Curve, est, *, n_free, direction, hill_range, min_points_each_side,
                 partial_efficacy, full_activity=None, zero_activity=0.0,
                 curve_rules: CurveClassRules = DEFAULT_RULES):
-    """Flags, the IC50 bound text, the curve's class and what the data do not set."""
+    """Flags, the IC50 bound, the curve's class and what the data do not set."""
     x = curve.x
     theta = np.array([est[n] for n in PARAM_NAMES])
     hill_limit = max(abs(curve.lower[3]), abs(curve.upper[3]))
@@ -463,17 +472,17 @@ def _curve_flags(curve: _Curve, est, *, n_free, direction, hill_range, min_point
     if kind == "inactive":
         # No curve: whatever the fitted midpoint, nothing was seen up to the top dose.
         flags += ["inactive", "ic50_above_range"]
-        bound = f"> {10 ** x.max():.3g}"
+        bound = Bound(">", 10 ** x.max())
     elif kind == "single_point":
         flags.append("single_point_activity")
         edge = x.max() if (log_ic50 > x.max() or not reached) else classes.x_next[0]
-        bound = f"> {10 ** edge:.3g}"
+        bound = Bound(">", 10 ** edge)
     elif log_ic50 > x.max() or not reached:
         flags.append("ic50_above_range")
-        bound = f"> {10 ** x.max():.3g}"
+        bound = Bound(">", 10 ** x.max())
     elif log_ic50 < x.min() or classes.below_range[0]:
         flags.append("ic50_below_range")
-        bound = f"< {10 ** x.min():.3g}"
+        bound = Bound("<", 10 ** x.min())
     if kind == "incomplete":
         flags.append("incomplete_curve")
     at_limit = bool(classes.hill_at_limit[0])

@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from .conversion import CONVERSIONS, cheng_prusoff
+from .core.readonly import readonly_frame, readonly_mapping
 from .curve_class import CURVE_CLASSES, DEFAULT_RULES, CurveClassRules, classify_curves
 from .errors import DataError, FitError, InhibkinError, Problem
 from .morrison import fit_morrison
@@ -36,7 +37,8 @@ from .potency import (
 from .units import from_molar, normalise_unit, parse_concentration, split_unit
 from .validate import check_columns, normalise_roles, row_kind
 
-__all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table"]
+__all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table",
+           "check_potency_options"]
 
 #: IC50 below this multiple of the enzyme concentration is tight binding (common practice).
 TIGHT_BINDING_FACTOR = 10.0
@@ -69,7 +71,8 @@ class PotencyTable:
         that class and which parameters the data do not set (their columns are empty:
         a Hill slope at its fitting bound, a plateau outside the tested range);
         IC50 and Ki in the concentration's unit
-        (``ic50_bound``/``ki_bound`` hold "> x" text when only a bound is known);
+        (``ic50_bound``/``ki_bound`` hold "> x" text when only a bound is known; the
+        values themselves are in :attr:`records`);
         ``mechanism_source`` is ``"mechanism fit"`` or ``"default"``; ``ki_method`` is
         ``"cheng-prusoff"`` or ``"morrison"``; ``flags`` joins
         :data:`~inhibkin.potency.FLAGS` keys with ", ".
@@ -80,12 +83,23 @@ class PotencyTable:
     morrison_fits : dict
         Compound to its :class:`~inhibkin.morrison.MorrisonFit` (only with
         ``tight_binding="morrison"``).
+    records : dict
+        Compound to the values the table writes out as text: ``ic50_bound`` and
+        ``ki_bound`` (:class:`~inhibkin.core.bound.Bound` or None) and ``flags`` (a
+        tuple), for the stages downstream that need the numbers.
     """
 
     table: pd.DataFrame
     fits: dict = field(repr=False)
     plates: PlateQC = field(repr=False)
     morrison_fits: dict = field(default_factory=dict, repr=False)
+    records: dict = field(default_factory=dict, repr=False)
+
+    def __post_init__(self):
+        # Frozen all the way down (see inhibkin.core.readonly).
+        object.__setattr__(self, "table", readonly_frame(self.table))
+        for name in ("fits", "morrison_fits", "records"):
+            object.__setattr__(self, name, readonly_mapping(getattr(self, name)))
 
     @property
     def failed(self) -> pd.DataFrame:
@@ -115,6 +129,27 @@ class PotencyTable:
                 f"{len(self.table) - n_ok} failed</p>"
                 + self.table.to_html(index=False, float_format="{:.4g}".format)
                 + self.plates._repr_html_())
+
+
+def check_potency_options(*, tight_binding="flag", default_mechanism="competitive",
+                          default_alpha=None, **_) -> None:
+    """The checks of :func:`potency_table`'s options that need no table (``fit_campaign``
+    runs them once before any work; other keywords are ignored here).
+
+    Raises
+    ------
+    DataError
+        Naming the option.
+    """
+    if tight_binding not in ("flag", "morrison"):
+        raise DataError(Problem(None, None, tight_binding,
+                                "tight_binding must be 'flag' or 'morrison'"))
+    if default_mechanism not in CONVERSIONS:
+        raise DataError(Problem("default_mechanism", None, default_mechanism,
+                                f"must be one of {CONVERSIONS}"))
+    if default_mechanism == "mixed" and default_alpha is None:
+        raise DataError(Problem("default_alpha", None, None,
+                                "a mixed default mechanism needs default_alpha = Kiu/Kic"))
 
 
 def _per_compound_value(spec, rows, name, frame):
@@ -161,11 +196,6 @@ def _km_in_substrate_unit(km, df, substrate, substrate_unit):
         raise DataError(Problem("km", None, km, "km must be a positive number, text with "
                                                 "its unit (e.g. '40uM') or a column name"))
     return float(from_molar(float(km), declared)) if declared is not None else float(km)
-
-
-def _convert_bound(bound, factor):
-    sign, value = bound.split(" ", 1)
-    return f"{sign} {float(value) * factor:.3g}"
 
 
 def _default_fitter(curves, *, fix_top, fix_bottom, intervals, level, class_options=None):
@@ -353,9 +383,8 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     """
     if intervals not in INTERVAL_METHODS:
         raise FitError(f"intervals must be one of {INTERVAL_METHODS}, got {intervals!r}")
-    if tight_binding not in ("flag", "morrison"):
-        raise DataError(Problem(None, None, tight_binding,
-                                "tight_binding must be 'flag' or 'morrison'"))
+    check_potency_options(tight_binding=tight_binding, default_mechanism=default_mechanism,
+                          default_alpha=default_alpha)
     km = _km_in_substrate_unit(km, df, substrate, substrate_unit)
     columns = [compound, plate, role, concentration, response, substrate]
     columns += [c for c in (km, enzyme) if isinstance(c, str)]
@@ -364,12 +393,6 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         # Rows are picked by label below; repeated labels would pick several.
         df = df.reset_index(drop=True)
     df = df.assign(**{role: normalise_roles(df[role]).to_numpy(dtype=object)})
-    if default_mechanism not in CONVERSIONS:
-        raise DataError(Problem("default_mechanism", None, default_mechanism,
-                                f"must be one of {CONVERSIONS}"))
-    if default_mechanism == "mixed" and default_alpha is None:
-        raise DataError(Problem("default_alpha", None, None,
-                                "a mixed default mechanism needs default_alpha = Kiu/Kic"))
     qc = plate_qc(df, plate=plate, role=role, response=response, threshold=z_prime_threshold,
                   strict=False)
     y_all = (percent_activity(df, qc, plate=plate, response=response) if normalise else
@@ -393,7 +416,7 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         on = [p for p in pd.unique(here[plate])]
         info[name] = (here.index, on)
         rows[name] = {"compound": name, "status": "failed", "plate": ", ".join(map(str, on)),
-                      "n_points": len(here), "flags": ""}
+                      "n_points": len(here), "flags": ()}
         bad = [unusable[p] for p in on if p in unusable]
         try:
             if bad:
@@ -438,13 +461,26 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         except InhibkinError as error:
             row["reason"] = f"{_context(name)}: {error}" if _context(name) not in str(error) \
                 else str(error)
-    table = pd.DataFrame([rows[n] for n in rows], columns=list(TABLE_COLUMNS))
+    # Bounds and flags stay values (a Bound, a tuple) in ``records``; the table is where
+    # they are written out as text.
+    records = {name: {"ic50_bound": row.get("ic50_bound"), "ki_bound": row.get("ki_bound"),
+                      "flags": tuple(row["flags"])} for name, row in rows.items()}
+    table = pd.DataFrame([_written(rows[n]) for n in rows], columns=list(TABLE_COLUMNS))
     text = ["curve_class", "reason", "ic50_bound", "ki_bound", "mechanism", "mechanism_source",
             "ki_method", "flags"]
     # As object first: filling an all-missing float column with text would warn, and the
     # batch's warning capture would write that warning into the flags.
     table[text] = table[text].astype(object).fillna("")
-    return PotencyTable(table.reset_index(drop=True), fits, qc, morrison_fits)
+    return PotencyTable(table.reset_index(drop=True), fits, qc, morrison_fits, records)
+
+
+def _written(row: dict) -> dict:
+    """A result row as the table holds it: bounds as "> x" text, flags joined by ", "."""
+    out = dict(row)
+    for key in ("ic50_bound", "ki_bound"):
+        out[key] = out[key].text() if out.get(key) is not None else ""
+    out["flags"] = ", ".join(row["flags"])
+    return out
 
 
 def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, no_spread, substrate,
@@ -461,12 +497,12 @@ def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, no_spread
     why = "; ".join([fit.class_reason] + [f"{what} (not determined)"
                                           for what in fit.not_determined])
     out = {"status": "ok", "curve_class": fit.curve_class, "reason": why, "ic50": fit.ic50,
-           "ic50_low": np.nan, "ic50_high": np.nan, "ic50_bound": fit.ic50_bound or "",
+           "ic50_low": np.nan, "ic50_high": np.nan, "ic50_bound": fit.ic50_bound,
            "pic50": fit.pic50, "hill": fit.hill,
            "hill_low": hill_row["ci_low"] if hill_set else np.nan,
            "hill_high": hill_row["ci_high"] if hill_set else np.nan,
            "top": fit.top, "bottom": fit.bottom, "substrate": s, "km": km_value, "enzyme": e,
-           "ki": np.nan, "ki_low": np.nan, "ki_high": np.nan, "ki_bound": "", "pki": np.nan,
+           "ki": np.nan, "ki_low": np.nan, "ki_high": np.nan, "ki_bound": None, "pki": np.nan,
            "ki_method": "cheng-prusoff"}
     if not fit.ic50_bound:
         out["ic50_low"], out["ic50_high"] = ic50_row["ci_low"], ic50_row["ci_high"]
@@ -478,14 +514,14 @@ def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, no_spread
     out.update(mechanism=mech, alpha=alpha, mechanism_source=source)
     if np.isfinite(e) and np.isfinite(fit.ic50) and fit.ic50 < tight_binding_factor * e:
         flags.append("tight_binding")
-    out["flags"] = ", ".join(flags)
+    out["flags"] = tuple(flags)
     if mech not in CONVERSIONS:
         out["reason"] = "; ".join(filter(None, (
             why, f"mechanism {mech!r}: no IC50 to Ki conversion; Ki not reported")))
         return out
     factor = cheng_prusoff(1.0, s, km_value, mech, None if np.isnan(alpha) else alpha)
     if fit.ic50_bound:
-        out["ki_bound"] = _convert_bound(fit.ic50_bound, factor)
+        out["ki_bound"] = fit.ic50_bound.scaled(factor)
         return out
     if tight_binding == "morrison" and "tight_binding" in flags:
         m = fit_morrison(fit.conc, fit.response, enzyme=e, s=s, km=km_value, mechanism=mech,

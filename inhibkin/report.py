@@ -6,31 +6,39 @@ tables are inline, and the file holds no external address at all. The page is
 rendered by Jinja2 with autoescaping on, so a compound ID such as
 ``<script>alert(1)</script>`` is shown as text, never run.
 
-:func:`fit_html`, :func:`dose_response_html` and :func:`campaign_html` are the compact
-notebook views (verdict, tables, one small figure) behind the ``_repr_html_`` of
-:class:`~inhibkin.mechanism.MechanismFit`, potency fits and
-:class:`~inhibkin.batch.Campaign`.
+:func:`fit_html`, :func:`dose_response_html` and :func:`campaign_html`, the compact
+notebook views behind the ``_repr_html_`` of the results, live in
+:mod:`inhibkin.display.html` and are re-exported here.
 """
 
 from __future__ import annotations
 
-import base64
-import io
-import math
 from collections.abc import Mapping
 from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from jinja2 import Environment, PackageLoader, select_autoescape
 
 from . import figures
+from .display.html import (
+    ENVIRONMENT,
+    REPORT_DPI,
+    campaign_html,
+    cell,
+    dose_response_html,
+    fit_html,
+    number_text,
+    parameter_cells,
+    png_uri,
+    ranking_rows,
+    table_cells,
+)
 from .errors import DataError, UnitsError
 from .fitting import format_estimate
 from .io import atomic_output
 from .plates import Z_PRIME_THRESHOLD
-from .units import from_molar, normalise_unit, to_molar
+from .units import normalise_unit, to_molar
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
            "CAUTIONS"]
@@ -46,75 +54,11 @@ CAUTIONS = (
     "practice.",
 )
 
-# Resolution of the embedded figures (dots per inch): enough to read, small files.
-_REPORT_DPI = 72
-_NOTEBOOK_DPI = 60
 # Dose-response figures drawn in the report (the most potent first); the table lists all.
 _MAX_POTENCY_FIGURES = 24
 
-_ENV = Environment(loader=PackageLoader("inhibkin", "templates"),
-                   autoescape=select_autoescape(default=True, default_for_string=True),
-                   trim_blocks=True, lstrip_blocks=True)
-
 
 # ---------------------------------------------------------------- small helpers
-
-
-def _png(fig, dpi=_REPORT_DPI) -> str:
-    """A figure as a base64 PNG data URI (no metadata: it would carry a web address)."""
-    buffer = io.BytesIO()
-    fig.savefig(buffer, format="png", dpi=dpi, metadata={"Software": None})
-    return "data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii")
-
-
-def _num(x, fmt="{:.3g}") -> str:
-    if x is None or (isinstance(x, float) and not math.isfinite(x)) or pd.isna(x):
-        return ""
-    return fmt.format(float(x))
-
-
-def _sort_key(x) -> str:
-    """The value a table cell sorts by (numbers as numbers, empty cells last)."""
-    if x is None or (not isinstance(x, str) and pd.isna(x)):
-        return ""
-    if isinstance(x, (bool, np.bool_)):
-        return str(bool(x))
-    if isinstance(x, (int, float, np.integer, np.floating)):
-        return repr(float(x)) if math.isfinite(float(x)) else ""
-    return str(x)
-
-
-def _cell(text, sort=None) -> dict:
-    return {"text": "" if text is None else str(text),
-            "sort": _sort_key(text if sort is None else sort)}
-
-
-def _table(frame: pd.DataFrame, *, index=True, fmt="{:.4g}") -> dict:
-    """A DataFrame as header + rows of cells for the template (numbers formatted)."""
-    columns = ([frame.index.name or ""] if index else []) + [str(c) for c in frame.columns]
-    rows = []
-    for label, row in frame.iterrows():
-        cells = [_cell(label)] if index else []
-        for value in row:
-            if isinstance(value, (float, np.floating)):
-                cells.append(_cell(_num(value, fmt), value))
-            else:
-                cells.append(_cell(value))
-        rows.append(cells)
-    return {"columns": columns, "rows": rows}
-
-
-def _parameter_table(model_fit) -> dict:
-    """Estimate as read (a number, or a bound), standard error and interval."""
-    pct = f"{100 * model_fit.level:g}%"
-    rows = []
-    for name, row in model_fit.params.iterrows():
-        rows.append([_cell(name), _cell(format_estimate(row), row["estimate"]),
-                     _cell(_num(row["se"]), row["se"]),
-                     _cell(f"[{_num(row['ci_low'])}, {_num(row['ci_high'])}]", row["ci_low"]),
-                     _cell("yes" if row["determined"] else "no")])
-    return {"columns": ["parameter", "estimate", "SE", f"{pct} interval "
-                        f"({model_fit.interval_method})", "determined"], "rows": rows}
 
 
 def _units_of(campaign, rate_unit, display) -> figures.AxisUnits:
@@ -144,44 +88,16 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi) -> dict:
         "candidates": ", ".join(fit.candidates), "basis": fit.basis,
         "weighting": fit.weighting,
         "alpha": fit.options.alpha, "min_delta_aicc": fit.options.min_delta_aicc,
-        "comparison": _table(comparison),
-        "ftests": _table(fit.ftests, index=False),
-        "params": _parameter_table(best) if best is not None and best.converged else None,
-        "all_params": [{"model": name, "table": _parameter_table(m)}
+        "comparison": table_cells(comparison),
+        "ftests": table_cells(fit.ftests, index=False),
+        "params": parameter_cells(best) if best is not None and best.converged else None,
+        "all_params": [{"model": name, "table": parameter_cells(m)}
                        for name, m in fit.models.items() if m.converged and name != fit.best],
-        "overview": _png(overview, dpi), "residuals": _png(residuals, dpi),
-        "diagnostics": _png(diagnostics, dpi),
+        "overview": png_uri(overview, dpi), "residuals": png_uri(residuals, dpi),
+        "diagnostics": png_uri(diagnostics, dpi),
         "units": units,
     }
     return section
-
-
-def _ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
-    factor = float(from_molar(1.0, ki_unit))
-    rows = []
-    for _, r in ranking.iterrows():
-        status = r["status"]
-        if status == "determined" and np.isfinite(r["ki_M"]):
-            ki = (f"{_num(r['ki_M'] * factor)} [{_num(r['ki_low_M'] * factor)}, "
-                  f"{_num(r['ki_high_M'] * factor)}]")
-            ki_sort = r["ki_M"]
-        elif status == "bound" and np.isfinite(r["ki_low_M"]):
-            ki, ki_sort = f"> {_num(r['ki_low_M'] * factor)}", r["ki_low_M"]
-        else:
-            ki, ki_sort = r.get("ki_reported", "") or "", np.nan
-        pki = ""
-        if np.isfinite(r["pki"]):
-            pki = f"{r['pki']:.2f} [{r['pki_low']:.2f}, {r['pki_high']:.2f}]"
-        rows.append({
-            "anchor": anchors.get(r["compound"]),
-            "cells": [_cell(r["rank"] if not pd.isna(r["rank"]) else "", r["rank"]),
-                      _cell(r["compound"]), _cell(status), _cell(r["verdict"]),
-                      _cell(r["mechanism"]), _cell(ki, ki_sort), _cell(pki, r["pki"]),
-                      _cell(_num(r.get("pic50", np.nan), "{:.2f}"), r.get("pic50", np.nan)),
-                      _cell(r["flags"]), _cell(r["reason"])],
-            "status": status,
-        })
-    return rows
 
 
 def _log_molar_shift(unit) -> float | None:
@@ -204,16 +120,17 @@ def _potency_context(potency, conc_unit, max_figures, dpi) -> dict:
     rows = []
     for _, r in table.iterrows():
         ic50 = r["ic50_bound"] if isinstance(r["ic50_bound"], str) and r["ic50_bound"] else (
-            f"{_num(r['ic50'])} [{_num(r['ic50_low'])}, {_num(r['ic50_high'])}]"
+            f"{number_text(r['ic50'])} [{number_text(r['ic50_low'])}, "
+            f"{number_text(r['ic50_high'])}]"
             if np.isfinite(r["ic50"]) else "")
         ki = r["ki_bound"] if isinstance(r["ki_bound"], str) and r["ki_bound"] else (
-            f"{_num(r['ki'])} [{_num(r['ki_low'])}, {_num(r['ki_high'])}]"
+            f"{number_text(r['ki'])} [{number_text(r['ki_low'])}, {number_text(r['ki_high'])}]"
             if np.isfinite(r["ki"]) else "")
-        rows.append([_cell(r["compound"]), _cell(r["status"]), _cell(r["plate"]),
-                     _cell(ic50, r["ic50"]), _cell(_num(r["pic50"], "{:.2f}"), r["pic50"]),
-                     _cell(_num(r["hill"], "{:.2f}"), r["hill"]), _cell(ki, r["ki"]),
-                     _cell(_num(r["pki"], "{:.2f}"), r["pki"]), _cell(r["mechanism"]),
-                     _cell(r["ki_method"]), _cell(r["flags"]), _cell(r["reason"])])
+        rows.append([cell(r["compound"]), cell(r["status"]), cell(r["plate"]),
+                     cell(ic50, r["ic50"]), cell(number_text(r["pic50"], "{:.2f}"), r["pic50"]),
+                     cell(number_text(r["hill"], "{:.2f}"), r["hill"]), cell(ki, r["ki"]),
+                     cell(number_text(r["pki"], "{:.2f}"), r["pki"]), cell(r["mechanism"]),
+                     cell(r["ki_method"]), cell(r["flags"]), cell(r["reason"])])
     unit = f" ({conc_unit})" if conc_unit else ""
     columns = ["compound", "status", "plate", f"IC50{unit} [95% CI]", f"pIC50{p_label}", "Hill",
                f"Ki{unit} [95% CI]", f"pKi{p_label}", "mechanism", "Ki method", "flags",
@@ -232,7 +149,7 @@ def _gallery(fits, compounds, conc_unit, max_figures, dpi) -> list:
     for compound in [c for c in compounds if c in fits][:max_figures]:
         fig, axes = figures.new_figure(size=(3.4, 2.6))
         figures.plot_dose_response(fits[compound], conc_unit=conc_unit, ax=axes[0, 0])
-        gallery.append({"compound": str(compound), "png": _png(fig, dpi)})
+        gallery.append({"compound": str(compound), "png": png_uri(fig, dpi)})
     return gallery
 
 
@@ -242,7 +159,7 @@ def _plates_context(plates: pd.DataFrame, threshold: float) -> dict:
     shown = plates[keep].copy()
     flagged = [str(p) for p in plates.loc[plates["flagged"].astype(bool), "plate"]]
     shown["flagged"] = shown["flagged"].map({True: "yes", False: "no"})
-    return {"plates": _table(shown, index=False, fmt="{:.3g}"), "z_threshold": threshold,
+    return {"plates": table_cells(shown, index=False, fmt="{:.3g}"), "z_threshold": threshold,
             "flagged_plates": flagged}
 
 
@@ -257,13 +174,14 @@ def _campaign_potency_context(campaign, max_figures, dpi) -> dict | None:
     screen = ranking[ranking["compound"].isin(list(fits))]
     rows = []
     for _, r in screen.iterrows():
-        ic50 = (f"{_num(r['ic50_M'])} [{_num(r['ic50_low_M'])}, {_num(r['ic50_high_M'])}]"
+        ic50 = (f"{number_text(r['ic50_M'])} [{number_text(r['ic50_low_M'])}, "
+                f"{number_text(r['ic50_high_M'])}]"
                 if np.isfinite(r["ic50_M"]) else "")
-        rows.append([_cell(r["compound"]), _cell(r["status"]), _cell(ic50, r["ic50_M"]),
-                     _cell(_num(r["pic50"], "{:.2f}"), r["pic50"]),
-                     _cell(_num(r["hill"], "{:.2f}"), r["hill"]), _cell(r["ki_reported"]),
-                     _cell(_num(r["pki"], "{:.2f}"), r["pki"]), _cell(r["mechanism"]),
-                     _cell(r["ki_source"]), _cell(r["flags"]), _cell(r["reason"])])
+        rows.append([cell(r["compound"]), cell(r["status"]), cell(ic50, r["ic50_M"]),
+                     cell(number_text(r["pic50"], "{:.2f}"), r["pic50"]),
+                     cell(number_text(r["hill"], "{:.2f}"), r["hill"]), cell(r["ki_reported"]),
+                     cell(number_text(r["pki"], "{:.2f}"), r["pki"]), cell(r["mechanism"]),
+                     cell(r["ki_source"]), cell(r["flags"]), cell(r["reason"])])
     columns = ["compound", "status", "IC50 (M) [95% CI]", "pIC50", "Hill", "Ki (M)", "pKi",
                "mechanism", "Ki from", "flags", "reason"]
     by_potency = screen.sort_values("pic50", ascending=False, na_position="last")["compound"]
@@ -297,8 +215,8 @@ def _as_campaign(campaign):
                              "determined" if len(determined) else "bound")
             if len(determined):
                 ki = determined.sort_values("estimate").iloc[0]
-                row["ki_reported"] = (f"{format_estimate(ki)} [{_num(ki['ci_low'])}, "
-                                      f"{_num(ki['ci_high'])}] (fit units)")
+                row["ki_reported"] = (f"{format_estimate(ki)} [{number_text(ki['ci_low'])}, "
+                                      f"{number_text(ki['ci_high'])}] (fit units)")
             rows.append(row)
         return pd.DataFrame(rows), dict(campaign), {}
     raise DataError(f"report() needs a Campaign (inhibkin.batch.fit_campaign) or a mapping of "
@@ -307,7 +225,7 @@ def _as_campaign(campaign):
 
 def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campaign report",
                   rate_unit="", units=None, ki_unit="nM", potency_unit="",
-                  max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=_REPORT_DPI) -> str:
+                  max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=REPORT_DPI) -> str:
     """The report as an HTML string (see :func:`report`)."""
     ranking, fits, options = _as_campaign(campaign)
     display = dict(units or {})
@@ -335,7 +253,7 @@ def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campai
         "n_compounds": len(ranking),
         "options": {k: v for k, v in options.items() if k != "seconds"},
         "ki_unit": ki_unit,
-        "ranking": _ranking_rows(ranking, anchors, ki_unit),
+        "ranking": ranking_rows(ranking, anchors, ki_unit),
         "ranking_columns": ["rank", "compound", "status", "verdict", "mechanism",
                             f"Ki ({ki_unit}) [95% CI]", "pKi [95% CI]", "pIC50", "flags",
                             "reason"],
@@ -352,7 +270,7 @@ def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campai
         "param_units": ("concentrations in M, rates in the input's unit"
                         if hasattr(campaign, "ranking") else "in the units of the fitted data"),
     }
-    return _ENV.get_template("report.html").render(**context)
+    return ENVIRONMENT.get_template("report.html").render(**context)
 
 
 def _rates_context(rates) -> dict:
@@ -373,7 +291,7 @@ def _write_atomically(text: str, path: Path) -> None:
 
 def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaign report",
            rate_unit="", units=None, ki_unit="nM", potency_unit="",
-           max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=_REPORT_DPI) -> Path:
+           max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=REPORT_DPI) -> Path:
     """Write the campaign's report as one self-contained HTML file.
 
     Parameters
@@ -427,68 +345,3 @@ def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaig
                          notes=notes, dpi=dpi)
     _write_atomically(text, path)
     return path
-
-
-# ---------------------------------------------------------------- notebook display
-
-
-def fit_html(fit, *, units=None) -> str:
-    """Compact HTML of a :class:`~inhibkin.mechanism.MechanismFit` for a notebook.
-
-    Verdict and reason, the comparison table, the nested F-tests, the best model's
-    parameters with intervals, and one small figure (global fit, model support,
-    residuals). Every text is escaped.
-    """
-    best = fit.best_fit
-    overview = figures.plot_mechanism_overview(fit, units=units)
-    return _ENV.get_template("fit.html").render(
-        verdict=fit.verdict, reason=fit.reason, candidates=", ".join(fit.candidates),
-        weighting=fit.weighting, best=fit.best, comparison=_table(fit.comparison),
-        ftests=_table(fit.ftests, index=False),
-        params=_parameter_table(best) if best is not None and best.converged else None,
-        png=_png(overview, _NOTEBOOK_DPI))
-
-
-def dose_response_html(fit, *, conc_unit="") -> str:
-    """Compact HTML of a potency fit (:class:`~inhibkin.potency.DoseResponseFit`)."""
-    fig, axes = figures.new_figure(size=(3.6, 2.7))
-    figures.plot_dose_response(fit, conc_unit=conc_unit, ax=axes[0, 0])
-    params = fit.params.copy()
-    return _ENV.get_template("dose_response.html").render(
-        compound="" if fit.compound is None else str(fit.compound),
-        ic50=fit.reported_ic50, conc_unit=conc_unit, n_obs=fit.n_obs,
-        flags=list(fit.flags), params=_table(params), png=_png(fig, _NOTEBOOK_DPI))
-
-
-def campaign_html(campaign, *, rows=10, ki_unit="nM") -> str:
-    """Compact HTML of a :class:`~inhibkin.batch.Campaign`: counts and the top of the ranking,
-    with one small figure (pKi of the ranked compounds with their intervals)."""
-    ranking = campaign.ranking
-    anchors: dict = {}
-    fig, axes = figures.new_figure(size=(4.2, 2.6))
-    _plot_ranking(ranking.head(rows * 2), ax=axes[0, 0])
-    return _ENV.get_template("campaign.html").render(
-        n_compounds=len(ranking), counts=ranking["status"].value_counts().to_dict(),
-        columns=["rank", "compound", "status", "verdict", "mechanism",
-                 f"Ki ({ki_unit}) [95% CI]", "pKi [95% CI]", "pIC50", "flags", "reason"],
-        rows=_ranking_rows(ranking.head(rows), anchors, ki_unit),
-        more=max(len(ranking) - rows, 0), png=_png(fig, _NOTEBOOK_DPI))
-
-
-def _plot_ranking(ranking, *, ax):
-    """pKi with its interval for the determined compounds, bounds as arrows."""
-    shown = ranking[ranking["status"].isin(["determined", "bound"])]
-    y = np.arange(len(shown))
-    colour = figures.level_palette(3)[2]
-    for k, (_, r) in enumerate(shown.iterrows()):
-        if r["status"] == "determined":
-            ax.errorbar(r["pki"], k, xerr=[[r["pki"] - r["pki_low"]], [r["pki_high"] - r["pki"]]],
-                        marker="o", color=colour, capsize=2, markersize=4)
-        elif np.isfinite(r["pki_high"]):
-            ax.annotate("", xy=(r["pki_high"] - 0.5, k), xytext=(r["pki_high"], k),
-                        arrowprops=dict(arrowstyle="->", color="0.4"))
-    ax.set_yticks(y, [str(c) for c in shown["compound"]], fontsize=6)
-    ax.invert_yaxis()
-    ax.set_xlabel("pKi (95% interval; arrows: bound, Ki above)")
-    ax.set_title("Ranked compounds", fontsize=9)
-    return ax

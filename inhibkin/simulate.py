@@ -33,8 +33,9 @@ def standard_design(km, ki, *, n_substrate=8, n_inhibitor=6):
 
 def _true_params(law, vmax, km, kic, kiu):
     values = {"vmax": vmax, "km": km, "kic": kic, "kiu": kiu}
-    if law.name == "noncompetitive":
-        values["ki"] = kic if kic is not None else kiu
+    for source, targets in law.ties:
+        # A tied constant (noncompetitive's ki is kic = kiu) takes whichever is given.
+        values[source] = next((values[x] for x in targets if values[x] is not None), None)
     missing = [p for p in law.param_names if values.get(p) is None]
     if missing:
         raise DataError(f"{law.name} needs {', '.join(missing)}")

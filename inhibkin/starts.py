@@ -3,32 +3,139 @@
 The user never supplies guesses. vmax and km come from a Hanes–Woolf line (S/v against
 S) through the uninhibited points; every inhibition constant then comes from a coarse
 search over a log-spaced grid spanning the tested inhibitor range, at that vmax and km.
-Both steps are closed-form or a handful of rate evaluations, so the batched engine can
-use exactly the same rule for thousands of compounds at once.
+Both steps are closed-form or a handful of rate evaluations, written once over padded
+(B, n) arrays with a mask (:func:`mechanism_starts`): the batched engine calls it for
+thousands of compounds, the lmfit path (:func:`starting_values`) with one.
 
-The same module gives the bounds (in log space) that keep every positive constant
-finite: far outside anything the data could determine, so that a constant the data do
-not pin down ends up at a bound and is reported as not determined.
+:func:`log_bounds` gives one compound's bounds (in log space) that keep every positive
+constant finite (:mod:`inhibkin.core.bounds`): far outside anything the data could
+determine, so that a constant the data do not pin down ends up at a bound and is
+reported as not determined.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
+from .core.bounds import log_bounds_arrays
 from .models import MODELS
 
-__all__ = ["michaelis_menten_start", "starting_values", "log_bounds", "KI_GRID_POINTS"]
+__all__ = ["michaelis_menten_start", "starting_values", "mechanism_starts", "log_bounds",
+           "count_unique", "masked_median", "KI_GRID_POINTS", "KI_GRID_SPAN"]
 
 #: Points in the log-spaced search grid for each inhibition constant.
 KI_GRID_POINTS = 13
+#: The grid runs from the smallest positive inhibitor level divided by the first to the
+#: largest times the second (the engine's vectorised search uses the same span).
+KI_GRID_SPAN = (10.0, 100.0)
 
-# How far past the data the bounds lie (factors, applied in log space).
-_KI_BOUND_BELOW = 1e-4
-_KI_BOUND_ABOVE = 1e6
-_KM_BOUND_BELOW = 1e-4
-_KM_BOUND_ABOVE = 1e4
-_VMAX_BOUND_BELOW = 1e-3
-_VMAX_BOUND_ABOVE = 1e4
+# Problems scored at once in the inhibition-constant grid search: (problems × 169 grid
+# points × n) floats should fit in cache, which is what makes the search fast.
+_GRID_CHUNK = 16
+
+
+def _sorted_valid(values, mask):
+    """Each row sorted with the masked entries moved to the end as +inf."""
+    return np.sort(np.where(mask, values, np.inf), axis=1)
+
+
+def count_unique(values, mask):
+    """Number of distinct valid values per row."""
+    ordered = _sorted_valid(values, mask)
+    count = mask.sum(axis=1)
+    new = np.ones(ordered.shape, dtype=bool)
+    new[:, 1:] = ordered[:, 1:] != ordered[:, :-1]
+    return np.where(count > 0, np.sum(new & (np.arange(ordered.shape[1]) < count[:, None]),
+                                      axis=1), 0)
+
+
+def masked_median(values, mask):
+    """Median of the valid values per row (NaN for an empty row)."""
+    ordered = _sorted_valid(values, mask)
+    count = mask.sum(axis=1)
+    lo = np.clip((count - 1) // 2, 0, None)
+    hi = np.clip(count // 2, 0, ordered.shape[1] - 1)
+    rows = np.arange(len(count))
+    out = 0.5 * (ordered[rows, lo] + ordered[rows, hi])
+    return np.where(count > 0, out, np.nan)
+
+
+def _michaelis_menten_start(s, v, use):
+    """Hanes–Woolf starts over the points ``use`` of each row (see
+    :func:`michaelis_menten_start`)."""
+    keep = use & (s > 0) & (v > 0)
+    any_kept = keep.any(axis=1)
+    magnitude = np.max(np.where(use, np.abs(v), 0.0), axis=1, initial=0.0)
+    scale = np.where(any_kept, np.max(np.where(keep, v, -np.inf), axis=1, initial=-np.inf),
+                     np.where(magnitude > 0, magnitude, 1.0))
+    vmax_fb = 1.1 * scale
+    km_fb = np.where(any_kept, masked_median(s, keep), 1.0)
+    n = keep.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        x_mean = np.sum(np.where(keep, s, 0.0), axis=1) / n
+        q = np.where(keep, s / np.where(keep, v, 1.0), 0.0)
+        q_mean = np.sum(q, axis=1) / n
+        dx = np.where(keep, s - x_mean[:, None], 0.0)
+        slope = np.sum(dx * (q - q_mean[:, None]) * keep, axis=1) / np.sum(dx * dx, axis=1)
+        intercept = q_mean - slope * x_mean
+        line_ok = (count_unique(s, keep) >= 2) & (slope > 0) & (intercept > 0)
+        vmax = np.where(line_ok, 1.0 / slope, vmax_fb)
+        km = np.where(line_ok, intercept / slope, km_fb)
+    return vmax, km
+
+
+def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
+    """Starting parameters of ``model`` for every problem, shape (B, k), natural scale.
+
+    Parameters
+    ----------
+    model : str
+        A name in :data:`inhibkin.models.MODELS`.
+    s, i, v : numpy.ndarray, shape (B, n)
+        Substrate and inhibitor concentrations and rates, padded.
+    mask : numpy.ndarray of bool, shape (B, n)
+        True for real points.
+    weights : numpy.ndarray, shape (B, n), optional
+        Residual multipliers used to score the grid search (default 1).
+    """
+    law = MODELS[model]
+    uninhibited = mask & (i == 0)
+    use_uninhibited = count_unique(s, uninhibited) >= 2
+    use = np.where(use_uninhibited[:, None], uninhibited, mask)
+    vmax, km = _michaelis_menten_start(s, v, use)
+    names = law.inhibition_constants
+    out = np.empty((s.shape[0], law.n_params))
+    out[:, 0], out[:, 1] = vmax, km
+    if not names:
+        return out
+    out[:, 2:] = 1.0
+    inhibited = mask & (i > 0)
+    has = np.flatnonzero(inhibited.any(axis=1))
+    if has.size == 0:
+        return out
+    w = np.ones_like(v) if weights is None else weights
+    low = np.min(np.where(inhibited, i, np.inf), axis=1)[has] / KI_GRID_SPAN[0]
+    high = np.max(np.where(inhibited, i, -np.inf), axis=1)[has] * KI_GRID_SPAN[1]
+    grid = np.geomspace(low, high, KI_GRID_POINTS, axis=1)
+    m = len(names)
+    # The same combinations, in the same order, as the per-problem search.
+    index = np.stack(np.meshgrid(*([np.arange(KI_GRID_POINTS)] * m), indexing="ij"),
+                     axis=-1).reshape(-1, m)
+    for start in range(0, has.size, _GRID_CHUNK):
+        rows = has[start:start + _GRID_CHUNK]
+        g = grid[start:start + _GRID_CHUNK]
+        combos = g[:, index]  # (b, n_combos, m)
+        sel = mask[rows][:, None, :]
+        sr, ir, vr, wr = (np.where(mask[rows], x[rows], 0.0)[:, None, :] for x in (s, i, v, w))
+        ir = np.where(sel, ir, 0.0)
+        sr = np.where(sel, sr, 1.0)
+        with np.errstate(all="ignore"):
+            pred = law.rate(sr, ir, vmax[rows, None, None], km[rows, None, None],
+                            *(combos[:, :, [c]] for c in range(m)))
+            score = np.sum(np.where(sel, (wr * (vr - pred)) ** 2, 0.0), axis=2)
+        best = np.argmin(np.where(np.isnan(score), np.inf, score), axis=1)
+        out[rows, 2:] = combos[np.arange(rows.size), best]
+    return out
 
 
 def michaelis_menten_start(s, v) -> tuple[float, float]:
@@ -48,31 +155,17 @@ def michaelis_menten_start(s, v) -> tuple[float, float]:
         vmax = 1.1 × the largest positive rate (the largest |v| when none is positive)
         and km = the median substrate concentration.
     """
-    s = np.asarray(s, dtype=float)
-    v = np.asarray(v, dtype=float)
-    keep = (s > 0) & (v > 0)
-    # The scale of the rates: the largest positive one, else the largest magnitude (rates
-    # may scatter around zero), else 1.
-    scale = float(np.max(v[keep])) if keep.any() else (float(np.max(np.abs(v), initial=0.0))
-                                                        or 1.0)
-    s, v = s[keep], v[keep]
-    fallback = (1.1 * scale, float(np.median(s)) if s.size else 1.0)
-    if np.unique(s).size < 2:
-        return fallback
-    slope, intercept = np.polyfit(s, s / v, 1)
-    if slope <= 0 or intercept <= 0:
-        return fallback
-    return float(1.0 / slope), float(intercept / slope)
-
-
-def _inhibitor_grid(i) -> np.ndarray:
-    positive = i[i > 0]
-    low, high = positive.min() / 10.0, positive.max() * 100.0
-    return np.geomspace(low, high, KI_GRID_POINTS)
+    s = np.asarray(s, dtype=float)[None, :]
+    v = np.asarray(v, dtype=float)[None, :]
+    vmax, km = _michaelis_menten_start(s, v, np.ones(s.shape, bool))
+    return float(vmax[0]), float(km[0])
 
 
 def starting_values(model: str, s, i, v, weights=None) -> dict[str, float]:
     """Starting values for ``model`` fitted to one compound's grid.
+
+    :func:`mechanism_starts` with one problem: the lmfit path and the engine start
+    every problem from the same rule.
 
     Parameters
     ----------
@@ -88,48 +181,21 @@ def starting_values(model: str, s, i, v, weights=None) -> dict[str, float]:
     dict
         Parameter name to starting value, all positive.
     """
-    s = np.asarray(s, dtype=float)
-    i = np.asarray(i, dtype=float)
-    v = np.asarray(v, dtype=float)
-    w = np.ones_like(v) if weights is None else np.asarray(weights, dtype=float)
-    uninhibited = i == 0
-    if np.unique(s[uninhibited]).size >= 2:
-        vmax, km = michaelis_menten_start(s[uninhibited], v[uninhibited])
-    else:
-        vmax, km = michaelis_menten_start(s, v)
-    law = MODELS[model]
-    names = law.inhibition_constants
-    if not names or not np.any(i > 0):
-        return {"vmax": vmax, "km": km, **{n: 1.0 for n in names}}
-    grid = _inhibitor_grid(i)
-    # Every combination of grid values, one row each: 13 rows for one constant, 169 for two.
-    combos = np.stack(np.meshgrid(*([grid] * len(names)), indexing="ij"), axis=-1)
-    combos = combos.reshape(-1, len(names))
-    pred = law.rate(s[None, :], i[None, :], vmax, km, *(combos[:, [k]] for k in range(len(names))))
-    score = np.sum((w * (v[None, :] - pred)) ** 2, axis=1)
-    best = combos[int(np.argmin(score))]
-    return {"vmax": vmax, "km": km, **{n: float(x) for n, x in zip(names, best)}}
+    rows = [np.asarray(x, dtype=float)[None, :] for x in (s, i, v)]
+    w = None if weights is None else np.asarray(weights, dtype=float)[None, :]
+    start = mechanism_starts(model, *rows, np.ones(rows[0].shape, bool), w)[0]
+    return {name: float(x) for name, x in zip(MODELS[model].param_names, start)}
 
 
 def log_bounds(model: str, s, i, v) -> dict[str, tuple[float, float]]:
     """Bounds on the natural log of each parameter of ``model``.
 
-    They lie orders of magnitude beyond the data (see the module constants), so
-    they bind only when the data cannot determine a constant.
+    They lie orders of magnitude beyond the data (:data:`inhibkin.core.bounds.BOUND_FACTORS`,
+    by each parameter's role), so they bind only when the data cannot determine a
+    constant. One compound: :func:`inhibkin.core.bounds.log_bounds_arrays` with one row.
     """
-    s = np.asarray(s, dtype=float)
-    i = np.asarray(i, dtype=float)
-    v = np.asarray(v, dtype=float)
-    s_pos = s[s > 0]
-    vmax_top = float(np.max(np.abs(v), initial=0.0)) or 1.0
-    bounds = {
-        "vmax": (vmax_top * _VMAX_BOUND_BELOW, vmax_top * _VMAX_BOUND_ABOVE),
-        "km": (s_pos.min() * _KM_BOUND_BELOW, s_pos.max() * _KM_BOUND_ABOVE),
-    }
-    i_pos = i[i > 0]
-    for name in MODELS[model].inhibition_constants:
-        if i_pos.size:
-            bounds[name] = (i_pos.min() * _KI_BOUND_BELOW, i_pos.max() * _KI_BOUND_ABOVE)
-        else:
-            bounds[name] = (_KI_BOUND_BELOW, _KI_BOUND_ABOVE)
-    return {k: (float(np.log(lo)), float(np.log(hi))) for k, (lo, hi) in bounds.items()}
+    law = MODELS[model]
+    rows = [np.asarray(x, dtype=float)[None, :] for x in (s, i, v)]
+    lower, upper = log_bounds_arrays(law, *rows, np.ones(rows[0].shape, bool))
+    return {name: (float(lower[0, j]), float(upper[0, j]))
+            for j, name in enumerate(law.param_names)}

@@ -12,11 +12,11 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, Problem
+from .errors import DataError, OptionError, Problem
 from .io import LINE_INDEX
 
 __all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_menten",
-           "NO_SIGNAL", "row_kind", "check_options", "OPTION_LIMITS", "Limit",
+           "NO_SIGNAL", "ALL_EQUAL", "row_kind", "check_options", "OPTION_LIMITS", "Limit",
            "normalise_roles"]
 
 # How many bad rows of one kind a message lists before it summarises the rest.
@@ -29,6 +29,9 @@ MIN_MAGNITUDE = 1e-100
 #: Why a table whose rates average to zero or less is refused (the value is the mean).
 NO_SIGNAL = ("the rates carry no signal: their mean (value shown) is ≤ 0, so no enzyme "
              "activity is seen; nothing to fit")
+#: Why a grid whose rates are all equal is refused (both solvers give this reason).
+ALL_EQUAL = ("all rates are equal: they depend on neither substrate nor inhibitor, so km "
+             "and the inhibition constants cannot be determined")
 
 
 def row_kind(df) -> str:
@@ -166,10 +169,7 @@ def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True,
     elif not np.mean(v) > 0:
         problems.append(Problem(rate, None, float(np.mean(v)), NO_SIGNAL))
     elif np.all(v == v[0]):
-        problems.append(Problem(rate, None, float(v[0]),
-                                "all rates are equal: they depend on neither substrate nor "
-                                "inhibitor, so km and the inhibition constants cannot be "
-                                "determined"))
+        problems.append(Problem(rate, None, float(v[0]), ALL_EQUAL))
     if np.all(s == 0):
         problems.append(Problem(substrate, None, 0.0, "all substrate concentrations are zero"))
     n_params = 4 if need_inhibition else 2
@@ -242,6 +242,7 @@ OPTION_LIMITS = {
     "alpha": Limit(0.0, 1.0, hint="a test level, e.g. 0.05"),
     "min_delta_aicc": Limit(0.0, np.inf, low_open=False),
     "determination_factor": Limit(1.0, np.inf, low_open=False),
+    "alpha_factor": Limit(1.0, np.inf, hint="where the alpha regions begin, e.g. 5"),
     # Concentrations in M: positive and finite (1e-100 M to 1e100 M, as for table values).
     "km": Limit(MIN_MAGNITUDE, MAX_MAGNITUDE, low_open=False, high_open=False,
                 hint="Km in M, or text with its unit such as '20uM'"),
@@ -267,16 +268,18 @@ def _option_problem(name, value):
     return Problem(column, None, value, f"{head}must be {limit.describe()}{hint}")
 
 
-def check_options(options) -> None:
-    """Raise one DataError listing every option outside its :data:`OPTION_LIMITS`.
+def check_options(options, *, none_allowed=True) -> None:
+    """Raise one OptionError listing every option outside its :data:`OPTION_LIMITS`.
 
     Parameters
     ----------
     options : dict
         Option name (a key of :data:`OPTION_LIMITS`, or its command-line spelling such as
-        ``"--level"``) to value; None values are skipped (not given).
+        ``"--level"``) to value.
+    none_allowed : bool
+        Whether None means "not given" (skipped) rather than a bad value.
     """
-    problems = [p for name, value in options.items() if value is not None
+    problems = [p for name, value in options.items() if value is not None or not none_allowed
                 if (p := _option_problem(name, value)) is not None]
     if problems:
-        raise DataError(problems, "options")
+        raise OptionError(problems, "options")

@@ -146,7 +146,8 @@ def test_summary_and_html(campaign_200):
     assert f"Campaign of {N_COMPOUNDS + len(BAD_REASONS)} compounds" in text
     assert "BAD-ZERO: " in text
     assert "<table" in campaign._repr_html_()
-    pd.testing.assert_frame_equal(campaign.to_frame(), campaign.ranking)
+    # The ranking is read-only (a DataFrame subclass), to_frame() an ordinary copy.
+    pd.testing.assert_frame_equal(campaign.ranking, campaign.to_frame())
     assert set(campaign.fits) == set(campaign.ranking["compound"]) - set(BAD_REASONS)
 
 

@@ -142,7 +142,7 @@ def test_curve_not_reaching_half_activity_reports_a_bound():
     y = 100 / (1 + conc / 300.0)  # IC50 = 300, tested up to 30
     fit = fit_dose_response(conc, y, fix_top=100, fix_bottom=0, intervals="wald")
     assert "ic50_above_range" in fit.flags
-    assert fit.ic50_bound == "> 30"
+    assert str(fit.ic50_bound) == "> 30"
     assert np.isnan(fit.ic50) and np.isnan(fit.pic50)
     assert fit.reported_ic50 == "> 30"
     assert not fit.params.loc["ic50", "determined"]
@@ -154,7 +154,7 @@ def test_partial_inhibitor_never_halving_activity_is_a_bound():
     y = logistic4(np.log10(conc), 100.0, 70.0, -1.5, 1.0)
     fit = fit_dose_response(conc, y, intervals="wald")
     assert {"partial_efficacy", "ic50_above_range"} <= set(fit.flags)
-    assert fit.ic50_bound == "> 10"
+    assert str(fit.ic50_bound) == "> 10"
 
 
 @pytest.mark.parametrize("hill,flag", [(3.0, "steep_hill"), (0.35, "shallow_hill")])
@@ -519,7 +519,7 @@ def test_noise_on_an_inactive_compound_is_a_bound_when_only_falling_curves_are_a
     conc = np.repeat(np.logspace(-2, 2, 9), 2)
     y = 100 + rng.normal(0, 3, conc.size)
     fit = fit_dose_response(conc, y, direction="falling")
-    assert fit.ic50_bound == "> 100" and np.isnan(fit.ic50)
+    assert str(fit.ic50_bound) == "> 100" and np.isnan(fit.ic50)
     assert fit.estimates["hill"] >= 0 and fit.params.loc["hill", "ci_low"] >= 0
     # A flat curve has no Hill slope to report (issue 12, item 1).
     assert fit.curve_class == "inactive" and np.isnan(fit.hill)

@@ -17,7 +17,7 @@ from scipy import stats
 from ..logistic import PARAM_NAMES
 from . import lm
 from .chunks import concat_batches, run_chunks
-from .starts import _count_unique, logistic_starts
+from .starts import count_unique, logistic_starts
 
 __all__ = ["LogisticBatch", "fit_logistic_batch"]
 
@@ -191,7 +191,7 @@ def _fit_chunk(x, y, mask, weights, top, bottom, *, level, max_iterations, ftol,
     start[hold_top, 0] = top[hold_top]
     start[hold_bottom, 1] = bottom[hold_bottom]
     free[:, 0], free[:, 1] = ~hold_top, ~hold_bottom
-    few_levels = _count_unique(x, mask & np.isfinite(x)) < 2
+    few_levels = count_unique(x, mask & np.isfinite(x)) < 2
     theta0 = np.where(np.isfinite(start), start, 0.0)
     result = lm.solve(_Logistic(), theta0, (x,), y, mask=mask & ~few_levels[:, None],
                       weights=weights, free=free, max_iterations=max_iterations, ftol=ftol,

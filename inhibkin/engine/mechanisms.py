@@ -24,37 +24,37 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .. import fitting as _fitting
-from .. import mechanism as _mechanism
-from ..compare import VerdictOptions, decide_from
+from ..compare import (
+    EXACT_FIT_RTOL,
+    VerdictOptions,
+    akaike_weights,
+    decide_from,
+    f_test_arrays,
+    information_criteria,
+)
+from ..core.bounds import NESTED_FAR_FACTOR
+from ..core.determined import DETERMINATION_FACTOR, determined_flags
+from ..core.options import FitOptions
+from ..core.weighting import (
+    DEFAULT_WEIGHTING,
+    REWEIGHT_ITERATIONS,
+    normalise_weights,
+    relative_weights_from_fitted,
+)
 from ..errors import DataError, Problem
 from ..fitting import ModelFit, fit_model, fixed_alpha_ssr
-from ..mechanism import (
-    DEFAULT_WEIGHTING,
-    WEIGHTINGS,
-    MechanismFit,
-    _mixed_starts,
-    molar_grid,
-    relative_weights,
-)
-from ..models import MODEL_NAMES, MODELS, nested_pairs
-from ..validate import NO_SIGNAL
+from ..mechanism import MechanismFit, mixed_starts, molar_grid, relative_weights
+from ..models import MODEL_NAMES, MODELS, ONE_CONSTANT_MODELS, nested_pairs, nested_start
+from ..validate import ALL_EQUAL, NO_SIGNAL, check_grid
 from . import lm
 from .chunks import concat_batches, run_chunks
-from .starts import _count_unique, mechanism_log_bounds, mechanism_starts
+from .starts import count_unique, mechanism_log_bounds, mechanism_starts
 
 __all__ = ["ModelBatch", "MechanismBatch", "fit_mechanism_arrays", "fit_mechanisms_batch",
            "pad"]
 
-# The lmfit path's rules, read from it so that the two cannot drift apart.
-_AT_BOUND = _fitting._AT_BOUND
-_REWEIGHT_ITERATIONS = _mechanism._REWEIGHT_ITERATIONS
-_EXACT_FIT_RTOL = _mechanism._EXACT_FIT_RTOL
-_WEIGHT_FLOOR = _mechanism._WEIGHT_FLOOR
-# Literals inside fit_model and _mixed_starts: starts are clipped this far inside the
-# bounds, and a nested solution starts mixed's missing constant at its bound / 10.
+# Starts are clipped this far inside the bounds (log units), as fit_model clips them.
 _START_MARGIN = 1e-6
-_FAR_FACTOR = 10.0
 _MESSAGE_FALLBACK = "refitted by the lmfit path after the engine failed: "
 
 
@@ -292,10 +292,7 @@ def _comparison_frame(models, c) -> pd.DataFrame:
     aicc = column("aicc")
     finite = np.isfinite(aicc)
     delta = aicc - np.nanmin(aicc) if finite.any() else np.full(len(names), np.nan)
-    weight = np.zeros(len(names))
-    if finite.any():
-        rel = np.exp(-0.5 * (aicc[finite] - aicc[finite].min()))
-        weight[finite] = rel / rel.sum()
+    weight = akaike_weights(aicc)
     return pd.DataFrame({
         "n_obs": [int(models[n].n_obs[c]) for n in names],
         "n_params": [models[n].n_params for n in names],
@@ -366,9 +363,9 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition):
                  f"negative value in {name}; it must be ≥ 0")
     if sd is not None:
         flag(np.any((sd == 0) & mask, axis=1), "standard deviation must be > 0")
-    flag(_count_unique(s, mask) < 2, "need at least two substrate concentrations")
+    flag(count_unique(s, mask) < 2, "need at least two substrate concentrations")
     if need_inhibition:
-        flag(_count_unique(i, mask) < 2, "only one inhibitor level; inhibition models need at "
+        flag(count_unique(i, mask) < 2, "only one inhibitor level; inhibition models need at "
              "least two (include the uninhibited rate, I = 0)")
     flag(np.all((v == 0) | ~mask, axis=1), "all rates are zero; nothing to fit")
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -376,22 +373,14 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition):
     silent = ~(mean > 0) & np.isfinite(mean)
     for c in np.flatnonzero(silent & (reason == "")):
         reason[c] = str(Problem("rate", None, float(mean[c]), NO_SIGNAL))
+    first = v[np.arange(b), np.argmax(mask, axis=1)]
+    for c in np.flatnonzero(np.all((v == first[:, None]) | ~mask, axis=1) & mask.any(axis=1)
+                            & (reason == "")):
+        reason[c] = str(Problem("rate", None, float(first[c]), ALL_EQUAL))
     n_params = 4 if need_inhibition else 2
     flag(mask.sum(axis=1) <= n_params, f"no more points than the largest model's {n_params} "
          "parameters")
     return reason
-
-
-def _criteria(ssr, n, k, sum_log_w):
-    """:func:`inhibkin.compare.information_criteria`, vectorised."""
-    ssr = np.where(ssr <= 0, np.finfo(float).tiny, ssr)
-    # Rows that were not fitted have NaN SSR (and possibly n = 0): NaN criteria.
-    with np.errstate(divide="ignore", invalid="ignore"):
-        loglik = -0.5 * n * (np.log(2 * np.pi) + np.log(ssr / n) + 1) + sum_log_w
-        aic = -2 * loglik + 2 * k
-        aicc = np.where(n > k + 1, aic + 2 * k * (k + 1) / (n - k - 1), np.inf)
-        bic = -2 * loglik + k * np.log(n)
-    return loglik, aic, aicc, bic
 
 
 def _solve_model(name, s, i, v, mask, w, rows, theta0, lower, upper, max_iterations):
@@ -403,7 +392,7 @@ def _solve_model(name, s, i, v, mask, w, rows, theta0, lower, upper, max_iterati
 
 def _empty_model(name, b, n_obs):
     law = MODELS[name]
-    names = law.param_names + (("alpha",) if name == "mixed" else ())
+    names = law.column_names
     k, m = law.n_params, len(names)
     nan = np.full((b, m), np.nan)
     return dict(model=name, names=names, estimate=nan.copy(), se=nan.copy(),
@@ -431,36 +420,28 @@ def _fill_from_engine(out, name, rows, result, s, i, mask, lower, upper, level,
     estimate = np.exp(theta)
     with np.errstate(over="ignore", invalid="ignore"):
         ci_low, ci_high = np.exp(theta - t * se_log), np.exp(theta + t * se_log)
-    lo, hi = lower[ok], upper[ok]
-    at_bound = (theta - lo < _AT_BOUND) | (hi - theta < _AT_BOUND)
-    with np.errstate(invalid="ignore"):
-        determined = ~at_bound & np.isfinite(ci_high) & (ci_low > 0) & np.isfinite(se_log)
-    i_max = np.max(np.where(mask[r], i[r], 0.0), axis=1, initial=0.0)
-    s_max = np.max(np.where(mask[r], s[r], 0.0), axis=1, initial=0.0)
-    for j, pname in enumerate(law.param_names):
-        if pname in law.inhibition_constants:
-            determined[:, j] &= ~(estimate[:, j] > determination_factor * i_max)
-        if pname == "km":
-            determined[:, j] &= ~(estimate[:, j] > determination_factor * s_max)
+    flags = determined_flags(law, theta, lower[ok], upper[ok], ci_low, ci_high, se_log,
+                             s[r], i[r], mask[r], factor=determination_factor)
+    determined = flags[:, :k]
     out["estimate"][r, :k] = estimate
     out["se"][r, :k] = estimate * se_log
     out["ci_low"][r, :k], out["ci_high"][r, :k] = ci_low, ci_high
     out["determined"][r, :k] = determined
-    if name == "mixed":
-        a, b = law.param_names.index("kic"), law.param_names.index("kiu")
+    for m, d in enumerate(law.derived):
+        a, b = law.param_names.index(d.denominator), law.param_names.index(d.numerator)
         var = cov[:, a, a] + cov[:, b, b] - 2 * cov[:, a, b]
         with np.errstate(invalid="ignore"):
             se_ratio = np.where(var >= 0, np.sqrt(np.abs(var)), np.nan)
-        both = determined[:, a] & determined[:, b]
+        both = flags[:, k + m]
         centre = theta[:, b] - theta[:, a]
         with np.errstate(over="ignore", invalid="ignore"):
             lo_r = np.where(both, np.exp(centre - t[:, 0] * se_ratio), np.nan)
             hi_r = np.where(both, np.exp(centre + t[:, 0] * se_ratio), np.nan)
-        alpha = np.exp(centre)
-        out["estimate"][r, k] = alpha
-        out["se"][r, k] = alpha * se_ratio
-        out["ci_low"][r, k], out["ci_high"][r, k] = lo_r, hi_r
-        out["determined"][r, k] = both
+        ratio = np.exp(centre)
+        out["estimate"][r, k + m] = ratio
+        out["se"][r, k + m] = ratio * se_ratio
+        out["ci_low"][r, k + m], out["ci_high"][r, k + m] = lo_r, hi_r
+        out["determined"][r, k + m] = both
     out["theta"][r] = theta
     out["log_covariance"][r] = cov
     out["ssr"][r] = result.ssr[ok]
@@ -498,7 +479,7 @@ def _relative_weights(s, i, v, mask, rows, max_iterations, fallback):
     used_fallback = np.zeros(s.shape[0], bool)
     lower, upper = mechanism_log_bounds("mixed", s, i, v, mask)
     law = MODELS["mixed"]
-    for _ in range(_REWEIGHT_ITERATIONS):
+    for _ in range(REWEIGHT_ITERATIONS):
         if not active.size:
             break
         start = np.log(mechanism_starts("mixed", s[active], i[active], v[active],
@@ -511,14 +492,9 @@ def _relative_weights(s, i, v, mask, rows, max_iterations, fallback):
         good = active[ok]
         p = np.exp(result.theta[ok])
         fitted = law.rate(s[good], i[good], *(p[:, [j]] for j in range(p.shape[1])))
-        fitted_max = np.max(np.where(mask[good], fitted, -np.inf), axis=1)
-        scale = np.maximum(fitted, _WEIGHT_FLOOR * fitted_max[:, None])
-        w[good] = np.where(mask[good], 1.0 / np.where(mask[good], scale, 1.0), 0.0)
+        w[good] = relative_weights_from_fitted(fitted, mask[good])
         active = good
-    with np.errstate(divide="ignore"):
-        log_w = np.where(mask, np.log(np.where(mask, w, 1.0)), 0.0)
-    geometric = np.exp(log_w.sum(axis=1) / np.maximum(mask.sum(axis=1), 1))
-    w = np.where(mask, w / geometric[:, None], 0.0)
+    w = normalise_weights(w, mask)
     for c in np.flatnonzero(used_fallback):
         keep = mask[c]
         w[c, keep] = relative_weights(s[c, keep], i[c, keep], v[c, keep])
@@ -534,19 +510,14 @@ def _f_tests(models, small, large, exact_ssr):
 
 
 def _f_test_arrays(ssr_small, converged_small, k_small, b, exact_ssr):
+    """:func:`inhibkin.compare.f_test_arrays` where both fits converged, with SSRs at or
+    below ``exact_ssr`` counted as exact fits (as in :func:`~inhibkin.compare.f_test_table`)."""
     n = b["n_obs"]
-    df_reduced, df_full = n - k_small, n - b["n_params"]
-    df_num = df_reduced - df_full
-    both = converged_small & b["converged"] & (df_num > 0) & (df_full > 0)
+    both = converged_small & b["converged"]
     ssr_a = np.where(ssr_small > exact_ssr, ssr_small, 0.0)
     ssr_b = np.where(b["ssr"] > exact_ssr, b["ssr"], 0.0)
-    gain = np.maximum(ssr_a - ssr_b, 0.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        f_value = np.where(ssr_b <= 0, np.where(gain > 0, np.inf, 0.0),
-                           (gain / df_num) / (ssr_b / df_full))
-    f_value = np.where(both, f_value, np.nan)
-    p_value = np.where(both, stats.f.sf(f_value, df_num, np.maximum(df_full, 1)), np.nan)
-    return f_value, p_value
+    f_value, p_value = f_test_arrays(ssr_a, n - k_small, ssr_b, n - b["n_params"])
+    return np.where(both, f_value, np.nan), np.where(both, p_value, np.nan)
 
 
 def _verdicts(models, p_values, valid, invalid_reason, options):
@@ -581,15 +552,16 @@ def _verdicts(models, p_values, valid, invalid_reason, options):
 def _fixed_alpha_tests(out, s, i, v, mask, w, rows, far, exact_ssr, options,
                        max_iterations, fallback):
     """F-tests of mixed with alpha held at each edge against mixed, for every compound:
-    :func:`inhibkin.mechanism._fixed_alpha_tests` over the same starts (the mixed
-    solution, then each nested model's), the best successful SSR winning. With
-    ``fallback``, a compound none of whose starts converged is refitted by the lmfit path
+    the lmfit path's fixed-alpha tests (:func:`inhibkin.fitting.fixed_alpha_ssr`) over
+    the same starts (the mixed solution, then each nested model's), the best successful
+    SSR winning. With ``fallback``, a compound none of whose starts converged is refitted
+    by the lmfit path
     (:func:`inhibkin.fitting.fixed_alpha_ssr`) from the same starts."""
     mixed = out["mixed"]
     b = s.shape[0]
     sub = rows[mixed["converged"][rows]]
     starts = [mixed["theta"][sub][:, :3]]
-    for name in ("competitive", "uncompetitive", "noncompetitive"):
+    for name in ONE_CONSTANT_MODELS:
         if name in out:
             ok = out[name]["converged"][sub]
             start = _nested_start(out[name], name, sub, far)[:, :3]
@@ -634,14 +606,12 @@ def _start_rows(starts, sub, c):
 
 
 def _nested_start(out, name, rows, far):
-    """Mixed's start from the solution of the nested model ``name`` (log scale)."""
+    """Mixed's start from the solution of the nested model ``name`` (log scale), by
+    :func:`inhibkin.models.nested_start`."""
     p = np.exp(out["theta"][rows])
-    names = MODELS[name].param_names
-    get = {n: p[:, j] for j, n in enumerate(names)}
-    fill = far[rows]
-    kic = get.get("kic", get.get("ki", fill))
-    kiu = get.get("kiu", get.get("ki", fill))
-    return np.log(np.stack([get["vmax"], get["km"], kic, kiu], axis=1))
+    values = {n: p[:, j] for j, n in enumerate(MODELS[name].param_names)}
+    start = nested_start(name, values, "mixed", far[rows])
+    return np.log(np.stack([start[n] for n in MODELS["mixed"].param_names], axis=1))
 
 
 def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, alpha_factor,
@@ -676,7 +646,7 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
                               max_iterations)
         if name == "mixed":
             far = np.zeros(b)
-            far[rows] = np.exp(upper[:, 2]) / _FAR_FACTOR
+            far[rows] = np.exp(upper[:, 2]) / NESTED_FAR_FACTOR
             result = _mixed_multistart(out, s, i, v, mask, w, rows, result, lower, upper, far,
                                        max_iterations)
         _fill_from_engine(res, name, rows, result, s, i, mask, lower, upper, level,
@@ -684,19 +654,19 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
         if fallback:
             for c in rows[~result.converged]:
                 _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor)
-        res["loglik"], res["aic"], res["aicc"], res["bic"] = _criteria(
-            res["ssr"], n_obs, res["n_params"], sum_log_w)
+        criteria = information_criteria(res["ssr"], n_obs, res["n_params"], sum_log_w)
+        res.update((key, criteria[key]) for key in ("loglik", "aic", "aicc", "bic"))
         out[name] = res
     # The tables keep the models' own order, whatever order they were fitted in.
-    out = {name: out[name] for name in MODEL_NAMES if name in out}
-    exact_ssr = _EXACT_FIT_RTOL * np.sum((w * np.where(mask, v, 0.0)) ** 2, axis=1)
+    out = {name: out[name] for name in MODELS if name in out}
+    exact_ssr = EXACT_FIT_RTOL * np.sum((w * np.where(mask, v, 0.0)) ** 2, axis=1)
     p_values = {pair: _f_tests(out, *pair, exact_ssr) for pair in nested_pairs(tuple(out))}
     options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc,
                              alpha_factor=alpha_factor)
     if "mixed" in out:
         far = np.zeros(b)
         far[rows] = np.exp(mechanism_log_bounds("mixed", s[rows], i[rows], v[rows],
-                                                mask[rows])[1][:, 2]) / _FAR_FACTOR
+                                                mask[rows])[1][:, 2]) / NESTED_FAR_FACTOR
         p_values.update(_fixed_alpha_tests(out, s, i, v, mask, w, rows, far, exact_ssr,
                                            options, max_iterations, fallback))
     verdict, best, candidates, reason = _verdicts(out, p_values, valid, invalid_reason,
@@ -733,12 +703,12 @@ class _Combined:
 
 def _mixed_multistart(out, s, i, v, mask, w, rows, first, lower, upper, far, max_iterations):
     """fit_model's rule over mixed's starts: the first result, then any successful one
-    with a lower SSR (the starts of :func:`inhibkin.mechanism._mixed_starts`)."""
+    with a lower SSR (the starts of :func:`inhibkin.mechanism.mixed_starts`)."""
     best = _Combined(first.theta.copy(), first.ssr.copy(), first.status.copy(),
                      first.iterations.copy(), first.n_obs, first.covariance.copy())
     position = np.full(s.shape[0], -1)
     position[rows] = np.arange(rows.size)
-    for name in ("competitive", "uncompetitive", "noncompetitive"):
+    for name in ONE_CONSTANT_MODELS:
         if name not in out:
             continue
         sub = rows[out[name]["converged"][rows]]
@@ -765,7 +735,7 @@ def _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor):
     starts = None
     if name == "mixed":
         fits = {m: _model_fit(ModelBatch(**out[m]), c, sc, ic, vc, level) for m in out}
-        starts = _mixed_starts(fits, sc, ic, vc, wc)
+        starts = mixed_starts(fits, sc, ic, vc, wc)
     fit = fit_model(name, sc, ic, vc, wc, starts=starts, intervals="wald", level=level,
                     determination_factor=determination_factor)
     _fill_from_lmfit(res, c, fit)
@@ -773,7 +743,7 @@ def _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor):
 
 def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGHTING,
                          models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0,
-                         level=0.95, determination_factor=10.0, fallback=True,
+                         level=0.95, determination_factor=DETERMINATION_FACTOR, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None,
                          chunk_size=None) -> MechanismBatch:
     """Fit every mechanism to every compound of padded arrays and decide between them.
@@ -816,8 +786,9 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
         Every input compound appears once; compounds whose data cannot be fitted have
         the verdict ``failed`` and say why.
     """
-    if weighting not in WEIGHTINGS:
-        raise DataError(f"weighting must be one of {WEIGHTINGS}, got {weighting!r}")
+    FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
+               min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
+               determination_factor=determination_factor)
     if weighting == "sd" and sd is None:
         raise DataError("weighting='sd' needs sd=, the standard deviations of the rates")
     unknown = [m for m in models if m not in MODELS]
@@ -837,6 +808,24 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     return concat_batches(parts)
 
 
+_ARRAY_COLUMNS = ("substrate", "inhibitor", "rate", "sd")
+
+
+def _array_table(arrays, key) -> pd.DataFrame:
+    """A compound given as arrays ``(s, i, v[, sd])``, as the table check_grid reads, so
+    that arrays and tables meet the same checks (a bad entry is a DataError naming it)."""
+    if not isinstance(arrays, (tuple, list)) or not 3 <= len(arrays) <= 4:
+        raise DataError(f"expected a DataFrame or a tuple (s, i, v[, sd]), got "
+                        f"{type(arrays).__name__}", f"compound {key!r}")
+    columns = [np.atleast_1d(np.asarray(a, dtype=object)) for a in arrays]
+    lengths = [c.size for c in columns]
+    if len(set(lengths)) > 1 or any(c.ndim != 1 for c in columns):
+        raise DataError([Problem(name, None, n, "arrays differ in length (one entry per "
+                                                "point in each)")
+                         for name, n in zip(_ARRAY_COLUMNS, lengths)], f"compound {key!r}")
+    return pd.DataFrame(dict(zip(_ARRAY_COLUMNS, columns)))
+
+
 def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition):
     """Validated per-compound arrays, or the DataError text for each bad compound."""
     groups, labels, errors = [], [], []
@@ -850,9 +839,11 @@ def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition
                                                 context=f"compound {key!r}")
                 index = item.index
             else:
-                arrays = [np.asarray(a, dtype=float) for a in item]
-                sc, ic, vc = arrays[:3]
-                sdc = arrays[3] if len(arrays) > 3 else None
+                sc, ic, vc, sdc = check_grid(_array_table(item, key), substrate="substrate",
+                                             inhibitor="inhibitor", rate="rate",
+                                             sd="sd" if weighting == "sd" else None,
+                                             need_inhibition=need_inhibition,
+                                             context=f"compound {key!r}")
                 index = pd.RangeIndex(len(vc))
         except DataError as exc:
             groups.append((np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0)))
@@ -870,7 +861,7 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
                          rate="rate", sd=None, weighting=DEFAULT_WEIGHTING,
                          models=MODEL_NAMES,
                          alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0, level=0.95,
-                         determination_factor=10.0, fallback=True,
+                         determination_factor=DETERMINATION_FACTOR, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None, chunk_size=None):
     """:func:`inhibkin.mechanism.fit_mechanisms` (Wald intervals) for many compounds at once.
 
@@ -893,6 +884,9 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
         validation gets the verdict ``failed`` with the validation message as reason;
         it never stops the others.
     """
+    FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
+               min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
+               determination_factor=determination_factor)
     is_mapping = isinstance(tables_or_arrays, Mapping)
     items = list(tables_or_arrays.items()) if is_mapping else \
         list(enumerate(tables_or_arrays))

@@ -1,0 +1,1 @@
+"""How results are shown: HTML cells and notebook views (:mod:`.html`)."""

@@ -1,0 +1,183 @@
+"""HTML views of results: the notebook display and the cells the report is built from.
+
+The ``_repr_html_`` of :class:`~inhibkin.mechanism.MechanismFit`, potency fits and
+:class:`~inhibkin.batch.Campaign` call :func:`fit_html`, :func:`dose_response_html` and
+:func:`campaign_html` here (lazily: matplotlib loads only when a notebook asks), so the
+results never import the report; :mod:`inhibkin.report` builds its page from the same
+cells. Every text goes through Jinja2 with autoescaping on.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+import math
+
+import numpy as np
+import pandas as pd
+from jinja2 import Environment, PackageLoader, select_autoescape
+
+from .. import figures
+from ..fitting import format_estimate
+from ..units import from_molar
+
+__all__ = ["ENVIRONMENT", "REPORT_DPI", "NOTEBOOK_DPI", "png_uri", "number_text", "cell",
+           "table_cells", "parameter_cells", "ranking_rows", "fit_html", "dose_response_html",
+           "campaign_html"]
+
+#: Resolution of the embedded figures (dots per inch): enough to read, small files.
+REPORT_DPI = 72
+NOTEBOOK_DPI = 60
+
+#: The templates (inhibkin/templates), autoescaped.
+ENVIRONMENT = Environment(loader=PackageLoader("inhibkin", "templates"),
+                          autoescape=select_autoescape(default=True, default_for_string=True),
+                          trim_blocks=True, lstrip_blocks=True)
+
+
+def png_uri(fig, dpi=REPORT_DPI) -> str:
+    """A figure as a base64 PNG data URI (no metadata: it would carry a web address)."""
+    buffer = io.BytesIO()
+    fig.savefig(buffer, format="png", dpi=dpi, metadata={"Software": None})
+    return "data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
+def number_text(x, fmt="{:.3g}") -> str:
+    if x is None or (isinstance(x, float) and not math.isfinite(x)) or pd.isna(x):
+        return ""
+    return fmt.format(float(x))
+
+
+def _sort_key(x) -> str:
+    """The value a table cell sorts by (numbers as numbers, empty cells last)."""
+    if x is None or (not isinstance(x, str) and pd.isna(x)):
+        return ""
+    if isinstance(x, (bool, np.bool_)):
+        return str(bool(x))
+    if isinstance(x, (int, float, np.integer, np.floating)):
+        return repr(float(x)) if math.isfinite(float(x)) else ""
+    return str(x)
+
+
+def cell(text, sort=None) -> dict:
+    return {"text": "" if text is None else str(text),
+            "sort": _sort_key(text if sort is None else sort)}
+
+
+def table_cells(frame: pd.DataFrame, *, index=True, fmt="{:.4g}") -> dict:
+    """A DataFrame as header + rows of cells for the template (numbers formatted)."""
+    columns = ([frame.index.name or ""] if index else []) + [str(c) for c in frame.columns]
+    rows = []
+    for label, row in frame.iterrows():
+        cells = [cell(label)] if index else []
+        for value in row:
+            if isinstance(value, (float, np.floating)):
+                cells.append(cell(number_text(value, fmt), value))
+            else:
+                cells.append(cell(value))
+        rows.append(cells)
+    return {"columns": columns, "rows": rows}
+
+
+def parameter_cells(model_fit) -> dict:
+    """Estimate as read (a number, or a bound), standard error and interval."""
+    pct = f"{100 * model_fit.level:g}%"
+    rows = []
+    for name, row in model_fit.params.iterrows():
+        rows.append([cell(name), cell(format_estimate(row), row["estimate"]),
+                     cell(number_text(row["se"]), row["se"]),
+                     cell(f"[{number_text(row['ci_low'])}, {number_text(row['ci_high'])}]",
+                          row["ci_low"]),
+                     cell("yes" if row["determined"] else "no")])
+    return {"columns": ["parameter", "estimate", "SE", f"{pct} interval "
+                        f"({model_fit.interval_method})", "determined"], "rows": rows}
+
+
+def ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
+    factor = float(from_molar(1.0, ki_unit))
+    rows = []
+    for _, r in ranking.iterrows():
+        status = r["status"]
+        if status == "determined" and np.isfinite(r["ki_M"]):
+            ki = (f"{number_text(r['ki_M'] * factor)} [{number_text(r['ki_low_M'] * factor)}, "
+                  f"{number_text(r['ki_high_M'] * factor)}]")
+            ki_sort = r["ki_M"]
+        elif status == "bound" and np.isfinite(r["ki_low_M"]):
+            ki, ki_sort = f"> {number_text(r['ki_low_M'] * factor)}", r["ki_low_M"]
+        else:
+            ki, ki_sort = r.get("ki_reported", "") or "", np.nan
+        pki = ""
+        if np.isfinite(r["pki"]):
+            pki = f"{r['pki']:.2f} [{r['pki_low']:.2f}, {r['pki_high']:.2f}]"
+        rows.append({
+            "anchor": anchors.get(r["compound"]),
+            "cells": [cell(r["rank"] if not pd.isna(r["rank"]) else "", r["rank"]),
+                      cell(r["compound"]), cell(status), cell(r["verdict"]),
+                      cell(r["mechanism"]), cell(ki, ki_sort), cell(pki, r["pki"]),
+                      cell(number_text(r.get("pic50", np.nan), "{:.2f}"), r.get("pic50", np.nan)),
+                      cell(r["flags"]), cell(r["reason"])],
+            "status": status,
+        })
+    return rows
+
+
+def fit_html(fit, *, units=None) -> str:
+    """Compact HTML of a :class:`~inhibkin.mechanism.MechanismFit` for a notebook.
+
+    Verdict and reason, the comparison table, the nested F-tests, the best model's
+    parameters with intervals, and one small figure (global fit, model support,
+    residuals). Every text is escaped.
+    """
+    best = fit.best_fit
+    overview = figures.plot_mechanism_overview(fit, units=units)
+    return ENVIRONMENT.get_template("fit.html").render(
+        verdict=fit.verdict, reason=fit.reason, candidates=", ".join(fit.candidates),
+        weighting=fit.weighting, best=fit.best, comparison=table_cells(fit.comparison),
+        ftests=table_cells(fit.ftests, index=False),
+        params=parameter_cells(best) if best is not None and best.converged else None,
+        png=png_uri(overview, NOTEBOOK_DPI))
+
+
+def dose_response_html(fit, *, conc_unit="") -> str:
+    """Compact HTML of a potency fit (:class:`~inhibkin.potency.DoseResponseFit`)."""
+    fig, axes = figures.new_figure(size=(3.6, 2.7))
+    figures.plot_dose_response(fit, conc_unit=conc_unit, ax=axes[0, 0])
+    params = fit.params.copy()
+    return ENVIRONMENT.get_template("dose_response.html").render(
+        compound="" if fit.compound is None else str(fit.compound),
+        ic50=fit.reported_ic50, conc_unit=conc_unit, n_obs=fit.n_obs,
+        flags=list(fit.flags), params=table_cells(params), png=png_uri(fig, NOTEBOOK_DPI))
+
+
+def campaign_html(campaign, *, rows=10, ki_unit="nM") -> str:
+    """Compact HTML of a :class:`~inhibkin.batch.Campaign`: counts and the top of the ranking,
+    with one small figure (pKi of the ranked compounds with their intervals)."""
+    ranking = campaign.ranking
+    anchors: dict = {}
+    fig, axes = figures.new_figure(size=(4.2, 2.6))
+    _plot_ranking(ranking.head(rows * 2), ax=axes[0, 0])
+    return ENVIRONMENT.get_template("campaign.html").render(
+        n_compounds=len(ranking), counts=ranking["status"].value_counts().to_dict(),
+        columns=["rank", "compound", "status", "verdict", "mechanism",
+                 f"Ki ({ki_unit}) [95% CI]", "pKi [95% CI]", "pIC50", "flags", "reason"],
+        rows=ranking_rows(ranking.head(rows), anchors, ki_unit),
+        more=max(len(ranking) - rows, 0), png=png_uri(fig, NOTEBOOK_DPI))
+
+
+def _plot_ranking(ranking, *, ax):
+    """pKi with its interval for the determined compounds, bounds as arrows."""
+    shown = ranking[ranking["status"].isin(["determined", "bound"])]
+    y = np.arange(len(shown))
+    colour = figures.level_palette(3)[2]
+    for k, (_, r) in enumerate(shown.iterrows()):
+        if r["status"] == "determined":
+            ax.errorbar(r["pki"], k, xerr=[[r["pki"] - r["pki_low"]], [r["pki_high"] - r["pki"]]],
+                        marker="o", color=colour, capsize=2, markersize=4)
+        elif np.isfinite(r["pki_high"]):
+            ax.annotate("", xy=(r["pki_high"] - 0.5, k), xytext=(r["pki_high"], k),
+                        arrowprops=dict(arrowstyle="->", color="0.4"))
+    ax.set_yticks(y, [str(c) for c in shown["compound"]], fontsize=6)
+    ax.invert_yaxis()
+    ax.set_xlabel("pKi (95% interval; arrows: bound, Ki above)")
+    ax.set_title("Ranked compounds", fontsize=9)
+    return ax

@@ -1,0 +1,105 @@
+"""The lmfit path and the batched engine apply the same rules to the same data.
+
+Each case is a place where the two solvers once disagreed: the km/vmax "determined"
+rule, a grid whose rates are all equal, and a bad compound given as arrays. Both solvers
+see the same points with the same options and must agree on the verdict, the estimates
+and every determined flag (the engine is a second solver of one set of rules, not a
+second set of rules; STYLE.md rule 2).
+"""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import inhibkin as ik
+from inhibkin.engine import fit_mechanism_arrays, fit_mechanisms_batch
+from inhibkin.errors import DataError
+from inhibkin.validate import ALL_EQUAL
+
+# Both solvers converge to 1e-12 relative (MINPACK and the engine's own test); the
+# estimates of one problem agree far tighter than this.
+ESTIMATE_RTOL = 1e-5
+OPTIONS = dict(weighting="uniform")
+
+
+def _grid(s, i, seed, **truth):
+    return ik.simulate_grid("competitive", vmax=10.0, s=s, i=i, cv=0.02, seed=seed, **truth)
+
+
+@pytest.fixture(scope="module")
+def cases():
+    """Grids that test the km rules: every S far above km, every S far below km, and a
+    standard design (common practice: S from 0.2 to 10 x km)."""
+    i = np.array([0.0, 0.5, 1.0, 2.0])
+    return {
+        "far above km": _grid(np.geomspace(50.0, 500.0, 5), i, 1, km=0.5, kic=0.5),
+        "far below km": _grid(np.geomspace(0.01, 0.1, 5), i, 2, km=50.0, kic=0.5),
+        "standard": _grid(np.geomspace(0.4, 20.0, 6), i, 3, km=2.0, kic=0.5),
+    }
+
+
+@pytest.fixture(scope="module")
+def both(cases):
+    lmfit = {k: ik.fit_mechanisms(d, intervals="wald", **OPTIONS) for k, d in cases.items()}
+    engine = fit_mechanisms_batch(cases, **OPTIONS)
+    return lmfit, engine
+
+
+@pytest.mark.parametrize("case", ["far above km", "far below km", "standard"])
+def test_verdict_estimates_and_determined_flags_agree(both, case):
+    lmfit, engine = both[0][case], both[1][case]
+    assert lmfit.verdict == engine.verdict
+    for name, fit in lmfit.models.items():
+        other = engine.models[name].params
+        assert other["determined"].tolist() == fit.params["determined"].tolist(), \
+            f"{case}, {name}"
+        # A constant the data do not set lies anywhere along a flat valley; only the
+        # determined ones have a value to agree on.
+        set_ = fit.params["determined"].to_numpy()
+        np.testing.assert_allclose(other["estimate"][set_], fit.params["estimate"][set_],
+                                   rtol=ESTIMATE_RTOL, err_msg=f"{case}, {name}")
+
+
+def test_the_km_rules_bite_in_both_solvers(both):
+    for fits in both:
+        above = fits["far above km"].models["none"].params["determined"]
+        below = fits["far below km"].models["none"].params["determined"]
+        standard = fits["standard"].models["none"].params["determined"]
+        # Every S far above km: the plateau only, km below resolution, vmax set.
+        assert above.to_dict() == {"vmax": True, "km": False}
+        # Every S far below km: only vmax/km is set; neither alone.
+        assert below.to_dict() == {"vmax": False, "km": False}
+        assert standard.all()
+
+
+def test_all_equal_rates_are_refused_by_both_solvers(cases):
+    flat = cases["standard"].assign(rate=3.0)
+    with pytest.raises(DataError, match="all rates are equal"):
+        ik.fit_mechanisms(flat, **OPTIONS)
+    fit = fit_mechanisms_batch([flat], **OPTIONS)[0]
+    assert fit.verdict == "failed"
+    assert ALL_EQUAL in fit.reason
+    arrays = fit_mechanism_arrays(flat["substrate"].to_numpy()[None],
+                                  flat["inhibitor"].to_numpy()[None],
+                                  flat["rate"].to_numpy()[None], **OPTIONS)
+    assert arrays.verdict[0] == "failed"
+    assert ALL_EQUAL in arrays.reason[0]
+
+
+def test_a_bad_compound_given_as_arrays_fails_alone_with_a_clear_reason(cases):
+    good = cases["standard"]
+    s, i, v = (good[c].to_numpy() for c in ("substrate", "inhibitor", "rate"))
+    text = v.astype(object)
+    text[3] = "n/a"
+    short = (s, i, v[:-1])
+    fits = fit_mechanisms_batch({"good": (s, i, v), "text": (s, i, text), "short": short},
+                                **OPTIONS)
+    assert fits["good"].verdict == ik.fit_mechanisms(good, intervals="wald",
+                                                     **OPTIONS).verdict
+    assert fits["text"].verdict == "failed"
+    assert "row 3 (value 'n/a'): not a number" in fits["text"].reason
+    assert fits["short"].verdict == "failed"
+    assert "arrays differ in length" in fits["short"].reason
+    with pytest.raises(DataError, match="not a number"):
+        ik.fit_mechanisms(pd.DataFrame({"substrate": s, "inhibitor": i, "rate": text}),
+                          **OPTIONS)

@@ -1,0 +1,102 @@
+"""Options are checked once, at the public entry, before any work (HOUSE_RULES:
+"options are checked once, before any work")."""
+
+import numpy as np
+import pytest
+
+import inhibkin as ik
+from inhibkin.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+from inhibkin.core.options import FitOptions
+from inhibkin.engine import fit_mechanism_arrays, fit_mechanisms_batch
+from inhibkin.errors import OptionError
+
+CALLS = []
+
+
+def counting_fitter(data, **options):
+    """A grid fitter that records that it was called (module level: picklable)."""
+    CALLS.append(options)
+    return ik.fit_mechanisms(data, **options)
+
+
+@pytest.fixture(scope="module")
+def table():
+    return simulate_campaign(2, seed=1)[0]
+
+
+BAD = [
+    (dict(weighting="bogus"), "weighting must be one of"),
+    (dict(intervals="bogus"), "intervals must be one of"),
+    # The numeric limits are validate.OPTION_LIMITS, shared with the command line.
+    (dict(level=5), r"level must be a number in \(0, 1\); 5 looks like a percent"),
+    (dict(level=float("nan")), r"level must be a number in \(0, 1\)"),
+    (dict(alpha=1.5), r"alpha must be a number in \(0, 1\)"),
+    (dict(min_delta_aicc=-1), r"min_delta_aicc must be a number in \[0, inf\)"),
+    (dict(determination_factor=0.5), r"determination_factor must be a number in \[1, inf\)"),
+]
+
+
+@pytest.mark.parametrize("option, message", BAD)
+def test_a_bad_option_fails_the_campaign_before_any_compound_is_fitted(table, option,
+                                                                      message):
+    CALLS.clear()
+    with pytest.raises(OptionError, match=message):
+        fit_campaign(table, quiet=True, engine=counting_fitter, **option)
+    assert CALLS == []
+
+
+@pytest.mark.parametrize("option, message", BAD[:1] + BAD[2:])
+def test_every_grid_entry_checks_the_same_options(table, option, message):
+    one = table[table["compound"] == table["compound"].iloc[0]]
+    data = one.rename(columns={"substrate_uM": "substrate", "inhibitor_nM": "inhibitor"})
+    with pytest.raises(OptionError, match=message):
+        ik.fit_mechanisms(data, **option)
+    with pytest.raises(OptionError, match=message):
+        fit_mechanisms_batch([data], **option)
+    s, i, v = (data[c].to_numpy()[None] for c in ("substrate", "inhibitor", "rate"))
+    with pytest.raises(OptionError, match=message):
+        fit_mechanism_arrays(s, i, v, **option)
+
+
+def test_an_unknown_potency_option_is_named():
+    dose, _ = simulate_dose_campaign(["A"], seed=1)
+    with pytest.raises(OptionError, match="unknown option.*'z_prime'"):
+        fit_campaign(dose_response=dose, km="20uM", quiet=True,
+                     potency_options={"z_prime": 0.3})
+
+
+@pytest.mark.parametrize("option, message", [
+    ({"default_mechanism": "bogus"}, "default_mechanism.*must be one of"),
+    ({"tight_binding": "bogus"}, "tight_binding must be"),
+    ({"z_prime_threshold": "0.3"}, "z_prime_threshold must be a number"),
+])
+def test_bad_potency_option_values_fail_before_any_curve_is_fitted(option, message):
+    dose, _ = simulate_dose_campaign(["A"], seed=1)
+    with pytest.raises(OptionError, match=message):
+        fit_campaign(dose_response=dose, km="20uM", quiet=True, potency_options=option)
+
+
+def test_the_options_are_stored_as_checked(table):
+    campaign = fit_campaign(table, quiet=True, level=0.9, alpha=0.01)
+    assert campaign.options["level"] == 0.9
+    assert campaign.options["alpha"] == 0.01
+    assert campaign.options["z_prime_threshold"] == 0.5
+
+
+def test_a_custom_z_prime_threshold_reaches_the_options_and_the_report():
+    from inhibkin.report import _campaign_potency_context
+
+    dose, _ = simulate_dose_campaign(["A", "B"], seed=2)
+    campaign = fit_campaign(dose_response=dose, km="20uM", quiet=True,
+                            potency_options={"z_prime_threshold": 0.3})
+    assert campaign.options["z_prime_threshold"] == 0.3
+    context = _campaign_potency_context(campaign, max_figures=0, dpi=50)
+    assert context["z_threshold"] == 0.3
+
+
+def test_fit_options_are_frozen_floats():
+    options = FitOptions(level=1 - 0.05, determination_factor=10)
+    assert isinstance(options.determination_factor, float)
+    with pytest.raises(AttributeError):
+        options.level = 0.5
+    assert np.isclose(options.as_dict()["level"], 0.95)
