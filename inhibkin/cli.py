@@ -367,18 +367,23 @@ def _report_arguments(parser):
     parser.add_argument("--dose-response", help="dose-response well table")
     parser.add_argument("--ranking", help="also write the ranked table (.csv or .parquet)")
     parser.add_argument("--rate-unit", default="", help="label of the rates, e.g. uM/min")
+    parser.add_argument("--detail", action="append", metavar="WHICH",
+                        help="compounds drawn with the full figures (about a second each; "
+                             "every compound gets tables and small sketches): top:N (the N "
+                             "best ranked; default top:5), flagged, all, none, or a "
+                             "compound ID; repeatable, the union is drawn")
     _fit_arguments(parser, output="the HTML report (.html)")
     _rate_column_argument(parser)
     _dose_arguments(parser)
-    parser.set_defaults(intervals="profile")
 
 
 def _report(args) -> int:
     from .io import write_table
-    from .report import report
+    from .report import DEFAULT_DETAIL, check_detail, report
 
     if not args.grid and not args.dose_response:
         raise DataError("give --grid, --dose-response, or both")
+    detail = check_detail(args.detail or DEFAULT_DETAIL)
     output = Path(args.output)
     if output.suffix.lower() not in (".html", ".htm"):
         raise DataError(Problem("--output", None, str(output), "the report is an .html file"))
@@ -388,7 +393,8 @@ def _report(args) -> int:
     campaign = _whole_campaign(args)
     if ranking is not None:
         write_table(campaign.ranking, ranking)
-    path = report(campaign, output, rate_unit=args.rate_unit)
+    path = report(campaign, output, rate_unit=args.rate_unit, detail=detail,
+                  quiet=args.quiet)
     if not args.quiet:
         print(f"report written to {path.resolve()}")
     n_failed = campaign.counts["failed"]
