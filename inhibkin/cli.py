@@ -483,7 +483,8 @@ def _demo_arguments(parser):
 def _demo(args) -> int:
     from .demo import run_demo
 
-    print(run_demo(args.out))
+    # Each stage's lines as soon as it is done: the demo takes a while on a busy machine.
+    run_demo(args.out, progress=None if args.quiet else lambda line: print(line, flush=True))
     return EXIT_OK
 
 
