@@ -162,7 +162,7 @@ def run_demo(output_dir=None, *, data_dir=None, progress=None) -> str:
     path = report(campaign, out / "report.html", potency=potency, rates=rates,
                   title="Demo campaign against FCT-7 (invented data)", rate_unit="µM/min",
                   units={"substrate": "uM", "inhibitor": "nM"}, ki_unit="nM",
-                  potency_unit="µM", notes=[_NOTE], quiet=quiet)
+                  potency_unit="µM", notes=[_NOTE], quiet=quiet, detail="top:3")
     log.add(f"5. report: {path.stat().st_size} bytes, whole demo "
             f"{time.perf_counter() - started:.1f} s", timed=False)
     log.add(f"Report written to {path.resolve()}", timed=False)

@@ -119,7 +119,9 @@ def _parameter_table(model_fit) -> dict:
     """Estimate as read (a number, or a bound), standard error and interval."""
     pct = f"{100 * model_fit.level:g}%"
     rows = []
-    for name, row in model_fit.params.iterrows():
+    params = model_fit.params
+    # Plain dicts, not iterrows: a report builds five of these tables per compound.
+    for name, row in zip(params.index, params.to_dict("records")):
         rows.append([_cell(name), _cell(format_estimate(row), row["estimate"]),
                      _cell(_num(row["se"]), row["se"]),
                      _cell(f"[{_num(row['ci_low'])}, {_num(row['ci_high'])}]", row["ci_low"]),
@@ -156,7 +158,7 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
         return section
     best = fit.best_fit
     comparison = fit.comparison.copy()
-    comparison["converged"] = comparison["converged"].map({True: "yes", False: "no"})
+    comparison["converged"] = ["yes" if c else "no" for c in comparison["converged"]]
     section["fit"] = {
         "verdict": fit.verdict, "reason": fit.reason, "best": fit.best,
         "candidates": ", ".join(fit.candidates), "basis": fit.basis,
