@@ -254,7 +254,7 @@ def select_detail(detail, ranking: pd.DataFrame) -> set:
 def _ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
     factor = float(from_molar(1.0, ki_unit))
     rows = []
-    for _, r in ranking.iterrows():
+    for r in ranking.to_dict("records"):
         status = r["status"]
         if status == "determined" and np.isfinite(r["ki_M"]):
             ki = (f"{_num(r['ki_M'] * factor)} [{_num(r['ki_low_M'] * factor)}, "
@@ -297,7 +297,7 @@ def _potency_context(potency, conc_unit, max_figures) -> dict:
         table["pic50"] = table["pic50"] - shift
         table["pki"] = table["pki"] - shift
     rows = []
-    for _, r in table.iterrows():
+    for r in table.to_dict("records"):
         ic50 = r["ic50_bound"] if isinstance(r["ic50_bound"], str) and r["ic50_bound"] else (
             f"{_num(r['ic50'])} [{_num(r['ic50_low'])}, {_num(r['ic50_high'])}]"
             if np.isfinite(r["ic50"]) else "")
@@ -349,7 +349,7 @@ def _campaign_potency_context(campaign, max_figures) -> dict | None:
     ranking = campaign.ranking
     screen = ranking[ranking["compound"].isin(list(fits))]
     rows = []
-    for _, r in screen.iterrows():
+    for r in screen.to_dict("records"):
         ic50 = (f"{_num(r['ic50_M'])} [{_num(r['ic50_low_M'])}, {_num(r['ic50_high_M'])}]"
                 if np.isfinite(r["ic50_M"]) else "")
         rows.append([_cell(r["compound"]), _cell(r["status"]), _cell(ic50, r["ic50_M"]),
