@@ -120,8 +120,11 @@ def _parameter_table(model_fit) -> dict:
     pct = f"{100 * model_fit.level:g}%"
     rows = []
     params = model_fit.params
-    # Plain dicts, not iterrows: a report builds five of these tables per compound.
-    for name, row in zip(params.index, params.to_dict("records")):
+    # Column arrays, not iterrows: a report builds five of these tables per compound.
+    columns = {c: params[c].to_numpy() for c in ("estimate", "se", "ci_low", "ci_high",
+                                                 "determined")}
+    for k, name in enumerate(params.index):
+        row = {c: values[k] for c, values in columns.items()}
         rows.append([_cell(name), _cell(format_estimate(row), row["estimate"]),
                      _cell(_num(row["se"]), row["se"]),
                      _cell(f"[{_num(row['ci_low'])}, {_num(row['ci_high'])}]", row["ci_low"]),
