@@ -404,7 +404,7 @@ def _as_campaign(campaign):
 def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campaign report",
                   rate_unit="", units=None, ki_unit="nM", potency_unit="",
                   max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=_REPORT_DPI,
-                  detail=DEFAULT_DETAIL, quiet=True) -> str:
+                  detail=DEFAULT_DETAIL, quiet=False) -> str:
     """The report as an HTML string (see :func:`report`)."""
     check_detail(detail)
     ranking, fits, options = _as_campaign(campaign)
@@ -469,7 +469,8 @@ def _progress(total, quiet):
     """A progress bar over the compounds (on a terminal or in a notebook, unless quiet)."""
     from tqdm.auto import tqdm
 
-    silent = quiet or not (hasattr(sys.stderr, "isatty") and sys.stderr.isatty())
+    terminal = hasattr(sys.stderr, "isatty") and sys.stderr.isatty()
+    silent = quiet or not (terminal or "ipykernel" in sys.modules)
     return tqdm(total=total, disable=silent, unit="compound", desc="report", leave=False)
 
 
@@ -492,7 +493,7 @@ def _write_atomically(text: str, path: Path) -> None:
 def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaign report",
            rate_unit="", units=None, ki_unit="nM", potency_unit="",
            max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=_REPORT_DPI,
-           detail=DEFAULT_DETAIL, quiet=True) -> Path:
+           detail=DEFAULT_DETAIL, quiet=False) -> Path:
     """Write the campaign's report as one self-contained HTML file.
 
     Every compound gets the overview tables, its comparison, F-tests and parameters,
@@ -539,8 +540,8 @@ def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaig
         ``"none"``, compound IDs, or several of these (their union); see
         :func:`select_detail`.
     quiet : bool
-        No progress bar (shown by default only on a terminal or in a notebook when
-        ``quiet=False``).
+        No progress bar. Without it, a bar over the compounds is shown on a terminal or in
+        a notebook (never in a log file or a pipe).
 
     Returns
     -------
