@@ -153,8 +153,8 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
                "detailed": detailed, "dose": None}
     if dose_fit is not None:
         section["dose"] = {
-            "sketch": sketch.dose_response_sketch(dose_fit, conc_unit=dose_unit,
-                                                  label=f"dose-response of {compound}"),
+            "sketch": None if detailed else sketch.dose_response_sketch(
+                dose_fit, conc_unit=dose_unit, label=f"dose-response of {compound}"),
             "png": _dose_png(dose_fit, dose_unit, dpi) if detailed else None,
             "ic50": dose_fit.reported_ic50, "unit": dose_unit}
     if fit is None:
@@ -172,9 +172,10 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
         "params": _parameter_table(best) if best is not None and best.converged else None,
         "all_params": [{"model": name, "table": _parameter_table(m)}
                        for name, m in fit.models.items() if m.converged and name != fit.best],
-        "sketches": [sketch.grid_sketch(fit, units=units, label=f"global fit of {compound}"),
-                     sketch.residual_sketch(fit, units=units,
-                                            label=f"residuals of {compound}")],
+        # A compound drawn in full shows the figures instead of its sketches.
+        "sketches": [] if detailed else [
+            sketch.grid_sketch(fit, units=units, label=f"global fit of {compound}"),
+            sketch.residual_sketch(fit, units=units, label=f"residuals of {compound}")],
         "units": units,
     }
     if detailed:
