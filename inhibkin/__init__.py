@@ -3,96 +3,107 @@
 Global fits of every reversible mechanism to substrate × inhibitor grids, model
 comparison and a verdict, Ki and pKi with honest intervals, and dose-response potency
 converted to Ki. Results are statistical estimates for research triage.
+
+The names below are imported on first use (``ik.fit_campaign`` loads the campaign
+modules the first time it is read), so ``import inhibkin`` and ``inhibkin --help`` do
+not pay for plotting, lmfit or statsmodels until something needs them.
 """
 
-from . import figures
-from .batch import Campaign, fit_campaign, simulate_campaign
-from .compare import VerdictOptions
-from .conversion import cheng_prusoff, ic50_from_ki
-from .curve_class import CurveClassRules
-from .design import GridPlan, plan_grid
-from .engine import fit_logistic_batch, fit_mechanism_arrays, fit_mechanisms_batch
-from .errors import (
-    DataError,
-    FitError,
-    InhibkinError,
-    InhibkinWarning,
-    OptionError,
-    UnitsError,
-)
-from .excel import write_workbook
-from .fitting import ModelFit, fit_michaelis_menten
-from .inputs import read_any_table, read_plate_matrix, standardise_columns
-from .io import read_table, write_table
-from .mechanism import MechanismFit, fit_mechanisms
-from .models import MODELS, RateLaw
-from .morrison import MorrisonFit, fit_morrison
-from .plates import PlateQC, plate_qc, z_prime
-from .potency import DoseResponseFit, fit_dose_response
-from .potency_table import PotencyTable, potency_table
-from .rates import InitialRates, initial_rates
-from .report import fit_html, report
-from .signal import CHROMOPHORES, BeerLambert, StandardCurve, fit_standard_curve
-from .simulate import simulate_grid, standard_design
-from .store import ResultStore, minimum_significant_ratio, write_campaign
-from .units import from_molar, to_molar
+import importlib
+import sys
+import types
 
 __version__ = "0.1.0"
 
-__all__ = [
-    "GridPlan",
-    "plan_grid",
-    "fit_logistic_batch",
-    "fit_mechanism_arrays",
-    "fit_mechanisms_batch",
-    "figures",
-    "fit_html",
-    "report",
-    "Campaign",
-    "fit_campaign",
-    "from_molar",
-    "read_table",
-    "simulate_campaign",
-    "to_molar",
-    "write_table",
-    "BeerLambert",
-    "CHROMOPHORES",
-    "InitialRates",
-    "StandardCurve",
-    "fit_standard_curve",
-    "initial_rates",
-    "DataError",
-    "DoseResponseFit",
-    "MorrisonFit",
-    "PlateQC",
-    "PotencyTable",
-    "cheng_prusoff",
-    "fit_dose_response",
-    "fit_morrison",
-    "ic50_from_ki",
-    "plate_qc",
-    "potency_table",
-    "CurveClassRules",
-    "z_prime",
-    "FitError",
-    "InhibkinError",
-    "InhibkinWarning",
-    "MODELS",
-    "MechanismFit",
-    "ModelFit",
-    "RateLaw",
-    "UnitsError",
-    "OptionError",
-    "VerdictOptions",
-    "fit_mechanisms",
-    "fit_michaelis_menten",
-    "simulate_grid",
-    "standard_design",
-    "read_any_table",
-    "read_plate_matrix",
-    "standardise_columns",
-    "write_workbook",
-    "ResultStore",
-    "minimum_significant_ratio",
-    "write_campaign",
-]
+# Public name -> the module that defines it (a module exported as itself maps to itself).
+_EXPORTS = {
+    "figures": "figures",
+    "Campaign": "batch",
+    "fit_campaign": "batch",
+    "simulate_campaign": "batch",
+    "VerdictOptions": "compare",
+    "cheng_prusoff": "conversion",
+    "ic50_from_ki": "conversion",
+    "CurveClassRules": "curve_class",
+    "GridPlan": "design",
+    "plan_grid": "design",
+    "fit_logistic_batch": "engine",
+    "fit_mechanism_arrays": "engine",
+    "fit_mechanisms_batch": "engine",
+    "DataError": "errors",
+    "FitError": "errors",
+    "InhibkinError": "errors",
+    "InhibkinWarning": "errors",
+    "UnitsError": "errors",
+    "OptionError": "errors",
+    "write_workbook": "excel",
+    "ModelFit": "fitting",
+    "fit_michaelis_menten": "fitting",
+    "read_any_table": "inputs",
+    "read_plate_matrix": "inputs",
+    "standardise_columns": "inputs",
+    "read_table": "io",
+    "write_table": "io",
+    "MechanismFit": "mechanism",
+    "fit_mechanisms": "mechanism",
+    "MODELS": "models",
+    "RateLaw": "models",
+    "MorrisonFit": "morrison",
+    "fit_morrison": "morrison",
+    "PlateQC": "plates",
+    "plate_qc": "plates",
+    "z_prime": "plates",
+    "DoseResponseFit": "potency",
+    "fit_dose_response": "potency",
+    "PotencyTable": "potency_table",
+    "potency_table": "potency_table",
+    "InitialRates": "rates",
+    "initial_rates": "rates",
+    "fit_html": "report",
+    "report": "report",
+    "CHROMOPHORES": "signal",
+    "BeerLambert": "signal",
+    "StandardCurve": "signal",
+    "fit_standard_curve": "signal",
+    "simulate_grid": "simulate",
+    "standard_design": "simulate",
+    "ResultStore": "store",
+    "minimum_significant_ratio": "store",
+    "write_campaign": "store",
+    "from_molar": "units",
+    "to_molar": "units",
+}
+
+__all__ = list(_EXPORTS)
+
+# Submodules that share their name with the public function they define: the function is
+# what ``inhibkin.report`` names, as it did when everything was imported eagerly.
+_FUNCTION_NAMED = frozenset(n for n, m in _EXPORTS.items() if n == m and n != "figures")
+
+
+class _Package(types.ModuleType):
+    """The package module; keeps the import system from binding a submodule over the
+    public function of the same name (it sets each submodule as a package attribute)."""
+
+    def __setattr__(self, name, value):
+        if name in _FUNCTION_NAMED and isinstance(value, types.ModuleType):
+            return
+        super().__setattr__(name, value)
+
+
+sys.modules[__name__].__class__ = _Package
+
+
+def __getattr__(name):
+    try:
+        module_name = _EXPORTS[name]
+    except KeyError:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
+    module = importlib.import_module(f".{module_name}", __name__)
+    value = module if name == module_name and name == "figures" else getattr(module, name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(__all__))

@@ -679,17 +679,22 @@ def _report_arguments(parser):
     parser.add_argument("--dose-response", help="dose-response well table")
     parser.add_argument("--ranking", help="also write the ranked table (.csv or .parquet)")
     parser.add_argument("--rate-unit", default="", help="label of the rates, e.g. uM/min")
+    parser.add_argument("--detail", action="append", metavar="WHICH",
+                        help="compounds drawn with the full figures (about a second each; "
+                             "every compound gets tables and small sketches): top:N (the N "
+                             "best ranked; default top:5), flagged, all, none, or a "
+                             "compound ID; repeatable, the union is drawn")
     _fit_arguments(parser, output="the HTML report (.html)")
     _rate_column_argument(parser)
     _dose_arguments(parser)
-    parser.set_defaults(intervals="profile")
 
 
 def _report(args) -> int:
-    from .report import report
+    from .report import DEFAULT_DETAIL, check_detail, report
 
     if not args.grid and not args.dose_response:
         raise DataError("give --grid, --dose-response, or both")
+    detail = check_detail(args.detail or DEFAULT_DETAIL)
     output = _check_output(args.output, suffixes=(".html", ".htm"))
     ranking = _check_output(args.ranking, "--ranking") if args.ranking else None
     _check_paths({"--grid": args.grid, "--dose-response": args.dose_response},
@@ -700,7 +705,8 @@ def _report(args) -> int:
         _write_output(campaign.ranking, ranking, campaign=campaign)
     _keep(campaign, ranking or output, args)
     _draw(campaign, args)
-    path = report(campaign, output, rate_unit=args.rate_unit)
+    path = report(campaign, output, rate_unit=args.rate_unit, detail=detail,
+                  quiet=args.quiet)
     if not args.quiet:
         print(f"report written to {path.resolve()}")
     n_failed = campaign.counts["failed"]
@@ -810,7 +816,8 @@ def _demo_arguments(parser):
 def _demo(args) -> int:
     from .demo import run_demo
 
-    print(run_demo(args.out))
+    # Each stage's lines as soon as it is done: the demo takes a while on a busy machine.
+    run_demo(args.out, progress=None if args.quiet else lambda line: print(line, flush=True))
     return EXIT_OK
 
 

@@ -58,7 +58,24 @@ def _km_M(campaign) -> float:
     return float(np.median(values))
 
 
-def run_demo(output_dir=None, *, data_dir=None) -> str:
+class _Log:
+    """The demo's lines, each handed to ``progress`` as soon as its stage is done."""
+
+    def __init__(self, progress, started):
+        self.lines: list[str] = []
+        self.progress, self.started = progress, started
+
+    def add(self, *lines: str, timed=True) -> None:
+        lines = list(lines)
+        if timed and lines:
+            lines[0] += f" ({time.perf_counter() - self.started:.1f} s)"
+        self.lines += lines
+        if self.progress is not None:
+            for line in lines:
+                self.progress(line)
+
+
+def run_demo(output_dir=None, *, data_dir=None, progress=None) -> str:
     """Run the whole flow on the invented demo data and write the report.
 
     Parameters
@@ -68,6 +85,10 @@ def run_demo(output_dir=None, *, data_dir=None) -> str:
         ``demo_output`` in the working directory.
     data_dir : str or os.PathLike, optional
         The demo data; default the repository's ``data_demo``.
+    progress : callable, optional
+        Called with each line of the account as soon as its stage is done (the command
+        line prints them), the seconds since the start closing each stage's first line;
+        given, the fits also show their progress bars on a terminal.
 
     Returns
     -------
@@ -78,8 +99,10 @@ def run_demo(output_dir=None, *, data_dir=None) -> str:
     data = Path(data_dir) if data_dir is not None else DEMO_DATA
     out = Path(output_dir) if output_dir is not None else DEFAULT_OUTPUT
     out.mkdir(parents=True, exist_ok=True)
-    lines = ["inhibkin demo on invented data (enzyme FCT-7, compounds INV-xxxx; see "
-             f"{data / 'README.md'})"]
+    log = _Log(progress, started)
+    log.add("inhibkin demo on invented data (enzyme FCT-7, compounds INV-xxxx; see "
+            f"{data / 'README.md'})", timed=False)
+    quiet = progress is None
 
     reads = read_table(data / "invented_moa_reads.csv")
     plate_map = read_table(data / "invented_moa_plate_map.csv")
@@ -89,22 +112,22 @@ def run_demo(output_dir=None, *, data_dir=None) -> str:
     table = rates.table
     usable = table[table["status"] != "failed"]
     flagged = int((table["status"] == "flagged").sum())
-    lines.append(f"1. initial rates: {len(table)} wells, {flagged} flagged, "
-                 f"{len(table) - len(usable)} failed")
+    log.add(f"1. initial rates: {len(table)} wells, {flagged} flagged, "
+            f"{len(table) - len(usable)} failed")
 
     campaign = fit_campaign(usable, compound="compound", substrate="substrate_uM",
                             inhibitor="inhibitor_nM", rate="rate", weighting="relative",
-                            intervals="profile", quiet=True)
+                            intervals="profile", quiet=quiet)
     counts = ", ".join(f"{n} {s}" for s, n in campaign.counts.items() if n)
-    lines.append(f"2. mechanisms: {len(campaign.ranking)} compounds ({counts})")
     verdicts = campaign.ranking[["compound", "verdict", "mechanism", "ki_reported"]]
-    lines += ["   " + row for row in verdicts.to_string(index=False).splitlines()]
     first = next(iter(campaign.fits))
     comparison = campaign.fits[first].comparison[["n_params", "ssr", "aicc", "delta_aicc",
                                                    "akaike_weight"]]
-    lines.append(f"   model comparison for {first} (verdict: {campaign.fits[first].verdict}):")
-    lines += ["   " + row for row in
-              comparison.to_string(float_format=lambda x: f"{x:.4g}").splitlines()]
+    log.add(f"2. mechanisms: {len(campaign.ranking)} compounds ({counts})",
+            *["   " + row for row in verdicts.to_string(index=False).splitlines()],
+            f"   model comparison for {first} (verdict: {campaign.fits[first].verdict}):",
+            *["   " + row for row in
+              comparison.to_string(float_format=lambda x: f"{x:.4g}").splitlines()])
 
     km = _km_M(campaign)
     screen = read_table(data / "invented_screen_wells.csv")
@@ -119,28 +142,28 @@ def run_demo(output_dir=None, *, data_dir=None) -> str:
     screen_campaign = fit_campaign(usable, dose_response=screen, compound="compound",
                                    substrate="substrate", inhibitor="inhibitor",
                                    rate="rate", km=km, weighting="relative",
-                                   intervals="wald", quiet=True)
+                                   intervals="wald", quiet=quiet)
     counts = screen_campaign.counts
     below = screen_campaign.ranking["ki_reported"].astype(str).str.startswith("<")
-    lines.append(f"3. potency: {len(potency.table)} compounds on {len(potency.plates.table)} "
-                 f"plates, Km = {from_molar(km, 'uM'):.3g} µM from the grids; plates below "
-                 f"Z' {potency.plates.threshold:g}: "
-                 f"{', '.join(map(str, potency.plates.flagged))}")
-    lines.append(f"   ranked: {counts['determined']} determined, {counts['bound']} bounds "
-                 f"({int(below.sum())} below the tested range), {counts['inactive']} "
-                 f"inactive, {counts['failed']} failed")
+    log.add(f"3. potency: {len(potency.table)} compounds on {len(potency.plates.table)} "
+            f"plates, Km = {from_molar(km, 'uM'):.3g} µM from the grids; plates below "
+            f"Z' {potency.plates.threshold:g}: "
+            f"{', '.join(map(str, potency.plates.flagged))}",
+            f"   ranked: {counts['determined']} determined, {counts['bound']} bounds "
+            f"({int(below.sum())} below the tested range), {counts['inactive']} "
+            f"inactive, {counts['failed']} failed")
 
     write_table(table, out / "initial_rates.csv")
     write_table(campaign.ranking, out / "mechanism_ranking.csv")
     write_table(screen_campaign.ranking, out / "potency_ranking.csv")
-    lines.append(f"4. ranked tables: {out / 'mechanism_ranking.csv'}, "
-                 f"{out / 'potency_ranking.csv'}")
+    log.add(f"4. ranked tables: {out / 'mechanism_ranking.csv'}, "
+            f"{out / 'potency_ranking.csv'}")
 
     path = report(campaign, out / "report.html", potency=potency, rates=rates,
                   title="Demo campaign against FCT-7 (invented data)", rate_unit="µM/min",
                   units={"substrate": "uM", "inhibitor": "nM"}, ki_unit="nM",
-                  potency_unit="µM", notes=[_NOTE])
-    lines.append(f"5. report: {path.stat().st_size} bytes, whole demo "
-                 f"{time.perf_counter() - started:.1f} s")
-    lines.append(f"Report written to {path.resolve()}")
-    return "\n".join(lines)
+                  potency_unit="µM", notes=[_NOTE], quiet=quiet, detail="top:3")
+    log.add(f"5. report: {path.stat().st_size} bytes, whole demo "
+            f"{time.perf_counter() - started:.1f} s", timed=False)
+    log.add(f"Report written to {path.resolve()}", timed=False)
+    return "\n".join(log.lines)

@@ -1,10 +1,16 @@
 """The campaign report: one self-contained HTML file, and the notebook display of results.
 
 :func:`report` writes a single HTML file that opens anywhere, offline: figures are
-embedded as base64 PNG, the style sheet and the few lines of JavaScript that sort the
-tables are inline, and the file holds no external address at all. The page is
-rendered by Jinja2 with autoescaping on, so a compound ID such as
-``<script>alert(1)</script>`` is shown as text, never run.
+inline, the style sheet and the few lines of JavaScript that sort the tables are
+inline, and the file holds no external address at all. The page is rendered by Jinja2
+with autoescaping on, so a compound ID such as ``<script>alert(1)</script>`` is shown as
+text, never run.
+
+The report scales with the campaign: every compound gets its tables and small SVG
+sketches drawn from the fit's numbers (:mod:`inhibkin.sketch`, milliseconds each); the
+full matplotlib figures (base64 PNG, about a second each) are drawn only for the
+compounds chosen by ``detail`` (the five best ranked by default, see
+:func:`select_detail`). Nothing is refitted: intervals are the campaign's own.
 
 :func:`fit_html`, :func:`dose_response_html` and :func:`campaign_html`, the compact
 notebook views behind the ``_repr_html_`` of the results, live in
@@ -13,6 +19,7 @@ notebook views behind the ``_repr_html_`` of the results, live in
 
 from __future__ import annotations
 
+import sys
 from collections.abc import Mapping
 from datetime import datetime, timezone
 from pathlib import Path
@@ -20,7 +27,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from . import figures
+from . import figures, sketch
 from .display.html import (
     ENVIRONMENT,
     REPORT_DPI,
@@ -34,14 +41,14 @@ from .display.html import (
     ranking_rows,
     table_cells,
 )
-from .errors import DataError, UnitsError
+from .errors import DataError, Problem, UnitsError
 from .fitting import format_estimate
 from .io import atomic_output
 from .plates import Z_PRIME_THRESHOLD
 from .units import normalise_unit, to_molar
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
-           "CAUTIONS"]
+           "check_detail", "select_detail", "CAUTIONS", "DEFAULT_DETAIL"]
 
 #: The cautions printed in every report (the README's, in short).
 CAUTIONS = (
@@ -54,11 +61,12 @@ CAUTIONS = (
     "practice.",
 )
 
-# Dose-response figures drawn in the report (the most potent first); the table lists all.
+# Dose-response sketches in the report's gallery (the most potent first); the table lists all.
 _MAX_POTENCY_FIGURES = 24
-
-
-# ---------------------------------------------------------------- small helpers
+#: Compounds drawn with the full matplotlib figures unless ``detail`` says otherwise.
+DEFAULT_DETAIL = "top:5"
+# The rules ``detail`` understands besides compound IDs and ``top:N``.
+_DETAIL_RULES = ("all", "none", "flagged")
 
 
 def _units_of(campaign, rate_unit, display) -> figures.AxisUnits:
@@ -73,16 +81,23 @@ def _units_of(campaign, rate_unit, display) -> figures.AxisUnits:
 # ---------------------------------------------------------------- sections
 
 
-def _mechanism_section(anchor, compound, fit, row, units, dpi) -> dict:
-    section = {"anchor": anchor, "compound": str(compound), "row": row, "fit": None}
+def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
+                       dose_fit=None, dose_unit="") -> dict:
+    """One compound's part of the report: tables and sketches always, the matplotlib
+    figures only when ``detailed``."""
+    section = {"anchor": anchor, "compound": str(compound), "row": row, "fit": None,
+               "detailed": detailed, "dose": None}
+    if dose_fit is not None:
+        section["dose"] = {
+            "sketch": None if detailed else sketch.dose_response_sketch(
+                dose_fit, conc_unit=dose_unit, label=f"dose-response of {compound}"),
+            "png": _dosepng_uri(dose_fit, dose_unit, dpi) if detailed else None,
+            "ic50": dose_fit.reported_ic50, "unit": dose_unit}
     if fit is None:
         return section
     best = fit.best_fit
-    overview = figures.plot_mechanism_overview(fit, units=units)
-    residuals = figures.plot_residual_grid(fit, units=units)
-    diagnostics = figures.plot_diagnostics(fit, units=units)
     comparison = fit.comparison.copy()
-    comparison["converged"] = comparison["converged"].map({True: "yes", False: "no"})
+    comparison["converged"] = ["yes" if c else "no" for c in comparison["converged"]]
     section["fit"] = {
         "verdict": fit.verdict, "reason": fit.reason, "best": fit.best,
         "candidates": ", ".join(fit.candidates), "basis": fit.basis,
@@ -93,11 +108,87 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi) -> dict:
         "params": parameter_cells(best) if best is not None and best.converged else None,
         "all_params": [{"model": name, "table": parameter_cells(m)}
                        for name, m in fit.models.items() if m.converged and name != fit.best],
-        "overview": png_uri(overview, dpi), "residuals": png_uri(residuals, dpi),
-        "diagnostics": png_uri(diagnostics, dpi),
+        # A compound drawn in full shows the figures instead of its sketches.
+        "sketches": [] if detailed else [
+            sketch.grid_sketch(fit, units=units, label=f"global fit of {compound}"),
+            sketch.residual_sketch(fit, units=units, label=f"residuals of {compound}")],
         "units": units,
     }
+    if detailed:
+        section["fit"].update(
+            overview=png_uri(figures.plot_mechanism_overview(fit, units=units), dpi),
+            residuals=png_uri(figures.plot_residual_grid(fit, units=units), dpi),
+            diagnostics=png_uri(figures.plot_diagnostics(fit, units=units), dpi))
     return section
+
+
+def _dosepng_uri(fit, conc_unit, dpi) -> str:
+    fig, axes = figures.new_figure(size=(3.4, 2.6))
+    figures.plot_dose_response(fit, conc_unit=conc_unit, ax=axes[0, 0])
+    return png_uri(fig, dpi)
+
+
+def check_detail(detail) -> tuple:
+    """``detail`` as a tuple of items, its rules checked (before any work is done).
+
+    Parameters
+    ----------
+    detail : str or sequence of str
+        One item or several. An item is a compound ID or a rule: ``"all"``, ``"none"``,
+        ``"flagged"`` (every compound with a flag) or ``"top:N"`` (the N best ranked).
+
+    Returns
+    -------
+    tuple of str
+
+    Raises
+    ------
+    DataError
+        When ``detail`` is not text, or a ``top:N`` does not give a whole number N ≥ 0.
+    """
+    items = (detail,) if isinstance(detail, str) else tuple(detail)
+    for item in items:
+        if not isinstance(item, str):
+            raise DataError(Problem("detail", None, repr(item),
+                                    "give compound IDs or rules as text: all, none, "
+                                    "flagged, top:N"))
+        if item.startswith("top:"):
+            count = item.removeprefix("top:")
+            if not (count.isdigit() and count.isascii()):
+                raise DataError(Problem("detail", None, item,
+                                        "top:N needs a whole number N ≥ 0, e.g. top:50"))
+    return items
+
+
+def select_detail(detail, ranking: pd.DataFrame) -> set:
+    """The compounds of ``ranking`` that get the full matplotlib figures.
+
+    An item that is a compound of the ranking (its exact text) names that compound, so a
+    compound called ``flagged`` can still be chosen; otherwise it must be a rule (see
+    :func:`check_detail`). The union of every item is returned.
+
+    Raises
+    ------
+    DataError
+        For an item that is neither a compound of the ranking nor a rule.
+    """
+    compounds = list(ranking["compound"])
+    known = set(compounds)
+    chosen: set = set()
+    for item in check_detail(detail):
+        if item in known:
+            chosen.add(item)
+        elif item == "all":
+            chosen.update(compounds)
+        elif item == "flagged":
+            chosen.update(ranking.loc[ranking["flags"].astype(str) != "", "compound"])
+        elif item.startswith("top:"):
+            chosen.update(compounds[:int(item.removeprefix("top:"))])
+        elif item != "none":
+            raise DataError(Problem("detail", None, item,
+                                    "neither a compound of the campaign nor a rule "
+                                    f"({', '.join(_DETAIL_RULES)}, top:N)"))
+    return chosen
 
 
 def _log_molar_shift(unit) -> float | None:
@@ -108,7 +199,7 @@ def _log_molar_shift(unit) -> float | None:
         return None
 
 
-def _potency_context(potency, conc_unit, max_figures, dpi) -> dict:
+def _potency_context(potency, conc_unit, max_figures) -> dict:
     table = potency.table.copy()
     # potency_table reports −log10 in the concentration's own unit; shown as true
     # pIC50/pKi (from molar) whenever that unit is a known concentration unit.
@@ -118,7 +209,7 @@ def _potency_context(potency, conc_unit, max_figures, dpi) -> dict:
         table["pic50"] = table["pic50"] - shift
         table["pki"] = table["pki"] - shift
     rows = []
-    for _, r in table.iterrows():
+    for r in table.to_dict("records"):
         ic50 = r["ic50_bound"] if isinstance(r["ic50_bound"], str) and r["ic50_bound"] else (
             f"{number_text(r['ic50'])} [{number_text(r['ic50_low'])}, "
             f"{number_text(r['ic50_high'])}]"
@@ -138,19 +229,17 @@ def _potency_context(potency, conc_unit, max_figures, dpi) -> dict:
     fitted = table[table["status"] == "ok"].sort_values("pic50", ascending=False,
                                                        na_position="last")
     return {"table": {"columns": columns, "rows": rows},
-            "gallery": _gallery(potency.fits, fitted["compound"], conc_unit, max_figures, dpi),
+            "gallery": _gallery(potency.fits, fitted["compound"], conc_unit, max_figures),
             "n_total": len(table), "n_failed": int((table["status"] == "failed").sum()),
             **_plates_context(potency.plates.to_frame(), potency.plates.threshold)}
 
 
-def _gallery(fits, compounds, conc_unit, max_figures, dpi) -> list:
-    """Dose-response figures of the first ``max_figures`` of ``compounds`` that have a fit."""
-    gallery = []
-    for compound in [c for c in compounds if c in fits][:max_figures]:
-        fig, axes = figures.new_figure(size=(3.4, 2.6))
-        figures.plot_dose_response(fits[compound], conc_unit=conc_unit, ax=axes[0, 0])
-        gallery.append({"compound": str(compound), "png": png_uri(fig, dpi)})
-    return gallery
+def _gallery(fits, compounds, conc_unit, max_figures) -> list:
+    """Dose-response sketches of the first ``max_figures`` of ``compounds`` with a fit."""
+    return [{"compound": str(c),
+             "svg": sketch.dose_response_sketch(fits[c], conc_unit=conc_unit,
+                                                label=f"dose-response of {c}")}
+            for c in [c for c in compounds if c in fits][:max_figures]]
 
 
 def _plates_context(plates: pd.DataFrame, threshold: float) -> dict:
@@ -163,7 +252,7 @@ def _plates_context(plates: pd.DataFrame, threshold: float) -> dict:
             "flagged_plates": flagged}
 
 
-def _campaign_potency_context(campaign, max_figures, dpi) -> dict | None:
+def _campaign_potency_context(campaign, max_figures) -> dict | None:
     """The dose-response screen of a campaign that fitted curves itself (concentrations in
     M): the curve columns of its ranking, its plates' Z', and the curves."""
     fits = getattr(campaign, "potency_fits", {}) or {}
@@ -173,7 +262,7 @@ def _campaign_potency_context(campaign, max_figures, dpi) -> dict | None:
     ranking = campaign.ranking
     screen = ranking[ranking["compound"].isin(list(fits))]
     rows = []
-    for _, r in screen.iterrows():
+    for r in screen.to_dict("records"):
         ic50 = (f"{number_text(r['ic50_M'])} [{number_text(r['ic50_low_M'])}, "
                 f"{number_text(r['ic50_high_M'])}]"
                 if np.isfinite(r["ic50_M"]) else "")
@@ -188,7 +277,7 @@ def _campaign_potency_context(campaign, max_figures, dpi) -> dict | None:
     threshold = dict(getattr(campaign, "options", {})).get("z_prime_threshold",
                                                            Z_PRIME_THRESHOLD)
     context = {"table": {"columns": columns, "rows": rows},
-               "gallery": _gallery(fits, by_potency, "M", max_figures, dpi),
+               "gallery": _gallery(fits, by_potency, "M", max_figures),
                "n_total": len(screen), "n_failed": int((screen["status"] == "failed").sum())}
     if plates is not None and len(plates):
         context.update(_plates_context(plates, threshold))
@@ -225,9 +314,12 @@ def _as_campaign(campaign):
 
 def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campaign report",
                   rate_unit="", units=None, ki_unit="nM", potency_unit="",
-                  max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=REPORT_DPI) -> str:
+                  max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=REPORT_DPI,
+                  detail=DEFAULT_DETAIL, quiet=False) -> str:
     """The report as an HTML string (see :func:`report`)."""
+    check_detail(detail)
     ranking, fits, options = _as_campaign(campaign)
+    detailed = select_detail(detail, ranking)
     display = dict(units or {})
     if hasattr(campaign, "ranking"):
         axis_units = _units_of(campaign, rate_unit, display)
@@ -236,8 +328,18 @@ def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campai
                                        display.get("inhibitor", ""), rate_unit)
     # Anchors are numbered, never built from compound IDs (which may hold any text).
     anchors = {compound: f"compound-{k}" for k, compound in enumerate(ranking["compound"])}
-    sections = [_mechanism_section(anchors[c], c, fits.get(c), r, axis_units, dpi)
-                for c, r in zip(ranking["compound"], ranking.to_dict("records"))]
+    if potency is not None:
+        dose_fits, dose_unit = potency.fits, potency_unit
+    else:
+        dose_fits, dose_unit = getattr(campaign, "potency_fits", {}) or {}, "M"
+    sections = []
+    with _progress(len(ranking), quiet) as bar:
+        for c, r in zip(ranking["compound"], ranking.to_dict("records")):
+            sections.append(_mechanism_section(anchors[c], c, fits.get(c), r, axis_units, dpi,
+                                               detailed=c in detailed,
+                                               dose_fit=dose_fits.get(c),
+                                               dose_unit=dose_unit))
+            bar.update()
     flagged = ranking[ranking["flags"].astype(str) != ""][["compound", "status", "flags"]]
     failed = ranking[ranking["status"] == "failed"][["compound", "reason"]]
     counts = ranking["status"].value_counts().to_dict()
@@ -262,15 +364,25 @@ def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campai
         "failed": [{"compound": str(c), "anchor": anchors[c], "reason": r}
                    for c, r in failed.itertuples(index=False)],
         "sections": sections,
-        "potency": (_potency_context(potency, potency_unit, max_potency_figures, dpi)
+        "n_detailed": sum(1 for section in sections if section["detailed"]),
+        "potency": (_potency_context(potency, potency_unit, max_potency_figures)
                     if potency is not None else
-                    _campaign_potency_context(campaign, max_potency_figures, dpi)),
+                    _campaign_potency_context(campaign, max_potency_figures)),
         "rates": _rates_context(rates) if rates is not None else None,
         "units": axis_units,
         "param_units": ("concentrations in M, rates in the input's unit"
                         if hasattr(campaign, "ranking") else "in the units of the fitted data"),
     }
     return ENVIRONMENT.get_template("report.html").render(**context)
+
+
+def _progress(total, quiet):
+    """A progress bar over the compounds (on a terminal or in a notebook, unless quiet)."""
+    from tqdm.auto import tqdm
+
+    terminal = hasattr(sys.stderr, "isatty") and sys.stderr.isatty()
+    silent = quiet or not (terminal or "ipykernel" in sys.modules)
+    return tqdm(total=total, disable=silent, unit="compound", desc="report", leave=False)
 
 
 def _rates_context(rates) -> dict:
@@ -291,8 +403,14 @@ def _write_atomically(text: str, path: Path) -> None:
 
 def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaign report",
            rate_unit="", units=None, ki_unit="nM", potency_unit="",
-           max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=REPORT_DPI) -> Path:
+           max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=REPORT_DPI,
+           detail=DEFAULT_DETAIL, quiet=False) -> Path:
     """Write the campaign's report as one self-contained HTML file.
+
+    Every compound gets the overview tables, its comparison, F-tests and parameters,
+    and small SVG sketches of its fit drawn from the numbers (milliseconds each); the
+    compounds chosen by ``detail`` also get the full matplotlib figures. Nothing is
+    refitted: the intervals shown are those the campaign was fitted with.
 
     Parameters
     ----------
@@ -321,11 +439,20 @@ def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaig
     potency_unit : str
         Unit label of the dose-response concentrations.
     max_potency_figures : int
-        Dose-response figures drawn (the most potent compounds); the table lists all.
+        Dose-response sketches in the screen's gallery (the most potent compounds); the
+        table lists all.
     notes : sequence of str
         Extra paragraphs for the top of the report (e.g. "data invented for a demo").
     dpi : int
-        Resolution of the embedded figures.
+        Resolution of the embedded matplotlib figures.
+    detail : str or sequence of str
+        The compounds drawn with the full matplotlib figures (about a second each):
+        ``"top:N"`` (the N best ranked; default ``"top:5"``), ``"flagged"``, ``"all"``,
+        ``"none"``, compound IDs, or several of these (their union); see
+        :func:`select_detail`.
+    quiet : bool
+        No progress bar. Without it, a bar over the compounds is shown on a terminal or in
+        a notebook (never in a log file or a pipe).
 
     Returns
     -------
@@ -335,13 +462,16 @@ def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaig
     Raises
     ------
     DataError
-        When ``campaign`` is neither a Campaign nor a mapping of fits, or the output
-        directory does not exist.
+        When ``campaign`` is neither a Campaign nor a mapping of fits, the output
+        directory does not exist, or ``detail`` names a compound the campaign does not
+        hold or a rule it does not know.
     """
     path = Path(path)
+    if not (path.parent if str(path.parent) else Path(".")).is_dir():
+        raise DataError("the output directory does not exist", context=f"file {str(path)!r}")
     text = render_report(campaign, potency=potency, rates=rates, title=title,
                          rate_unit=rate_unit, units=units, ki_unit=ki_unit,
                          potency_unit=potency_unit, max_potency_figures=max_potency_figures,
-                         notes=notes, dpi=dpi)
+                         notes=notes, dpi=dpi, detail=detail, quiet=quiet)
     _write_atomically(text, path)
     return path

@@ -160,13 +160,16 @@ def test_help_shows_a_worked_example(name, capsys):
 
 def test_report_stage_writes_html_and_ranking(grid_file, tmp_path):
     done = run("report", "--grid", grid_file, "--intervals", "wald", "-o", "campaign.html",
-               "--ranking", "ranking.csv", cwd=tmp_path)
+               "--ranking", "ranking.csv", "--detail", "top:1", cwd=tmp_path)
     assert done.returncode == 0, done.stderr
     assert "report written to" in done.stdout
     html_text = (tmp_path / "campaign.html").read_text(encoding="utf-8")
     ranking = read_table(tmp_path / "ranking.csv")
     for compound in ranking["compound"]:
         assert compound in html_text
+    # The best ranked in full (three figures), the other five as inline sketches.
+    assert html_text.count("data:image/png;base64,") == 3
+    assert html_text.count('<svg class="sketch"') >= 2 * 5
     bad = run("report", "--grid", grid_file, "-o", "campaign.csv", cwd=tmp_path)
     assert bad.returncode == 2 and ".html" in bad.stderr
 
@@ -267,3 +270,12 @@ def test_rates_stage_reads_the_demo_headers(tmp_path):
     done = run("rates", DEMO / "invented_moa_reads.csv", "--plate-map",
                DEMO / "invented_moa_plate_map.csv", "-o", "r.csv", cwd=tmp_path)
     assert done.returncode == 2 and "--signal" in done.stderr and "product_uM" in done.stderr
+
+
+def test_report_stage_checks_detail_before_any_work(grid_file, tmp_path, capsys):
+    from inhibkin.cli import main
+
+    status = main(["report", "--grid", str(grid_file), "-o", str(tmp_path / "r.html"),
+                   "--detail", "top:ten"])
+    assert status == 2 and "top:N needs a whole number" in capsys.readouterr().err
+    assert list(tmp_path.iterdir()) == []

@@ -19,10 +19,12 @@ from inhibkin.potency_table import potency_table
 from inhibkin.report import (
     CAUTIONS,
     campaign_html,
+    check_detail,
     dose_response_html,
     fit_html,
     render_report,
     report,
+    select_detail,
 )
 from inhibkin.simulate import simulate_grid
 
@@ -98,15 +100,20 @@ def potency():
 @pytest.fixture(scope="module")
 def written(campaign, potency, tmp_path_factory):
     path = tmp_path_factory.mktemp("report") / "report.html"
-    report(campaign, path, potency=potency, rate_unit="µM/min", potency_unit="µM")
+    # One compound in full (the matplotlib figures), the others as sketches.
+    report(campaign, path, potency=potency, rate_unit="µM/min", potency_unit="µM",
+           detail=[HOSTILE])
     return path
 
 
-def test_report_is_one_self_contained_file(written):
+def test_report_is_one_self_contained_file(written, campaign):
     text = written.read_text(encoding="utf-8")
     assert text.startswith("<!DOCTYPE html>")
     assert_self_contained(text)
-    assert text.count("data:image/png;base64,") >= 3 * 3  # three figures per fitted compound
+    assert text.count("data:image/png;base64,") == 3  # three figures of the one in full
+    n_sketched = len(campaign.fits) - 1
+    # Each sketched compound: the global fit and its residuals as inline SVG.
+    assert text.count('<svg class="sketch"') >= 2 * n_sketched
     assert sorted(p.name for p in written.parent.iterdir()) == ["report.html"]  # no temp file
 
 
@@ -140,11 +147,13 @@ def test_campaign_without_potency_and_mapping_of_fits(tmp_path):
                          i=[0, 0.5, 1, 2], cv=0.03, seed=SEED)
     fits = {"X-1": fit_mechanisms(data, intervals="wald"),
             "X-2": fit_mechanisms(data, models=("none", "competitive"), intervals="wald")}
-    path = report(fits, tmp_path / "fits.html", units={"substrate": "mM", "inhibitor": "µM"})
+    path = report(fits, tmp_path / "fits.html", units={"substrate": "mM", "inhibitor": "µM"},
+                  detail=["X-1"])
     text = path.read_text(encoding="utf-8")
     assert_self_contained(text)
     assert "X-1" in text and "X-2" in text and "the mixed fit did not converge" in text
-    assert "substrate (mM)" not in text  # axis labels live inside the PNGs, not the HTML
+    # X-2 is sketched: its axes are SVG text in the display units asked for.
+    assert "substrate (mM)" in text and "0.5 µM" in text
 
 
 def test_report_refuses_other_inputs_and_missing_directories(campaign, tmp_path):
@@ -158,7 +167,7 @@ def test_report_refuses_other_inputs_and_missing_directories(campaign, tmp_path)
 def test_report_replaces_an_existing_file_whole(campaign, tmp_path):
     path = tmp_path / "r.html"
     path.write_text("old")
-    report(campaign, path)
+    report(campaign, path, detail="none")
     assert path.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
     assert [p.name for p in tmp_path.iterdir()] == ["r.html"]
 
@@ -205,3 +214,36 @@ def test_report_of_a_campaign_shows_its_own_dose_response_screen(tmp_path):
     for compound in ("DR-A", "DR-B", "DR-C"):
         assert text.count(compound) >= 2  # ranked table and the screen table
     assert_self_contained(text)
+
+
+def test_detail_chooses_rules_and_compound_ids():
+    ranking = pd.DataFrame({"compound": ["A", "flagged", "C", "D"],
+                            "flags": ["", "", "noisy", ""]})
+    assert select_detail("top:2", ranking) == {"A", "flagged"}
+    assert select_detail("none", ranking) == set()
+    assert select_detail("all", ranking) == {"A", "flagged", "C", "D"}
+    assert select_detail(["top:1", "D"], ranking) == {"A", "D"}
+    # An item that is a compound's exact text names the compound, not the rule.
+    assert select_detail("flagged", ranking) == {"flagged"}
+    assert select_detail("flagged", ranking.assign(compound=list("ABCD"))) == {"C"}
+    with pytest.raises(DataError, match="neither a compound of the campaign nor a rule"):
+        select_detail(["A", "Z-9"], ranking)
+    with pytest.raises(DataError, match="top:N needs a whole number"):
+        check_detail("top:ten")
+    with pytest.raises(DataError, match="as text"):
+        check_detail([3])
+
+
+def test_sketched_report_has_no_raster_and_valid_svg(campaign, tmp_path):
+    import xml.etree.ElementTree as ET
+
+    text = render_report(campaign, detail="none")
+    assert "data:image/png" not in text
+    assert_self_contained(text)
+    sketches = re.findall(r'<svg class="sketch".*?</svg>', text, flags=re.S)
+    assert len(sketches) >= 2 * len(campaign.fits)
+    for svg in sketches:
+        ET.fromstring(svg)  # well-formed: every text escaped, every element closed
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in text and HOSTILE not in text
+    # Budget of the issue: 1,000 compounds in at most 20 MB.
+    assert len(text.encode("utf-8")) / len(campaign.ranking) < 20_000

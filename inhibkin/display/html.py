@@ -68,10 +68,10 @@ def table_cells(frame: pd.DataFrame, *, index=True, fmt="{:.4g}") -> dict:
     """A DataFrame as header + rows of cells for the template (numbers formatted)."""
     columns = ([frame.index.name or ""] if index else []) + [str(c) for c in frame.columns]
     rows = []
-    for label, row in frame.iterrows():
-        cells = [cell(label)] if index else []
-        for value in row:
-            if isinstance(value, (float, np.floating)):
+    for values in frame.itertuples(index=index, name=None):
+        cells = []
+        for k, value in enumerate(values):
+            if isinstance(value, (float, np.floating)) and not (index and k == 0):
                 cells.append(cell(number_text(value, fmt), value))
             else:
                 cells.append(cell(value))
@@ -83,7 +83,12 @@ def parameter_cells(model_fit) -> dict:
     """Estimate as read (a number, or a bound), standard error and interval."""
     pct = f"{100 * model_fit.level:g}%"
     rows = []
-    for name, row in model_fit.params.iterrows():
+    params = model_fit.params
+    # Column arrays, not iterrows: a report builds five of these tables per compound.
+    columns = {c: params[c].to_numpy() for c in ("estimate", "se", "ci_low", "ci_high",
+                                                 "determined")}
+    for k, name in enumerate(params.index):
+        row = {c: values[k] for c, values in columns.items()}
         rows.append([cell(name), cell(format_estimate(row), row["estimate"]),
                      cell(number_text(row["se"]), row["se"]),
                      cell(f"[{number_text(row['ci_low'])}, {number_text(row['ci_high'])}]",
@@ -96,7 +101,7 @@ def parameter_cells(model_fit) -> dict:
 def ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
     factor = float(from_molar(1.0, ki_unit))
     rows = []
-    for _, r in ranking.iterrows():
+    for r in ranking.to_dict("records"):
         status = r["status"]
         if status == "determined" and np.isfinite(r["ki_M"]):
             ki = (f"{number_text(r['ki_M'] * factor)} [{number_text(r['ki_low_M'] * factor)}, "
