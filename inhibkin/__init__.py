@@ -25,6 +25,12 @@ from .rates import InitialRates, initial_rates
 from .report import fit_html, report
 from .signal import CHROMOPHORES, BeerLambert, StandardCurve, fit_standard_curve
 from .simulate import simulate_grid, standard_design
+from .time_dependent import (
+                             PreincubationFit,
+                             TimeDependentFit,
+                             fit_preincubation,
+                             fit_time_dependent,
+)
 from .units import from_molar, to_molar
 
 __version__ = "0.1.0"
@@ -77,4 +83,8 @@ __all__ = [
     "fit_michaelis_menten",
     "simulate_grid",
     "standard_design",
+    "PreincubationFit",
+    "TimeDependentFit",
+    "fit_preincubation",
+    "fit_time_dependent",
 ]

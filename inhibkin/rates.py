@@ -69,8 +69,8 @@ from scipy import stats
 
 from .errors import DataError, Problem, UnitsError
 from .signal import BeerLambert, StandardCurve, blank_signal
-from .units import from_molar, normalise_unit, split_unit, to_molar, to_seconds
 from .time_dependent.detect import time_dependence
+from .units import from_molar, normalise_unit, split_unit, to_molar, to_seconds
 from .validate import check_columns, numeric_column
 
 __all__ = ["InitialRates", "RateOptions", "initial_rates", "FLAGS", "METHODS", "ROLES"]

@@ -15,7 +15,7 @@ The inhibitor competes with substrate for free enzyme. Concentrations µM, times
 from __future__ import annotations
 
 from dataclasses import dataclass
-from functools import lru_cache
+from functools import cache
 
 import numpy as np
 from scipy.integrate import solve_ivp
@@ -55,7 +55,7 @@ def _rhs(_t, y, p):
             turn]
 
 
-@lru_cache(maxsize=None)
+@cache
 def product_curve(scheme: Scheme, substrate: float, inhibitor: float,
                   times: tuple[float, ...]) -> np.ndarray:
     """Product (µM) at ``times`` (s) after mixing enzyme into substrate and inhibitor.

@@ -7,3 +7,9 @@ comparison and derived constants), :mod:`.global_fit` (all progress curves at on
 ``time_dependent`` flag of the rates stage), :mod:`.results` (the public entry points and
 result objects) and :mod:`.plots` (the figures a reviewer checks).
 """
+
+from .results import PreincubationFit, TimeDependentFit, fit_preincubation, fit_time_dependent
+from .schemes import SCHEMES, KobsScheme, progress_curve
+
+__all__ = ["PreincubationFit", "TimeDependentFit", "fit_preincubation", "fit_time_dependent",
+           "SCHEMES", "KobsScheme", "progress_curve"]
