@@ -73,6 +73,8 @@ class TimeDependentFit:
     substrate, km : float or None
         The assay's S and Km used for the competitive correction (None: apparent values).
     level : float
+    reads : pandas.DataFrame
+        The reads fitted: well, time, signal (for the figures).
     """
 
     compound: str | None
@@ -88,6 +90,7 @@ class TimeDependentFit:
     substrate: float | None = None
     km: float | None = None
     level: float = 0.95
+    reads: pd.DataFrame | None = field(default=None, repr=False)
 
     @property
     def kinact_over_ki(self) -> float:
@@ -267,7 +270,10 @@ def fit_time_dependent(reads, *, well="well", time="time", signal="signal",
         global_constants = derived_constants(joint, substrate=substrate, km=km, level=level)
     return TimeDependentFit(compound, table, scheme, comparison, pd.Series(ftest),
                             by_scheme[scheme], by_scheme["two_step"], by_scheme["one_step"],
-                            global_constants, irreversible, substrate, km, level)
+                            global_constants, irreversible, substrate, km, level,
+                            pd.DataFrame({"well": reads[well].to_numpy(),
+                                          "time": reads[time].to_numpy(dtype=float),
+                                          "signal": reads[signal].to_numpy(dtype=float)}))
 
 
 @dataclass(frozen=True)
