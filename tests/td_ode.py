@@ -88,3 +88,20 @@ def plate_reads(scheme, substrate, inhibitors, times, *, noise_sd, seed, replica
                                       "signal": signal, "substrate": substrate,
                                       "inhibitor": inhibitor}))
     return pd.concat(rows, ignore_index=True)
+
+
+@cache
+def preincubated(scheme: Scheme, inhibitor: float, time: float) -> tuple[float, float]:
+    """Enzyme after pre-incubation with inhibitor alone for ``time`` s.
+
+    Returns
+    -------
+    free, active : float
+        Fractions of the enzyme free (E) and not yet in the final complex (E + EI): the
+        activity read in the inhibitor's presence, and after a jump dilution.
+    """
+    y0 = [scheme.enzyme, 0.0, 0.0, inhibitor, 0.0, 0.0, 0.0]
+    sol = solve_ivp(_rhs, (0.0, time), y0, method="LSODA", rtol=1e-10, atol=1e-18,
+                    args=(scheme,))
+    e, _, _, _, ei, _, _ = sol.y[:, -1]
+    return e / scheme.enzyme, (e + ei) / scheme.enzyme

@@ -21,7 +21,7 @@ from ..validate import check_columns, numeric_column
 from .dependence import compare_schemes, derived_constants, fit_scheme
 from .global_fit import fit_global_inactivation
 from .kobs import kobs_arrays
-from .preincubation import fit_ic50_times, ic50_shift, ic50_table
+from .preincubation import fit_activity_surface, fit_ic50_times, ic50_shift, ic50_table
 
 __all__ = ["TimeDependentFit", "PreincubationFit", "fit_time_dependent", "fit_preincubation"]
 
@@ -285,14 +285,17 @@ class PreincubationFit:
     compound : str or None
     ic50s : pandas.DataFrame
         One row per time (ascending): time, ic50, ci_low, ci_high, log_ic50_se, n_obs,
-        curve_class, ic50_bound.
+        curve_class, bottom.
     shift : float
         IC50(shortest)/IC50(longest).
     time_dependent : bool
         The ``ic50_shift`` flag (:func:`inhibkin.time_dependent.preincubation.ic50_shift`).
     constants : pandas.DataFrame or None
-        kinact, ki, kinact_over_ki with estimate, ci_low, ci_high (None with fewer than
-        three times with a finite IC50).
+        kinact, ki, kinact_over_ki with estimate, ci_low, ci_high from the activity of
+        every well (:func:`inhibkin.time_dependent.preincubation.fit_activity_surface`);
+        None without an IC50 shift or with fewer than three times with a finite IC50.
+    ic50_constants : pandas.DataFrame or None
+        The same from the IC50(t) relation alone.
     level : float
     """
 
@@ -301,6 +304,7 @@ class PreincubationFit:
     shift: float
     time_dependent: bool
     constants: pd.DataFrame | None = field(repr=False)
+    ic50_constants: pd.DataFrame | None = field(repr=False)
     level: float = 0.95
 
     @property
@@ -325,8 +329,10 @@ class PreincubationFit:
                  "-" * _WIDTH, _frame_text(self.ic50s)]
         if self.constants is not None:
             lines += ["-" * _WIDTH,
-                      f"kinact and KI from IC50(t) ({self.level:.0%} intervals)",
-                      _frame_text(self.constants)]
+                      f"kinact and KI from every well ({self.level:.0%} intervals)",
+                      _frame_text(self.constants),
+                      "kinact and KI from the IC50(t) relation alone",
+                      _frame_text(self.ic50_constants)]
         lines.append("=" * _WIDTH)
         return "\n".join(lines)
 
@@ -384,5 +390,11 @@ def fit_preincubation(data, *, inhibitor="inhibitor", time="preincubation",
     keep = conc > 0
     ic50s = ic50_table(conc[keep], times[keep], act[keep], level=level)
     shift, flagged = ic50_shift(ic50s, shift_factor=shift_factor)
-    return PreincubationFit(compound, ic50s, shift, flagged, fit_ic50_times(ic50s, level=level),
-                            level)
+    # kinact and KI describe a shift; without one they are not determined.
+    from_ic50 = fit_ic50_times(ic50s, level=level) if flagged else None
+    surface = None
+    if from_ic50 is not None:
+        start = (from_ic50.loc["kinact", "estimate"], from_ic50.loc["ki", "estimate"])
+        surface = fit_activity_surface(conc[keep], times[keep], act[keep], start=start,
+                                       level=level)
+    return PreincubationFit(compound, ic50s, shift, flagged, surface, from_ic50, level)
