@@ -204,3 +204,22 @@ def test_bad_input_names_column_and_value():
     few = reads_of(COVALENT, 1, inhibitors=(0.0, 5.0, 20.0))
     with pytest.raises(DataError, match="at least 4 inhibited wells"):
         ik.fit_time_dependent(few)
+
+
+def test_cli_stage_isolates_a_bad_compound(tmp_path):
+    from inhibkin.cli import EXIT_SOME_FAILED, main
+
+    good = reads_of(COVALENT, 13).assign(compound="COV-1")
+    bad = reads_of(COVALENT, 13, inhibitors=(0.0, 5.0)).assign(compound="cov 2 (bad)")
+    source = tmp_path / "reads.csv"
+    pd.concat([good, bad]).to_csv(source, index=False)
+    out, kobs = tmp_path / "constants.csv", tmp_path / "kobs.csv"
+    status = main(["inactivation", str(source), "-o", str(out), "--kobs", str(kobs),
+                   "--substrate-conc", "100", "--km", str(COVALENT.km), "--quiet"])
+    assert status == EXIT_SOME_FAILED
+    table = pd.read_csv(out)
+    assert list(table["compound"]) == ["COV-1", "cov 2 (bad)"]
+    assert list(table["status"]) == ["ok", "failed"]
+    assert "at least 4 inhibited wells" in table["error"].iloc[1]
+    assert table["k5_over_ki_low"].iloc[0] < table["k5_over_ki"].iloc[0]
+    assert set(pd.read_csv(kobs)["compound"]) == {"COV-1"}
