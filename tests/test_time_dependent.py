@@ -24,14 +24,17 @@ TIMES = tuple(np.linspace(0.0, 3600.0, 61))
 SUBSTRATE = 100.0
 INHIBITORS = (0.0, 2.0, 5.0, 10.0, 20.0, 50.0, 100.0, 200.0)
 NOISE = 0.001                      # µM, about 0.1 % of the control's 3600-s product
-COVALENT = Scheme(kon=10.0, koff=10.0, k5=0.002)            # KI ≈ 1 µM, kinact 0.002/s
+# KI ≈ 1 µM, kinact 0.002/s; little enzyme, so the controls convert only 0.3 % of S (the
+# progress-curve equation assumes no depletion; docs/time_dependent.md measures 1.6 %).
+COVALENT = Scheme(kon=10.0, koff=10.0, k5=0.002, enzyme=1e-6)
+COVALENT_NOISE = 2e-4      # µM, the same read signal-to-noise as NOISE at 5× the enzyme
 SLOW_ONE_STEP = Scheme(kon=2e-4, koff=2e-4)                 # Ki 1 µM, slow both ways
 SLOW_TWO_STEP = Scheme(kon=10.0, koff=10.0, k5=0.003, k6=0.0003)
 RAPID = Scheme(kon=10.0, koff=10.0)
 
 # Relative tolerances, named where they are used.
 EXACT_RTOL = 1e-6
-ODE_KOBS_RTOL = 0.03     # substrate depletion (≈ 1.6 % conversion) and the ES steady state
+ODE_KOBS_RTOL = 0.03     # substrate depletion and the ES steady state
 IC50_SHAPE_RTOL = 0.12   # a 4PL only approximates 100·exp(−kobs·t) (preincubation.py notes)
 
 
@@ -41,7 +44,8 @@ def ki_two_step(scheme):
 
 
 def reads_of(scheme, seed, inhibitors=INHIBITORS):
-    return plate_reads(scheme, SUBSTRATE, inhibitors, TIMES, noise_sd=NOISE, seed=seed)
+    noise = COVALENT_NOISE if scheme == COVALENT else NOISE
+    return plate_reads(scheme, SUBSTRATE, inhibitors, TIMES, noise_sd=noise, seed=seed)
 
 
 @pytest.fixture(scope="module")
@@ -91,18 +95,35 @@ def test_kobs_per_well_matches_scipy_curve_fit_and_covers_the_truth():
             1 + ODE_KOBS_RTOL)
 
 
-def test_covalent_two_step_kinact_ki_and_global_fit_agree(covalent_fit):
-    fit = covalent_fit
-    assert fit.scheme == "two_step"
-    c = fit.constants
+# A few seeds per claim (the many-seed study is benchmarks/time_dependent_study.py): with
+# 95 % intervals covering at the nominal rate, 8 or more of 10 cover with probability
+# 0.988 (binomial).
+SEEDS = tuple(range(11, 21))
+MIN_COVERED = 8
+
+
+@pytest.fixture(scope="module")
+def covalent_fits():
+    return [ik.fit_time_dependent(reads_of(COVALENT, seed), substrate=SUBSTRATE,
+                                  km=COVALENT.km) for seed in SEEDS]
+
+
+def test_covalent_two_step_recovers_kinact_ki_and_kinact_over_ki(covalent_fits):
     # Truth from the elementary steps (KI = (koff + kinact)/kon; S/Km corrected).
     truth = {"k5": COVALENT.k5, "ki": ki_two_step(COVALENT),
              "k5_over_ki": COVALENT.k5 / ki_two_step(COVALENT)}
-    for name, value in truth.items():
-        assert c.loc[name, "ci_low"] < value < c.loc[name, "ci_high"], name
-    g = fit.global_constants
-    for name in truth:
-        # The two routes agree: each estimate inside the other route's interval.
+    assert all(fit.scheme == "two_step" for fit in covalent_fits)
+    for route in ("constants", "global_constants"):
+        for name, value in truth.items():
+            covered = sum(getattr(fit, route).loc[name, "ci_low"] < value
+                          < getattr(fit, route).loc[name, "ci_high"] for fit in covalent_fits)
+            assert covered >= MIN_COVERED, (route, name, covered)
+
+
+def test_global_fit_and_two_step_route_agree(covalent_fit):
+    c, g = covalent_fit.constants, covalent_fit.global_constants
+    for name in ("k5", "ki", "k5_over_ki"):
+        # Each route's estimate inside the other route's interval.
         assert g.loc[name, "ci_low"] < c.loc[name, "estimate"] < g.loc[name, "ci_high"]
         assert c.loc[name, "ci_low"] < g.loc[name, "estimate"] < c.loc[name, "ci_high"]
 
