@@ -498,6 +498,9 @@ def _inactivation(args) -> int:
 
     output = _check_output(args.output)
     kobs_path = _check_output(args.kobs) if args.kobs else None
+    for option, path in (("--output", output), ("--kobs", kobs_path)):
+        if path is not None and path.resolve() == Path(args.reads).resolve():
+            raise DataError(Problem(option, None, str(path), "would overwrite the input reads"))
     reads = read_table(args.reads)
     if args.compound in reads.columns:
         groups = list(reads.groupby(args.compound, sort=False))
