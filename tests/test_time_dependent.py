@@ -16,6 +16,7 @@ from td_ode import Scheme, plate_reads, preincubated, product_curve
 import inhibkin as ik
 from inhibkin.errors import DataError
 from inhibkin.time_dependent import plots
+from inhibkin.time_dependent.detect import time_dependent_grid
 from inhibkin.time_dependent.kobs import kobs_arrays
 from inhibkin.time_dependent.preincubation import ic50_at_time
 from inhibkin.time_dependent.schemes import SCHEMES, progress_curve
@@ -162,6 +163,10 @@ def test_rates_stage_flags_slow_binding_but_not_rapid_equilibrium():
     slow, rapid = rates(SLOW_ONE_STEP), rates(RAPID)
     assert slow[slow.index >= 20].all() and not slow[slow.index == 0].any()
     assert not rapid.any()
+    # The hook a grid fit asks before reporting a steady-state Ki.
+    flags = slow.map({True: "time_dependent", False: ""})
+    assert time_dependent_grid(pd.DataFrame({"inhibitor": slow.index, "flags": flags}))
+    assert not time_dependent_grid(pd.DataFrame({"inhibitor": rapid.index, "flags": ""}))
 
 
 def test_preincubation_ic50_shift_gives_kinact_and_ki():

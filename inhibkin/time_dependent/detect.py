@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-__all__ = ["time_dependence"]
+__all__ = ["time_dependence", "time_dependent_grid"]
 
 # The rates stage's burst margin: depletion and product inhibition explain at most twice
 # the references' fall per product formed.
@@ -99,3 +99,24 @@ def time_dependence(t, y, valid, *, substrate, inhibitor, group,
                & (z > stats.norm.isf(level)))
     return pd.DataFrame({"rate_fall": fall, "explained_fall": explained, "fall_se": ratio_se,
                          "time_dependent": flagged})
+
+
+def time_dependent_grid(table, *, inhibitor="inhibitor", flags="flags") -> bool:
+    """Whether any inhibited well of a rates table carries the ``time_dependent`` flag.
+
+    The hook for a grid fit: a grid built on such wells violates the steady-state
+    assumption, so its verdict should say ``time dependent`` instead of reporting a Ki.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        A rates table (``InitialRates.table``); without a ``flags`` column, False.
+    inhibitor, flags : str
+        Column names.
+    """
+    if flags not in table.columns or inhibitor not in table.columns:
+        return False
+    inhibited = pd.to_numeric(table[inhibitor], errors="coerce") > 0
+    marked = table[flags].fillna("").astype(str).str.split(";").apply(
+        lambda names: "time_dependent" in names)
+    return bool((inhibited & marked).any())
