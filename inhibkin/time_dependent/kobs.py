@@ -22,7 +22,7 @@ from scipy import optimize, stats
 from ..compare import f_test
 from .schemes import onset, progress_curve
 
-__all__ = ["kobs_arrays", "KOBS_FLAGS"]
+__all__ = ["kobs_arrays", "grid_profile", "KOBS_FLAGS"]
 
 KOBS_FLAGS = {
     "no_onset": "no curvature within the read: kobs·T at the low end of the search",
@@ -44,7 +44,7 @@ def _design(t, c, total, irreversible):
     return np.stack([ones, t[:, None, :] - g, g], axis=-1)
 
 
-def _grid_profile(t, y, valid, irreversible):
+def grid_profile(t, y, valid, irreversible):
     """Best grid kobs·T of every well and its linear coefficients, in one pass."""
     total = np.nanmax(np.where(valid, t, np.nan), axis=1)
     tz = np.where(valid, t, 0.0)
@@ -111,7 +111,7 @@ def kobs_arrays(t, y, valid, *, irreversible=True, level=0.95) -> pd.DataFrame:
     n_wells = t.shape[0]
     n_par = 3 if irreversible else 4
     n_points = valid.sum(axis=1)
-    k_start, beta, best, _ = _grid_profile(t, y, valid, irreversible)
+    k_start, beta, best, _ = grid_profile(t, y, valid, irreversible)
     out = {name: np.full(n_wells, np.nan) for name in
            ("kobs", "kobs_low", "kobs_high", "log_kobs_se", "vi", "vi_se", "vs", "vs_se",
             "p0", "residual_sd", "p_curvature")}
