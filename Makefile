@@ -5,7 +5,7 @@ BIN := $(VENV)/bin
 STAMP_TEST := $(VENV)/.installed-test
 STAMP_DEMO := $(VENV)/.installed-demo
 
-.PHONY: demo test lint bench validate clean
+.PHONY: demo test lint bench validate validate-time-dependent clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -33,6 +33,9 @@ bench: $(STAMP_TEST)
 
 validate: $(STAMP_TEST)
 	$(BIN)/python -m benchmarks.validation
+
+validate-time-dependent: $(STAMP_TEST)
+	$(BIN)/python -m benchmarks.time_dependent_study --out docs/time_dependent.md
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache .ruff_cache

@@ -70,6 +70,10 @@ _EXPORTS = {
     "ResultStore": "store",
     "minimum_significant_ratio": "store",
     "write_campaign": "store",
+    "PreincubationFit": "time_dependent",
+    "TimeDependentFit": "time_dependent",
+    "fit_preincubation": "time_dependent",
+    "fit_time_dependent": "time_dependent",
     "from_molar": "units",
     "to_molar": "units",
 }

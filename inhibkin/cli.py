@@ -31,8 +31,9 @@ EXIT_UNUSABLE_INPUT = 2
 _DESCRIPTION = """\
 Characterise enzyme inhibitors from plate data, one stage at a time: initial rates from
 kinetic reads (rates), the mechanism of each compound from its substrate × inhibitor grid
-(mechanism), IC50 and Ki from dose-response plates (potency), a ranking by pKi (rank) and
-an HTML report (report). Each stage reads and writes CSV or Parquet tables; `inhibkin
+(mechanism), IC50 and Ki from dose-response plates (potency), a ranking by pKi (rank), an
+HTML report (report) and kinact, KI and kinact/KI of time-dependent inhibitors
+(inactivation). Each stage reads and writes CSV or Parquet tables; `inhibkin
 STAGE --help` shows its options and a worked example.
 
 Exit status: 0 when every compound was fitted, 1 when some failed (every result is still
@@ -809,6 +810,68 @@ def _simulate(args) -> int:
     return EXIT_OK
 
 
+def _inactivation_arguments(parser):
+    parser.add_argument("reads", help="kinetic reads: well, time, signal, inhibitor[, compound]")
+    parser.add_argument("-o", "--output", required=True,
+                        help="one row per compound: scheme and constants with intervals")
+    parser.add_argument("--kobs", help="also write kobs of every well")
+    parser.add_argument("--compound", default="compound",
+                        help="compound column (absent: the whole file is one compound)")
+    parser.add_argument("--well", default="well")
+    parser.add_argument("--time", default="time")
+    parser.add_argument("--signal", default="signal")
+    parser.add_argument("--inhibitor", default="inhibitor")
+    parser.add_argument("--reversible", action="store_true",
+                        help="slow reversible binding (fit vs, k6, koff) instead of covalent")
+    parser.add_argument("--substrate-conc", type=float,
+                        help="assay substrate concentration, for KI = KI,app/(1 + S/Km)")
+    parser.add_argument("--km", type=float, help="Km in the substrate's unit")
+    parser.add_argument("--level", type=float, default=0.95)
+
+
+def _inactivation(args) -> int:
+    import pandas as pd
+
+    from .io import read_table, write_table
+    from .time_dependent import fit_time_dependent
+    from .validate import check_options
+
+    output = _check_output(args.output)
+    kobs_path = _check_output(args.kobs, "--kobs") if args.kobs else None
+    _check_paths({"reads": args.reads}, {"--output": output, "--kobs": kobs_path})
+    check_options({"--level": args.level})
+    reads = read_table(args.reads, text_columns=[args.compound])
+    if args.compound in reads.columns:
+        groups = list(reads.groupby(args.compound, sort=False))
+    else:
+        groups = [(None, reads)]
+    rows, wells, failed = [], [], 0
+    for name, part in groups:
+        row = {"compound": name}
+        try:
+            fit = fit_time_dependent(part, well=args.well, time=args.time,
+                                     signal=args.signal, inhibitor=args.inhibitor,
+                                     irreversible=not args.reversible,
+                                     substrate=args.substrate_conc, km=args.km,
+                                     level=args.level, compound=name)
+        except InhibkinError as err:
+            failed += 1
+            rows.append(row | {"status": "failed", "error": str(err)})
+            continue
+        row |= {"scheme": fit.scheme, "p_value": fit.ftest["p_value"]}
+        for constant, values in fit.constants.iterrows():
+            row |= {constant: values["estimate"], f"{constant}_low": values["ci_low"],
+                    f"{constant}_high": values["ci_high"]}
+        rows.append(row | {"status": "ok", "error": ""})
+        wells.append(fit.kobs.assign(compound=name))
+        if not args.quiet:
+            print(fit.summary())
+    write_table(pd.DataFrame(rows), output)
+    if kobs_path is not None and wells:
+        write_table(pd.concat(wells, ignore_index=True), kobs_path)
+    return EXIT_SOME_FAILED if failed else EXIT_OK
+
+
 def _demo_arguments(parser):
     parser.add_argument("--out", default="demo_output", help="output directory")
 
@@ -877,6 +940,12 @@ SUBCOMMANDS = [
         "  inhibkin store results.sqlite history CPD-0007\n"
         "  inhibkin store results.sqlite msr",
         _store_stage_arguments, _store_stage, parallel=False),
+    Subcommand(
+        "inactivation", "kobs per well, one-step or two-step, kinact, KI and kinact/KI",
+        "inhibkin inactivation data_demo/invented_covalent_reads.csv --time time_s "
+        "--signal product_uM --inhibitor inhibitor_uM --substrate-conc 200 --km 40 "
+        "-o constants.csv --kobs kobs.csv",
+        _inactivation_arguments, _inactivation, parallel=False),
     Subcommand("demo", "run the demo flow on invented data", "inhibkin demo",
                _demo_arguments, _demo, parallel=False),
 ]

@@ -70,6 +70,7 @@ from scipy import stats
 
 from .errors import DataError, Problem, UnitsError
 from .signal import BeerLambert, StandardCurve, blank_signal
+from .time_dependent.detect import time_dependence
 from .units import from_molar, normalise_unit, split_unit, to_molar, to_seconds
 from .validate import check_columns, normalise_roles, numeric_column, row_kind
 
@@ -94,6 +95,10 @@ FLAGS = {
     "flat": "the slope cannot be told from zero (|rate| ≤ 2 standard errors)",
     "negative_slope": "the signal moves against the product (rate < −2 standard errors)",
     "noisy": "the rate's standard error exceeds max_rate_cv of the rate",
+    "time_dependent": "an inhibited well's rate falls with time beyond what substrate "
+                      "depletion explains from the wells without inhibitor at the same "
+                      "plate and substrate (slow binding or inactivation; see "
+                      "inhibkin.time_dependent.detect)",
 }
 
 # A well label: row letters and a column number; "A01", "a1" and " A1" are one well.
@@ -813,6 +818,12 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
                            min_points=min_points) if n_wells else None
         rows = _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells,
                          options=options)
+        if n_wells:
+            plate_of = plate_map[plate].astype(str).to_numpy()[wells_rated]
+            onset = time_dependence(t_grid, y_grid, valid, substrate=s0,
+                                    inhibitor=i_map[wells_rated], group=plate_of)
+            _add_flag(rows, onset["time_dependent"].to_numpy() & (rows["status"] != "failed"),
+                      "time_dependent")
 
     factor = to_seconds(1.0, rate_time_unit) / to_seconds(1.0, time_unit)
     to_rate_unit = factor / sensitivity / stoichiometry
@@ -846,6 +857,13 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     controls = out[role_of == "control"].reset_index(drop=True)
     table.attrs["units"] = dict(units)
     return InitialRates(table, controls, unmatched, units, options)
+
+
+def _add_flag(rows, mask, name):
+    """Append flag ``name`` to the wells in ``mask`` (status ok becomes flagged)."""
+    flags = rows["flags"]
+    rows["flags"] = np.where(mask, np.where(flags == "", name, flags + ";" + name), flags)
+    rows["status"] = np.where(mask & (rows["status"] == "ok"), "flagged", rows["status"])
 
 
 def _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells, *, options):

@@ -222,6 +222,39 @@ def moa_truth() -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+# Invented covalent series: (ID, kinact per s, KI µM), read as progress curves at one
+# substrate level; the inhibitor competes with substrate (KI,app = KI(1 + S/Km)).
+COVALENT_COMPOUNDS = (("INV-C101", 0.004, 0.5), ("INV-C102", 0.001, 2.0),
+                      ("INV-C103", 0.003, 5.0))
+COVALENT_SUBSTRATE_UM = 200.0
+COVALENT_V0_UM_PER_S = 0.002
+COVALENT_TIMES_S = np.arange(0.0, 3601.0, 60.0)
+COVALENT_MULTIPLES = np.array([0.0, 0.25, 0.5, 1.0, 2.0, 4.0, 8.0])
+COVALENT_NOISE_UM = 0.005
+
+
+def make_covalent(rng):
+    """Progress curves of the invented covalent series and its truth (slow-onset equation)."""
+    from inhibkin.time_dependent import progress_curve
+
+    factor = 1.0 + COVALENT_SUBSTRATE_UM / KM_UM
+    reads, truth = [], []
+    for compound, kinact, ki in COVALENT_COMPOUNDS:
+        ki_app = ki * factor
+        for j, conc in enumerate(COVALENT_MULTIPLES * ki_app):
+            vi = COVALENT_V0_UM_PER_S / (1.0 + conc / ki_app)
+            kobs = kinact * conc / (ki_app + conc)
+            product = progress_curve(COVALENT_TIMES_S, 0.0, vi, 0.0, kobs)
+            reads.append(pd.DataFrame({
+                "compound": compound, "well": f"{compound[-3:]}-{j + 1:02d}",
+                "time_s": COVALENT_TIMES_S, "inhibitor_uM": round(float(conc), 4),
+                "product_uM": np.round(product + rng.normal(0.0, COVALENT_NOISE_UM,
+                                                            product.size), 5)}))
+        truth.append({"compound": compound, "kinact_per_s": kinact, "ki_uM": ki,
+                      "kinact_over_ki_per_uM_per_s": kinact / ki})
+    return pd.concat(reads, ignore_index=True), pd.DataFrame(truth)
+
+
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--out", default="data_demo", help="output directory")
@@ -236,6 +269,10 @@ def main(argv=None) -> int:
     screen.to_csv(out / "invented_screen_wells.csv", index=False)
     moa_truth().to_csv(out / "invented_moa_truth.csv", index=False)
     screen_truth.to_csv(out / "invented_screen_truth.csv", index=False)
+    # Its own generator, so the files above stay as they were.
+    covalent, covalent_truth = make_covalent(np.random.default_rng(SEED + 16))
+    covalent.to_csv(out / "invented_covalent_reads.csv", index=False)
+    covalent_truth.to_csv(out / "invented_covalent_truth.csv", index=False)
     return 0
 
 

@@ -1,0 +1,233 @@
+"""Many-seed study of time-dependent inhibition against the mass-action ODE of tests/td_ode.py.
+
+``python -m benchmarks.time_dependent_study [--n N] [--out docs/time_dependent.md]``
+(``make validate-time-dependent``). Each scheme's ODE is solved once (cached); every seed
+draws new read noise (``np.random.default_rng(seed)``). Reported, with Clopper–Pearson
+95 % bands:
+
+* coverage of the 95 % intervals of kinact, KI and kinact/KI (two-step route and global
+  fit) on a covalent inhibitor whose design spans KI,app;
+* how often the scheme is called right (two-step covalent, one-step covalent, one-step
+  and two-step slow reversible binding);
+* how often the rates stage's ``time_dependent`` flag fires on inhibited wells of
+  slow-binding plates and of rapid-equilibrium plates with the same substrate depletion.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+import inhibkin as ik
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+from td_ode import Scheme, plate_reads, preincubated  # noqa: E402
+
+TIMES = tuple(np.linspace(0.0, 3600.0, 61))
+SUBSTRATE = 100.0
+INHIBITORS = (0.0, 2.0, 5.0, 10.0, 20.0, 50.0, 100.0, 200.0)
+NOISE = 0.001
+COVALENT = Scheme(kon=10.0, koff=10.0, k5=0.002)
+ONE_STEP_COVALENT = Scheme(kon=2e-5, koff=0.0)
+SLOW_ONE_STEP = Scheme(kon=2e-4, koff=2e-4)
+SLOW_TWO_STEP = Scheme(kon=10.0, koff=10.0, k5=0.003, k6=0.0003)
+RAPID = Scheme(kon=10.0, koff=10.0)
+# Higher depletion (about 20 % of the substrate converted in the controls) for the flag.
+DEPLETING = {"enzyme": 2e-5, "substrate": 20.0}
+
+
+def markdown(frame):
+    """A DataFrame as a Markdown table (no optional dependency)."""
+    head = "| " + " | ".join(frame.columns) + " |"
+    rule = "|" + "|".join("---" for _ in frame.columns) + "|"
+    body = ["| " + " | ".join(str(v) for v in row) + " |" for row in frame.to_numpy()]
+    return "\n".join([head, rule, *body])
+
+
+def band(hits, n):
+    low, high = stats.binomtest(int(hits), int(n)).proportion_ci(0.95, method="exact")
+    return f"{hits / n:.1%} [{low:.1%}, {high:.1%}]"
+
+
+def reads(scheme, seed, substrate=SUBSTRATE):
+    return plate_reads(scheme, substrate, INHIBITORS, TIMES, noise_sd=NOISE, seed=seed)
+
+
+# Coverage designs: the same read signal-to-noise at two enzyme levels, so the controls
+# convert about 0.3 % and 1.6 % of the substrate over the read. The progress-curve model
+# assumes no depletion; the second row measures what ignoring 1.6 % costs.
+COVERAGE_DESIGNS = (("0.3 % conversion", 1e-6, 2e-4), ("1.6 % conversion", 5e-6, 1e-3))
+
+
+def coverage(n):
+    rows, called, total = [], 0, 0
+    for label, enzyme, noise in COVERAGE_DESIGNS:
+        scheme = Scheme(**{**COVALENT.__dict__, "enzyme": enzyme})
+        ki = (scheme.koff + scheme.k5) / scheme.kon
+        truth = {"k5": scheme.k5, "ki": ki, "k5_over_ki": scheme.k5 / ki}
+        hits = {(route, name): 0 for route in ("two_step", "global") for name in truth}
+        ratio = []
+        for seed in range(n):
+            r = plate_reads(scheme, SUBSTRATE, INHIBITORS, TIMES, noise_sd=noise,
+                            seed=1000 + seed)
+            fit = ik.fit_time_dependent(r, substrate=SUBSTRATE, km=scheme.km)
+            called += fit.scheme == "two_step"
+            total += 1
+            ratio.append(fit.two_step_constants.loc["k5_over_ki", "estimate"]
+                         / truth["k5_over_ki"])
+            for route, table in (("two_step", fit.two_step_constants),
+                                 ("global", fit.global_constants)):
+                for name, value in truth.items():
+                    hits[route, name] += (table.loc[name, "ci_low"] < value
+                                          < table.loc[name, "ci_high"])
+        rows += [{"design": label, "route": r, "constant": c,
+                  "coverage of the 95 % interval": band(h, n)} for (r, c), h in hits.items()]
+        rows.append({"design": label, "route": "two_step", "constant": "k5_over_ki",
+                     "coverage of the 95 % interval":
+                     f"estimate/truth: mean {np.mean(ratio):.4f}, sd {np.std(ratio):.4f}"})
+    return pd.DataFrame(rows), (called, total)
+
+
+def calls(n):
+    cells = [("covalent two-step", COVALENT, True, "two_step"),
+             ("covalent one-step", ONE_STEP_COVALENT, True, "one_step"),
+             ("slow one-step (reversible)", SLOW_ONE_STEP, False, "one_step"),
+             ("slow two-step (reversible)", SLOW_TWO_STEP, False, "two_step")]
+    rows = []
+    for label, scheme, irreversible, right in cells:
+        hits = 0
+        for seed in range(n):
+            fit = ik.fit_time_dependent(reads(scheme, 2000 + seed), irreversible=irreversible,
+                                        global_fit=False)
+            hits += fit.scheme == right
+        rows.append({"truth": label, "fitted as": "irreversible" if irreversible
+                     else "reversible", "called right": band(hits, n)})
+    return pd.DataFrame(rows)
+
+
+def flag_rates(n):
+    cells = [("slow one-step", SLOW_ONE_STEP, {}), ("covalent two-step", COVALENT, {}),
+             ("rapid equilibrium", RAPID, {}),
+             ("slow one-step, 20 % depletion", SLOW_ONE_STEP, DEPLETING),
+             ("rapid equilibrium, 20 % depletion", RAPID, DEPLETING)]
+    rows = []
+    for label, scheme, design in cells:
+        if design:
+            scheme = Scheme(**{**scheme.__dict__, "enzyme": design["enzyme"]})
+        substrate = design.get("substrate", SUBSTRATE)
+        flagged = wells = plates = 0
+        for seed in range(n):
+            r = reads(scheme, 3000 + seed, substrate=substrate).assign(plate=1)
+            plate_map = r.drop_duplicates("well")[["plate", "well", "substrate",
+                                                   "inhibitor"]].assign(compound="X")
+            table = ik.initial_rates(r[["plate", "well", "time", "signal"]], plate_map,
+                                     method="curve").table
+            inhibited = table[table["inhibitor"] > 0]
+            hit = inhibited["flags"].str.contains("time_dependent")
+            flagged += int(hit.sum())
+            wells += len(inhibited)
+            plates += bool(hit.any())
+        rows.append({"plate": label, "inhibited wells flagged": band(flagged, wells),
+                     "plates with any flag": band(plates, n)})
+    return pd.DataFrame(rows)
+
+
+# How to read the figures, checked against the run written with --n 100 (rewrite when a
+# rerun changes them).
+READING = """## Reading these figures
+
+- At 0.3 % conversion every interval covers at its nominal rate (93–97 %, each band
+  containing 95 %). At 1.6 % conversion kinact/KI reads 0.75 % high (the substrate falls
+  during the read, so KI,app falls and kobs rises; the progress-curve equation assumes no
+  depletion), and with a precision of 0.5 % that bias drops the coverage of kinact/KI to
+  78 % (two-step route) and 65 % (global fit). Keep conversion low for kinact/KI work, or
+  read the interval as precision only.
+- One-step against two-step is called right 93–100 % of the time on designs that span
+  KI,app (the one-step rows sit near 1 − alpha, as a nested F-test at alpha = 0.05 should).
+- The flag: slow-binding wells are flagged in every plate; the unflagged 14 % of slow
+  one-step wells are those at the lowest [I] (2 µM; checked on 20 seeds: all and only
+  those), where kobs·T ≈ 0.85 bends the curve less than the 10 % minimum excess.
+  Rapid-equilibrium plates are never flagged, also with 20 % substrate depletion (quiet
+  rate 0 %, band ≤ 3.6 % of plates).
+- Pre-incubation: kinact, KI and kinact/KI fitted to every well's activity cover at the
+  nominal rate (93–98 %); from the IC50(t) relation alone they do not (34–68 %), because
+  a 4PL only approximates 100·e^(−kobs·t) and reads the long-time IC50s 5–8 % low. That is
+  why `PreincubationFit.constants` comes from every well and `ic50_constants` is shown
+  beside it only. The ic50_shift flag fired on every covalent series and on no rapid
+  reversible one."""
+
+PRE_TIMES = (1800.0, 3600.0, 5400.0, 7200.0)
+PRE_CONC = np.geomspace(0.003, 30.0, 10)
+
+
+def preincubation(n):
+    """Coverage of kinact, KI, kinact/KI from pre-incubation IC50s; how often a shift is flagged."""
+    ki = (COVALENT.koff + COVALENT.k5) / COVALENT.kon
+    truth = {"kinact": COVALENT.k5, "ki": ki, "kinact_over_ki": COVALENT.k5 / ki}
+    hits = {(route, name): 0 for route in ("every well", "IC50(t) only") for name in truth}
+    flagged = {"covalent": 0, "rapid reversible": 0}
+    for seed in range(n):
+        rng = np.random.default_rng(4000 + seed)
+        for label, scheme, read in (("covalent", COVALENT, 1), ("rapid reversible", RAPID, 0)):
+            rows = [{"inhibitor": i, "preincubation": tp,
+                     "activity": 100 * preincubated(scheme, float(i), tp)[read]
+                     + rng.normal(0, 1.0)} for tp in PRE_TIMES for i in PRE_CONC]
+            fit = ik.fit_preincubation(pd.DataFrame(rows))
+            flagged[label] += fit.time_dependent
+            if label == "covalent" and fit.constants is not None:
+                for route, table in (("every well", fit.constants),
+                                     ("IC50(t) only", fit.ic50_constants)):
+                    for name, value in truth.items():
+                        hits[route, name] += (table.loc[name, "ci_low"] < value
+                                              < table.loc[name, "ci_high"])
+    cover = pd.DataFrame([{"route": r, "constant": c, "coverage of the 95 % interval":
+                           band(h, n)} for (r, c), h in hits.items()])
+    shift = pd.DataFrame([{"inhibitor": k, "ic50_shift flagged": band(v, n)}
+                          for k, v in flagged.items()])
+    return cover, shift
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--n", type=int, default=100, help="seeds per cell (≥ 50)")
+    parser.add_argument("--out", default="docs/time_dependent.md")
+    args = parser.parse_args(argv)
+    start = time.perf_counter()
+    cover, called = coverage(args.n)
+    right = calls(args.n)
+    flags = flag_rates(args.n)
+    pre_cover, pre_shift = preincubation(args.n)
+    seconds = time.perf_counter() - start
+    text = "\n\n".join([
+        "# Time-dependent inhibition: measured figures",
+        "Written by `python -m benchmarks.time_dependent_study` "
+        f"(`make validate-time-dependent`), {args.n} seeds per cell, {seconds:.0f} s. "
+        "Plates from the mass-action ODE of tests/td_ode.py (solve_ivp, LSODA, "
+        "rtol 1e-10): 8 wells ([I] 0–200 µM), 61 reads over 3600 s, "
+        f"S = {SUBSTRATE:g} µM = 10 Km; covalent kinact 0.002 /s, KI 1.0 µM (KI,app 11 µM). "
+        f"Read noise {NOISE} µM (controls convert 1.6 % of S) unless the design says "
+        "otherwise. Rates in brackets: Clopper–Pearson 95 % bands.",
+        "## Coverage of kinact, KI and kinact/KI (covalent, S/Km-corrected)",
+        markdown(cover),
+        f"Two-step called on the covalent plates: {band(*called)}.",
+        "## One-step against two-step", markdown(right),
+        "## The rates stage's time_dependent flag", markdown(flags),
+        "## Pre-incubation IC50s (covalent, jump dilution; rapid reversible read in the "
+        "inhibitor's presence)",
+        "Pre-incubation 30, 60, 90 and 120 min; 10 concentrations 0.003–30 µM; activity "
+        "noise 1 % of full activity.",
+        markdown(pre_cover), markdown(pre_shift), READING,
+    ]) + "\n"
+    Path(args.out).write_text(text, encoding="utf-8")
+    print(text)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,122 @@
+"""Is a well's rate falling faster than substrate depletion explains? The time-dependence flag.
+
+For every well the slope over the first third of its reads (early) and over the last
+third (late) give the fall of the rate, 1 − r with r = late/early (delta-method standard
+error from the two slopes). Wells without inhibitor at the same plate and substrate level
+(the references) show how far depletion alone lowers the rate: their median fall per
+product formed, scaled by the product the well itself formed, is what depletion explains
+for it. Under any rapid-equilibrium (hyperbolic) rate law the relative fall of the rate
+per fraction of substrate converted is Km,app/(Km,app + S) ≤ 1, so an inhibitor can at most
+raise it from the references' Km/(Km + S) to 1; ``depletion_factor`` (default 2, the same
+margin the rates stage uses for its burst flag) covers that and product inhibition. A
+well is flagged when its fall exceeds the explained fall by more than ``min_excess`` and
+by more than z standard errors (one-sided level ``level``; strict, because every well is
+tested). Wells with no reference at their substrate level are not judged.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+__all__ = ["time_dependence", "time_dependent_grid"]
+
+# The rates stage's burst margin: depletion and product inhibition explain at most twice
+# the references' fall per product formed.
+DEPLETION_FACTOR = 2.0
+# A fall of the rate 10 % beyond the explained one is the least worth flagging.
+MIN_EXCESS = 0.10
+# One-sided level of the test (every well is tested; a depletion curve should almost
+# never be flagged).
+LEVEL = 1e-3
+
+
+def _window_slopes(t, y, mask):
+    """Least-squares slope, its SE and the mean signal over ``mask`` in every row."""
+    n = mask.sum(axis=1)
+    tz, yz = np.where(mask, t, 0.0), np.where(mask, y, 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mt, my = tz.sum(axis=1) / n, yz.sum(axis=1) / n
+        dt = np.where(mask, t - mt[:, None], 0.0)
+        dy = np.where(mask, y - my[:, None], 0.0)
+        sxx = np.sum(dt * dt, axis=1)
+        slope = np.sum(dt * dy, axis=1) / sxx
+        resid = np.where(mask, dy - slope[:, None] * dt, 0.0)
+        s2 = np.sum(resid ** 2, axis=1) / (n - 2)
+        return slope, np.sqrt(s2 / sxx), my
+
+
+def time_dependence(t, y, valid, *, substrate, inhibitor, group,
+                    depletion_factor=DEPLETION_FACTOR, min_excess=MIN_EXCESS, level=LEVEL):
+    """Flag wells whose rate falls with time beyond what substrate depletion explains.
+
+    Parameters
+    ----------
+    t, y : numpy.ndarray
+        Times and signals (oriented so that product raises the signal), shape
+        (wells, reads), NaN padded.
+    valid : numpy.ndarray of bool
+        Which entries are reads.
+    substrate, inhibitor : numpy.ndarray
+        Each well's substrate and inhibitor concentration.
+    group : numpy.ndarray
+        Each well's plate (any hashable codes); references are sought on the same plate.
+    depletion_factor, min_excess, level : float
+        Module notes.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per well: rate_fall (1 − late/early), explained_fall, fall_se and
+        time_dependent (bool; always False for wells without inhibitor or reference).
+    """
+    rank = np.cumsum(valid, axis=1) - 1
+    n = valid.sum(axis=1)[:, None]
+    third = np.maximum(n // 3, 3)
+    early = valid & (rank < third)
+    late = valid & (rank >= n - third)
+    v_early, se_early, m_early = _window_slopes(t, y, early)
+    v_late, se_late, m_late = _window_slopes(t, y, late)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = v_late / v_early
+        ratio_se = np.abs(ratio) * np.sqrt((se_late / v_late) ** 2 + (se_early / v_early) ** 2)
+    fall = 1.0 - ratio
+    product = m_late - m_early
+    frame = pd.DataFrame({"group": pd.Series(group).astype(str).to_numpy(),
+                          "substrate": np.asarray(substrate, dtype=float),
+                          "fall": fall, "product": product})
+    reference = frame[np.asarray(inhibitor, dtype=float) == 0].groupby(
+        ["group", "substrate"])[["fall", "product"]].median()
+    reference.columns = ["fall_ref", "product_ref"]
+    keyed = frame.join(reference, on=["group", "substrate"])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        explained = (depletion_factor * np.clip(keyed["fall_ref"].to_numpy(), 0.0, None)
+                     * np.clip(product / keyed["product_ref"].to_numpy(), 0.0, None))
+        z = (fall - explained) / ratio_se
+    flagged = ((np.asarray(inhibitor, dtype=float) > 0) & np.isfinite(explained)
+               & np.isfinite(z) & (fall - explained > min_excess)
+               & (z > stats.norm.isf(level)))
+    return pd.DataFrame({"rate_fall": fall, "explained_fall": explained, "fall_se": ratio_se,
+                         "time_dependent": flagged})
+
+
+def time_dependent_grid(table, *, inhibitor="inhibitor", flags="flags") -> bool:
+    """Whether any inhibited well of a rates table carries the ``time_dependent`` flag.
+
+    The hook for a grid fit: a grid built on such wells violates the steady-state
+    assumption, so its verdict should say ``time dependent`` instead of reporting a Ki.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        A rates table (``InitialRates.table``); without a ``flags`` column, False.
+    inhibitor, flags : str
+        Column names.
+    """
+    if flags not in table.columns or inhibitor not in table.columns:
+        return False
+    inhibited = pd.to_numeric(table[inhibitor], errors="coerce") > 0
+    marked = table[flags].fillna("").astype(str).str.split(";").apply(
+        lambda names: "time_dependent" in names)
+    return bool((inhibited & marked).any())

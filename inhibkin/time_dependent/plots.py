@@ -1,0 +1,85 @@
+"""The figures a reviewer checks: progress curves with their fits, kobs against [I].
+
+Each function takes a :class:`~inhibkin.time_dependent.TimeDependentFit` first, draws on
+``ax`` when given (else on a new figure, not attached to pyplot) and returns the Axes.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..figures import level_palette, new_figure
+from .schemes import SCHEMES, progress_curve
+
+
+def _axes(ax):
+    return ax if ax is not None else new_figure()[1][0, 0]
+
+
+def progress_curves(fit, *, ax=None):
+    """Reads of every well (points) and its fitted slow-onset curve (line), by [I].
+
+    Parameters
+    ----------
+    fit : TimeDependentFit
+    ax : matplotlib.axes.Axes, optional
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+    """
+    ax = _axes(ax)
+    wells = fit.kobs.sort_values("inhibitor", kind="stable")
+    colours = level_palette(len(wells))
+    for colour, (_, row) in zip(colours, wells.iterrows()):
+        reads = fit.reads[fit.reads["well"] == row["well"]]
+        ax.plot(reads["time"], reads["signal"], ".", ms=3, color=colour)
+        grid = np.linspace(0.0, reads["time"].max(), 200)
+        if np.isfinite(row["kobs"]):
+            curve = progress_curve(grid, row["p0"], row["vi"], row["vs"], row["kobs"])
+            ax.plot(grid, curve, "-", lw=1, color=colour, label=f"{row['inhibitor']:g}")
+    ax.set_xlabel("time")
+    ax.set_ylabel("signal")
+    ax.set_title("Progress curves and slow-onset fits")
+    ax.legend(title="[I]", fontsize="x-small", title_fontsize="small")
+    return ax
+
+
+def kobs_against_inhibitor(fit, *, ax=None):
+    """kobs of every well with its interval, and both schemes' fitted curves (apparent).
+
+    The chosen scheme is drawn solid, the other dashed.
+
+    Parameters
+    ----------
+    fit : TimeDependentFit
+    ax : matplotlib.axes.Axes, optional
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+    """
+    ax = _axes(ax)
+    rows = fit.kobs[(fit.kobs["inhibitor"] > 0) & np.isfinite(fit.kobs["kobs_low"])]
+    ax.errorbar(rows["inhibitor"], rows["kobs"],
+                yerr=[rows["kobs"] - rows["kobs_low"], rows["kobs_high"] - rows["kobs"]],
+                fmt="o", color="0.2", ms=4, capsize=2, label="kobs per well")
+    grid = np.linspace(0.0, rows["inhibitor"].max() * 1.05, 200)
+    for name, table in (("two_step", fit.two_step_constants),
+                        ("one_step", fit.one_step_constants)):
+        if name == "two_step":
+            k6 = table.loc["k6", "estimate"] if "k6" in table.index else 0.0
+            curve = SCHEMES[name].function(grid, table.loc["k5", "estimate"],
+                                           table.loc["ki_app", "estimate"], k6)
+        else:
+            factor = 1.0 + fit.substrate / fit.km if fit.km else 1.0
+            koff = table.loc["koff", "estimate"] if "koff" in table.index else 0.0
+            curve = SCHEMES[name].function(grid, table.loc["kon", "estimate"] / factor, koff)
+        style = "-" if name == fit.scheme else "--"
+        ax.plot(grid, curve, style, lw=1.2, label=name + (" (chosen)" if name == fit.scheme
+                                                            else ""))
+    ax.set_xlabel("[I]")
+    ax.set_ylabel("kobs (per time unit)")
+    ax.set_title("kobs against [I]")
+    ax.legend(fontsize="x-small")
+    return ax
