@@ -63,7 +63,6 @@ from __future__ import annotations
 import inspect
 import math
 import multiprocessing
-import sys
 import time
 import warnings
 from collections import deque
@@ -85,6 +84,7 @@ from .mechanism import DEFAULT_WEIGHTING, MechanismFit, fit_mechanisms
 from .models import MODELS, ONE_CONSTANT_MODELS
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
 from .potency_table import EngineFitter, check_potency_options, potency_table
+from .progress import progress_bar
 from .simulate import simulate_grid
 from .text import text_table
 from .units import (
@@ -443,29 +443,6 @@ def _chunks(groups, chunk_size):
         yield chunk
 
 
-class _NoProgress:
-    """The progress bar of a quiet run: nothing drawn, nothing imported."""
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, *exc):
-        return False
-
-    def update(self, n=1):
-        pass
-
-
-def _progress(total, quiet):
-    # A bar only on a terminal. tqdm.auto is not used: in a notebook kernel without
-    # ipywidgets its import alone warns (TqdmWarning), even for a quiet run.
-    if quiet or not (hasattr(sys.stderr, "isatty") and sys.stderr.isatty()):
-        return _NoProgress()
-    from tqdm import tqdm
-
-    return tqdm(total=total, unit="compound", desc="fitting", leave=False)
-
-
 def _run(function, chunks, arguments, *, workers, client, quiet, sizes, split, lost):
     """``function(chunk, *arguments)`` for every chunk, on whatever runs them; the results
     in chunk order. ``sizes`` are the compounds per chunk, for the progress bar.
@@ -479,7 +456,7 @@ def _run(function, chunks, arguments, *, workers, client, quiet, sizes, split, l
     # Results of the pieces of each chunk, keyed by their place in it: () for the whole
     # chunk, (j,) for its j-th piece after a split; sorted keys give the input order.
     pieces = [{} for _ in chunks]
-    with _progress(sum(sizes), quiet) as bar:
+    with progress_bar(sum(sizes), quiet=quiet, desc="fitting") as bar:
         def done(task, result):
             k, path, _ = task
             pieces[k][path] = result

@@ -85,7 +85,8 @@ def _covalent_series(data, out, *, km_um) -> list:
         fit = fit_time_dependent(part, time="time_s", signal="product_uM",
                                  inhibitor="inhibitor_uM", substrate=200.0, km=km_um,
                                  compound=compound)
-        rows.append(fit.to_frame().query("chosen"))
+        constants = fit.to_frame()
+        rows.append(constants[constants["chosen"]])
     table = pd.concat(rows, ignore_index=True)
     write_table(table, out / "covalent_constants.csv")
     ratio = table[table["constant"] == "k5_over_ki"]

@@ -19,7 +19,6 @@ notebook views behind the ``_repr_html_`` of the results, live in
 
 from __future__ import annotations
 
-import sys
 from collections.abc import Mapping
 from datetime import datetime, timezone
 from pathlib import Path
@@ -45,6 +44,7 @@ from .errors import DataError, Problem, UnitsError
 from .fitting import format_estimate
 from .io import atomic_output
 from .plates import Z_PRIME_THRESHOLD
+from .progress import progress_bar
 from .units import normalise_unit, to_molar
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
@@ -333,7 +333,7 @@ def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campai
     else:
         dose_fits, dose_unit = getattr(campaign, "potency_fits", {}) or {}, "M"
     sections = []
-    with _progress(len(ranking), quiet) as bar:
+    with progress_bar(len(ranking), quiet=quiet, desc="report") as bar:
         for c, r in zip(ranking["compound"], ranking.to_dict("records")):
             sections.append(_mechanism_section(anchors[c], c, fits.get(c), r, axis_units, dpi,
                                                detailed=c in detailed,
@@ -374,15 +374,6 @@ def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campai
                         if hasattr(campaign, "ranking") else "in the units of the fitted data"),
     }
     return ENVIRONMENT.get_template("report.html").render(**context)
-
-
-def _progress(total, quiet):
-    """A progress bar over the compounds (on a terminal or in a notebook, unless quiet)."""
-    from tqdm.auto import tqdm
-
-    terminal = hasattr(sys.stderr, "isatty") and sys.stderr.isatty()
-    silent = quiet or not (terminal or "ipykernel" in sys.modules)
-    return tqdm(total=total, disable=silent, unit="compound", desc="report", leave=False)
 
 
 def _rates_context(rates) -> dict:

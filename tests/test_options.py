@@ -90,7 +90,7 @@ def test_a_custom_z_prime_threshold_reaches_the_options_and_the_report():
     campaign = fit_campaign(dose_response=dose, km="20uM", quiet=True,
                             potency_options={"z_prime_threshold": 0.3})
     assert campaign.options["z_prime_threshold"] == 0.3
-    context = _campaign_potency_context(campaign, max_figures=0, dpi=50)
+    context = _campaign_potency_context(campaign, max_figures=0)
     assert context["z_threshold"] == 0.3
 
 
