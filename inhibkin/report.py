@@ -443,7 +443,7 @@ def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaig
         :func:`select_detail`.
     quiet : bool
         No progress bar. Without it, a bar over the compounds is shown on a terminal or in
-        a notebook (never in a log file or a pipe).
+        a notebook with ipywidgets (never in a log file or a pipe).
 
     Returns
     -------
