@@ -101,7 +101,7 @@ def _band(hits, total) -> str:
 def summary_table(records: pd.DataFrame) -> pd.DataFrame:
     """Per truth and weighting: correct, ambiguous, confidently wrong, pooled coverage."""
     out = []
-    for (truth, label), group in records.groupby(["truth", "weighting"], sort=False):
+    for (truth, _), group in records.groupby(["truth", "weighting"], sort=False):
         classes = [outcome(truth, v) for v in group["verdict"]]
         covered = group.filter(like="_covered").to_numpy(dtype=float).ravel()
         covered = covered[np.isfinite(covered)]
@@ -116,7 +116,7 @@ def summary_table(records: pd.DataFrame) -> pd.DataFrame:
             "coverage (pooled)": _band(int(covered.sum()), covered.size),
         })
     table = pd.DataFrame(out)
-    for label, group in records.groupby("weighting", sort=False):
+    for _, group in records.groupby("weighting", sort=False):
         covered = group.filter(like="_covered").to_numpy(dtype=float).ravel()
         covered = covered[np.isfinite(covered)]
         classes = [outcome(t, v) for t, v in zip(group["truth"], group["verdict"])]

@@ -109,7 +109,7 @@ def plate(mechanism: Mechanism, seed: int, *, compound="CPD"):
     times = READ_INTERVAL * np.arange(N_READS)
     reads, wells = [], []
     k = 0
-    for r in range(REPLICATES):
+    for _ in range(REPLICATES):
         for s in SUBSTRATE:
             for i in INHIBITOR:
                 well = f"{'ABCDEFGH'[k // 12]}{k % 12 + 1:02d}"
