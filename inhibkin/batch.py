@@ -194,9 +194,10 @@ class _GridSettings:
 
 def _molar_grid(frame, settings: _GridSettings, context):
     """One compound's grid validated, in M, and the fit options (sd column added)."""
+    rate_se = dict(settings.fit_options).get("weighting") == "rate_se"
     s, i, v, sigma = check_grid(frame, substrate=settings.substrate,
                                 inhibitor=settings.inhibitor, rate=settings.rate,
-                                sd=settings.sd, context=context)
+                                sd=settings.sd, context=context, allow_zero_sd=rate_se)
     data = pd.DataFrame({"substrate": to_molar(s, settings.substrate_unit),
                          "inhibitor": to_molar(i, settings.inhibitor_unit), "rate": v},
                         index=frame.index)

@@ -164,7 +164,7 @@ class MechanismFit:
 
 
 def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
-               need_inhibition=True, context=None):
+               need_inhibition=True, context=None, allow_zero_sd=False):
     """One compound's grid validated, its concentrations in M where the headers declare a unit.
 
     ``substrate`` and ``inhibitor`` are found as :func:`inhibkin.units.header_column`
@@ -183,6 +183,8 @@ def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate",
         Require at least two inhibitor levels.
     context : str, optional
         Put in front of error messages (e.g. the compound).
+    allow_zero_sd : bool
+        As :func:`inhibkin.validate.check_grid`.
 
     Returns
     -------
@@ -201,7 +203,8 @@ def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate",
     (s_column, s_unit), (i_column, i_unit) = (header_column(df.columns, name)
                                               for name in (substrate, inhibitor))
     s, i, v, sigma = check_grid(df, substrate=s_column, inhibitor=i_column, rate=rate, sd=sd,
-                                need_inhibition=need_inhibition, context=context)
+                                need_inhibition=need_inhibition, context=context,
+                                allow_zero_sd=allow_zero_sd)
     if s_unit:
         s = to_molar(s, s_unit)
     if i_unit:
@@ -347,7 +350,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     need_inhibition = any(m != "none" for m in models)
     s, i, v, sigma, _ = molar_grid(df, substrate=substrate, inhibitor=inhibitor, rate=rate,
                                    sd=sd if weighting in SD_WEIGHTINGS else None,
-                                   need_inhibition=need_inhibition, context=context)
+                                   need_inhibition=need_inhibition, context=context,
+                                   allow_zero_sd=weighting == "rate_se")
     if weighting == "rate_se":
         everywhere = np.ones((1, len(v)), bool)
         w = rate_se_weights(s[None], i[None], v[None], sigma[None], everywhere)[0]

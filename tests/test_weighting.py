@@ -13,6 +13,7 @@ import inhibkin as ik
 from inhibkin.core.weighting import (
     DEFAULT_WEIGHTING,
     MIN_REPLICATE_GROUPS,
+    SD_FLOOR,
     rate_se_weights,
     resolve_weighting,
     variance_model,
@@ -98,3 +99,20 @@ def test_campaign_and_cli_summary_name_the_weighting(table, tmp_path, capsys):
     grid.to_csv(path, index=False)
     assert main(["mechanism", str(path), "-o", str(tmp_path / "out.csv")]) == 0
     assert "rate_se + variance model weighting" in capsys.readouterr().out
+
+
+def test_a_zero_standard_error_is_floored_not_refused(table):
+    from inhibkin.engine import fit_mechanisms_batch
+
+    # One replicate per point: no variance model, so the zero standard error alone sets
+    # that point's sd, and the floor (SD_FLOOR x the median sd) is what stops it.
+    single = table.drop_duplicates(["substrate", "inhibitor"]).reset_index(drop=True)
+    exact = single.assign(rate_se=single["rate_se"].where(single.index != 5, 0.0))
+    lmfit = ik.fit_mechanisms(exact, intervals="wald")
+    engine = fit_mechanisms_batch([exact])[0]
+    assert engine.verdict == lmfit.verdict != "failed"
+    np.testing.assert_allclose(engine.data["weight"], lmfit.data["weight"], rtol=1e-12)
+    weights = lmfit.data["weight"].to_numpy()
+    others = np.delete(weights, 5)
+    np.testing.assert_allclose(others, others[0], rtol=1e-12)
+    assert weights[5] / others[0] == pytest.approx(1 / SD_FLOOR, rel=1e-12)

@@ -181,6 +181,8 @@ def rate_se_weights(s, i, v, se, mask) -> np.ndarray:
         group = _replicate_groups(sc, ic)
         mean_v = np.bincount(group, vc) / np.bincount(group)
         sd = np.sqrt(sec ** 2 + a2 + b2 * mean_v[group] ** 2)
-        sd = np.maximum(sd, SD_FLOOR * np.median(sd))
+        positive = sd[sd > 0]
+        # Exactly linear reads (se = 0, no replicate scatter) carry no weight information.
+        sd = np.maximum(sd, SD_FLOOR * np.median(positive)) if positive.size else np.ones_like(sd)
         w[row, keep] = 1.0 / sd
     return normalise_weights(w, mask)

@@ -346,7 +346,7 @@ def pad(groups):
     return (*out, mask)
 
 
-def _check_arrays(s, i, v, mask, sd, need_inhibition):
+def _check_arrays(s, i, v, mask, sd, need_inhibition, allow_zero_sd=False):
     """Why each compound cannot be fitted ('' when it can): check_grid's rules in arrays."""
     b = s.shape[0]
     reason = np.full(b, "", dtype=object)
@@ -365,7 +365,7 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition):
         if name != "rate":
             flag(np.any((x < 0) & mask, axis=1),
                  f"negative value in {name}; it must be ≥ 0")
-    if sd is not None:
+    if sd is not None and not allow_zero_sd:
         flag(np.any((sd == 0) & mask, axis=1), "standard deviation must be > 0")
     flag(count_unique(s, mask) < 2, "need at least two substrate concentrations")
     if need_inhibition:
@@ -625,7 +625,7 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
     b = s.shape[0]
     need_inhibition = any(m != "none" for m in models)
     invalid_reason = _check_arrays(s, i, v, mask, sd if weighting in SD_WEIGHTINGS else None,
-                                   need_inhibition)
+                                   need_inhibition, allow_zero_sd=weighting == "rate_se")
     valid = invalid_reason == ""
     n_obs = mask.sum(axis=1)
     # Invalid compounds are left out of every fit.
@@ -846,14 +846,16 @@ def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition
                                                 inhibitor=inhibitor, rate=rate,
                                                 sd=sd if weighting in SD_WEIGHTINGS else None,
                                                 need_inhibition=need_inhibition,
-                                                context=f"compound {key!r}")
+                                                context=f"compound {key!r}",
+                                                allow_zero_sd=weighting == "rate_se")
                 index = item.index
             else:
                 sc, ic, vc, sdc = check_grid(_array_table(item, key), substrate="substrate",
                                              inhibitor="inhibitor", rate="rate",
                                              sd="sd" if weighting in SD_WEIGHTINGS else None,
                                              need_inhibition=need_inhibition,
-                                             context=f"compound {key!r}")
+                                             context=f"compound {key!r}",
+                                             allow_zero_sd=weighting == "rate_se")
                 index = pd.RangeIndex(len(vc))
         except DataError as exc:
             groups.append((np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0)))
