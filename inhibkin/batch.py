@@ -78,9 +78,10 @@ import pandas as pd
 from .conversion import CONVERSIONS
 from .core.options import FitOptions
 from .core.readonly import readonly_frame, readonly_mapping
+from .core.weighting import SD_WEIGHTINGS, resolve_weighting, weighting_label
 from .engine import fit_mechanism_arrays, pad
 from .errors import DataError, InhibkinError, OptionError, Problem
-from .mechanism import DEFAULT_WEIGHTING, MechanismFit, fit_mechanisms
+from .mechanism import MechanismFit, fit_mechanisms
 from .models import MODELS, ONE_CONSTANT_MODELS
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
 from .potency_table import EngineFitter, check_potency_options, potency_table
@@ -193,9 +194,10 @@ class _GridSettings:
 
 def _molar_grid(frame, settings: _GridSettings, context):
     """One compound's grid validated, in M, and the fit options (sd column added)."""
+    rate_se = dict(settings.fit_options).get("weighting") == "rate_se"
     s, i, v, sigma = check_grid(frame, substrate=settings.substrate,
                                 inhibitor=settings.inhibitor, rate=settings.rate,
-                                sd=settings.sd, context=context)
+                                sd=settings.sd, context=context, allow_zero_sd=rate_se)
     data = pd.DataFrame({"substrate": to_molar(s, settings.substrate_unit),
                          "inhibitor": to_molar(i, settings.inhibitor_unit), "rate": v},
                         index=frame.index)
@@ -396,7 +398,8 @@ def _engine_fits(ready, settings: _GridSettings):
         try:
             s, i, v, sd, mask = pad([arrays for _, _, arrays in ready])
             batch = fit_mechanism_arrays(
-                s, i, v, mask, sd=sd if options["weighting"] == "sd" else None, **options)
+                s, i, v, mask, sd=sd if options["weighting"] in SD_WEIGHTINGS else None,
+                **options)
             fits = batch.to_mechanism_fits(data_index=[index for _, index, _ in ready])
             error = None
         except Exception as err:  # isolation: see below
@@ -722,7 +725,7 @@ class Campaign:
         lines = ["=" * width, self._head(),
                  f"({self.options.get('intervals', '')} intervals at "
                  f"{100 * self.options.get('level', 0.95):g}%, "
-                 f"{self.options.get('weighting', '')} weighting)", "-" * width,
+                 f"{weighting_label(self.options.get('weighting', ''))} weighting)", "-" * width,
                  text_table(shown, index=False, float_format=lambda x: f"{x:.2f}")]
         if len(self.plates):
             flagged = self.plates.loc[self.plates["flagged"], "plate"]
@@ -1101,7 +1104,7 @@ def _grid_mechanism(row: dict):
 def fit_campaign(table=None, *, dose_response=None, compound="compound",
                  substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
                  plate="plate", role="role", response="signal", km=None, enzyme=None,
-                 units=None, weighting=DEFAULT_WEIGHTING, intervals="wald", level=0.95, alpha=0.05,
+                 units=None, weighting=None, intervals="wald", level=0.95, alpha=0.05,
                  min_delta_aicc=2.0, determination_factor=10.0, potency_options=None,
                  heavy_atoms="heavy_atoms", logp="logp", engine="auto", workers=None,
                  client=None, quiet=False, chunk_size=None,
@@ -1138,8 +1141,11 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         enables the tight-binding flag.
     units : dict, optional
         Units declared as an option, e.g. ``{"substrate": "uM", "inhibitor": "nM"}``.
-    weighting : {"relative", "uniform", "sd"}
-        Default ``"relative"`` (:data:`~inhibkin.mechanism.DEFAULT_WEIGHTING`); see
+    weighting : {None, "relative", "uniform", "sd", "rate_se"}
+        None (default): ``rate_se`` (rate_se + variance model) when the grid table has a
+        ``rate_se`` column, as :func:`~inhibkin.rates.initial_rates` writes it, and
+        ``sd`` is not given; else ``"relative"``
+        (:data:`~inhibkin.mechanism.DEFAULT_WEIGHTING`); see
         :func:`~inhibkin.mechanism.fit_mechanisms`.
     intervals : {"wald", "profile"}
         Interval method of both the grid and the curve fits; ``wald`` by default at
@@ -1232,6 +1238,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     _check_engine(engine)
     # Every option is checked here, once, before any compound is fitted: a bad one is
     # one error, not the same failure repeated for every compound.
+    weighting, sd = resolve_weighting(weighting, () if table is None else table.columns, sd)
     fit_options = FitOptions(weighting=weighting, intervals=intervals, level=level,
                              alpha=alpha, min_delta_aicc=min_delta_aicc,
                              determination_factor=determination_factor)
@@ -1262,7 +1269,8 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         batched = _batched(engine, intervals, groups.ngroups)
         used["grid"] = _engine_name(engine, batched)
         settings = _GridSettings(engine if callable(engine) else fit_mechanisms, s_column,
-                                 i_column, rate, sd if weighting == "sd" else None, s_unit,
+                                 i_column, rate, sd if weighting in SD_WEIGHTINGS else None,
+                                 s_unit,
                                  i_unit, grid_options, batched)
         chunks = list(_chunks(groups, _chunk_size(chunk_size, batched)))
         for name, row, fit in _run(_fit_chunk, chunks, (settings, keep_fits),

@@ -262,10 +262,9 @@ def _finish(campaign, output, args) -> int:
 
 
 def _weighting(chosen):
-    """--weighting, or the library's default (the fitting modules only when a stage runs)."""
-    from .mechanism import DEFAULT_WEIGHTING
-
-    return chosen or DEFAULT_WEIGHTING
+    """--weighting, or None: the library's default for the table (rate_se + variance model
+    when the grid carries the rates stage's rate_se column, else relative)."""
+    return chosen
 
 
 def _km(text):
@@ -322,8 +321,10 @@ def _store_arguments(parser):
 
 
 def _fit_arguments(parser, output="ranked table (.csv, .parquet or .xlsx)",
-                   weighting="weights of the grid fits: uniform, relative (constant CV; "
-                             "the default) or sd"):
+                   weighting="weights of the grid fits: rate_se (rate_se + variance "
+                             "model; the default when the grid has the rates stage's "
+                             "rate_se column), relative (constant CV; the default "
+                             "otherwise), uniform or sd"):
     parser.add_argument("-o", "--output", required=True, help=output)
     parser.add_argument("--units", action="append", metavar="NAME=UNIT",
                         help="declare a concentration unit when the header does not carry "
@@ -337,8 +338,9 @@ def _fit_arguments(parser, output="ranked table (.csv, .parquet or .xlsx)",
                         help="format of --figures (default png)")
     parser.add_argument("--dpi", type=float, default=150.0,
                         help="resolution of PNG --figures, at least 150 (default 150)")
-    # None: the library's default (relative), read when the stage runs.
-    parser.add_argument("--weighting", choices=("uniform", "relative", "sd"), default=None,
+    # None: the library's default for the table (rate_se when the grid carries it).
+    parser.add_argument("--weighting", choices=("uniform", "relative", "sd", "rate_se"),
+                        default=None,
                         help=weighting)
     parser.add_argument("--intervals", choices=("wald", "profile"), default="wald",
                         help="confidence intervals: wald (fast, default) or profile")

@@ -28,9 +28,13 @@ from .core.readonly import readonly_frame, readonly_mapping
 from .core.weighting import (
     DEFAULT_WEIGHTING,
     REWEIGHT_ITERATIONS,
+    SD_WEIGHTINGS,
     WEIGHTINGS,
     normalise_weights,
+    rate_se_weights,
     relative_weights_from_fitted,
+    resolve_weighting,
+    weighting_label,
 )
 from .errors import DataError
 from .fitting import ModelFit, fit_model, fixed_alpha_ssr
@@ -70,6 +74,8 @@ class MechanismFit:
     data : pandas.DataFrame
         The points fitted (columns substrate, inhibitor, rate, weight).
     weighting : str
+        The weighting as used: ``relative``, ``uniform``, ``sd`` or
+        ``rate_se + variance model``.
     options : VerdictOptions
     """
 
@@ -158,7 +164,7 @@ class MechanismFit:
 
 
 def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
-               need_inhibition=True, context=None):
+               need_inhibition=True, context=None, allow_zero_sd=False):
     """One compound's grid validated, its concentrations in M where the headers declare a unit.
 
     ``substrate`` and ``inhibitor`` are found as :func:`inhibkin.units.header_column`
@@ -177,6 +183,8 @@ def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate",
         Require at least two inhibitor levels.
     context : str, optional
         Put in front of error messages (e.g. the compound).
+    allow_zero_sd : bool
+        As :func:`inhibkin.validate.check_grid`.
 
     Returns
     -------
@@ -195,7 +203,8 @@ def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate",
     (s_column, s_unit), (i_column, i_unit) = (header_column(df.columns, name)
                                               for name in (substrate, inhibitor))
     s, i, v, sigma = check_grid(df, substrate=s_column, inhibitor=i_column, rate=rate, sd=sd,
-                                need_inhibition=need_inhibition, context=context)
+                                need_inhibition=need_inhibition, context=context,
+                                allow_zero_sd=allow_zero_sd)
     if s_unit:
         s = to_molar(s, s_unit)
     if i_unit:
@@ -259,7 +268,7 @@ def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr) -> pd.DataFrame:
 
 
 def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
-                   weighting=DEFAULT_WEIGHTING, models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
+                   weighting=None, models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
                    alpha_factor=5.0, intervals="profile", level=0.95,
                    determination_factor=DETERMINATION_FACTOR, context=None) -> MechanismFit:
     """Fit every reversible mechanism to one compound's grid and decide between them.
@@ -276,9 +285,15 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         unit, the inhibition constants in the inhibitor's (see :func:`molar_grid`).
         vmax is in the rate's unit.
     sd : str, optional
-        Column of the standard deviation of each rate; required for ``weighting="sd"``.
-    weighting : {"relative", "uniform", "sd"}
-        ``relative`` (default, :data:`DEFAULT_WEIGHTING`): constant coefficient of
+        Column of the standard deviation of each rate; required for ``weighting="sd"``
+        (for ``rate_se``, the column of standard errors, default ``rate_se``).
+    weighting : {None, "relative", "uniform", "sd", "rate_se"}
+        None (default): ``rate_se`` when the table has a ``rate_se`` column (as
+        :func:`inhibkin.initial_rates` writes it) and ``sd`` is not given, else
+        ``relative`` (:data:`DEFAULT_WEIGHTING`). ``rate_se``: weights 1/sd with
+        sd² = rate_se² + a² + (b·v̄)², the variance model fitted from the replicates
+        (:func:`inhibkin.core.weighting.rate_se_weights`; the result's ``weighting``
+        reads ``rate_se + variance model``). ``relative``: constant coefficient of
         variation (weights 1/v̂, see :func:`relative_weights`). ``uniform``: equal
         weights (constant standard deviation). ``sd``: weights 1/sd.
     models : sequence of str
@@ -322,6 +337,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     >>> ik.fit_mechanisms(data, weighting="relative").verdict
     'competitive'
     """
+    weighting, sd = resolve_weighting(weighting, getattr(df, "columns", ()), sd)
     fit_options = FitOptions(weighting=weighting, intervals=intervals, level=level,
                              alpha=alpha, min_delta_aicc=min_delta_aicc,
                              alpha_factor=alpha_factor,
@@ -333,9 +349,13 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         raise DataError(f"unknown models {unknown}; known: {', '.join(MODELS)}", context)
     need_inhibition = any(m != "none" for m in models)
     s, i, v, sigma, _ = molar_grid(df, substrate=substrate, inhibitor=inhibitor, rate=rate,
-                                   sd=sd if weighting == "sd" else None,
-                                   need_inhibition=need_inhibition, context=context)
-    if weighting == "sd":
+                                   sd=sd if weighting in SD_WEIGHTINGS else None,
+                                   need_inhibition=need_inhibition, context=context,
+                                   allow_zero_sd=weighting == "rate_se")
+    if weighting == "rate_se":
+        everywhere = np.ones((1, len(v)), bool)
+        w = rate_se_weights(s[None], i[None], v[None], sigma[None], everywhere)[0]
+    elif weighting == "sd":
         w = 1.0 / sigma
     elif weighting == "relative":
         w = relative_weights(s, i, v)
@@ -361,4 +381,4 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},
                         index=df.index)
     return MechanismFit(verdict.verdict, verdict.best, verdict.candidates, verdict.reason,
-                        fits, comparison, ftests, data, weighting, options)
+                        fits, comparison, ftests, data, weighting_label(weighting), options)

@@ -110,7 +110,8 @@ def numeric_column(df, column, problems, *, allow_negative=False, allow_nan=Fals
     return values
 
 
-def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True, context=None):
+def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True, context=None,
+               allow_zero_sd=False):
     """Validate one compound's substrate × inhibitor table.
 
     Parameters
@@ -127,6 +128,9 @@ def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True,
         When True, at least two inhibitor levels (one of them may be 0) are required.
     context : str, optional
         Put in front of the message (e.g. the compound).
+    allow_zero_sd : bool
+        Accept sd = 0 (standard errors of exactly linear reads; the ``rate_se``
+        weighting floors them).
 
     Returns
     -------
@@ -151,7 +155,7 @@ def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True,
     if sd is not None:
         sigma = numeric_column(df, sd, problems)
         labels = df.index.to_numpy()
-        zero = sigma == 0
+        zero = (sigma == 0) & (not allow_zero_sd)
         if zero.any():
             _listed(problems, sd, labels[zero], sigma[zero], "standard deviation must be > 0",
                     row_kind(df))

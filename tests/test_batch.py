@@ -443,17 +443,22 @@ def test_km_takes_one_declared_unit_in_potency_table_and_fit_campaign():
                       concentration="inhibitor_uM", substrate="substrate")
 
 
-def test_default_weighting_is_relative_everywhere(tmp_path, capsys):
-    # Issue 12, item 6: one default for rate tables (README, "Weighting").
+def test_default_weighting_is_one_rule_everywhere(tmp_path, capsys):
+    # Issue 12, item 6: one default for rate tables (README, "Weighting"); issue 15:
+    # that default is rate_se + variance model when the table carries rate_se, else
+    # relative, decided at every entry by the same rule (core.weighting.resolve_weighting).
     import inspect
 
     from inhibkin.cli import main
     from inhibkin.engine import fit_mechanisms_batch
 
     for function in (fit_mechanisms, fit_campaign, fit_mechanisms_batch):
-        assert inspect.signature(function).parameters["weighting"].default == "relative"
+        assert inspect.signature(function).parameters["weighting"].default is None
     table, _ = simulate_campaign(2, seed=3)
+    assert "rate_se" not in table.columns
     assert fit_campaign(table, quiet=True).options["weighting"] == "relative"
     table.to_csv(tmp_path / "grid.csv", index=False)
     main(["rank", "--grid", str(tmp_path / "grid.csv"), "-o", str(tmp_path / "r.csv")])
     assert "relative weighting" in capsys.readouterr().out
+    with_se = table.assign(rate_se=0.01 + 0.03 * table["rate"].abs())
+    assert fit_campaign(with_se, quiet=True).options["weighting"] == "rate_se"

@@ -103,3 +103,19 @@ def test_a_bad_compound_given_as_arrays_fails_alone_with_a_clear_reason(cases):
     with pytest.raises(DataError, match="not a number"):
         ik.fit_mechanisms(pd.DataFrame({"substrate": s, "inhibitor": i, "rate": text}),
                           **OPTIONS)
+
+
+def test_rate_se_weighting_is_one_rule_in_both_solvers(cases):
+    # Standard errors that grow with the rate, and replicate scatter on top: the
+    # variance model is fitted (48 duplicated points), and both solvers must weight,
+    # decide and estimate alike.
+    grid = cases["standard"]
+    grid = grid.assign(rate_se=0.01 + 0.02 * grid["rate"].abs())
+    lmfit = ik.fit_mechanisms(grid, intervals="wald")
+    engine = fit_mechanisms_batch([grid])[0]
+    assert lmfit.weighting == engine.weighting == "rate_se + variance model"
+    np.testing.assert_allclose(engine.data["weight"], lmfit.data["weight"], rtol=1e-12)
+    assert lmfit.verdict == engine.verdict
+    best = lmfit.best_fit.params
+    np.testing.assert_allclose(engine.best_fit.params["estimate"], best["estimate"],
+                               rtol=ESTIMATE_RTOL)

@@ -38,8 +38,12 @@ from ..core.options import FitOptions
 from ..core.weighting import (
     DEFAULT_WEIGHTING,
     REWEIGHT_ITERATIONS,
+    SD_WEIGHTINGS,
     normalise_weights,
+    rate_se_weights,
     relative_weights_from_fitted,
+    resolve_weighting,
+    weighting_label,
 )
 from ..errors import DataError, Problem
 from ..fitting import ModelFit, fit_model, fixed_alpha_ssr
@@ -342,7 +346,7 @@ def pad(groups):
     return (*out, mask)
 
 
-def _check_arrays(s, i, v, mask, sd, need_inhibition):
+def _check_arrays(s, i, v, mask, sd, need_inhibition, allow_zero_sd=False):
     """Why each compound cannot be fitted ('' when it can): check_grid's rules in arrays."""
     b = s.shape[0]
     reason = np.full(b, "", dtype=object)
@@ -361,7 +365,7 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition):
         if name != "rate":
             flag(np.any((x < 0) & mask, axis=1),
                  f"negative value in {name}; it must be ≥ 0")
-    if sd is not None:
+    if sd is not None and not allow_zero_sd:
         flag(np.any((sd == 0) & mask, axis=1), "standard deviation must be > 0")
     flag(count_unique(s, mask) < 2, "need at least two substrate concentrations")
     if need_inhibition:
@@ -620,15 +624,17 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
     """Fit one chunk of compounds (the unit of work sent to a worker)."""
     b = s.shape[0]
     need_inhibition = any(m != "none" for m in models)
-    invalid_reason = _check_arrays(s, i, v, mask, sd if weighting == "sd" else None,
-                                   need_inhibition)
+    invalid_reason = _check_arrays(s, i, v, mask, sd if weighting in SD_WEIGHTINGS else None,
+                                   need_inhibition, allow_zero_sd=weighting == "rate_se")
     valid = invalid_reason == ""
     n_obs = mask.sum(axis=1)
     # Invalid compounds are left out of every fit.
     mask = mask & valid[:, None]
     rows = np.flatnonzero(valid)
     weight_fallback = np.zeros(b, bool)
-    if weighting == "sd":
+    if weighting == "rate_se":
+        w = rate_se_weights(s, i, v, np.where(mask, sd, 1.0), mask)
+    elif weighting == "sd":
         with np.errstate(divide="ignore"):
             w = np.where(mask, 1.0 / np.where(mask, sd, 1.0), 0.0)
     elif weighting == "relative":
@@ -676,7 +682,8 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
             res["reason"][c] = f"not fitted: {invalid_reason[c]}"
     batches = {name: ModelBatch(**res) for name, res in out.items()}
     return MechanismBatch(batches, verdict, best, candidates, reason, p_values, s, i, v, mask,
-                          w, valid, weight_fallback, weighting, options, level)
+                          w, valid, weight_fallback, weighting_label(weighting), options,
+                          level)
 
 
 class _Combined:
@@ -758,9 +765,11 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     mask : array_like of bool, shape (B, n), optional
         True for real points (default: all).
     sd : array_like, shape (B, n), optional
-        Standard deviations of the rates, for ``weighting="sd"``.
-    weighting : {"relative", "uniform", "sd"}
-        As :func:`inhibkin.mechanism.fit_mechanisms` (default relative).
+        Standard deviations of the rates, for ``weighting="sd"``; the rates' standard
+        errors for ``weighting="rate_se"``.
+    weighting : {"relative", "uniform", "sd", "rate_se"}
+        As :func:`inhibkin.mechanism.fit_mechanisms` (default relative: arrays carry no
+        column names, so ``rate_se`` is chosen by name here).
     models : sequence of str
         Models to fit, in fitting order; the verdict needs ``none`` and ``mixed``.
     alpha, min_delta_aicc, alpha_factor : float
@@ -789,8 +798,9 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
                min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
                determination_factor=determination_factor)
-    if weighting == "sd" and sd is None:
-        raise DataError("weighting='sd' needs sd=, the standard deviations of the rates")
+    if weighting in SD_WEIGHTINGS and sd is None:
+        raise DataError(f"weighting={weighting!r} needs sd=, the standard deviations (or "
+                        "standard errors) of the rates")
     unknown = [m for m in models if m not in MODELS]
     if unknown:
         raise DataError(f"unknown models {unknown}; known: {', '.join(MODELS)}")
@@ -834,16 +844,18 @@ def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition
             if isinstance(item, pd.DataFrame):
                 sc, ic, vc, sdc, _ = molar_grid(item, substrate=substrate,
                                                 inhibitor=inhibitor, rate=rate,
-                                                sd=sd if weighting == "sd" else None,
+                                                sd=sd if weighting in SD_WEIGHTINGS else None,
                                                 need_inhibition=need_inhibition,
-                                                context=f"compound {key!r}")
+                                                context=f"compound {key!r}",
+                                                allow_zero_sd=weighting == "rate_se")
                 index = item.index
             else:
                 sc, ic, vc, sdc = check_grid(_array_table(item, key), substrate="substrate",
                                              inhibitor="inhibitor", rate="rate",
-                                             sd="sd" if weighting == "sd" else None,
+                                             sd="sd" if weighting in SD_WEIGHTINGS else None,
                                              need_inhibition=need_inhibition,
-                                             context=f"compound {key!r}")
+                                             context=f"compound {key!r}",
+                                             allow_zero_sd=weighting == "rate_se")
                 index = pd.RangeIndex(len(vc))
         except DataError as exc:
             groups.append((np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0)))
@@ -858,7 +870,7 @@ def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition
 
 
 def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="inhibitor",
-                         rate="rate", sd=None, weighting=DEFAULT_WEIGHTING,
+                         rate="rate", sd=None, weighting=None,
                          models=MODEL_NAMES,
                          alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0, level=0.95,
                          determination_factor=DETERMINATION_FACTOR, fallback=True,
@@ -873,7 +885,10 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
         mapping keeps its keys as compound labels.
     substrate, inhibitor, rate, sd : str
         Column names, as in :func:`~inhibkin.mechanism.fit_mechanisms`.
-    weighting, models, alpha, min_delta_aicc, alpha_factor, level, determination_factor : see
+    weighting : {None, "relative", "uniform", "sd", "rate_se"}
+        As :func:`~inhibkin.mechanism.fit_mechanisms`: None is ``rate_se`` when every
+        table has a ``rate_se`` column (and ``sd`` is not given), else relative.
+    models, alpha, min_delta_aicc, alpha_factor, level, determination_factor : see
         :func:`fit_mechanism_arrays`.
     fallback, max_iterations, client, chunk_size : see :func:`fit_mechanism_arrays`.
 
@@ -884,12 +899,19 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
         validation gets the verdict ``failed`` with the validation message as reason;
         it never stops the others.
     """
-    FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
-               min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
-               determination_factor=determination_factor)
     is_mapping = isinstance(tables_or_arrays, Mapping)
     items = list(tables_or_arrays.items()) if is_mapping else \
         list(enumerate(tables_or_arrays))
+    if weighting is None:
+        # One weighting for the batch: rate_se only when every table carries it.
+        tables = [item for _, item in items if isinstance(item, pd.DataFrame)]
+        has_se = bool(tables) and len(tables) == len(items) and all(
+            resolve_weighting(None, t.columns, sd)[0] == "rate_se" for t in tables)
+        weighting = "rate_se" if has_se else DEFAULT_WEIGHTING
+    weighting, sd = resolve_weighting(weighting, (), sd)
+    FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
+               min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
+               determination_factor=determination_factor)
     need_inhibition = any(m != "none" for m in models)
     groups, labels, errors = _as_groups(items, substrate, inhibitor, rate, sd, weighting,
                                         need_inhibition)
@@ -899,7 +921,8 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
     if s.shape[1] == 0:
         s, i, v, sdv = (np.zeros((len(groups), 1)) for _ in range(4))
         mask = np.zeros((len(groups), 1), bool)
-    batch = fit_mechanism_arrays(s, i, v, mask, sd=sdv if weighting == "sd" else None,
+    batch = fit_mechanism_arrays(s, i, v, mask,
+                                 sd=sdv if weighting in SD_WEIGHTINGS else None,
                                  weighting=weighting, models=models, alpha=alpha,
                                  min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
                                  level=level,
