@@ -1,0 +1,109 @@
+"""A grid fit on time-dependent wells says so (rule 5 of inhibkin.compare).
+
+Reads from the mass-action ODE of tests/td_ode.py (solve_ivp, LSODA, rtol 1e-10, each
+curve solved once per session), through the rates stage (``initial_rates``, which flags
+wells ``time_dependent``), into the mechanism fit, the campaign and the CLI. Units: µM, s.
+"""
+
+import numpy as np
+import pandas as pd
+import pytest
+from td_ode import Scheme, product_curve
+
+import inhibkin as ik
+from inhibkin.compare import TIME_DEPENDENT, TIME_DEPENDENT_REASON
+
+TIMES = tuple(np.linspace(0.0, 3600.0, 61))
+SUBSTRATES = (5.0, 10.0, 20.0, 50.0, 100.0)          # Km of the scheme is 10 µM
+INHIBITORS = (0.0, 0.0, 2.0, 5.0, 20.0, 50.0)
+NOISE = 0.001                                        # µM read noise, as test_time_dependent
+# One-step binding competitive with substrate, Ki = koff/kon = 1 µM in both: slow (binding
+# half-time about an hour at 1 µM) and rapid equilibrium.
+SLOW = Scheme(kon=2e-4, koff=2e-4)
+RAPID = Scheme(kon=10.0, koff=10.0)
+UNITS = {"substrate": "uM", "inhibitor": "uM"}
+
+
+def _plate(scheme, compound, seed):
+    rng = np.random.default_rng(seed)
+    reads, wells = [], []
+    for a, s in enumerate(SUBSTRATES):
+        for b, i in enumerate(INHIBITORS):
+            well = f"{'ABCDE'[a]}{b + 1}"
+            signal = product_curve(scheme, s, i, TIMES) + rng.normal(0.0, NOISE, len(TIMES))
+            reads.append(pd.DataFrame({"plate": compound, "well": well, "time": TIMES,
+                                       "signal": signal}))
+            wells.append({"plate": compound, "well": well, "substrate": s, "inhibitor": i,
+                          "compound": compound})
+    return pd.concat(reads, ignore_index=True), pd.DataFrame(wells)
+
+
+@pytest.fixture(scope="module")
+def rates():
+    """The rates stage's table of one slow-binding and one rapid-equilibrium plate."""
+    (slow_reads, slow_map), (rapid_reads, rapid_map) = (_plate(SLOW, "SLOW-1", 1),
+                                                        _plate(RAPID, "RAPID 2", 2))
+    result = ik.initial_rates(pd.concat([slow_reads, rapid_reads]),
+                              pd.concat([slow_map, rapid_map]), method="curve")
+    return result.table
+
+
+def _compound(table, name):
+    return table[table["compound"] == name]
+
+
+def test_rates_stage_flags_the_slow_plate_only(rates):
+    flagged = rates["flags"].str.split(";").apply(lambda f: "time_dependent" in f)
+    inhibited = rates["inhibitor"] > 0
+    slow = (rates["compound"] == "SLOW-1").to_numpy()
+    assert flagged[slow & inhibited].mean() >= 0.9
+    assert not flagged[~slow].any()
+    assert not flagged[~inhibited].any()
+
+
+def test_grid_fit_on_flagged_wells_reports_no_steady_state_ki(rates):
+    slow = ik.fit_mechanisms(_compound(rates, "SLOW-1"))
+    assert slow.verdict == TIME_DEPENDENT
+    assert slow.reason.startswith(TIME_DEPENDENT_REASON)
+    assert "inhibkin inactivation" in slow.summary()
+    assert slow.constants().empty
+    # The same rates without the flags are read as a steady-state grid: a Ki far from the
+    # true Ki = koff/kon = 1 µM (td_ode.Scheme), the error the verdict prevents.
+    steady = ik.fit_mechanisms(_compound(rates, "SLOW-1").drop(columns="flags"))
+    assert steady.verdict != TIME_DEPENDENT
+    assert steady.constants()["estimate"].min() > 5.0
+
+
+def test_rapid_equilibrium_grid_keeps_its_ki(rates):
+    fit = ik.fit_mechanisms(_compound(rates, "RAPID 2"))
+    assert fit.verdict == "competitive"
+    low, high = fit.constants().loc["kic", ["ci_low", "ci_high"]]
+    assert low < RAPID.ki < high          # Ki = koff/kon (td_ode.Scheme)
+
+
+@pytest.mark.parametrize("engine", ["lmfit", "batched"])
+def test_campaign_does_not_rank_a_time_dependent_grid(rates, engine):
+    campaign = ik.fit_campaign(rates, units=UNITS, engine=engine, quiet=True)
+    table = campaign.ranking.set_index("compound")
+    assert list(campaign.ranking["compound"]) == ["RAPID 2", "SLOW-1"]
+    slow, rapid = table.loc["SLOW-1"], table.loc["RAPID 2"]
+    assert slow["status"] == "time_dependent" and slow["verdict"] == TIME_DEPENDENT
+    assert slow["reason"].startswith(TIME_DEPENDENT_REASON)
+    assert pd.isna(slow["rank"]) and np.isnan(slow["ki_M"]) and np.isnan(slow["pki"])
+    assert rapid["status"] == "determined" and rapid["rank"] == 1
+    assert campaign.counts["time_dependent"] == 1
+
+
+def test_cli_rank_reads_the_rates_stage_flags(rates, tmp_path):
+    from inhibkin.cli import main
+
+    grid = tmp_path / "rates.csv"
+    rates.to_csv(grid, index=False)
+    out = tmp_path / "ranked.csv"
+    status = main(["rank", "--grid", str(grid), "-o", str(out), "--units", "substrate=uM",
+                   "--units", "inhibitor=uM", "--quiet"])
+    assert status == 0
+    table = pd.read_csv(out, dtype={"compound": str}).set_index("compound")
+    assert table.loc["SLOW-1", "status"] == "time_dependent"
+    assert table.loc["SLOW-1", "reason"].startswith(TIME_DEPENDENT_REASON)
+    assert table.loc["RAPID 2", "status"] == "determined"
