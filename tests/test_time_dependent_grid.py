@@ -107,3 +107,34 @@ def test_cli_rank_reads_the_rates_stage_flags(rates, tmp_path):
     assert table.loc["SLOW-1", "status"] == "time_dependent"
     assert table.loc["SLOW-1", "reason"].startswith(TIME_DEPENDENT_REASON)
     assert table.loc["RAPID 2", "status"] == "determined"
+
+
+# Covalent two-step schemes (KI = (koff + k5)/kon ≈ 1 µM; Copeland), kinact/KI 2000 and
+# 500 /M/s: the stronger must rank first, a compound with too few wells fails alone.
+STRONG = Scheme(kon=10.0, koff=10.0, k5=0.002, enzyme=1e-6)
+WEAK = Scheme(kon=10.0, koff=10.0, k5=0.0005, enzyme=1e-6)
+COVALENT_INHIBITORS = (0.0, 2.0, 5.0, 10.0, 20.0, 50.0, 100.0, 200.0)
+
+
+def _reads(scheme, compound, inhibitors, seed):
+    from td_ode import plate_reads
+
+    return plate_reads(scheme, 100.0, inhibitors, TIMES, noise_sd=2e-4,
+                       seed=seed).assign(compound=compound)
+
+
+def test_time_dependent_ranking_is_its_own_table_by_kinact_over_ki():
+    reads = pd.concat([_reads(WEAK, "cov-weak", COVALENT_INHIBITORS, 3),
+                       _reads(STRONG, "007", COVALENT_INHIBITORS, 4),
+                       _reads(STRONG, "cov bad", (0.0, 5.0), 5)])
+    table = ik.rank_time_dependent(reads, substrate=100.0, km=STRONG.km)
+    assert list(table["compound"]) == ["007", "cov-weak", "cov bad"]    # exact input text
+    assert list(table["status"]) == ["determined", "determined", "failed"]
+    assert list(table["rank"].iloc[:2]) == [1, 2] and pd.isna(table["rank"].iloc[2])
+    assert set(table["metric"]) == {"log10(kinact/KI)"}
+    for name, scheme in (("007", STRONG), ("cov-weak", WEAK)):
+        row = table.set_index("compound").loc[name]
+        truth = scheme.k5 / ((scheme.koff + scheme.k5) / scheme.kon)    # µM⁻¹ s⁻¹
+        assert row["kinact_over_ki_low"] < truth < row["kinact_over_ki_high"]
+        assert row["score"] == pytest.approx(np.log10(row["kinact_over_ki"]))
+    assert "at least 4 inhibited wells" in table["reason"].iloc[2]
