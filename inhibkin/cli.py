@@ -646,6 +646,15 @@ class _DoseColumns:
 def _rank_arguments(parser):
     parser.add_argument("--grid", help="substrate × inhibitor rate table")
     parser.add_argument("--dose-response", help="dose-response well table")
+    parser.add_argument("--time-dependent", metavar="READS",
+                        help="kinetic reads of time-dependent compounds (compound, well, "
+                             "time, signal, inhibitor), ranked in their own table")
+    parser.add_argument("--time-dependent-output", metavar="PATH",
+                        help="the time-dependent ranking (needed with --time-dependent): "
+                             "covalent by log10(kinact/KI), or with --reversible slow "
+                             "binding by Ki* with residence time")
+    parser.add_argument("--reversible", action="store_true",
+                        help="the --time-dependent compounds bind slowly and reversibly")
     _fit_arguments(parser)
     _rate_column_argument(parser)
     _dose_arguments(parser)
@@ -668,11 +677,31 @@ def _whole_campaign(args):
 def _rank(args) -> int:
     if not args.grid and not args.dose_response:
         raise DataError("give --grid, --dose-response, or both")
+    if bool(args.time_dependent) != bool(args.time_dependent_output):
+        raise DataError(Problem("--time-dependent-output", None, args.time_dependent_output,
+                                "give --time-dependent and --time-dependent-output together"))
     output = _check_output(args.output)
-    _check_paths({"--grid": args.grid, "--dose-response": args.dose_response},
-                 {"--output": output})
+    td_output = (_check_output(args.time_dependent_output, "--time-dependent-output")
+                 if args.time_dependent_output else None)
+    _check_paths({"--grid": args.grid, "--dose-response": args.dose_response,
+                  "--time-dependent": args.time_dependent},
+                 {"--output": output, "--time-dependent-output": td_output})
     _check_fit_arguments(args)
-    return _finish(_whole_campaign(args), output, args)
+    td_failed = 0
+    if args.time_dependent:
+        from .io import read_table, write_table
+        from .time_dependent import rank_time_dependent
+
+        reads = read_table(args.time_dependent, text_columns=["compound"])
+        ranked = rank_time_dependent(reads, irreversible=not args.reversible, level=args.level)
+        write_table(ranked, td_output)
+        td_failed = int((ranked["status"] == "failed").sum())
+        if td_failed:
+            print(f"inhibkin rank: {td_failed} of {len(ranked)} time-dependent compounds "
+                  f"failed; their reasons are in the 'reason' column of {td_output}",
+                  file=sys.stderr)
+    status = _finish(_whole_campaign(args), output, args)
+    return EXIT_SOME_FAILED if td_failed and status == EXIT_OK else status
 
 
 def _report_arguments(parser):

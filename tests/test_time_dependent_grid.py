@@ -138,3 +138,24 @@ def test_time_dependent_ranking_is_its_own_table_by_kinact_over_ki():
         assert row["kinact_over_ki_low"] < truth < row["kinact_over_ki_high"]
         assert row["score"] == pytest.approx(np.log10(row["kinact_over_ki"]))
     assert "at least 4 inhibited wells" in table["reason"].iloc[2]
+
+
+def test_cli_rank_writes_the_time_dependent_section_apart(rates, tmp_path, capsys):
+    from inhibkin.cli import EXIT_OK, EXIT_SOME_FAILED, main
+
+    grid, reads = tmp_path / "rates.csv", tmp_path / "reads.csv"
+    rates.to_csv(grid, index=False)
+    pd.concat([_reads(STRONG, "007", COVALENT_INHIBITORS, 4),
+               _reads(STRONG, "cov bad", (0.0, 5.0), 5)]).to_csv(reads, index=False)
+    out, covalent = tmp_path / "ranked.csv", tmp_path / "covalent.csv"
+    status = main(["rank", "--grid", str(grid), "-o", str(out), "--units", "substrate=uM",
+                   "--units", "inhibitor=uM", "--time-dependent", str(reads),
+                   "--time-dependent-output", str(covalent), "--quiet"])
+    assert status == EXIT_SOME_FAILED          # "cov bad" failed, alone
+    table = pd.read_csv(covalent, dtype={"compound": str})
+    assert list(table["compound"]) == ["007", "cov bad"]
+    assert list(table["status"]) == ["determined", "failed"]
+    assert "pki" not in table.columns and "score" not in pd.read_csv(out).columns
+    status = main(["rank", "--grid", str(grid), "-o", str(out), "--time-dependent", str(reads)])
+    assert status != EXIT_OK
+    assert "give --time-dependent and --time-dependent-output together" in capsys.readouterr().err
