@@ -159,3 +159,18 @@ def test_cli_rank_writes_the_time_dependent_section_apart(rates, tmp_path, capsy
     status = main(["rank", "--grid", str(grid), "-o", str(out), "--time-dependent", str(reads)])
     assert status != EXIT_OK
     assert "give --time-dependent and --time-dependent-output together" in capsys.readouterr().err
+
+
+def test_report_shows_the_time_dependent_ranking_as_its_own_section(rates, tmp_path):
+    campaign = ik.fit_campaign(rates, units=UNITS, quiet=True)
+    covalent = ik.rank_time_dependent(pd.concat([
+        _reads(STRONG, "007", COVALENT_INHIBITORS, 4),
+        _reads(WEAK, "cov-weak", COVALENT_INHIBITORS, 3)]))
+    path = ik.report(campaign, tmp_path / "report.html", time_dependent=covalent,
+                     detail="none", quiet=True)
+    text = path.read_text()
+    ranked, apart = text.split('id="ranking-table"')[1], text.split('id="time-dependent"')[1]
+    section = apart.split("</section>")[0]
+    assert "ranked apart" in section and "log10(kinact/KI)" in section
+    assert section.index(">007<") < section.index(">cov-weak<")
+    assert ">007<" not in ranked.split("</table>")[0]
