@@ -174,3 +174,18 @@ def test_report_shows_the_time_dependent_ranking_as_its_own_section(rates, tmp_p
     assert "ranked apart" in section and "log10(kinact/KI)" in section
     assert section.index(">007<") < section.index(">cov-weak<")
     assert ">007<" not in ranked.split("</table>")[0]
+
+
+def test_cli_report_takes_the_time_dependent_reads(rates, tmp_path):
+    from inhibkin.cli import EXIT_OK, main
+
+    grid, reads = tmp_path / "rates.csv", tmp_path / "reads.csv"
+    rates.to_csv(grid, index=False)
+    _reads(STRONG, "007", COVALENT_INHIBITORS, 4).to_csv(reads, index=False)
+    out = tmp_path / "report.html"
+    status = main(["report", "--grid", str(grid), "-o", str(out), "--units", "substrate=uM",
+                   "--units", "inhibitor=uM", "--time-dependent", str(reads),
+                   "--detail", "none", "--quiet"])
+    assert status == EXIT_OK
+    section = out.read_text().split('id="time-dependent"')[1].split("</section>")[0]
+    assert ">007<" in section
