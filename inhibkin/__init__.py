@@ -74,6 +74,7 @@ _EXPORTS = {
     "TimeDependentFit": "time_dependent",
     "fit_preincubation": "time_dependent",
     "fit_time_dependent": "time_dependent",
+    "rank_time_dependent": "time_dependent",
     "from_molar": "units",
     "to_molar": "units",
 }

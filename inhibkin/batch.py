@@ -22,10 +22,17 @@ Ranking
 ``inactive``
     no inhibition detected (the grid's verdict is ``none``, or the dose-response
     curve's class is ``inactive``: "IC50 > the highest tested concentration");
+``time_dependent``
+    the grid's rates come from wells the rates stage flagged ``time_dependent`` (their
+    progress curves bend: slow binding or inactivation), so no steady-state Ki is
+    reported or ranked; ``reason`` says so. Characterise such a compound by kobs
+    (:func:`inhibkin.fit_time_dependent`, ``inhibkin inactivation``). The flag is read
+    from the grid table's ``flags`` column (:data:`RATE_FLAGS`, as
+    :func:`inhibkin.initial_rates` writes it) when the table has one;
 ``failed``
     the data could not be used or the fit gave no answer; ``reason`` says why.
 
-Bounds and failures never appear as numbers in ``ki_M`` or ``pki``.
+Bounds, time-dependent compounds and failures never appear as numbers in ``ki_M`` or ``pki``.
 
 The ranking constant is one rule for both routes (:func:`ranking_constant`):
 competitive ranks by kic, uncompetitive by kiu, noncompetitive by ki (= kic = kiu),
@@ -75,13 +82,14 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 
+from .compare import TIME_DEPENDENT
 from .conversion import CONVERSIONS
 from .core.options import FitOptions
 from .core.readonly import readonly_frame, readonly_mapping
 from .core.weighting import SD_WEIGHTINGS, resolve_weighting, weighting_label
 from .engine import fit_mechanism_arrays, pad
 from .errors import DataError, InhibkinError, OptionError, Problem
-from .mechanism import MechanismFit, fit_mechanisms
+from .mechanism import MechanismFit, fit_mechanisms, with_time_dependence
 from .models import MODELS, ONE_CONSTANT_MODELS
 from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
 from .potency_table import EngineFitter, check_potency_options, potency_table
@@ -108,12 +116,16 @@ __all__ = [
     "RANKING_COLUMNS",
     "PLATE_COLUMNS",
     "STATUSES",
+    "RATE_FLAGS",
     "LE_KCAL_PER_PKI",
     "ENGINES",
     "AUTO_ENGINE_MIN_COMPOUNDS",
 ]
 
-STATUSES = ("determined", "bound", "inactive", "failed")
+STATUSES = ("determined", "bound", "inactive", "time_dependent", "failed")
+#: The rates stage's column of well flags; a grid table that carries it is checked for
+#: wells flagged time_dependent (rule 5 of inhibkin.compare).
+RATE_FLAGS = "flags"
 
 # Ligand efficiency LE = 1.37 * pKi / heavy atoms, in kcal/mol per heavy atom: 1.37 is
 # 2.303·R·T at 298 K in kcal/mol (Hopkins, Groom & Alex 2004, Drug Discov. Today 9:430).
@@ -205,6 +217,8 @@ def _molar_grid(frame, settings: _GridSettings, context):
     if sigma is not None:
         data["sd"] = sigma
         options["sd"] = "sd"
+    if RATE_FLAGS in frame.columns:
+        data[RATE_FLAGS] = frame[RATE_FLAGS].to_numpy()
     return data, options
 
 
@@ -280,6 +294,10 @@ def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
     row.update(verdict=fit.verdict, reason=fit.reason, ki_source="grid fit")
     if fit.verdict == "failed":
         row.update(status="failed", verdict="failed", flags="; ".join(flags))
+        return row
+    if fit.verdict == TIME_DEPENDENT:
+        row.update(status="time_dependent", ki_reported="not a steady-state Ki: fit kobs",
+                   flags="; ".join([*flags, "time_dependent"]))
         return row
     best = fit.best_fit
     if best is not None and "km" in best.params.index and not best.params.loc["km",
@@ -363,7 +381,7 @@ def _fit_chunk_batched(chunk, settings: _GridSettings, keep_fits: bool):
     checks, in the same order, so a bad compound fails with the same reason); the
     valid ones go to :func:`inhibkin.engine.fit_mechanism_arrays` together.
     """
-    out, ready = {}, []
+    out, ready, flags = {}, [], {}
     for compound, frame in chunk:
         context = f"compound {compound!r}"
         try:
@@ -373,16 +391,18 @@ def _fit_chunk_batched(chunk, settings: _GridSettings, keep_fits: bool):
                                         rate="rate", sd=options.get("sd"), context=context)
             ready.append((compound, data.index, (s, i, v, np.ones_like(v) if sigma is None
                                                  else sigma)))
+            if RATE_FLAGS in data.columns:
+                flags[compound] = data[RATE_FLAGS].to_numpy()
         except InhibkinError as err:
             out[compound] = (compound, _failed_row(compound, str(err)), None)
         except Exception as err:  # isolation, as on the lmfit path
             out[compound] = (compound, _unexpected(compound, err), None)
-    for compound, row, fit in _engine_fits(ready, settings):
+    for compound, row, fit in _engine_fits(ready, settings, flags):
         out[compound] = (compound, row, fit if keep_fits else None)
     return [out[compound] for compound, _ in chunk]
 
 
-def _engine_fits(ready, settings: _GridSettings):
+def _engine_fits(ready, settings: _GridSettings, flags):
     """Ranking rows and fits of validated compounds from one engine batch.
 
     A warning or an unforeseen error in a batch cannot be traced to its compound, so
@@ -405,7 +425,7 @@ def _engine_fits(ready, settings: _GridSettings):
         except Exception as err:  # isolation: see below
             error = err
     if (caught or error is not None) and len(ready) > 1:
-        return [item for one in ready for item in _engine_fits([one], settings)]
+        return [item for one in ready for item in _engine_fits([one], settings, flags)]
     if error is not None:
         compound = ready[0][0]
         row = (_failed_row(compound, str(error)) if isinstance(error, InhibkinError)
@@ -414,6 +434,8 @@ def _engine_fits(ready, settings: _GridSettings):
     messages = [str(w.message) for w in caught]
     out = []
     for c, ((compound, _, _), fit) in enumerate(zip(ready, fits)):
+        if compound in flags:
+            fit = with_time_dependence(fit, flags[compound])
         row = _grid_row(compound, fit, messages)
         # Model fits the lmfit path redid, and a relative weighting it set.
         row[_REFITS] = int(sum(bool(m.fallback[c]) for m in batch.models.values())
@@ -610,7 +632,8 @@ def _flag(ranking, compounds, text):
 
 def _rank(rows) -> pd.DataFrame:
     """Sort: determined by pKi (high first), then bounds — "Ki < x" (more potent than
-    the tested range) before "Ki > x", each by its limit — then inactive, then failed;
+    the tested range) before "Ki > x", each by its limit — then inactive, then
+    time-dependent, then failed;
     ties keep the input order."""
     ranking = pd.DataFrame(rows, columns=list(RANKING_COLUMNS))
     status = ranking["status"].to_numpy()
@@ -984,10 +1007,12 @@ def _merge(grid: dict, dose: dict) -> dict:
     """One row for a compound with both a grid and a dose-response curve.
 
     The grid fit gives Ki whenever it determined or bounded it; the curve adds IC50 and
-    Hill slope, and gives Ki only when the grid could not.
+    Hill slope, and gives Ki only when the grid could not. A time-dependent grid keeps
+    its status: the curve's IC50 then depends on the read time too, so no Ki is
+    converted from it.
     """
     potency = {k: dose[k] for k in ("ic50_M", "ic50_low_M", "ic50_high_M", "pic50", "hill")}
-    if grid["status"] in ("determined", "bound"):
+    if grid["status"] in ("determined", "bound", "time_dependent"):
         out = dict(grid, **potency)
         if dose["status"] == "failed":
             out["flags"] = "; ".join(f for f in (grid["flags"],

@@ -648,6 +648,15 @@ class _DoseColumns:
 def _rank_arguments(parser):
     parser.add_argument("--grid", help="substrate × inhibitor rate table")
     parser.add_argument("--dose-response", help="dose-response well table")
+    parser.add_argument("--time-dependent", metavar="READS",
+                        help="kinetic reads of time-dependent compounds (compound, well, "
+                             "time, signal, inhibitor), ranked in their own table")
+    parser.add_argument("--time-dependent-output", metavar="PATH",
+                        help="the time-dependent ranking (needed with --time-dependent): "
+                             "covalent by log10(kinact/KI), or with --reversible slow "
+                             "binding by Ki* with residence time")
+    parser.add_argument("--reversible", action="store_true",
+                        help="the --time-dependent compounds bind slowly and reversibly")
     _fit_arguments(parser)
     _rate_column_argument(parser)
     _dose_arguments(parser)
@@ -667,20 +676,52 @@ def _whole_campaign(args):
                             **_fit_options(args), **where)
 
 
+def _time_dependent_ranking(args):
+    """--time-dependent READS ranked in their own table (rank and report stages)."""
+    from .io import read_table
+    from .time_dependent import rank_time_dependent
+
+    reads = read_table(args.time_dependent, text_columns=["compound"])
+    return rank_time_dependent(reads, irreversible=not args.reversible, level=args.level)
+
+
 def _rank(args) -> int:
     if not args.grid and not args.dose_response:
         raise DataError("give --grid, --dose-response, or both")
+    if bool(args.time_dependent) != bool(args.time_dependent_output):
+        raise DataError(Problem("--time-dependent-output", None, args.time_dependent_output,
+                                "give --time-dependent and --time-dependent-output together"))
     output = _check_output(args.output)
-    _check_paths({"--grid": args.grid, "--dose-response": args.dose_response},
-                 {"--output": output})
+    td_output = (_check_output(args.time_dependent_output, "--time-dependent-output")
+                 if args.time_dependent_output else None)
+    _check_paths({"--grid": args.grid, "--dose-response": args.dose_response,
+                  "--time-dependent": args.time_dependent},
+                 {"--output": output, "--time-dependent-output": td_output})
     _check_fit_arguments(args)
-    return _finish(_whole_campaign(args), output, args)
+    td_failed = 0
+    if args.time_dependent:
+        from .io import write_table
+
+        ranked = _time_dependent_ranking(args)
+        write_table(ranked, td_output)
+        td_failed = int((ranked["status"] == "failed").sum())
+        if td_failed:
+            print(f"inhibkin rank: {td_failed} of {len(ranked)} time-dependent compounds "
+                  f"failed; their reasons are in the 'reason' column of {td_output}",
+                  file=sys.stderr)
+    status = _finish(_whole_campaign(args), output, args)
+    return EXIT_SOME_FAILED if td_failed and status == EXIT_OK else status
 
 
 def _report_arguments(parser):
     parser.add_argument("--grid", help="substrate × inhibitor rate table")
     parser.add_argument("--dose-response", help="dose-response well table")
     parser.add_argument("--ranking", help="also write the ranked table (.csv or .parquet)")
+    parser.add_argument("--time-dependent", metavar="READS",
+                        help="kinetic reads of time-dependent compounds (compound, well, "
+                             "time, signal, inhibitor): their own ranked section")
+    parser.add_argument("--reversible", action="store_true",
+                        help="the --time-dependent compounds bind slowly and reversibly")
     parser.add_argument("--rate-unit", default="", help="label of the rates, e.g. uM/min")
     parser.add_argument("--detail", action="append", metavar="WHICH",
                         help="compounds drawn with the full figures (about a second each; "
@@ -700,16 +741,18 @@ def _report(args) -> int:
     detail = check_detail(args.detail or DEFAULT_DETAIL)
     output = _check_output(args.output, suffixes=(".html", ".htm"))
     ranking = _check_output(args.ranking, "--ranking") if args.ranking else None
-    _check_paths({"--grid": args.grid, "--dose-response": args.dose_response},
+    _check_paths({"--grid": args.grid, "--dose-response": args.dose_response,
+                  "--time-dependent": args.time_dependent},
                  {"--output": output, "--ranking": ranking})
     _check_fit_arguments(args)
+    time_dependent = _time_dependent_ranking(args) if args.time_dependent else None
     campaign = _whole_campaign(args)
     if ranking is not None:
         _write_output(campaign.ranking, ranking, campaign=campaign)
     _keep(campaign, ranking or output, args)
     _draw(campaign, args)
     path = report(campaign, output, rate_unit=args.rate_unit, detail=detail,
-                  quiet=args.quiet)
+                  time_dependent=time_dependent, quiet=args.quiet)
     if not args.quiet:
         print(f"report written to {path.resolve()}")
     n_failed = campaign.counts["failed"]

@@ -24,6 +24,12 @@ The verdict follows the nesting of the models (see :func:`decide`):
    profile interval of alpha. Otherwise the verdict is ``ambiguous`` between the
    candidate and mixed.
 
+5. *Were the rates steady-state rates at all?* When the rates stage flagged inhibited
+   wells ``time_dependent`` (their progress curves bend beyond substrate depletion:
+   :mod:`inhibkin.time_dependent.detect`), every rate law above is the wrong model and
+   the verdict is ``time_dependent`` whatever rules 1–4 say (:func:`time_dependent_verdict`);
+   the inhibitor is characterised by kobs instead (``inhibkin inactivation``).
+
 An Akaike-weight threshold alone would leave every nested truth ``ambiguous``: a model
 that differs from mixed by one parameter can never lead it by more than about 2 AICc
 units, which is why the F-test, not the weights, decides between nested pairs.
@@ -55,8 +61,17 @@ __all__ = [
     "f_test_table",
     "decide",
     "decide_from",
+    "time_dependent_verdict",
+    "TIME_DEPENDENT",
+    "TIME_DEPENDENT_REASON",
     "EXACT_FIT_RTOL",
 ]
+
+#: The verdict of a grid whose inhibited wells the rates stage flagged ``time_dependent``.
+TIME_DEPENDENT = "time_dependent"
+#: What that verdict says, first in its reason.
+TIME_DEPENDENT_REASON = ("time dependent: the inhibited wells' progress curves bend; a "
+                         "steady-state Ki is not valid — fit kobs (inhibkin inactivation)")
 
 
 @dataclass(frozen=True)
@@ -106,10 +121,11 @@ class Verdict:
     Attributes
     ----------
     verdict : str
-        A mechanism name, ``"ambiguous"`` or ``"failed"``.
+        A mechanism name, ``"ambiguous"``, ``"failed"`` or ``"time_dependent"`` (rule 5).
     best : str or None
         The model whose parameters the verdict reports (for ``ambiguous``, the best by
-        AICc among the candidates; None for ``failed``).
+        AICc among the candidates; None for ``failed``; for ``time_dependent`` the
+        steady-state rules' model, for inspection only).
     candidates : tuple of str
         The models that could not be told apart (one entry when decided).
     reason : str
@@ -336,3 +352,29 @@ def decide_from(*, p_value, converged, aicc, options: VerdictOptions) -> Verdict
         why = (f"leads {ranked[1]} by {aicc(ranked[1]) - lead:.1f} AICc units "
                f"(≥ {options.min_delta_aicc:g})")
     return Verdict(best, best, (best,), f"{best}: {why}; the data place alpha accordingly")
+
+
+def time_dependent_verdict(steady: Verdict, n_flagged: int, n_inhibited: int) -> Verdict:
+    """Rule 5: the verdict of a grid built on wells flagged ``time_dependent``.
+
+    Parameters
+    ----------
+    steady : Verdict
+        What rules 1–4 decided; its model stays :attr:`Verdict.best` so the steady-state
+        fits can still be inspected, but no constant of it is reported.
+    n_flagged, n_inhibited : int
+        Inhibited wells flagged, and inhibited wells in the grid.
+
+    Returns
+    -------
+    Verdict
+        ``steady`` itself when no well is flagged.
+    """
+    if n_flagged <= 0:
+        return steady
+    return Verdict(
+        TIME_DEPENDENT, steady.best, steady.candidates,
+        f"{TIME_DEPENDENT_REASON}. {n_flagged} of {n_inhibited} inhibited wells are flagged "
+        f"time_dependent by the rates stage; the steady-state rules alone would say "
+        f"{steady.verdict}",
+    )

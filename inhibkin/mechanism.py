@@ -7,6 +7,7 @@ returns a :class:`MechanismFit` holding the verdict and every table that justifi
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -14,12 +15,14 @@ import pandas as pd
 
 from .compare import (
     EXACT_FIT_RTOL,
+    TIME_DEPENDENT,
     Verdict,
     VerdictOptions,
     comparison_table,
     decide,
     f_test,
     f_test_table,
+    time_dependent_verdict,
 )
 from .core.bounds import NESTED_FAR_FACTOR
 from .core.determined import DETERMINATION_FACTOR
@@ -41,11 +44,12 @@ from .fitting import ModelFit, fit_model, fixed_alpha_ssr
 from .models import MODEL_NAMES, MODELS, nested_start
 from .starts import log_bounds, starting_values
 from .text import text_table
+from .time_dependent.detect import flagged_inhibited
 from .units import header_column, to_molar
 from .validate import check_grid
 
 __all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "DEFAULT_WEIGHTING",
-           "relative_weights", "mixed_starts", "molar_grid"]
+           "relative_weights", "mixed_starts", "molar_grid", "with_time_dependence"]
 
 
 
@@ -56,7 +60,9 @@ class MechanismFit:
     Attributes
     ----------
     verdict : str
-        A mechanism name, ``"ambiguous"`` or ``"failed"``.
+        A mechanism name, ``"ambiguous"``, ``"failed"`` or ``"time_dependent"`` (the
+        rates stage flagged inhibited wells ``time_dependent``: no steady-state constant
+        is valid, :meth:`constants` is empty; see :func:`inhibkin.compare.time_dependent_verdict`).
     best : str or None
         The model whose parameters stand for the compound (for ``ambiguous`` the
         one-constant candidate with the lowest AICc, which need not be the lowest AICc
@@ -115,6 +121,9 @@ class MechanismFit:
         lowest AICc; when another model (mixed) has a lower AICc still, both ΔAICc values
         are named, so the sentence never contradicts the comparison table.
         """
+        if self.verdict == TIME_DEPENDENT:
+            return (f"no constants: the rates are not steady-state rates (the steady-state "
+                    f"fits, best {self.best}, are kept for inspection only)")
         if self.best is None:
             return "no constants: the fit failed"
         if self.best == "none":
@@ -132,7 +141,7 @@ class MechanismFit:
     def constants(self) -> pd.DataFrame:
         """The inhibition constants of the best model (kic, kiu, ki, alpha where present)."""
         fit = self.best_fit
-        if fit is None or self.best == "none":
+        if fit is None or self.best == "none" or self.verdict == TIME_DEPENDENT:
             return pd.DataFrame(columns=["estimate", "se", "ci_low", "ci_high", "determined"])
         keep = [p for p in fit.params.index if p not in ("vmax", "km")]
         return fit.params.loc[keep]
@@ -147,7 +156,7 @@ class MechanismFit:
         """Plain-text report: verdict, comparison, F-tests and the best model's parameters."""
         width = 78
         lines = ["=" * width, f"Verdict: {self.verdict}", f"  {self.reason}"]
-        if self.verdict == "ambiguous":
+        if self.verdict in ("ambiguous", TIME_DEPENDENT):
             lines.append(f"  candidates: {', '.join(self.candidates)}; {self.basis}")
         lines += ["-" * width, f"Model comparison ({self.weighting} weighting)",
                   text_table(self.comparison), "-" * width, "Nested F-tests",
@@ -212,6 +221,30 @@ def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate",
     return s, i, v, sigma, {"substrate": s_unit, "inhibitor": i_unit}
 
 
+def with_time_dependence(fit: MechanismFit, flags) -> MechanismFit:
+    """``fit`` with the verdict ``time_dependent`` when inhibited wells carry that flag.
+
+    Both solvers' fits pass through here (rule 5 of :mod:`inhibkin.compare`), so the rule
+    is applied once.
+
+    Parameters
+    ----------
+    fit : MechanismFit
+    flags : array-like of str
+        The rates stage's flags of every point of ``fit.data``, in its order.
+
+    Returns
+    -------
+    MechanismFit
+        ``fit`` itself when no inhibited well is flagged.
+    """
+    steady = Verdict(fit.verdict, fit.best, fit.candidates, fit.reason)
+    verdict = time_dependent_verdict(steady, *flagged_inhibited(flags, fit.data["inhibitor"]))
+    if verdict is steady:
+        return fit
+    return dataclasses.replace(fit, verdict=verdict.verdict, reason=verdict.reason)
+
+
 def relative_weights(s, i, v) -> np.ndarray:
     """Residual multipliers 1/v̂ for constant-CV noise, v̂ from the mixed model.
 
@@ -270,7 +303,8 @@ def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr) -> pd.DataFrame:
 def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
                    weighting=None, models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
                    alpha_factor=5.0, intervals="profile", level=0.95,
-                   determination_factor=DETERMINATION_FACTOR, context=None) -> MechanismFit:
+                   determination_factor=DETERMINATION_FACTOR, flags="flags",
+                   context=None) -> MechanismFit:
     """Fit every reversible mechanism to one compound's grid and decide between them.
 
     Parameters
@@ -314,6 +348,10 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     determination_factor : float
         A constant above this multiple of the largest tested concentration is reported
         as a bound, "not determined within the tested range".
+    flags : str
+        Column of the rates stage's well flags (``InitialRates.table["flags"]``), if
+        present: when an inhibited well carries ``time_dependent`` the verdict is
+        ``time_dependent`` and no constant is reported (:func:`with_time_dependence`).
     context : str, optional
         Name of the compound, used in error messages.
 
@@ -380,5 +418,6 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     verdict: Verdict = decide(comparison, ftests, options)
     data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},
                         index=df.index)
-    return MechanismFit(verdict.verdict, verdict.best, verdict.candidates, verdict.reason,
-                        fits, comparison, ftests, data, weighting_label(weighting), options)
+    fit = MechanismFit(verdict.verdict, verdict.best, verdict.candidates, verdict.reason,
+                       fits, comparison, ftests, data, weighting_label(weighting), options)
+    return with_time_dependence(fit, df[flags]) if flags in df.columns else fit

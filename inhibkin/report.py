@@ -312,7 +312,29 @@ def _as_campaign(campaign):
                     f"compound to MechanismFit, got {type(campaign).__name__}")
 
 
-def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campaign report",
+def _time_dependent_context(table) -> dict:
+    """The time-dependent section: its own ranked table, by its class's metric."""
+    def number(value):
+        return "-" if pd.isna(value) else f"{value:.3g}"
+
+    def interval(row, name):
+        return (f"{number(row[name])} [{number(row[name + '_low'])}, "
+                f"{number(row[name + '_high'])}]")
+
+    columns = ["rank", "compound", "status", "class", "scheme", "score", "kinact/KI [CI]",
+               "Ki* [CI]", "residence time [CI]", "reason"]
+    rows = [["-" if pd.isna(r["rank"]) else str(r["rank"]), str(r["compound"]),
+             str(r["status"]), str(r["class"]), str(r["scheme"]), number(r["score"]),
+             interval(r, "kinact_over_ki"), interval(r, "ki_star"),
+             interval(r, "residence_time"), " ".join(str(x) for x in (r["note"], r["reason"])
+                                                     if isinstance(x, str) and x)]
+            for _, r in table.iterrows()]
+    return {"metrics": sorted(set(table["metric"].astype(str))), "columns": columns,
+            "rows": rows}
+
+
+def render_report(campaign, *, potency=None, rates=None, time_dependent=None,
+                  title="Inhibitor campaign report",
                   rate_unit="", units=None, ki_unit="nM", potency_unit="",
                   max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=REPORT_DPI,
                   detail=DEFAULT_DETAIL, quiet=False) -> str:
@@ -369,6 +391,8 @@ def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campai
                     if potency is not None else
                     _campaign_potency_context(campaign, max_potency_figures)),
         "rates": _rates_context(rates) if rates is not None else None,
+        "time_dependent": (_time_dependent_context(time_dependent)
+                           if time_dependent is not None else None),
         "units": axis_units,
         "param_units": ("concentrations in M, rates in the input's unit"
                         if hasattr(campaign, "ranking") else "in the units of the fitted data"),
@@ -392,7 +416,8 @@ def _write_atomically(text: str, path: Path) -> None:
         temporary.write_text(text, encoding="utf-8")
 
 
-def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaign report",
+def report(campaign, path, *, potency=None, rates=None, time_dependent=None,
+           title="Inhibitor campaign report",
            rate_unit="", units=None, ki_unit="nM", potency_unit="",
            max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=REPORT_DPI,
            detail=DEFAULT_DETAIL, quiet=False) -> Path:
@@ -419,6 +444,10 @@ def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaig
     rates : InitialRates or pandas.DataFrame, optional
         The initial-rate table (:func:`inhibkin.rates.initial_rates`); its QC flags are
         counted in the QC summary.
+    time_dependent : pandas.DataFrame, optional
+        The time-dependent compounds' ranking
+        (:func:`inhibkin.time_dependent.rank_time_dependent`), shown as a section of its
+        own, apart from the pKi ranking.
     title : str
     rate_unit : str
         Unit label of the rates, e.g. ``"µM/min"``.
@@ -460,7 +489,8 @@ def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaig
     path = Path(path)
     if not (path.parent if str(path.parent) else Path(".")).is_dir():
         raise DataError("the output directory does not exist", context=f"file {str(path)!r}")
-    text = render_report(campaign, potency=potency, rates=rates, title=title,
+    text = render_report(campaign, potency=potency, rates=rates,
+                         time_dependent=time_dependent, title=title,
                          rate_unit=rate_unit, units=units, ki_unit=ki_unit,
                          potency_unit=potency_unit, max_potency_figures=max_potency_figures,
                          notes=notes, dpi=dpi, detail=detail, quiet=quiet)

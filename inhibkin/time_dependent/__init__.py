@@ -5,11 +5,13 @@ as data), :mod:`.kobs` (kobs of every well), :mod:`.dependence` (kobs against [I
 comparison and derived constants), :mod:`.global_fit` (all progress curves at once),
 :mod:`.preincubation` (IC50 after several pre-incubation times), :mod:`.detect` (the
 ``time_dependent`` flag of the rates stage), :mod:`.results` (the public entry points and
-result objects) and :mod:`.plots` (the figures a reviewer checks).
+result objects), :mod:`.ranking` (the ranked table of time-dependent compounds) and
+:mod:`.plots` (the figures a reviewer checks).
 """
 
+from .ranking import rank_time_dependent
 from .results import PreincubationFit, TimeDependentFit, fit_preincubation, fit_time_dependent
 from .schemes import SCHEMES, KobsScheme, progress_curve
 
 __all__ = ["PreincubationFit", "TimeDependentFit", "fit_preincubation", "fit_time_dependent",
-           "SCHEMES", "KobsScheme", "progress_curve"]
+           "rank_time_dependent", "SCHEMES", "KobsScheme", "progress_curve"]

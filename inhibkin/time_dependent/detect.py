@@ -20,7 +20,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-__all__ = ["time_dependence", "time_dependent_grid"]
+__all__ = ["time_dependence", "time_dependent_grid", "flagged_inhibited", "FLAG"]
+
+#: The rates stage's name of the flag (a well's ``flags`` are joined by ";").
+FLAG = "time_dependent"
 
 # The rates stage's burst margin: depletion and product inhibition explain at most twice
 # the references' fall per product formed.
@@ -101,11 +104,34 @@ def time_dependence(t, y, valid, *, substrate, inhibitor, group,
                          "time_dependent": flagged})
 
 
+def flagged_inhibited(flags, inhibitor) -> tuple[int, int]:
+    """How many inhibited wells carry the ``time_dependent`` flag, and how many there are.
+
+    Parameters
+    ----------
+    flags : array-like of str
+        Each well's flags as the rates stage writes them (names joined by ``;``; missing
+        values are no flags).
+    inhibitor : array-like of float
+        Each well's inhibitor concentration (any unit; only > 0 matters).
+
+    Returns
+    -------
+    (int, int)
+        Flagged inhibited wells, inhibited wells.
+    """
+    inhibited = pd.to_numeric(pd.Series(np.asarray(inhibitor)), errors="coerce").to_numpy() > 0
+    names = pd.Series(np.asarray(flags, dtype=object)).fillna("").astype(str).str.split(";")
+    marked = names.apply(lambda listed: FLAG in (n.strip() for n in listed)).to_numpy(bool)
+    return int((inhibited & marked).sum()), int(inhibited.sum())
+
+
 def time_dependent_grid(table, *, inhibitor="inhibitor", flags="flags") -> bool:
     """Whether any inhibited well of a rates table carries the ``time_dependent`` flag.
 
     The hook for a grid fit: a grid built on such wells violates the steady-state
-    assumption, so its verdict should say ``time dependent`` instead of reporting a Ki.
+    assumption, so its verdict says ``time_dependent`` instead of reporting a Ki
+    (:func:`inhibkin.mechanism.fit_mechanisms` and :func:`inhibkin.fit_campaign` ask it).
 
     Parameters
     ----------
@@ -116,7 +142,4 @@ def time_dependent_grid(table, *, inhibitor="inhibitor", flags="flags") -> bool:
     """
     if flags not in table.columns or inhibitor not in table.columns:
         return False
-    inhibited = pd.to_numeric(table[inhibitor], errors="coerce") > 0
-    marked = table[flags].fillna("").astype(str).str.split(";").apply(
-        lambda names: "time_dependent" in names)
-    return bool((inhibited & marked).any())
+    return flagged_inhibited(table[flags], table[inhibitor])[0] > 0

@@ -1,0 +1,191 @@
+"""A grid fit on time-dependent wells says so (rule 5 of inhibkin.compare).
+
+Reads from the mass-action ODE of tests/td_ode.py (solve_ivp, LSODA, rtol 1e-10, each
+curve solved once per session), through the rates stage (``initial_rates``, which flags
+wells ``time_dependent``), into the mechanism fit, the campaign and the CLI. Units: µM, s.
+"""
+
+import numpy as np
+import pandas as pd
+import pytest
+from td_ode import Scheme, product_curve
+
+import inhibkin as ik
+from inhibkin.compare import TIME_DEPENDENT, TIME_DEPENDENT_REASON
+
+TIMES = tuple(np.linspace(0.0, 3600.0, 61))
+SUBSTRATES = (5.0, 10.0, 20.0, 50.0, 100.0)          # Km of the scheme is 10 µM
+INHIBITORS = (0.0, 0.0, 2.0, 5.0, 20.0, 50.0)
+NOISE = 0.001                                        # µM read noise, as test_time_dependent
+# One-step binding competitive with substrate, Ki = koff/kon = 1 µM in both: slow (binding
+# half-time about an hour at 1 µM) and rapid equilibrium.
+SLOW = Scheme(kon=2e-4, koff=2e-4)
+RAPID = Scheme(kon=10.0, koff=10.0)
+UNITS = {"substrate": "uM", "inhibitor": "uM"}
+
+
+def _plate(scheme, compound, seed):
+    rng = np.random.default_rng(seed)
+    reads, wells = [], []
+    for a, s in enumerate(SUBSTRATES):
+        for b, i in enumerate(INHIBITORS):
+            well = f"{'ABCDE'[a]}{b + 1}"
+            signal = product_curve(scheme, s, i, TIMES) + rng.normal(0.0, NOISE, len(TIMES))
+            reads.append(pd.DataFrame({"plate": compound, "well": well, "time": TIMES,
+                                       "signal": signal}))
+            wells.append({"plate": compound, "well": well, "substrate": s, "inhibitor": i,
+                          "compound": compound})
+    return pd.concat(reads, ignore_index=True), pd.DataFrame(wells)
+
+
+@pytest.fixture(scope="module")
+def rates():
+    """The rates stage's table of one slow-binding and one rapid-equilibrium plate."""
+    (slow_reads, slow_map), (rapid_reads, rapid_map) = (_plate(SLOW, "SLOW-1", 1),
+                                                        _plate(RAPID, "RAPID 2", 2))
+    result = ik.initial_rates(pd.concat([slow_reads, rapid_reads]),
+                              pd.concat([slow_map, rapid_map]), method="curve")
+    return result.table
+
+
+def _compound(table, name):
+    return table[table["compound"] == name]
+
+
+def test_rates_stage_flags_the_slow_plate_only(rates):
+    flagged = rates["flags"].str.split(";").apply(lambda f: "time_dependent" in f)
+    inhibited = rates["inhibitor"] > 0
+    slow = (rates["compound"] == "SLOW-1").to_numpy()
+    assert flagged[slow & inhibited].mean() >= 0.9
+    assert not flagged[~slow].any()
+    assert not flagged[~inhibited].any()
+
+
+def test_grid_fit_on_flagged_wells_reports_no_steady_state_ki(rates):
+    slow = ik.fit_mechanisms(_compound(rates, "SLOW-1"))
+    assert slow.verdict == TIME_DEPENDENT
+    assert slow.reason.startswith(TIME_DEPENDENT_REASON)
+    assert "inhibkin inactivation" in slow.summary()
+    assert slow.constants().empty
+    # The same rates without the flags are read as a steady-state grid: a Ki far from the
+    # true Ki = koff/kon = 1 µM (td_ode.Scheme), the error the verdict prevents.
+    steady = ik.fit_mechanisms(_compound(rates, "SLOW-1").drop(columns="flags"))
+    assert steady.verdict != TIME_DEPENDENT
+    assert steady.constants()["estimate"].min() > 5.0
+
+
+def test_rapid_equilibrium_grid_keeps_its_ki(rates):
+    fit = ik.fit_mechanisms(_compound(rates, "RAPID 2"))
+    assert fit.verdict == "competitive"
+    low, high = fit.constants().loc["kic", ["ci_low", "ci_high"]]
+    assert low < RAPID.ki < high          # Ki = koff/kon (td_ode.Scheme)
+
+
+@pytest.mark.parametrize("engine", ["lmfit", "batched"])
+def test_campaign_does_not_rank_a_time_dependent_grid(rates, engine):
+    campaign = ik.fit_campaign(rates, units=UNITS, engine=engine, quiet=True)
+    table = campaign.ranking.set_index("compound")
+    assert list(campaign.ranking["compound"]) == ["RAPID 2", "SLOW-1"]
+    slow, rapid = table.loc["SLOW-1"], table.loc["RAPID 2"]
+    assert slow["status"] == "time_dependent" and slow["verdict"] == TIME_DEPENDENT
+    assert slow["reason"].startswith(TIME_DEPENDENT_REASON)
+    assert pd.isna(slow["rank"]) and np.isnan(slow["ki_M"]) and np.isnan(slow["pki"])
+    assert rapid["status"] == "determined" and rapid["rank"] == 1
+    assert campaign.counts["time_dependent"] == 1
+
+
+def test_cli_rank_reads_the_rates_stage_flags(rates, tmp_path):
+    from inhibkin.cli import main
+
+    grid = tmp_path / "rates.csv"
+    rates.to_csv(grid, index=False)
+    out = tmp_path / "ranked.csv"
+    status = main(["rank", "--grid", str(grid), "-o", str(out), "--units", "substrate=uM",
+                   "--units", "inhibitor=uM", "--quiet"])
+    assert status == 0
+    table = pd.read_csv(out, dtype={"compound": str}).set_index("compound")
+    assert table.loc["SLOW-1", "status"] == "time_dependent"
+    assert table.loc["SLOW-1", "reason"].startswith(TIME_DEPENDENT_REASON)
+    assert table.loc["RAPID 2", "status"] == "determined"
+
+
+# Covalent two-step schemes (KI = (koff + k5)/kon ≈ 1 µM; Copeland), kinact/KI 2000 and
+# 500 /M/s: the stronger must rank first, a compound with too few wells fails alone.
+STRONG = Scheme(kon=10.0, koff=10.0, k5=0.002, enzyme=1e-6)
+WEAK = Scheme(kon=10.0, koff=10.0, k5=0.0005, enzyme=1e-6)
+COVALENT_INHIBITORS = (0.0, 2.0, 5.0, 10.0, 20.0, 50.0, 100.0, 200.0)
+
+
+def _reads(scheme, compound, inhibitors, seed):
+    from td_ode import plate_reads
+
+    return plate_reads(scheme, 100.0, inhibitors, TIMES, noise_sd=2e-4,
+                       seed=seed).assign(compound=compound)
+
+
+def test_time_dependent_ranking_is_its_own_table_by_kinact_over_ki():
+    reads = pd.concat([_reads(WEAK, "cov-weak", COVALENT_INHIBITORS, 3),
+                       _reads(STRONG, "007", COVALENT_INHIBITORS, 4),
+                       _reads(STRONG, "cov bad", (0.0, 5.0), 5)])
+    table = ik.rank_time_dependent(reads, substrate=100.0, km=STRONG.km)
+    assert list(table["compound"]) == ["007", "cov-weak", "cov bad"]    # exact input text
+    assert list(table["status"]) == ["determined", "determined", "failed"]
+    assert list(table["rank"].iloc[:2]) == [1, 2] and pd.isna(table["rank"].iloc[2])
+    assert set(table["metric"]) == {"log10(kinact/KI)"}
+    for name, scheme in (("007", STRONG), ("cov-weak", WEAK)):
+        row = table.set_index("compound").loc[name]
+        truth = scheme.k5 / ((scheme.koff + scheme.k5) / scheme.kon)    # µM⁻¹ s⁻¹
+        assert row["kinact_over_ki_low"] < truth < row["kinact_over_ki_high"]
+        assert row["score"] == pytest.approx(np.log10(row["kinact_over_ki"]))
+    assert "at least 4 inhibited wells" in table["reason"].iloc[2]
+
+
+def test_cli_rank_writes_the_time_dependent_section_apart(rates, tmp_path, capsys):
+    from inhibkin.cli import EXIT_OK, EXIT_SOME_FAILED, main
+
+    grid, reads = tmp_path / "rates.csv", tmp_path / "reads.csv"
+    rates.to_csv(grid, index=False)
+    pd.concat([_reads(STRONG, "007", COVALENT_INHIBITORS, 4),
+               _reads(STRONG, "cov bad", (0.0, 5.0), 5)]).to_csv(reads, index=False)
+    out, covalent = tmp_path / "ranked.csv", tmp_path / "covalent.csv"
+    status = main(["rank", "--grid", str(grid), "-o", str(out), "--units", "substrate=uM",
+                   "--units", "inhibitor=uM", "--time-dependent", str(reads),
+                   "--time-dependent-output", str(covalent), "--quiet"])
+    assert status == EXIT_SOME_FAILED          # "cov bad" failed, alone
+    table = pd.read_csv(covalent, dtype={"compound": str})
+    assert list(table["compound"]) == ["007", "cov bad"]
+    assert list(table["status"]) == ["determined", "failed"]
+    assert "pki" not in table.columns and "score" not in pd.read_csv(out).columns
+    status = main(["rank", "--grid", str(grid), "-o", str(out), "--time-dependent", str(reads)])
+    assert status != EXIT_OK
+    assert "give --time-dependent and --time-dependent-output together" in capsys.readouterr().err
+
+
+def test_report_shows_the_time_dependent_ranking_as_its_own_section(rates, tmp_path):
+    campaign = ik.fit_campaign(rates, units=UNITS, quiet=True)
+    covalent = ik.rank_time_dependent(pd.concat([
+        _reads(STRONG, "007", COVALENT_INHIBITORS, 4),
+        _reads(WEAK, "cov-weak", COVALENT_INHIBITORS, 3)]))
+    path = ik.report(campaign, tmp_path / "report.html", time_dependent=covalent,
+                     detail="none", quiet=True)
+    text = path.read_text()
+    ranked, apart = text.split('id="ranking-table"')[1], text.split('id="time-dependent"')[1]
+    section = apart.split("</section>")[0]
+    assert "ranked apart" in section and "log10(kinact/KI)" in section
+    assert section.index(">007<") < section.index(">cov-weak<")
+    assert ">007<" not in ranked.split("</table>")[0]
+
+
+def test_cli_report_takes_the_time_dependent_reads(rates, tmp_path):
+    from inhibkin.cli import EXIT_OK, main
+
+    grid, reads = tmp_path / "rates.csv", tmp_path / "reads.csv"
+    rates.to_csv(grid, index=False)
+    _reads(STRONG, "007", COVALENT_INHIBITORS, 4).to_csv(reads, index=False)
+    out = tmp_path / "report.html"
+    status = main(["report", "--grid", str(grid), "-o", str(out), "--units", "substrate=uM",
+                   "--units", "inhibitor=uM", "--time-dependent", str(reads),
+                   "--detail", "none", "--quiet"])
+    assert status == EXIT_OK
+    section = out.read_text().split('id="time-dependent"')[1].split("</section>")[0]
+    assert ">007<" in section
