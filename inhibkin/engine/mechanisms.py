@@ -270,7 +270,7 @@ class MechanismBatch:
         lack = lack[lack["compound"] == c].drop(columns="compound").reset_index(drop=True)
         tried = set(lack["model"])
         models = {name: m for name, m in self.models.items()
-                  if name in MODEL_NAMES or name in tried}
+                  if MODELS[name].family == "classical" or name in tried}
         fits = {name: _model_fit(m, c, s, i, v, self.level) for name, m in models.items()}
         comparison = _comparison_frame(models, c)
         ftests = _ftest_frame(models, self.p_values, c)
