@@ -172,8 +172,11 @@ class MechanismFit:
 _LACK_OF_FIT_FRAME = pd.DataFrame(columns=["model", "method", "statistic", "p_value"])
 
 
-def lack_of_fit_rows(fits, names, s, i, w) -> pd.DataFrame:
-    """The lack-of-fit test of each converged model of ``names`` on weighted residuals."""
+def lack_of_fit_rows(fits, names, s, i, w, exact_ssr=0.0) -> pd.DataFrame:
+    """The lack-of-fit test of each converged model of ``names`` on weighted residuals.
+
+    An exact fit (SSR at or below ``exact_ssr``) has no lack of fit: its p-value is NaN,
+    never a comparison of rounding errors."""
     rows = []
     mask = np.ones((1, len(s)), bool)
     for name in names:
@@ -182,8 +185,10 @@ def lack_of_fit_rows(fits, names, s, i, w) -> pd.DataFrame:
             continue
         method, statistic, p_value = lack_of_fit((w * fit.residuals)[None], s[None], i[None],
                                                  mask, fit.n_params)
-        rows.append({"model": name, "method": method[0], "statistic": statistic[0],
-                     "p_value": p_value[0]})
+        exact = fit.ssr <= exact_ssr
+        rows.append({"model": name, "method": method[0],
+                     "statistic": np.nan if exact else statistic[0],
+                     "p_value": np.nan if exact else p_value[0]})
     return pd.DataFrame(rows, columns=_LACK_OF_FIT_FRAME.columns)
 
 
@@ -210,7 +215,8 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
 
     Returns the verdict, every fit, the F-tests of the new pairs and the lack-of-fit rows.
     """
-    tested = lack_of_fit_rows(fits, [verdict.best] if verdict.best else [], s, i, w)
+    tested = lack_of_fit_rows(fits, [verdict.best] if verdict.best else [], s, i, w,
+                              exact_ssr)
     none = (verdict, fits, None, tested)
     if not len(tested) or not tested["p_value"].iloc[0] < options.lack_of_fit_alpha:
         return none
@@ -228,12 +234,13 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
                                                              s, i, v, w), **common)
     every = {**fits, **extended}
     every = {name: every[name] for name in MODELS if name in every}
-    new_tests = f_test_table(every, exact_ssr=exact_ssr)
-    # The fixed-alpha tests (rule 4) stay those of the classical mixed fit.
-    tests = pd.concat([new_tests, ftests[~ftests["reduced"].isin(MODELS)]], ignore_index=True)
+    # Every nested pair, then the classical fixed-alpha tests (rule 4), as before.
+    tests = pd.concat([f_test_table(every, exact_ssr=exact_ssr),
+                       ftests[~ftests["reduced"].isin(MODELS)]], ignore_index=True)
     comparison = comparison_table(every)
     converged = set(comparison.index[comparison["converged"]])
-    extended_lof = lack_of_fit_rows(every, list(extended), s, i, w).set_index("model")
+    extended_lof = lack_of_fit_rows(every, list(extended), s, i, w,
+                                    exact_ssr).set_index("model")
     pattern = residual_pattern((w * fits[verdict.best].residuals)[None], s[None],
                                np.ones((1, len(s)), bool))[0]
     out = decide_extended(

@@ -717,10 +717,13 @@ def _weighted_residuals(res, rows, s, i, v, mask, w):
     return np.where(mask[rows], w[rows] * (v[rows] - fitted), 0.0)
 
 
-def _lack_rows(res, rows, s, i, v, mask, w):
-    """The lack-of-fit rows of model ``res`` for the compounds ``rows``."""
+def _lack_rows(res, rows, s, i, v, mask, w, exact_ssr):
+    """The lack-of-fit rows of model ``res`` for the compounds ``rows`` (NaN for an exact
+    fit, as :func:`inhibkin.mechanism.lack_of_fit_rows`)."""
     method, statistic, p_value = lack_of_fit(_weighted_residuals(res, rows, s, i, v, mask, w),
                                              s[rows], i[rows], mask[rows], res["n_params"])
+    exact = res["ssr"][rows] <= exact_ssr[rows]
+    statistic, p_value = np.where(exact, np.nan, statistic), np.where(exact, np.nan, p_value)
     return pd.DataFrame({"compound": rows, "model": res["model"], "method": method,
                          "statistic": statistic, "p_value": p_value})
 
@@ -773,7 +776,7 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
     for name in (n for n in MODEL_NAMES if n in out):
         at = rows[(best[rows] == name) & out[name]["converged"][rows]]
         if at.size:
-            tables.append(_lack_rows(out[name], at, s, i, v, mask, w))
+            tables.append(_lack_rows(out[name], at, s, i, v, mask, w, exact_ssr))
     tested = pd.concat(tables, ignore_index=True) if tables else _LACK_COLUMNS.copy()
     failing = tested["p_value"].to_numpy(dtype=float) < options.lack_of_fit_alpha
     fail = np.sort(tested["compound"].to_numpy(dtype=int)[failing])
@@ -789,16 +792,20 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
                                                    max_iterations)
             _fill_from_engine(res, name, fail, result, s, i, mask, lower, upper, level,
                               determination_factor)
-            tables.append(_lack_rows(res, fail[res["converged"][fail]], s, i, v, mask, w))
+            tables.append(_lack_rows(res, fail[res["converged"][fail]], s, i, v, mask, w,
+                                     exact_ssr))
         criteria = information_criteria(res["ssr"], n_obs, res["n_params"], sum_log_w)
         res.update((key, criteria[key]) for key in ("loglik", "aic", "aicc", "bic"))
         out[name] = res
     ordered = {name: out[name] for name in MODELS if name in out}
     out.clear()
     out.update(ordered)
-    for pair in nested_pairs(tuple(out)):
-        if pair not in p_values:
-            p_values[pair] = _f_tests(out, *pair, exact_ssr)
+    # Every nested pair in the models' order, then the fixed-alpha tests (rule 4).
+    fixed = {pair: p for pair, p in p_values.items() if pair[0] not in MODELS}
+    nested = {pair: p_values[pair] if pair in p_values else _f_tests(out, *pair, exact_ssr)
+              for pair in nested_pairs(tuple(out))}
+    p_values.clear()
+    p_values.update({**nested, **fixed})
     if not fail.size:
         return tested.sort_values("compound", ignore_index=True)
     lack = pd.concat(tables, ignore_index=True)
