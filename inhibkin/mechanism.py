@@ -172,19 +172,24 @@ class MechanismFit:
 _LACK_OF_FIT_FRAME = pd.DataFrame(columns=["model", "method", "statistic", "p_value"])
 
 
-def lack_of_fit_rows(fits, names, s, i, w, exact_ssr=0.0) -> pd.DataFrame:
+def lack_of_fit_rows(fits, names, s, i, w, exact_ssr=0.0, relative=False) -> pd.DataFrame:
     """The lack-of-fit test of each converged model of ``names`` on weighted residuals.
 
-    An exact fit (SSR at or below ``exact_ssr``) has no lack of fit: its p-value is NaN,
-    never a comparison of rounding errors."""
+    With ``relative`` (constant-CV weighting) each model is judged on its own relative
+    residuals (v − v̂)/v̂: the shared weights come from the classical mixed fit, which
+    misweights the very grids that fail it. An exact fit (SSR at or below
+    ``exact_ssr``) has no lack of fit: its p-value is NaN, never a comparison of
+    rounding errors."""
     rows = []
     mask = np.ones((1, len(s)), bool)
     for name in names:
         fit = fits.get(name)
         if fit is None or not fit.converged:
             continue
-        method, statistic, p_value = lack_of_fit((w * fit.residuals)[None], s[None], i[None],
-                                                 mask, fit.n_params)
+        scaled = (fit.residuals / np.where(fit.fitted > 0, fit.fitted, np.inf) if relative
+                  else w * fit.residuals)
+        method, statistic, p_value = lack_of_fit(scaled[None], s[None], i[None], mask,
+                                                 fit.n_params)
         exact = fit.ssr <= exact_ssr
         rows.append({"model": name, "method": method[0],
                      "statistic": np.nan if exact else statistic[0],
@@ -209,14 +214,15 @@ def extended_starts(name, fits, s, i, v, w) -> list[dict]:
     return starts
 
 
-def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_ssr):
+def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_ssr,
+                     relative=False):
     """Rule 5 of :mod:`inhibkin.compare` on one compound: the lack-of-fit test of the
     verdict's model and, when it fails, the extended laws fitted and decided.
 
     Returns the verdict, every fit, the F-tests of the new pairs and the lack-of-fit rows.
     """
     tested = lack_of_fit_rows(fits, [verdict.best] if verdict.best else [], s, i, w,
-                              exact_ssr)
+                              exact_ssr, relative)
     none = (verdict, fits, None, tested)
     if not len(tested) or not tested["p_value"].iloc[0] < options.lack_of_fit_alpha:
         return none
@@ -239,8 +245,8 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
                        ftests[~ftests["reduced"].isin(MODELS)]], ignore_index=True)
     comparison = comparison_table(every)
     converged = set(comparison.index[comparison["converged"]])
-    extended_lof = lack_of_fit_rows(every, list(extended), s, i, w,
-                                    exact_ssr).set_index("model")
+    extended_lof = lack_of_fit_rows(every, list(extended), s, i, w, exact_ssr,
+                                    relative).set_index("model")
     pattern = residual_pattern((w * fits[verdict.best].residuals)[None], s[None],
                                np.ones((1, len(s)), bool))[0]
     out = decide_extended(
@@ -471,7 +477,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                            ignore_index=True)
     verdict: Verdict = decide(comparison, ftests, options)
     verdict, every, tests, lack = extended_verdict(verdict, fits, ftests, s, i, v, w, options,
-                                                   common, exact_ssr)
+                                                   common, exact_ssr,
+                                                   relative=weighting == "relative")
     if tests is not None:
         fits, comparison, ftests = every, comparison_table(every), tests
     data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},

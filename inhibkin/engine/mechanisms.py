@@ -270,7 +270,8 @@ class MechanismBatch:
         lack = lack[lack["compound"] == c].drop(columns="compound").reset_index(drop=True)
         tried = set(lack["model"])
         models = {name: m for name, m in self.models.items()
-                  if MODELS[name].family == "classical" or name in tried}
+                  if MODELS[name].family == "classical" or name in tried
+                  or m.converged[c]}
         fits = {name: _model_fit(m, c, s, i, v, self.level) for name, m in models.items()}
         comparison = _comparison_frame(models, c)
         ftests = _ftest_frame(models, self.p_values, c)
@@ -699,7 +700,7 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
                                                   options)
     lack = _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w,
                       rows, n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
-                      max_iterations)
+                      max_iterations, weighting == "relative")
     for c in np.flatnonzero(~valid):
         for res in out.values():
             res["reason"][c] = f"not fitted: {invalid_reason[c]}"
@@ -708,19 +709,22 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
                           w, valid, weight_fallback, weighting, options, level, lack)
 
 
-def _weighted_residuals(res, rows, s, i, v, mask, w):
-    """w·(v − fitted) of model ``res`` for the compounds ``rows`` (0 where masked)."""
+def _weighted_residuals(res, rows, s, i, v, mask, w, relative=False):
+    """w·(v − fitted) of model ``res`` for the compounds ``rows`` (0 where masked); with
+    ``relative``, (v − fitted)/fitted, as :func:`inhibkin.mechanism.lack_of_fit_rows`."""
     law = MODELS[res["model"]]
     p = np.exp(res["theta"][rows])
     with np.errstate(all="ignore"):
         fitted = law.rate(s[rows], i[rows], *(p[:, [j]] for j in range(p.shape[1])))
-    return np.where(mask[rows], w[rows] * (v[rows] - fitted), 0.0)
+        scale = 1 / np.where(fitted > 0, fitted, np.inf) if relative else w[rows]
+    return np.where(mask[rows], scale * (v[rows] - fitted), 0.0)
 
 
-def _lack_rows(res, rows, s, i, v, mask, w, exact_ssr):
+def _lack_rows(res, rows, s, i, v, mask, w, exact_ssr, relative):
     """The lack-of-fit rows of model ``res`` for the compounds ``rows`` (NaN for an exact
     fit, as :func:`inhibkin.mechanism.lack_of_fit_rows`)."""
-    method, statistic, p_value = lack_of_fit(_weighted_residuals(res, rows, s, i, v, mask, w),
+    method, statistic, p_value = lack_of_fit(_weighted_residuals(res, rows, s, i, v, mask, w,
+                                                                 relative),
                                              s[rows], i[rows], mask[rows], res["n_params"])
     exact = res["ssr"][rows] <= exact_ssr[rows]
     statistic, p_value = np.where(exact, np.nan, statistic), np.where(exact, np.nan, p_value)
@@ -766,7 +770,7 @@ def _solve_extended(name, out, s, i, v, mask, w, rows, max_iterations):
 
 def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w, rows,
                n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
-               max_iterations):
+               max_iterations, relative):
     """Rule 5 of :mod:`inhibkin.compare` for every compound, as
     :func:`inhibkin.mechanism.extended_verdict` applies it to one: the lack-of-fit test
     of the verdict's model; the extended laws fitted (by the engine) for the compounds
@@ -776,13 +780,13 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
     for name in (n for n in MODEL_NAMES if n in out):
         at = rows[(best[rows] == name) & out[name]["converged"][rows]]
         if at.size:
-            tables.append(_lack_rows(out[name], at, s, i, v, mask, w, exact_ssr))
+            tables.append(_lack_rows(out[name], at, s, i, v, mask, w, exact_ssr, relative))
     tested = pd.concat(tables, ignore_index=True) if tables else _LACK_COLUMNS.copy()
     failing = tested["p_value"].to_numpy(dtype=float) < options.lack_of_fit_alpha
     fail = np.sort(tested["compound"].to_numpy(dtype=int)[failing])
     b = s.shape[0]
     classical = [n for n in MODEL_NAMES if n in out]
-    order = [extension_of(n) for n in classical]
+    order = [extension_of(n) for n in classical if extension_of(n) not in out]
     # Every chunk carries every extended law (empty where no compound tried it), so the
     # chunks join key by key.
     for name in sorted(order, key=lambda n: n == extension_of("mixed")):
@@ -793,7 +797,7 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
             _fill_from_engine(res, name, fail, result, s, i, mask, lower, upper, level,
                               determination_factor)
             tables.append(_lack_rows(res, fail[res["converged"][fail]], s, i, v, mask, w,
-                                     exact_ssr))
+                                     exact_ssr, relative))
         criteria = information_criteria(res["ssr"], n_obs, res["n_params"], sum_log_w)
         res.update((key, criteria[key]) for key in ("loglik", "aic", "aicc", "bic"))
         out[name] = res
@@ -811,7 +815,8 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
     lack = pd.concat(tables, ignore_index=True)
     p_lof = {(c, m): p for c, m, p in zip(lack["compound"], lack["model"], lack["p_value"])}
     patterns = dict(zip(fail, residual_pattern(
-        np.stack([_weighted_residuals(out[best[c]], np.array([c]), s, i, v, mask, w)[0]
+        np.stack([_weighted_residuals(out[best[c]], np.array([c]), s, i, v, mask, w,
+                                      relative)[0]
                   for c in fail]), s[fail], mask[fail])))
 
     def p_of(small, large, c):
