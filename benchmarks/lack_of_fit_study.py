@@ -12,7 +12,7 @@ Run: ``python -m benchmarks.lack_of_fit_study [n_seeds]``; writes docs/lack_of_f
 from __future__ import annotations
 
 import sys
-from functools import lru_cache
+from functools import cache
 from pathlib import Path
 
 import numpy as np
@@ -31,7 +31,7 @@ TRUTH = {"km": 100.0, "kic": 3.0}
 REGIMES = {"competitive (classical)": 0.0, "competitive, Ksi = 3 Km": 10.0}
 
 
-@lru_cache(maxsize=None)
+@cache
 def _rate(s0, i0, ks_on):
     def rhs(_, y):
         e, s, i, es, ei, ses, p = y
