@@ -112,7 +112,7 @@ __all__ = [
     "AUTO_ENGINE_MIN_COMPOUNDS",
 ]
 
-STATUSES = ("determined", "bound", "inactive", "failed")
+STATUSES = ("determined", "bound", "inactive", "inadequate", "failed")
 
 # Ligand efficiency LE = 1.37 * pKi / heavy atoms, in kcal/mol per heavy atom: 1.37 is
 # 2.303·R·T at 298 K in kcal/mol (Hopkins, Groom & Alex 2004, Drug Discov. Today 9:430).
@@ -293,6 +293,12 @@ def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
                        ki_reported=f"{row['ki_reported']}; Ki > {low:.3g} M whatever the "
                                    f"mechanism")
         row["flags"] = "; ".join(flags)
+        return row
+    if fit.verdict == "inadequate":
+        # No law fits (rule 5 of the verdict): no constant is a result.
+        row.update(status="inadequate", mechanism=fit.best,
+                   ki_reported="no constant: the data fit no model (lack of fit)",
+                   flags="; ".join(flags))
         return row
     if fit.verdict == "ambiguous":
         flags.append(f"mechanism ambiguous between {', '.join(fit.candidates)}; {fit.basis}")

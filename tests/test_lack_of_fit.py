@@ -136,3 +136,14 @@ def test_an_unfit_pattern_is_inadequate_and_gives_no_constant():
                             intervals="wald")
     assert fit.verdict == "inadequate", fit.reason
     assert fit.constants().empty
+
+
+def test_an_inadequate_compound_is_ranked_without_a_ki():
+    # The campaign never presents a Ki for a grid that no law fits.
+    s, i = _grid(replicates=2)
+    v = MODELS["competitive"].rate(s, i, 10.0, 100.0, 3.0) * (1 + 0.6 * (s >= 1000)) \
+        * (1 + 0.01 * np.random.default_rng(3).standard_normal(s.size))
+    grid = pd.DataFrame({"compound": "C1", "substrate_uM": s, "inhibitor_uM": i, "rate": v})
+    row = ik.fit_campaign(grid, intervals="wald").ranking.iloc[0]
+    assert row["status"] == "inadequate" and row["verdict"] == "inadequate"
+    assert not np.isfinite(row["ki_M"])
