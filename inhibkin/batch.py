@@ -122,9 +122,9 @@ __all__ = [
     "AUTO_ENGINE_MIN_COMPOUNDS",
 ]
 
-STATUSES = ("determined", "bound", "inactive", "time_dependent", "failed")
+STATUSES = ("determined", "bound", "inactive", "inadequate", "time_dependent", "failed")
 #: The rates stage's column of well flags; a grid table that carries it is checked for
-#: wells flagged time_dependent (rule 5 of inhibkin.compare).
+#: wells flagged time_dependent (rule 6 of inhibkin.compare).
 RATE_FLAGS = "flags"
 
 # Ligand efficiency LE = 1.37 * pKi / heavy atoms, in kcal/mol per heavy atom: 1.37 is
@@ -313,6 +313,12 @@ def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
                        ki_reported=f"{row['ki_reported']}; Ki > {low:.3g} M whatever the "
                                    f"mechanism")
         row["flags"] = "; ".join(flags)
+        return row
+    if fit.verdict == "inadequate":
+        # No law fits (rule 5 of the verdict): no constant is a result.
+        row.update(status="inadequate", mechanism=fit.best,
+                   ki_reported="no constant: the data fit no model (lack of fit)",
+                   flags="; ".join(flags))
         return row
     if fit.verdict == "ambiguous":
         flags.append(f"mechanism ambiguous between {', '.join(fit.candidates)}; {fit.basis}")

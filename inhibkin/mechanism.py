@@ -20,12 +20,14 @@ from .compare import (
     VerdictOptions,
     comparison_table,
     decide,
+    decide_extended,
     f_test,
     f_test_table,
     time_dependent_verdict,
 )
 from .core.bounds import NESTED_FAR_FACTOR
 from .core.determined import DETERMINATION_FACTOR
+from .core.lack_of_fit import LACK_OF_FIT_ALPHA, lack_of_fit, residual_pattern
 from .core.options import FitOptions
 from .core.readonly import readonly_frame, readonly_mapping
 from .core.weighting import (
@@ -41,7 +43,7 @@ from .core.weighting import (
 )
 from .errors import DataError
 from .fitting import ModelFit, fit_model, fixed_alpha_ssr
-from .models import MODEL_NAMES, MODELS, nested_start
+from .models import MODEL_NAMES, MODELS, extension_of, nested_start
 from .starts import log_bounds, starting_values
 from .text import text_table
 from .time_dependent.detect import flagged_inhibited
@@ -83,6 +85,9 @@ class MechanismFit:
         The weighting as used: ``relative``, ``uniform``, ``sd`` or
         ``rate_se + variance model``.
     options : VerdictOptions
+    lack_of_fit : pandas.DataFrame
+        The lack-of-fit test of the verdict's classical model, and of the extended laws
+        when they were tried: method (pure error / runs), statistic, p_value per model.
     """
 
     verdict: str
@@ -95,11 +100,14 @@ class MechanismFit:
     data: pd.DataFrame = field(repr=False)
     weighting: str = DEFAULT_WEIGHTING
     options: VerdictOptions = VerdictOptions()
+    lack_of_fit: pd.DataFrame = field(default=None, repr=False)
 
     def __post_init__(self):
         # Frozen all the way down: fit.models["mixed"] = ... and table edits are refused.
         object.__setattr__(self, "models", readonly_mapping(self.models, nested=False))
-        for name in ("comparison", "ftests", "data"):
+        if self.lack_of_fit is None:
+            object.__setattr__(self, "lack_of_fit", _LACK_OF_FIT_FRAME.copy())
+        for name in ("comparison", "ftests", "data", "lack_of_fit"):
             object.__setattr__(self, name, readonly_frame(getattr(self, name)))
 
     @property
@@ -126,6 +134,8 @@ class MechanismFit:
                     f"fits, best {self.best}, are kept for inspection only)")
         if self.best is None:
             return "no constants: the fit failed"
+        if self.verdict == "inadequate":
+            return f"no constants: {self.best} does not describe the data (lack of fit)"
         if self.best == "none":
             return "no inhibition constants (no inhibition detected)"
         if self.verdict != "ambiguous":
@@ -141,7 +151,7 @@ class MechanismFit:
     def constants(self) -> pd.DataFrame:
         """The inhibition constants of the best model (kic, kiu, ki, alpha where present)."""
         fit = self.best_fit
-        if fit is None or self.best == "none" or self.verdict == TIME_DEPENDENT:
+        if fit is None or self.best == "none" or self.verdict in (TIME_DEPENDENT, "inadequate"):
             return pd.DataFrame(columns=["estimate", "se", "ci_low", "ci_high", "determined"])
         keep = [p for p in fit.params.index if p not in ("vmax", "km")]
         return fit.params.loc[keep]
@@ -161,6 +171,8 @@ class MechanismFit:
         lines += ["-" * width, f"Model comparison ({self.weighting} weighting)",
                   text_table(self.comparison), "-" * width, "Nested F-tests",
                   text_table(self.ftests, index=False)]
+        if len(self.lack_of_fit):
+            lines += ["-" * width, "Lack of fit", text_table(self.lack_of_fit, index=False)]
         if self.best_fit is not None:
             lines += ["-" * width, self.best_fit.summary()]
         lines.append("=" * width)
@@ -170,6 +182,104 @@ class MechanismFit:
         from .display.html import fit_html  # matplotlib is loaded only when a notebook asks
 
         return fit_html(self)
+
+
+_LACK_OF_FIT_FRAME = pd.DataFrame(columns=["model", "method", "statistic", "p_value"])
+
+
+def lack_of_fit_rows(fits, names, s, i, w, exact_ssr=0.0, relative=False) -> pd.DataFrame:
+    """The lack-of-fit test of each converged model of ``names`` on weighted residuals.
+
+    With ``relative`` (constant-CV weighting) each model is judged on its own relative
+    residuals (v − v̂)/v̂: the shared weights come from the classical mixed fit, which
+    misweights the very grids that fail it. An exact fit (SSR at or below
+    ``exact_ssr``) has no lack of fit: its p-value is NaN, never a comparison of
+    rounding errors."""
+    rows = []
+    mask = np.ones((1, len(s)), bool)
+    for name in names:
+        fit = fits.get(name)
+        if fit is None or not fit.converged:
+            continue
+        scaled = (fit.residuals / np.where(fit.fitted > 0, fit.fitted, np.inf) if relative
+                  else w * fit.residuals)
+        method, statistic, p_value = lack_of_fit(scaled[None], s[None], i[None], mask,
+                                                 fit.n_params)
+        exact = fit.ssr <= exact_ssr
+        rows.append({"model": name, "method": method[0],
+                     "statistic": np.nan if exact else statistic[0],
+                     "p_value": np.nan if exact else p_value[0]})
+    return pd.DataFrame(rows, columns=_LACK_OF_FIT_FRAME.columns)
+
+
+def extended_starts(name, fits, s, i, v, w) -> list[dict]:
+    """Starts of the extended law ``name``: its automatic start, the classical law's
+    solution with ksi at the largest substrate level, and (for mixed's extension) each
+    nested extension's solution, so that its SSR is no larger than theirs."""
+    law = MODELS[name]
+    starts = [starting_values(name, s, i, v, w)]
+    classical = fits.get(law.extends)
+    if classical is not None and classical.converged:
+        starts.append({**classical.best_values, "ksi": float(np.max(s))})
+    for small, fit in fits.items():
+        if fit.converged and name in MODELS[small].nests_in and MODELS[small].extends:
+            far = float(np.exp(log_bounds(name, s, i, v)["kic"][1])) / NESTED_FAR_FACTOR \
+                if "kic" in law.param_names else float(np.max(s))
+            starts.append(nested_start(small, fit.best_values, name, far))
+    return starts
+
+
+def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_ssr,
+                     relative=False):
+    """Rule 5 of :mod:`inhibkin.compare` on one compound: the lack-of-fit test of the
+    verdict's model and, when it fails, the extended laws fitted and decided.
+
+    Returns the verdict, every fit, the F-tests of the new pairs and the lack-of-fit rows.
+    """
+    tested = lack_of_fit_rows(fits, [verdict.best] if verdict.best else [], s, i, w,
+                              exact_ssr, relative)
+    none = (verdict, fits, None, tested)
+    if not len(tested) or not tested["p_value"].iloc[0] < options.lack_of_fit_alpha:
+        return none
+    extended = {}
+    for name in fits:
+        ext = extension_of(name)
+        if ext is not None and ext != extension_of("mixed"):
+            extended[ext] = fit_model(ext, s, i, v, w,
+                                      starts=extended_starts(ext, {**fits, **extended},
+                                                             s, i, v, w), **common)
+    general = extension_of("mixed")
+    if "mixed" in fits:
+        extended[general] = fit_model(general, s, i, v, w,
+                                      starts=extended_starts(general, {**fits, **extended},
+                                                             s, i, v, w), **common)
+    every = {**fits, **extended}
+    every = {name: every[name] for name in MODELS if name in every}
+    # Every nested pair, then the classical fixed-alpha tests (rule 4), as before.
+    tests = pd.concat([f_test_table(every, exact_ssr=exact_ssr),
+                       ftests[~ftests["reduced"].isin(MODELS)]], ignore_index=True)
+    comparison = comparison_table(every)
+    converged = set(comparison.index[comparison["converged"]])
+    extended_lof = lack_of_fit_rows(every, list(extended), s, i, w, exact_ssr,
+                                    relative).set_index("model")
+    pattern = residual_pattern((w * fits[verdict.best].residuals)[None], s[None],
+                               np.ones((1, len(s)), bool))[0]
+    out = decide_extended(
+        verdict, lack_of_fit_p=float(tested["p_value"].iloc[0]), pattern=pattern,
+        p_value=lambda reduced, full: _p_of(tests, reduced, full),
+        converged=lambda name: name in converged,
+        aicc=lambda name: float(comparison.loc[name, "aicc"]) if name in converged
+        else np.inf,
+        extended_lack_of_fit_p=lambda name: float(extended_lof.loc[name, "p_value"])
+        if name in extended_lof.index else np.nan,
+        options=options)
+    rows = pd.concat([tested, extended_lof.reset_index()], ignore_index=True)
+    return out, every, tests, rows
+
+
+def _p_of(tests, reduced, full):
+    row = tests[(tests["reduced"] == reduced) & (tests["full"] == full)]
+    return float(row["p_value"].iloc[0]) if len(row) else np.nan
 
 
 def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate", sd=None,
@@ -304,7 +414,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                    weighting=None, models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
                    alpha_factor=5.0, intervals="profile", level=0.95,
                    determination_factor=DETERMINATION_FACTOR, flags="flags",
-                   context=None) -> MechanismFit:
+                   lack_of_fit_alpha=LACK_OF_FIT_ALPHA, context=None) -> MechanismFit:
     """Fit every reversible mechanism to one compound's grid and decide between them.
 
     Parameters
@@ -352,6 +462,11 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         Column of the rates stage's well flags (``InitialRates.table["flags"]``), if
         present: when an inhibited well carries ``time_dependent`` the verdict is
         ``time_dependent`` and no constant is reported (:func:`with_time_dependence`).
+    lack_of_fit_alpha : float
+        Level of the lack-of-fit test of the verdict's model (default 0.01; 0 turns it
+        off). When the model fails it, the laws with substrate inhibition are fitted and
+        decided (rule 5 of :mod:`inhibkin.compare`): the verdict names one
+        ("competitive with substrate inhibition") or is ``inadequate``.
     context : str, optional
         Name of the compound, used in error messages.
 
@@ -379,7 +494,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     fit_options = FitOptions(weighting=weighting, intervals=intervals, level=level,
                              alpha=alpha, min_delta_aicc=min_delta_aicc,
                              alpha_factor=alpha_factor,
-                             determination_factor=determination_factor)
+                             determination_factor=determination_factor,
+                             lack_of_fit_alpha=lack_of_fit_alpha)
     if weighting == "sd" and sd is None:
         raise DataError("weighting='sd' needs the sd= column of standard deviations", context)
     unknown = [m for m in models if m not in MODELS]
@@ -400,7 +516,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     else:
         w = np.ones_like(v)
     options = VerdictOptions(alpha=fit_options.alpha, min_delta_aicc=fit_options.min_delta_aicc,
-                             alpha_factor=fit_options.alpha_factor)
+                             alpha_factor=fit_options.alpha_factor,
+                             lack_of_fit_alpha=fit_options.lack_of_fit_alpha)
     fits: dict[str, ModelFit] = {}
     common = dict(intervals=fit_options.intervals, level=fit_options.level,
                   determination_factor=fit_options.determination_factor)
@@ -416,8 +533,13 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         ftests = pd.concat([ftests, _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr)],
                            ignore_index=True)
     verdict: Verdict = decide(comparison, ftests, options)
+    verdict, every, tests, lack = extended_verdict(verdict, fits, ftests, s, i, v, w, options,
+                                                   common, exact_ssr,
+                                                   relative=weighting == "relative")
+    if tests is not None:
+        fits, comparison, ftests = every, comparison_table(every), tests
     data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},
                         index=df.index)
     fit = MechanismFit(verdict.verdict, verdict.best, verdict.candidates, verdict.reason,
-                       fits, comparison, ftests, data, weighting_label(weighting), options)
+                       fits, comparison, ftests, data, weighting_label(weighting), options, lack)
     return with_time_dependence(fit, df[flags]) if flags in df.columns else fit

@@ -30,11 +30,13 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["RateLaw", "Derived", "MODELS", "MODEL_NAMES", "INHIBITION_MODELS",
-           "ONE_CONSTANT_MODELS", "ROLES", "get_model", "nested_pairs", "nested_start"]
+           "ONE_CONSTANT_MODELS", "EXTENDED_MODELS", "ROLES", "get_model", "nested_pairs",
+           "nested_start", "extension_of"]
 
 #: The roles a parameter can have: the data axis that sets its bounds, start and
-#: "determined" rule.
-ROLES = ("rate", "substrate", "inhibitor")
+#: "determined" rule. ``substrate_inhibition`` (ksi) is set by the substrate levels like
+#: km, but a ksi past the tested range is reported as a lower bound and leaves vmax alone.
+ROLES = ("rate", "substrate", "inhibitor", "substrate_inhibition")
 
 
 @dataclass(frozen=True)
@@ -85,6 +87,14 @@ class RateLaw:
         reject before the name is called (rule 4 of :mod:`inhibkin.compare`): "high"
         for alpha above ``alpha_factor`` (competitive), "low" for alpha below its
         inverse (uncompetitive), both for between them (noncompetitive).
+    family : str
+        ``"classical"`` (the five reversible laws, fitted by default) or the extension
+        the law adds (``"substrate_inhibition"``); extended laws are fitted only when the
+        classical verdict fails the lack-of-fit test (:mod:`inhibkin.core.lack_of_fit`).
+    extends : str, optional
+        The classical law this one reduces to when its extra constant goes to infinity.
+    label : str, optional
+        How a verdict names the law ("competitive with substrate inhibition").
     """
 
     name: str
@@ -98,6 +108,9 @@ class RateLaw:
     derived: tuple[Derived, ...] = ()
     ranking: tuple[str, ...] = ()
     alpha_edges: tuple[str, ...] = ()
+    family: str = "classical"
+    extends: str | None = None
+    label: str | None = None
 
     def __post_init__(self):
         if len(self.roles) != len(self.param_names) or not set(self.roles) <= set(ROLES):
@@ -178,7 +191,50 @@ def _noncompetitive_jac(s, i, vmax, km, ki):
     return np.stack([s / d, -g * a, g * (km + s) * i / ki**2], axis=-1)
 
 
-_RATE, _SUBSTRATE, _INHIBITOR = ROLES
+_RATE, _SUBSTRATE, _INHIBITOR, _SUBSTRATE_INHIBITION = ROLES
+
+
+def _with_substrate_inhibition(law: RateLaw):
+    """Rate and Jacobian of ``law`` with a dead-end SES complex (constant ksi, last).
+
+    The classical denominator D gains S**2/ksi: v = vmax*S/(D + S**2/ksi). Written with
+    r = v/v_c = 1/(1 + S*v_c/(vmax*ksi)), v_c the classical rate, so it stays finite at
+    S = 0 and every classical law gets its extension from one definition.
+    """
+
+    def rate(s, i, *params):
+        *classical, ksi = params
+        vc = law.rate(s, i, *classical)
+        return vc / (1 + s * vc / (classical[0] * ksi))
+
+    def jacobian(s, i, *params):
+        *classical, ksi = params
+        vmax = classical[0]
+        vc = law.rate(s, i, *classical)
+        r2 = (1 / (1 + s * vc / (vmax * ksi))) ** 2
+        jac = law.jacobian(s, i, *classical) * r2[..., None]
+        extra = r2 * vc**2 * s / vmax
+        jac[..., 0] += extra / (vmax * ksi)
+        return np.concatenate([jac, (extra / ksi**2)[..., None]], axis=-1)
+
+    return rate, jacobian
+
+
+def _substrate_inhibition_entry(law: RateLaw) -> RateLaw:
+    """The substrate-inhibited extension of a classical entry."""
+    rate, jacobian = _with_substrate_inhibition(law)
+    name = "substrate_inhibition" if law.name == "none" else f"{law.name}_si"
+    label = ("substrate inhibition" if law.name == "none"
+             else f"{law.name} with substrate inhibition")
+    nests_in = tuple("substrate_inhibition" if n == "none" else f"{n}_si"
+                     for n in law.nests_in)
+    equation = law.equation.replace("vmax*S / (", "vmax*S / (S**2/ksi + ", 1)
+    return RateLaw(name, law.param_names + ("ksi",), rate, jacobian, nests_in=nests_in,
+                   equation=equation, roles=law.roles + (_SUBSTRATE_INHIBITION,),
+                   ties=law.ties, derived=law.derived, ranking=law.ranking,
+                   alpha_edges=law.alpha_edges, family="substrate_inhibition",
+                   extends=law.name, label=label)
+
 
 MODELS: dict[str, RateLaw] = {
     m.name: m
@@ -218,12 +274,31 @@ MODELS: dict[str, RateLaw] = {
     )
 }
 
+#: The classical laws: fitted by default, the candidates of the classical verdict.
 MODEL_NAMES: tuple[str, ...] = tuple(MODELS)
-INHIBITION_MODELS: tuple[str, ...] = tuple(n for n in MODELS if MODELS[n].inhibition_constants)
+# Each classical law extended by substrate inhibition (ksi -> infinity gives it back);
+# the classical law nests in its extension.
+for _name in MODEL_NAMES:
+    _extended = _substrate_inhibition_entry(MODELS[_name])
+    MODELS[_name] = RateLaw(**{**MODELS[_name].__dict__,
+                               "nests_in": MODELS[_name].nests_in + (_extended.name,)})
+    MODELS[_extended.name] = _extended
+#: The extended laws, tried only when the classical verdict fails the lack-of-fit test.
+EXTENDED_MODELS: tuple[str, ...] = tuple(n for n in MODELS if n not in MODEL_NAMES)
+INHIBITION_MODELS: tuple[str, ...] = tuple(n for n in MODEL_NAMES
+                                           if MODELS[n].inhibition_constants)
 #: Models with one inhibition constant that nest in a larger one: the candidates the
 #: verdict chooses between by AICc (:mod:`inhibkin.compare`).
 ONE_CONSTANT_MODELS: tuple[str, ...] = tuple(
-    n for n, m in MODELS.items() if len(m.inhibition_constants) == 1 and m.nests_in)
+    n for n in MODEL_NAMES if len(MODELS[n].inhibition_constants) == 1)
+
+
+def extension_of(name: str, family: str = "substrate_inhibition") -> str | None:
+    """The name of the ``family`` extension of the classical law ``name`` (None if none)."""
+    for law in MODELS.values():
+        if law.extends == name and law.family == family:
+            return law.name
+    return None
 
 
 def get_model(name: str) -> RateLaw:

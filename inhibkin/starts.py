@@ -84,6 +84,39 @@ def _michaelis_menten_start(s, v, use):
     return vmax, km
 
 
+#: A ksi start when the uninhibited rates show no fall at high S: this multiple of the
+#: largest substrate level (far, where the law is classical, yet inside the bounds).
+KSI_FAR_START = 100.0
+
+
+def _substrate_inhibition_start(s, v, use):
+    """vmax, km and ksi from the quadratic S/v = km/vmax + S/vmax + S**2/(vmax*ksi)
+    through the points ``use`` of each row (the Hanes–Woolf line with substrate
+    inhibition's extra term); the line's starts and a far ksi where the quadratic does
+    not give positive constants."""
+    vmax, km = _michaelis_menten_start(s, v, use)
+    keep = use & (s > 0) & (v > 0)
+    s_max = np.max(np.where(use, s, 0.0), axis=1, initial=0.0)
+    ksi = np.where(s_max > 0, KSI_FAR_START * s_max, 1.0)
+    scale = np.where(s_max > 0, s_max, 1.0)[:, None]
+    x = np.where(keep, s / scale, 0.0)
+    q = np.where(keep, s / np.where(keep, v, 1.0), 0.0)
+    design = np.stack([keep.astype(float), x, x * x], axis=-1)
+    normal = np.einsum("bni,bnj->bij", design, design)
+    rhs = np.einsum("bni,bn->bi", design, q)
+    solvable = (count_unique(s, keep) >= 3) & (np.abs(np.linalg.det(normal)) > 1e-12)
+    coef = np.zeros_like(rhs)
+    if solvable.any():
+        coef[solvable] = np.linalg.solve(normal[solvable], rhs[solvable][..., None])[..., 0]
+    a, b, c = coef[:, 0], coef[:, 1] / scale[:, 0], coef[:, 2] / scale[:, 0] ** 2
+    good = solvable & (a > 0) & (b > 0) & (c > 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        vmax = np.where(good, 1 / b, vmax)
+        km = np.where(good, a / b, km)
+        ksi = np.where(good, b / c, ksi)
+    return vmax, km, ksi
+
+
 def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
     """Starting parameters of ``model`` for every problem, shape (B, k), natural scale.
 
@@ -102,13 +135,20 @@ def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
     uninhibited = mask & (i == 0)
     use_uninhibited = count_unique(s, uninhibited) >= 2
     use = np.where(use_uninhibited[:, None], uninhibited, mask)
-    vmax, km = _michaelis_menten_start(s, v, use)
-    names = law.inhibition_constants
+    roles = np.array(law.roles)
+    extra = np.flatnonzero(roles == "substrate_inhibition")
     out = np.empty((s.shape[0], law.n_params))
+    if extra.size:
+        vmax, km, out[:, extra[0]] = _substrate_inhibition_start(s, v, use)
+    else:
+        vmax, km = _michaelis_menten_start(s, v, use)
+    names = law.inhibition_constants
     out[:, 0], out[:, 1] = vmax, km
     if not names:
         return out
-    out[:, 2:] = 1.0
+    columns = np.flatnonzero(roles == "inhibitor")
+    rest = out[:, extra]
+    out[:, columns] = 1.0
     inhibited = mask & (i > 0)
     has = np.flatnonzero(inhibited.any(axis=1))
     if has.size == 0:
@@ -131,10 +171,11 @@ def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
         sr = np.where(sel, sr, 1.0)
         with np.errstate(all="ignore"):
             pred = law.rate(sr, ir, vmax[rows, None, None], km[rows, None, None],
-                            *(combos[:, :, [c]] for c in range(m)))
+                            *(combos[:, :, [c]] for c in range(m)),
+                            *(rest[rows][:, None, [c]] for c in range(extra.size)))
             score = np.sum(np.where(sel, (wr * (vr - pred)) ** 2, 0.0), axis=2)
         best = np.argmin(np.where(np.isnan(score), np.inf, score), axis=1)
-        out[rows, 2:] = combos[np.arange(rows.size), best]
+        out[rows[:, None], columns[None, :]] = combos[np.arange(rows.size), best]
     return out
 
 

@@ -247,6 +247,8 @@ OPTION_LIMITS = {
     "min_delta_aicc": Limit(0.0, np.inf, low_open=False),
     "determination_factor": Limit(1.0, np.inf, low_open=False),
     "alpha_factor": Limit(1.0, np.inf, hint="where the alpha regions begin, e.g. 5"),
+    "lack_of_fit_alpha": Limit(0.0, 1.0, low_open=False,
+                               hint="a test level, e.g. 0.01; 0 turns the test off"),
     # Concentrations in M: positive and finite (1e-100 M to 1e100 M, as for table values).
     "km": Limit(MIN_MAGNITUDE, MAX_MAGNITUDE, low_open=False, high_open=False,
                 hint="Km in M, or text with its unit such as '20uM'"),

@@ -16,7 +16,8 @@ __all__ = ["BOUND_FACTORS", "NESTED_FAR_FACTOR", "log_bounds_arrays"]
 #: largest |rate| for ``rate``, of the substrate levels for ``substrate``, of the inhibitor
 #: levels for ``inhibitor``. Wide on purpose (common practice: bounds far outside the data
 #: only keep the optimiser finite).
-BOUND_FACTORS = {"rate": (1e-3, 1e4), "substrate": (1e-4, 1e4), "inhibitor": (1e-4, 1e6)}
+BOUND_FACTORS = {"rate": (1e-3, 1e4), "substrate": (1e-4, 1e4), "inhibitor": (1e-4, 1e6),
+                 "substrate_inhibition": (1e-4, 1e6)}
 
 #: A constant that a nested model lacks starts the larger model at its upper bound
 #: divided by this (far out, where the nesting's limit lies, yet inside the bounds).
@@ -50,8 +51,9 @@ def log_bounds_arrays(law, s, i, v, mask):
     """
     top = np.max(np.where(mask, np.abs(v), 0.0), axis=1, initial=0.0)
     top = np.where(top == 0, 1.0, top)
-    ranges = {"rate": (top, top), "substrate": _positive_range(s, mask),
-              "inhibitor": _positive_range(i, mask)}
+    substrate = _positive_range(s, mask)
+    ranges = {"rate": (top, top), "substrate": substrate,
+              "inhibitor": _positive_range(i, mask), "substrate_inhibition": substrate}
     lower, upper = [], []
     for role in law.roles:
         below, above = BOUND_FACTORS[role]

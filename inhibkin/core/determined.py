@@ -11,6 +11,8 @@ parameter's role (:data:`inhibkin.models.ROLES`) adds what the tested levels can
   constant (every S far below km sets only vmax/km, vmax is an extrapolation); below
   the smallest substrate level / ``factor`` (every S far above km: the rates sit on the
   plateau) km is below resolution;
+- ``substrate_inhibition`` (ksi): an estimate above ``factor`` × the largest substrate
+  level is past the tested range (reported as a lower bound);
 - a derived quantity (alpha = kiu/kic) is determined when both its terms are.
 
 Written over (problems, parameters) arrays; the lmfit path calls it with one problem.
@@ -62,6 +64,8 @@ def determined_flags(law, theta, lower, upper, ci_low, ci_high, se_log, s, i, ma
     for j, role in enumerate(law.roles):
         if role == "inhibitor":
             ok[:, j] &= ~(estimate[:, j] > factor * i_max)
+        elif role == "substrate_inhibition":
+            ok[:, j] &= ~(estimate[:, j] > factor * s_max)
         elif role == "substrate":
             too_high = ((estimate[:, j] > factor * s_max) | ~np.isfinite(ci_high[:, j])
                         | (upper[:, j] - theta[:, j] < AT_BOUND))

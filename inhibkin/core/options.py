@@ -13,6 +13,7 @@ from dataclasses import asdict, dataclass
 from ..errors import OptionError
 from ..validate import check_options
 from .determined import DETERMINATION_FACTOR
+from .lack_of_fit import LACK_OF_FIT_ALPHA
 from .weighting import DEFAULT_WEIGHTING, WEIGHTINGS
 
 __all__ = ["FitOptions", "INTERVAL_METHODS"]
@@ -22,7 +23,8 @@ INTERVAL_METHODS = ("profile", "wald")
 
 
 # The numeric options; their limits are declared once, in validate.OPTION_LIMITS.
-_NUMERIC = ("level", "alpha", "min_delta_aicc", "alpha_factor", "determination_factor")
+_NUMERIC = ("level", "alpha", "min_delta_aicc", "alpha_factor", "determination_factor",
+            "lack_of_fit_alpha")
 
 
 @dataclass(frozen=True)
@@ -45,6 +47,8 @@ class FitOptions:
         Where the regions of alpha = kiu/kic begin (> 1).
     determination_factor : float
         Multiple (≥ 1) of the tested range past which a constant is not determined.
+    lack_of_fit_alpha : float
+        Level (0 ≤ x < 1) of the lack-of-fit test of the verdict's model; 0 turns it off.
 
     Raises
     ------
@@ -60,6 +64,7 @@ class FitOptions:
     min_delta_aicc: float = 2.0
     alpha_factor: float = 5.0
     determination_factor: float = DETERMINATION_FACTOR
+    lack_of_fit_alpha: float = LACK_OF_FIT_ALPHA
 
     def __post_init__(self):
         if self.weighting not in WEIGHTINGS:

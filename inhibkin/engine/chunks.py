@@ -11,6 +11,7 @@ from __future__ import annotations
 import dataclasses
 
 import numpy as np
+import pandas as pd
 
 __all__ = ["DEFAULT_CHUNK_SIZE", "run_chunks", "concat_batches"]
 
@@ -72,7 +73,9 @@ def concat_batches(parts):
     """Join chunk results (frozen dataclasses naming their per-row ``batch_fields``).
 
     Per-row fields are concatenated; dict fields are joined key by key (their values
-    being results or tuples of arrays); every other field is taken from the first part.
+    being results or tuples of arrays); a table with a ``compound`` column (row numbers
+    within its chunk) is stacked with the numbers shifted to the whole batch's; every
+    other field is taken from the first part.
     """
     if len(parts) == 1:
         return parts[0]
@@ -83,6 +86,10 @@ def concat_batches(parts):
         values = [getattr(p, f.name) for p in parts]
         if f.name in rows:
             joined[f.name] = np.concatenate(values)
+        elif isinstance(values[0], pd.DataFrame) and "compound" in values[0]:
+            offsets = np.cumsum([0] + [len(p) for p in parts[:-1]])
+            joined[f.name] = pd.concat([v.assign(compound=v["compound"] + at)
+                                        for v, at in zip(values, offsets)], ignore_index=True)
         elif isinstance(values[0], dict):
             joined[f.name] = {key: _concat_values([v[key] for v in values])
                               for key in values[0]}

@@ -26,14 +26,17 @@ from scipy import stats
 
 from ..compare import (
     EXACT_FIT_RTOL,
+    Verdict,
     VerdictOptions,
     akaike_weights,
+    decide_extended,
     decide_from,
     f_test_arrays,
     information_criteria,
 )
 from ..core.bounds import NESTED_FAR_FACTOR
 from ..core.determined import DETERMINATION_FACTOR, determined_flags
+from ..core.lack_of_fit import LACK_OF_FIT_ALPHA, lack_of_fit, residual_pattern
 from ..core.options import FitOptions
 from ..core.weighting import (
     DEFAULT_WEIGHTING,
@@ -48,7 +51,14 @@ from ..core.weighting import (
 from ..errors import DataError, Problem
 from ..fitting import ModelFit, fit_model, fixed_alpha_ssr
 from ..mechanism import MechanismFit, mixed_starts, molar_grid, relative_weights
-from ..models import MODEL_NAMES, MODELS, ONE_CONSTANT_MODELS, nested_pairs, nested_start
+from ..models import (
+    MODEL_NAMES,
+    MODELS,
+    ONE_CONSTANT_MODELS,
+    extension_of,
+    nested_pairs,
+    nested_start,
+)
 from ..validate import ALL_EQUAL, NO_SIGNAL, check_grid
 from . import lm
 from .chunks import concat_batches, run_chunks
@@ -189,6 +199,10 @@ class MechanismBatch:
     weighting : str
     options : VerdictOptions
     level : float
+    lack_of_fit : pandas.DataFrame
+        One row per (compound, model) tested: compound, model, method, statistic,
+        p_value (rule 5 of :mod:`inhibkin.compare`). Extended laws appear in
+        :attr:`models` with results only for the compounds that tried them.
     """
 
     models: dict
@@ -207,6 +221,7 @@ class MechanismBatch:
     weighting: str = DEFAULT_WEIGHTING
     options: VerdictOptions = VerdictOptions()
     level: float = 0.95
+    lack_of_fit: pd.DataFrame = field(default=None, repr=False)
 
     batch_fields = ("verdict", "best", "candidates", "reason", "s", "i", "v", "mask",
                     "weights", "valid", "weight_fallback")
@@ -255,13 +270,23 @@ class MechanismBatch:
     def _one(self, c, labels) -> MechanismFit:
         keep = self.mask[c]
         s, i, v, w = self.s[c][keep], self.i[c][keep], self.v[c][keep], self.weights[c][keep]
-        fits = {name: _model_fit(m, c, s, i, v, self.level) for name, m in self.models.items()}
-        comparison = _comparison_frame(self.models, c)
-        ftests = _ftest_frame(self.models, self.p_values, c)
+        lack = _LACK_COLUMNS if self.lack_of_fit is None else self.lack_of_fit
+        lack = lack[lack["compound"] == c].drop(columns="compound").reset_index(drop=True)
+        tried = set(lack["model"])
+        models = {name: m for name, m in self.models.items()
+                  if MODELS[name].family == "classical" or name in tried
+                  or m.converged[c]}
+        fits = {name: _model_fit(m, c, s, i, v, self.level) for name, m in models.items()}
+        comparison = _comparison_frame(models, c)
+        ftests = _ftest_frame(models, self.p_values, c)
         data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},
                             index=labels)
         return MechanismFit(self.verdict[c], self.best[c], self.candidates[c], self.reason[c],
-                            fits, comparison, ftests, data, self.weighting, self.options)
+                            fits, comparison, ftests, data, self.weighting, self.options,
+                            lack)
+
+
+_LACK_COLUMNS = pd.DataFrame(columns=["compound", "model", "method", "statistic", "p_value"])
 
 
 def _model_fit(m: ModelBatch, c, s, i, v, level) -> ModelFit:
@@ -309,6 +334,8 @@ def _ftest_frame(models, p_values, c) -> pd.DataFrame:
     """:func:`inhibkin.compare.f_test_table` for compound ``c``, built from arrays."""
     rows = []
     for (small, large), (f_value, p_value) in p_values.items():
+        if large not in models or (small in MODELS and small not in models):
+            continue  # an extended law this compound did not try
         b = models[large]
         n = int(b.n_obs[c])
         # A fixed-alpha row has one parameter fewer than mixed.
@@ -619,8 +646,8 @@ def _nested_start(out, name, rows, far):
 
 
 def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, alpha_factor,
-               level,
-               determination_factor, fallback, max_iterations) -> MechanismBatch:
+               level, determination_factor, fallback, max_iterations,
+               lack_of_fit_alpha=LACK_OF_FIT_ALPHA) -> MechanismBatch:
     """Fit one chunk of compounds (the unit of work sent to a worker)."""
     b = s.shape[0]
     need_inhibition = any(m != "none" for m in models)
@@ -668,7 +695,7 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
     exact_ssr = EXACT_FIT_RTOL * np.sum((w * np.where(mask, v, 0.0)) ** 2, axis=1)
     p_values = {pair: _f_tests(out, *pair, exact_ssr) for pair in nested_pairs(tuple(out))}
     options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc,
-                             alpha_factor=alpha_factor)
+                             alpha_factor=alpha_factor, lack_of_fit_alpha=lack_of_fit_alpha)
     if "mixed" in out:
         far = np.zeros(b)
         far[rows] = np.exp(mechanism_log_bounds("mixed", s[rows], i[rows], v[rows],
@@ -677,13 +704,144 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
                                            options, max_iterations, fallback))
     verdict, best, candidates, reason = _verdicts(out, p_values, valid, invalid_reason,
                                                   options)
+    lack = _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w,
+                      rows, n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
+                      max_iterations, weighting == "relative")
     for c in np.flatnonzero(~valid):
         for res in out.values():
             res["reason"][c] = f"not fitted: {invalid_reason[c]}"
     batches = {name: ModelBatch(**res) for name, res in out.items()}
     return MechanismBatch(batches, verdict, best, candidates, reason, p_values, s, i, v, mask,
-                          w, valid, weight_fallback, weighting_label(weighting), options,
-                          level)
+                          w, valid, weight_fallback, weighting_label(weighting), options, level,
+                          lack)
+
+
+def _weighted_residuals(res, rows, s, i, v, mask, w, relative=False):
+    """w·(v − fitted) of model ``res`` for the compounds ``rows`` (0 where masked); with
+    ``relative``, (v − fitted)/fitted, as :func:`inhibkin.mechanism.lack_of_fit_rows`."""
+    law = MODELS[res["model"]]
+    p = np.exp(res["theta"][rows])
+    with np.errstate(all="ignore"):
+        fitted = law.rate(s[rows], i[rows], *(p[:, [j]] for j in range(p.shape[1])))
+        scale = 1 / np.where(fitted > 0, fitted, np.inf) if relative else w[rows]
+    return np.where(mask[rows], scale * (v[rows] - fitted), 0.0)
+
+
+def _lack_rows(res, rows, s, i, v, mask, w, exact_ssr, relative):
+    """The lack-of-fit rows of model ``res`` for the compounds ``rows`` (NaN for an exact
+    fit, as :func:`inhibkin.mechanism.lack_of_fit_rows`)."""
+    method, statistic, p_value = lack_of_fit(_weighted_residuals(res, rows, s, i, v, mask, w,
+                                                                 relative),
+                                             s[rows], i[rows], mask[rows], res["n_params"])
+    exact = res["ssr"][rows] <= exact_ssr[rows]
+    statistic, p_value = np.where(exact, np.nan, statistic), np.where(exact, np.nan, p_value)
+    return pd.DataFrame({"compound": rows, "model": res["model"], "method": method,
+                         "statistic": statistic, "p_value": p_value})
+
+
+def _solve_extended(name, out, s, i, v, mask, w, rows, max_iterations):
+    """Extended law ``name`` for the compounds ``rows`` from the starts of
+    :func:`inhibkin.mechanism.extended_starts` (automatic; the classical solution with
+    ksi at the largest S; each nested extension's solution), the best SSR winning."""
+    law = MODELS[name]
+    lower, upper = mechanism_log_bounds(name, s[rows], i[rows], v[rows], mask[rows])
+    starts = [np.log(mechanism_starts(name, s[rows], i[rows], v[rows], mask[rows], w[rows]))]
+    s_max = np.max(np.where(mask[rows], s[rows], 0.0), axis=1)
+    classical = out[law.extends]
+    starts.append(np.column_stack([classical["theta"][rows], np.log(s_max)]))
+    for small, res in out.items():
+        if name in MODELS[small].nests_in and MODELS[small].extends:
+            far = np.exp(upper[:, law.param_names.index("kic")]) / NESTED_FAR_FACTOR \
+                if "kic" in law.param_names else s_max
+            p = np.exp(res["theta"][rows])
+            values = {n: p[:, j] for j, n in enumerate(MODELS[small].param_names)}
+            start = nested_start(small, values, name, far)
+            starts.append(np.log(np.stack([start[n] for n in law.param_names], axis=1)))
+    best = None
+    for theta0 in starts:
+        usable = np.all(np.isfinite(theta0), axis=1)
+        theta0 = np.where(usable[:, None], theta0, starts[0])
+        result = _solve_model(name, s, i, v, mask, w, rows, theta0, lower, upper,
+                              max_iterations)
+        if best is None:
+            best = _Combined(result.theta.copy(), result.ssr.copy(), result.status.copy(),
+                             result.iterations.copy(), result.n_obs, result.covariance.copy())
+            continue
+        best.iterations += result.iterations
+        better = result.converged & (~best.converged | (result.ssr < best.ssr))
+        best.theta[better], best.ssr[better] = result.theta[better], result.ssr[better]
+        best.status[better] = result.status[better]
+        best.covariance[better] = result.covariance[better]
+    return best, lower, upper
+
+
+def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w, rows,
+               n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
+               max_iterations, relative):
+    """Rule 5 of :mod:`inhibkin.compare` for every compound, as
+    :func:`inhibkin.mechanism.extended_verdict` applies it to one: the lack-of-fit test
+    of the verdict's model; the extended laws fitted (by the engine) for the compounds
+    that fail it, and :func:`~inhibkin.compare.decide_extended` on each. Updates the
+    verdict arrays, ``out`` and ``p_values`` in place; returns the lack-of-fit rows."""
+    tables = []
+    for name in (n for n in MODEL_NAMES if n in out):
+        at = rows[(best[rows] == name) & out[name]["converged"][rows]]
+        if at.size:
+            tables.append(_lack_rows(out[name], at, s, i, v, mask, w, exact_ssr, relative))
+    tested = pd.concat(tables, ignore_index=True) if tables else _LACK_COLUMNS.copy()
+    failing = tested["p_value"].to_numpy(dtype=float) < options.lack_of_fit_alpha
+    fail = np.sort(tested["compound"].to_numpy(dtype=int)[failing])
+    b = s.shape[0]
+    classical = [n for n in MODEL_NAMES if n in out]
+    order = [extension_of(n) for n in classical if extension_of(n) not in out]
+    # Every chunk carries every extended law (empty where no compound tried it), so the
+    # chunks join key by key.
+    for name in sorted(order, key=lambda n: n == extension_of("mixed")):
+        res = _empty_model(name, b, n_obs)
+        if fail.size:
+            result, lower, upper = _solve_extended(name, out, s, i, v, mask, w, fail,
+                                                   max_iterations)
+            _fill_from_engine(res, name, fail, result, s, i, mask, lower, upper, level,
+                              determination_factor)
+            tables.append(_lack_rows(res, fail[res["converged"][fail]], s, i, v, mask, w,
+                                     exact_ssr, relative))
+        criteria = information_criteria(res["ssr"], n_obs, res["n_params"], sum_log_w)
+        res.update((key, criteria[key]) for key in ("loglik", "aic", "aicc", "bic"))
+        out[name] = res
+    ordered = {name: out[name] for name in MODELS if name in out}
+    out.clear()
+    out.update(ordered)
+    # Every nested pair in the models' order, then the fixed-alpha tests (rule 4).
+    fixed = {pair: p for pair, p in p_values.items() if pair[0] not in MODELS}
+    nested = {pair: p_values[pair] if pair in p_values else _f_tests(out, *pair, exact_ssr)
+              for pair in nested_pairs(tuple(out))}
+    p_values.clear()
+    p_values.update({**nested, **fixed})
+    if not fail.size:
+        return tested.sort_values("compound", ignore_index=True)
+    lack = pd.concat(tables, ignore_index=True)
+    p_lof = {(c, m): p for c, m, p in zip(lack["compound"], lack["model"], lack["p_value"])}
+    patterns = dict(zip(fail, residual_pattern(
+        np.stack([_weighted_residuals(out[best[c]], np.array([c]), s, i, v, mask, w,
+                                      relative)[0]
+                  for c in fail]), s[fail], mask[fail])))
+
+    def p_of(small, large, c):
+        pair = p_values.get((small, large))
+        return float(pair[1][c]) if pair is not None else np.nan
+
+    for c in fail:
+        classical_verdict = Verdict(verdict[c], best[c], candidates[c], reason[c])
+        decided = decide_extended(
+            classical_verdict, lack_of_fit_p=p_lof[(c, best[c])], pattern=patterns[c],
+            p_value=lambda small, large, c=c: p_of(small, large, c),
+            converged=lambda name, c=c: name in out and bool(out[name]["converged"][c]),
+            aicc=lambda name, c=c: float(out[name]["aicc"][c]),
+            extended_lack_of_fit_p=lambda name, c=c: p_lof.get((c, name), np.nan),
+            options=options)
+        verdict[c], best[c], candidates[c], reason[c] = \
+            decided.verdict, decided.best, decided.candidates, decided.reason
+    return lack.sort_values(["compound"], kind="stable", ignore_index=True)
 
 
 class _Combined:
@@ -752,7 +910,7 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
                          models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0,
                          level=0.95, determination_factor=DETERMINATION_FACTOR, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None,
-                         chunk_size=None) -> MechanismBatch:
+                         chunk_size=None, lack_of_fit_alpha=LACK_OF_FIT_ALPHA) -> MechanismBatch:
     """Fit every mechanism to every compound of padded arrays and decide between them.
 
     Parameters
@@ -788,6 +946,8 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     chunk_size : int, optional
         Compounds per chunk (default: one chunk locally, and
         :data:`inhibkin.engine.chunks.DEFAULT_CHUNK_SIZE` on a client).
+    lack_of_fit_alpha : float
+        Level of the lack-of-fit test (rule 5 of :mod:`inhibkin.compare`; 0 turns it off).
 
     Returns
     -------
@@ -797,7 +957,7 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     """
     FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
                min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
-               determination_factor=determination_factor)
+               determination_factor=determination_factor, lack_of_fit_alpha=lack_of_fit_alpha)
     if weighting in SD_WEIGHTINGS and sd is None:
         raise DataError(f"weighting={weighting!r} needs sd=, the standard deviations (or "
                         "standard errors) of the rates")
@@ -812,7 +972,7 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     options = dict(weighting=weighting, models=tuple(models), alpha=alpha,
                    min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor, level=level,
                    determination_factor=determination_factor, fallback=fallback,
-                   max_iterations=max_iterations)
+                   max_iterations=max_iterations, lack_of_fit_alpha=lack_of_fit_alpha)
     arrays = (s, i, v, mask, sd)
     parts = run_chunks(_fit_chunk, arrays, options, client=client, chunk_size=chunk_size)
     return concat_batches(parts)
@@ -874,7 +1034,8 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
                          models=MODEL_NAMES,
                          alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0, level=0.95,
                          determination_factor=DETERMINATION_FACTOR, fallback=True,
-                         max_iterations=lm.MAX_ITERATIONS, client=None, chunk_size=None):
+                         max_iterations=lm.MAX_ITERATIONS, client=None, chunk_size=None,
+                         lack_of_fit_alpha=LACK_OF_FIT_ALPHA):
     """:func:`inhibkin.mechanism.fit_mechanisms` (Wald intervals) for many compounds at once.
 
     Parameters
@@ -890,7 +1051,8 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
         table has a ``rate_se`` column (and ``sd`` is not given), else relative.
     models, alpha, min_delta_aicc, alpha_factor, level, determination_factor : see
         :func:`fit_mechanism_arrays`.
-    fallback, max_iterations, client, chunk_size : see :func:`fit_mechanism_arrays`.
+    fallback, max_iterations, client, chunk_size, lack_of_fit_alpha : see
+        :func:`fit_mechanism_arrays`.
 
     Returns
     -------
@@ -911,7 +1073,7 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
     weighting, sd = resolve_weighting(weighting, (), sd)
     FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
                min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
-               determination_factor=determination_factor)
+               determination_factor=determination_factor, lack_of_fit_alpha=lack_of_fit_alpha)
     need_inhibition = any(m != "none" for m in models)
     groups, labels, errors = _as_groups(items, substrate, inhibitor, rate, sd, weighting,
                                         need_inhibition)
@@ -928,13 +1090,14 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
                                  level=level,
                                  determination_factor=determination_factor, fallback=fallback,
                                  max_iterations=max_iterations, client=client,
-                                 chunk_size=chunk_size)
+                                 chunk_size=chunk_size, lack_of_fit_alpha=lack_of_fit_alpha)
     fits = []
     for c, error in enumerate(errors):
         fit = batch._one(c, labels[c])
         if error:
             fit = MechanismFit("failed", None, (), error, fit.models, fit.comparison,
-                               fit.ftests, fit.data, fit.weighting, fit.options)
+                               fit.ftests, fit.data, fit.weighting, fit.options,
+                               fit.lack_of_fit)
         fits.append(fit)
     if is_mapping:
         return {key: fit for (key, _), fit in zip(items, fits)}
