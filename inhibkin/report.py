@@ -37,7 +37,7 @@ from .display.html import (
     fit_html,
     number_text,
     parameter_cells,
-    png_uri,
+    png_image,
     ranking_rows,
     table_cells,
 )
@@ -91,7 +91,7 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
         section["dose"] = {
             "sketch": None if detailed else sketch.dose_response_sketch(
                 dose_fit, conc_unit=dose_unit, label=f"dose-response of {compound}"),
-            "png": _dosepng_uri(dose_fit, dose_unit, dpi) if detailed else None,
+            "png": _dose_image(dose_fit, dose_unit, dpi) if detailed else None,
             "ic50": dose_fit.reported_ic50, "unit": dose_unit}
     if fit is None:
         return section
@@ -116,16 +116,16 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
     }
     if detailed:
         section["fit"].update(
-            overview=png_uri(figures.plot_mechanism_overview(fit, units=units), dpi),
-            residuals=png_uri(figures.plot_residual_grid(fit, units=units), dpi),
-            diagnostics=png_uri(figures.plot_diagnostics(fit, units=units), dpi))
+            overview=png_image(figures.plot_mechanism_overview(fit, units=units), dpi),
+            residuals=png_image(figures.plot_residual_grid(fit, units=units), dpi),
+            diagnostics=png_image(figures.plot_diagnostics(fit, units=units), dpi))
     return section
 
 
-def _dosepng_uri(fit, conc_unit, dpi) -> str:
+def _dose_image(fit, conc_unit, dpi) -> dict:
     fig, axes = figures.new_figure(size=(3.4, 2.6))
     figures.plot_dose_response(fit, conc_unit=conc_unit, ax=axes[0, 0])
-    return png_uri(fig, dpi)
+    return png_image(fig, dpi)
 
 
 def check_detail(detail) -> tuple:
@@ -444,7 +444,9 @@ def report(campaign, path, *, potency=None, rates=None, title="Inhibitor campaig
     notes : sequence of str
         Extra paragraphs for the top of the report (e.g. "data invented for a demo").
     dpi : int
-        Resolution of the embedded matplotlib figures.
+        Resolution of the embedded matplotlib figures (default 144, twice the page's 72
+        dpi layout: sharp on high-density screens); it changes their sharpness and bytes,
+        not the size they are shown at.
     detail : str or sequence of str
         The compounds drawn with the full matplotlib figures (about a second each):
         ``"top:N"`` (the N best ranked; default ``"top:5"``), ``"flagged"``, ``"all"``,

@@ -247,3 +247,20 @@ def test_sketched_report_has_no_raster_and_valid_svg(campaign, tmp_path):
     assert "&lt;script&gt;alert(1)&lt;/script&gt;" in text and HOSTILE not in text
     # Budget of the issue: 1,000 compounds in at most 20 MB.
     assert len(text.encode("utf-8")) / len(campaign.ranking) < 20_000
+
+
+def test_full_figures_are_embedded_at_twice_the_resolution_they_are_shown_at(written):
+    """Issue 17, item 6: the report's figures at twice the former 72 dpi, shown at the
+    same size, so each CSS pixel holds 2 × 2 image pixels (sharp on high-density screens)."""
+    import base64
+    import io
+
+    from PIL import Image
+
+    text = written.read_text(encoding="utf-8")
+    images = re.findall(r'<img [^>]*src="data:image/png;base64,([^"]+)" '
+                        r'width="(\d+)" height="(\d+)"', text)
+    assert len(images) == text.count("data:image/png;base64,") == 3
+    for data, width, height in images:
+        size = Image.open(io.BytesIO(base64.b64decode(data))).size
+        assert size[0] == 2 * int(width) and abs(size[1] - 2 * int(height)) <= 1
