@@ -298,7 +298,8 @@ def _as_campaign(campaign):
             row = {"rank": pd.NA, "compound": compound, "verdict": fit.verdict,
                    "mechanism": fit.best or "", "ki_M": np.nan, "ki_low_M": np.nan,
                    "ki_high_M": np.nan, "pki": np.nan, "pki_low": np.nan, "pki_high": np.nan,
-                   "ki_reported": "", "flags": "", "reason": fit.reason}
+                   "ki_reported": "", "flags": "", "reason": fit.reason,
+                   "established": fit.established.text() if fit.established else ""}
             row["status"] = ("failed" if fit.verdict == "failed" else
                              "inactive" if fit.best == "none" else
                              "determined" if len(determined) else "bound")

@@ -134,10 +134,18 @@ def ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
                       cell(r["compound"]), cell(status), cell(r["verdict"]),
                       cell(r["mechanism"]), cell(ki, ki_sort), cell(pki, r["pki"]),
                       cell(number_text(r.get("pic50", np.nan), "{:.2f}"), r.get("pic50", np.nan)),
-                      cell(r["flags"]), cell(r["reason"])],
+                      cell(r["flags"]), cell(_reason_text(r))],
             "status": status,
         })
     return rows
+
+
+def _reason_text(row) -> str:
+    """The reason, and what an ambiguous verdict still establishes."""
+    established = row.get("established", "")
+    if isinstance(established, str) and established:
+        return f"{row['reason']} Established: {established}."
+    return row["reason"]
 
 
 def fit_html(fit, *, units=None) -> str:
