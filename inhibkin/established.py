@@ -15,22 +15,9 @@ import math
 from dataclasses import dataclass
 
 from .core.bound import Bound
-from .units import from_molar, to_molar
+from .units import from_molar, molar_unit
 
-__all__ = ["Established", "established", "molar_unit"]
-
-# Units a molar concentration is written in, largest first; the first in which the value
-# is at least 1 is used (0.36 mM -> 360 µM).
-_MOLAR_UNITS = ("M", "mM", "µM", "nM", "pM")
-
-
-def molar_unit(value_molar: float) -> str:
-    """The unit of :data:`_MOLAR_UNITS` in which ``value_molar`` (M) reads at least 1."""
-    for unit in _MOLAR_UNITS:
-        if abs(value_molar) >= to_molar(1.0, unit) * (1 - 1e-12):
-            return unit
-    return _MOLAR_UNITS[-1]
-
+__all__ = ["Established", "established"]
 
 @dataclass(frozen=True)
 class Established:

@@ -45,7 +45,7 @@ from .errors import DataError, Problem, UnitsError
 from .fitting import format_estimate
 from .io import atomic_output
 from .plates import Z_PRIME_THRESHOLD
-from .units import normalise_unit, to_molar
+from .units import column_unit, from_molar, normalise_unit, to_molar
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
            "check_detail", "select_detail", "CAUTIONS", "DEFAULT_DETAIL"]
@@ -261,18 +261,22 @@ def _campaign_potency_context(campaign, max_figures) -> dict | None:
         return None
     ranking = campaign.ranking
     screen = ranking[ranking["compound"].isin(list(fits))]
+    # One unit for the column, chosen by the size of its values (issue 17).
+    ic50_unit = column_unit(screen["ic50_M"])
+    per_unit = from_molar(1.0, ic50_unit)
     rows = []
     for r in screen.to_dict("records"):
-        ic50 = (f"{number_text(r['ic50_M'])} [{number_text(r['ic50_low_M'])}, "
-                f"{number_text(r['ic50_high_M'])}]"
+        ic50 = (f"{number_text(r['ic50_M'] * per_unit)} "
+                f"[{number_text(r['ic50_low_M'] * per_unit)}, "
+                f"{number_text(r['ic50_high_M'] * per_unit)}]"
                 if np.isfinite(r["ic50_M"]) else "")
         rows.append([cell(r["compound"]), cell(r["status"]), cell(ic50, r["ic50_M"]),
                      cell(number_text(r["pic50"], "{:.2f}"), r["pic50"]),
                      cell(number_text(r["hill"], "{:.2f}"), r["hill"]), cell(r["ki_reported"]),
                      cell(number_text(r["pki"], "{:.2f}"), r["pki"]), cell(r["mechanism"]),
                      cell(r["ki_source"]), cell(r["flags"]), cell(r["reason"])])
-    columns = ["compound", "status", "IC50 (M) [95% CI]", "pIC50", "Hill", "Ki (M)", "pKi",
-               "mechanism", "Ki from", "flags", "reason"]
+    columns = ["compound", "status", f"IC50 ({ic50_unit}) [95% CI]", "pIC50", "Hill", "Ki (M)",
+               "pKi", "mechanism", "Ki from", "flags", "reason"]
     by_potency = screen.sort_values("pic50", ascending=False, na_position="last")["compound"]
     threshold = dict(getattr(campaign, "options", {})).get("z_prime_threshold",
                                                            Z_PRIME_THRESHOLD)

@@ -6,7 +6,6 @@ import pytest
 
 from inhibkin.batch import fit_campaign
 from inhibkin.core.bound import Bound
-from inhibkin.established import molar_unit
 from inhibkin.mechanism import fit_mechanisms
 from inhibkin.report import render_report
 from inhibkin.simulate import simulate_grid
@@ -60,9 +59,3 @@ def test_ranked_table_and_report_carry_what_is_established(grid, fit):
     page = render_report(campaign, detail="none", quiet=True)
     shown = f"Established: {escape(row['established'])}."
     assert f"{shown}</td>" in page and f"<p>{shown}</p>" in page  # ranking and section
-
-
-@pytest.mark.parametrize("value, unit", [(3.6e-4, "µM"), (1e-3, "mM"), (2.5e-9, "nM"),
-                                         (0.5, "mM"), (7e-13, "pM"), (3e-15, "pM")])
-def test_a_concentration_is_written_in_the_unit_its_size_suggests(value, unit):
-    assert molar_unit(value) == unit

@@ -213,6 +213,9 @@ def test_report_of_a_campaign_shows_its_own_dose_response_screen(tmp_path):
         assert plate in text
     for compound in ("DR-A", "DR-B", "DR-C"):
         assert text.count(compound) >= 2  # ranked table and the screen table
+    # Issue 17: one unit for the IC50 column, chosen by the size of its values (median
+    # 0.4 µM -> nM), never raw molar.
+    assert "IC50 (nM) [95% CI]" in text and "IC50 (M)" not in text
     assert_self_contained(text)
 
 
