@@ -82,7 +82,7 @@ def _units_of(campaign, rate_unit, display) -> figures.AxisUnits:
 
 
 def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
-                       dose_fit=None, dose_unit="") -> dict:
+                       dose_fit=None, dose_unit="", molar=False) -> dict:
     """One compound's part of the report: tables and sketches always, the matplotlib
     figures only when ``detailed``."""
     section = {"anchor": anchor, "compound": str(compound), "row": row, "fit": None,
@@ -105,8 +105,9 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
         "alpha": fit.options.alpha, "min_delta_aicc": fit.options.min_delta_aicc,
         "comparison": table_cells(comparison),
         "ftests": table_cells(fit.ftests, index=False),
-        "params": parameter_cells(best) if best is not None and best.converged else None,
-        "all_params": [{"model": name, "table": parameter_cells(m)}
+        "params": (parameter_cells(best, molar=molar)
+                   if best is not None and best.converged else None),
+        "all_params": [{"model": name, "table": parameter_cells(m, molar=molar)}
                        for name, m in fit.models.items() if m.converged and name != fit.best],
         # A compound drawn in full shows the figures instead of its sketches.
         "sketches": [] if detailed else [
@@ -343,7 +344,8 @@ def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campai
             sections.append(_mechanism_section(anchors[c], c, fits.get(c), r, axis_units, dpi,
                                                detailed=c in detailed,
                                                dose_fit=dose_fits.get(c),
-                                               dose_unit=dose_unit))
+                                               dose_unit=dose_unit,
+                                               molar=hasattr(campaign, "ranking")))
             bar.update()
     flagged = ranking[ranking["flags"].astype(str) != ""][["compound", "status", "flags"]]
     failed = ranking[ranking["status"] == "failed"][["compound", "reason"]]
@@ -375,7 +377,7 @@ def render_report(campaign, *, potency=None, rates=None, title="Inhibitor campai
                     _campaign_potency_context(campaign, max_potency_figures)),
         "rates": _rates_context(rates) if rates is not None else None,
         "units": axis_units,
-        "param_units": ("concentrations in M, rates in the input's unit"
+        "param_units": ("concentrations in the unit of each row, rates in the input's unit"
                         if hasattr(campaign, "ranking") else "in the units of the fitted data"),
     }
     return ENVIRONMENT.get_template("report.html").render(**context)

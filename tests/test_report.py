@@ -267,3 +267,15 @@ def test_full_figures_are_embedded_at_twice_the_resolution_they_are_shown_at(wri
     for data, width, height in images:
         size = Image.open(io.BytesIO(base64.b64decode(data))).size
         assert size[0] == 2 * int(width) and abs(size[1] - 2 * int(height)) <= 1
+
+
+def test_parameter_tables_write_each_concentration_in_a_unit_for_people(campaign):
+    """Issue 17, item 6: a campaign's constants (held in M) are written in the unit their
+    size suggests, named in a unit column, never as raw molar like 3.049e-05."""
+    text = render_report(campaign, detail="none", quiet=True)
+    rows = re.findall(r"<tr><td>(km|kic|kiu|ki)</td><td>([^<]*)</td><td>([^<]*)</td>", text)
+    assert len(rows) >= len(campaign.fits)
+    # A constant the data set no limit on ("not determined") keeps M.
+    assert {unit for _, unit, x in rows if x != "not determined"} <= {"mM", "µM", "nM", "pM"}
+    numbers = [float(x) for _, _, x in rows if x and x[0].isdigit()]
+    assert numbers and all(1 <= x <= 1000 for x in numbers)

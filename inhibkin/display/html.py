@@ -19,7 +19,7 @@ from jinja2 import Environment, PackageLoader, select_autoescape
 
 from .. import figures
 from ..fitting import format_estimate
-from ..units import from_molar
+from ..units import from_molar, molar_unit
 
 __all__ = ["ENVIRONMENT", "REPORT_DPI", "LAYOUT_DPI", "NOTEBOOK_DPI", "png_uri", "png_image",
            "number_text", "cell",
@@ -93,23 +93,42 @@ def table_cells(frame: pd.DataFrame, *, index=True, fmt="{:.4g}") -> dict:
     return {"columns": columns, "rows": rows}
 
 
-def parameter_cells(model_fit) -> dict:
-    """Estimate as read (a number, or a bound), standard error and interval."""
+def parameter_cells(model_fit, *, molar=False) -> dict:
+    """Estimate as read (a number, or a bound), standard error and interval.
+
+    With ``molar`` (constants in M, as a campaign holds them) each concentration
+    constant (km, kic, kiu, ki) is written in the unit its estimate suggests
+    (:func:`inhibkin.units.molar_unit`), named in a unit column, never as raw molar.
+    """
+    from ..models import MODELS
+
     pct = f"{100 * model_fit.level:g}%"
     rows = []
     params = model_fit.params
+    law = MODELS[model_fit.model]
+    concentrations = {n for n, role in zip(law.param_names, law.roles)
+                      if role in ("substrate", "inhibitor")}
     # Column arrays, not iterrows: a report builds five of these tables per compound.
     columns = {c: params[c].to_numpy() for c in ("estimate", "se", "ci_low", "ci_high",
                                                  "determined")}
     for k, name in enumerate(params.index):
         row = {c: values[k] for c, values in columns.items()}
-        rows.append([cell(name), cell(format_estimate(row), row["estimate"]),
-                     cell(number_text(row["se"]), row["se"]),
-                     cell(f"[{number_text(row['ci_low'])}, {number_text(row['ci_high'])}]",
-                          row["ci_low"]),
-                     cell("yes" if row["determined"] else "no")])
-    return {"columns": ["parameter", "estimate", "SE", f"{pct} interval "
-                        f"({model_fit.interval_method})", "determined"], "rows": rows}
+        unit = ""
+        if molar and name in concentrations:
+            reference = row["estimate"] if row["determined"] else row["ci_low"]
+            unit = molar_unit(reference) if np.isfinite(reference) and reference > 0 else "M"
+            per_unit = from_molar(1.0, unit)
+            row = {**row, **{c: row[c] * per_unit for c in ("estimate", "se", "ci_low",
+                                                            "ci_high")}}
+        cells = [cell(name), cell(format_estimate(row), row["estimate"]),
+                 cell(number_text(row["se"]), row["se"]),
+                 cell(f"[{number_text(row['ci_low'])}, {number_text(row['ci_high'])}]",
+                      row["ci_low"]),
+                 cell("yes" if row["determined"] else "no")]
+        rows.append(cells[:1] + [cell(unit)] + cells[1:] if molar else cells)
+    header = ["parameter", "estimate", "SE", f"{pct} interval ({model_fit.interval_method})",
+              "determined"]
+    return {"columns": header[:1] + ["unit"] + header[1:] if molar else header, "rows": rows}
 
 
 def ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
