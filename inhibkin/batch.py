@@ -135,6 +135,7 @@ RANKING_COLUMNS = (
     "rank", "compound", "status", "verdict", "mechanism", "ki_parameter", "ki_M", "ki_low_M",
     "ki_high_M", "pki", "pki_low", "pki_high", "ki_reported", "kic_M", "kiu_M", "alpha",
     "ic50_M", "ic50_low_M", "ic50_high_M", "pic50", "hill", "ki_source", "flags", "reason",
+    "established",
 )
 _EFFICIENCY_COLUMNS = ("heavy_atoms", "logp", "le", "lipe")
 #: Columns of :attr:`Campaign.plates` (those of :meth:`inhibkin.plates.PlateQC.to_frame`).
@@ -247,7 +248,7 @@ def fit_grid_compound(frame, settings: _GridSettings, *, context=None) -> Mechan
 def _empty_row(compound) -> dict:
     row = dict.fromkeys(RANKING_COLUMNS, np.nan)
     row.update(compound=compound, rank=pd.NA, verdict="", mechanism="", ki_parameter="",
-               ki_reported="", ki_source="", flags="", reason="")
+               ki_reported="", ki_source="", flags="", reason="", established="")
     return row
 
 
@@ -322,6 +323,7 @@ def _grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
         return row
     if fit.verdict == "ambiguous":
         flags.append(f"mechanism ambiguous between {', '.join(fit.candidates)}; {fit.basis}")
+        row["established"] = fit.established.text(molar=True)
     constants = fit.constants()
     mechanism = fit.best
     chosen = _pick_constant(constants, mechanism)
@@ -673,7 +675,9 @@ class Campaign:
         One row per input compound, ranked (see :mod:`inhibkin.batch`): rank, compound,
         status, verdict, mechanism, ki_parameter, ki_M, ki_low_M, ki_high_M (interval at
         ``level``), pki, pki_low, pki_high, ki_reported (text), kic_M, kiu_M, alpha,
-        ic50_M (and interval), pic50, hill, ki_source, flags, reason; plus heavy_atoms,
+        ic50_M (and interval), pic50, hill, ki_source, flags, reason, established (for an
+        ambiguous verdict: the leading mechanism, the determined constants with their
+        intervals and the bounds on the others, as text); plus heavy_atoms,
         logp, le (kcal/mol per heavy atom) and lipe when those inputs were given.
         Concentrations in M.
     fits : Mapping

@@ -148,6 +148,15 @@ class MechanismFit:
                      f"ΔAICc 0)")
         return text
 
+    @property
+    def established(self):
+        """What an ambiguous verdict still establishes (leading mechanism, determined
+        constants, bounds on the others; :func:`inhibkin.established.established`), or
+        None for any other verdict."""
+        from .established import established
+
+        return established(self)
+
     def constants(self) -> pd.DataFrame:
         """The inhibition constants of the best model (kic, kiu, ki, alpha where present)."""
         fit = self.best_fit
@@ -168,6 +177,7 @@ class MechanismFit:
         lines = ["=" * width, f"Verdict: {self.verdict}", f"  {self.reason}"]
         if self.verdict in ("ambiguous", TIME_DEPENDENT):
             lines.append(f"  candidates: {', '.join(self.candidates)}; {self.basis}")
+            lines.append(f"  established: {self.established.text()}")
         lines += ["-" * width, f"Model comparison ({self.weighting} weighting)",
                   text_table(self.comparison), "-" * width, "Nested F-tests",
                   text_table(self.ftests, index=False)]

@@ -69,6 +69,7 @@ import pandas as pd
 from scipy import stats
 
 from .errors import DataError, Problem, UnitsError
+from .inputs.columns import find_column
 from .signal import BeerLambert, StandardCurve, blank_signal
 from .time_dependent.detect import time_dependence
 from .units import from_molar, normalise_unit, split_unit, to_molar, to_seconds
@@ -581,7 +582,8 @@ def _unit_of(column, declared, kind="concentration"):
 
 
 def _header_column(frame, name, declared, *, kind, what):
-    """The column ``name`` (or the one ``name_<unit>`` header) of ``frame`` and its unit.
+    """The column ``name`` of ``frame`` (matched as the column mapping matches headers:
+    ``Time (min)``, ``time [min]`` and ``TIME_min`` are the time column) and its unit.
 
     The unit is the one ``declared`` as an option, else the one the header carries, else
     None; an option that contradicts the header is refused. A name that matches no
@@ -590,19 +592,12 @@ def _header_column(frame, name, declared, *, kind, what):
     canonical = normalise_unit(declared, kind=kind) if declared is not None else None
     if not isinstance(frame, pd.DataFrame):
         return name, canonical
-    columns = [str(c) for c in frame.columns]
-    column = name
-    if name not in columns:
-        split = [(c, *split_unit(c, kind=kind)) for c in columns]
-        matches = [c for c, base, unit in split if base == name and unit]
-        if len(matches) > 1:
-            raise DataError(Problem(name, None, None, f"several columns could be the {what}: "
-                                                      f"{matches}; name one"), "reads")
-        if not matches:
-            return name, canonical
-        column = matches[0]
-    header = split_unit(column, kind=kind)[1]
-    header = normalise_unit(header, kind=kind) if header else None
+    # A signal header's unit may be a detector's label ('Signal (RFU)'); a time's may not.
+    found = find_column(frame.columns, name, kind=kind, label_ok=what == "signal",
+                        context="reads")
+    if found is None:
+        return name, canonical
+    column, header = found
     if canonical is not None and header is not None and canonical != header:
         raise UnitsError(Problem(column, None, declared,
                                  f"{what} unit given as an option ({declared}) contradicts "
@@ -705,7 +700,7 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     time_unit = time_unit or "s"
     signal, header_unit = _header_column(reads, signal, signal_unit if conversion is None
                                          else None, kind="concentration", what="signal")
-    if conversion is not None and split_unit(signal)[1]:
+    if conversion is not None and header_unit:
         raise UnitsError(Problem(signal, None, conversion.unit,
                                  "the header declares the signal a concentration, but a "
                                  "conversion was given; give one or the other"), "reads")

@@ -36,7 +36,7 @@ from .display.html import (
     fit_html,
     number_text,
     parameter_cells,
-    png_uri,
+    png_image,
     ranking_rows,
     table_cells,
 )
@@ -45,7 +45,7 @@ from .fitting import format_estimate
 from .io import atomic_output
 from .plates import Z_PRIME_THRESHOLD
 from .progress import progress_bar
-from .units import normalise_unit, to_molar
+from .units import column_unit, from_molar, normalise_unit, to_molar
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
            "check_detail", "select_detail", "CAUTIONS", "DEFAULT_DETAIL"]
@@ -82,7 +82,7 @@ def _units_of(campaign, rate_unit, display) -> figures.AxisUnits:
 
 
 def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
-                       dose_fit=None, dose_unit="") -> dict:
+                       dose_fit=None, dose_unit="", molar=False) -> dict:
     """One compound's part of the report: tables and sketches always, the matplotlib
     figures only when ``detailed``."""
     section = {"anchor": anchor, "compound": str(compound), "row": row, "fit": None,
@@ -91,7 +91,7 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
         section["dose"] = {
             "sketch": None if detailed else sketch.dose_response_sketch(
                 dose_fit, conc_unit=dose_unit, label=f"dose-response of {compound}"),
-            "png": _dosepng_uri(dose_fit, dose_unit, dpi) if detailed else None,
+            "png": _dose_image(dose_fit, dose_unit, dpi) if detailed else None,
             "ic50": dose_fit.reported_ic50, "unit": dose_unit}
     if fit is None:
         return section
@@ -105,8 +105,9 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
         "alpha": fit.options.alpha, "min_delta_aicc": fit.options.min_delta_aicc,
         "comparison": table_cells(comparison),
         "ftests": table_cells(fit.ftests, index=False),
-        "params": parameter_cells(best) if best is not None and best.converged else None,
-        "all_params": [{"model": name, "table": parameter_cells(m)}
+        "params": (parameter_cells(best, molar=molar)
+                   if best is not None and best.converged else None),
+        "all_params": [{"model": name, "table": parameter_cells(m, molar=molar)}
                        for name, m in fit.models.items() if m.converged and name != fit.best],
         # A compound drawn in full shows the figures instead of its sketches.
         "sketches": [] if detailed else [
@@ -116,16 +117,16 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
     }
     if detailed:
         section["fit"].update(
-            overview=png_uri(figures.plot_mechanism_overview(fit, units=units), dpi),
-            residuals=png_uri(figures.plot_residual_grid(fit, units=units), dpi),
-            diagnostics=png_uri(figures.plot_diagnostics(fit, units=units), dpi))
+            overview=png_image(figures.plot_mechanism_overview(fit, units=units), dpi),
+            residuals=png_image(figures.plot_residual_grid(fit, units=units), dpi),
+            diagnostics=png_image(figures.plot_diagnostics(fit, units=units), dpi))
     return section
 
 
-def _dosepng_uri(fit, conc_unit, dpi) -> str:
+def _dose_image(fit, conc_unit, dpi) -> dict:
     fig, axes = figures.new_figure(size=(3.4, 2.6))
     figures.plot_dose_response(fit, conc_unit=conc_unit, ax=axes[0, 0])
-    return png_uri(fig, dpi)
+    return png_image(fig, dpi)
 
 
 def check_detail(detail) -> tuple:
@@ -261,18 +262,22 @@ def _campaign_potency_context(campaign, max_figures) -> dict | None:
         return None
     ranking = campaign.ranking
     screen = ranking[ranking["compound"].isin(list(fits))]
+    # One unit for the column, chosen by the size of its values (issue 17).
+    ic50_unit = column_unit(screen["ic50_M"])
+    per_unit = from_molar(1.0, ic50_unit)
     rows = []
     for r in screen.to_dict("records"):
-        ic50 = (f"{number_text(r['ic50_M'])} [{number_text(r['ic50_low_M'])}, "
-                f"{number_text(r['ic50_high_M'])}]"
+        ic50 = (f"{number_text(r['ic50_M'] * per_unit)} "
+                f"[{number_text(r['ic50_low_M'] * per_unit)}, "
+                f"{number_text(r['ic50_high_M'] * per_unit)}]"
                 if np.isfinite(r["ic50_M"]) else "")
         rows.append([cell(r["compound"]), cell(r["status"]), cell(ic50, r["ic50_M"]),
                      cell(number_text(r["pic50"], "{:.2f}"), r["pic50"]),
                      cell(number_text(r["hill"], "{:.2f}"), r["hill"]), cell(r["ki_reported"]),
                      cell(number_text(r["pki"], "{:.2f}"), r["pki"]), cell(r["mechanism"]),
                      cell(r["ki_source"]), cell(r["flags"]), cell(r["reason"])])
-    columns = ["compound", "status", "IC50 (M) [95% CI]", "pIC50", "Hill", "Ki (M)", "pKi",
-               "mechanism", "Ki from", "flags", "reason"]
+    columns = ["compound", "status", f"IC50 ({ic50_unit}) [95% CI]", "pIC50", "Hill", "Ki (M)",
+               "pKi", "mechanism", "Ki from", "flags", "reason"]
     by_potency = screen.sort_values("pic50", ascending=False, na_position="last")["compound"]
     threshold = dict(getattr(campaign, "options", {})).get("z_prime_threshold",
                                                            Z_PRIME_THRESHOLD)
@@ -298,7 +303,8 @@ def _as_campaign(campaign):
             row = {"rank": pd.NA, "compound": compound, "verdict": fit.verdict,
                    "mechanism": fit.best or "", "ki_M": np.nan, "ki_low_M": np.nan,
                    "ki_high_M": np.nan, "pki": np.nan, "pki_low": np.nan, "pki_high": np.nan,
-                   "ki_reported": "", "flags": "", "reason": fit.reason}
+                   "ki_reported": "", "flags": "", "reason": fit.reason,
+                   "established": fit.established.text() if fit.established else ""}
             row["status"] = ("failed" if fit.verdict == "failed" else
                              "inactive" if fit.best == "none" else
                              "determined" if len(determined) else "bound")
@@ -360,7 +366,8 @@ def render_report(campaign, *, potency=None, rates=None, time_dependent=None,
             sections.append(_mechanism_section(anchors[c], c, fits.get(c), r, axis_units, dpi,
                                                detailed=c in detailed,
                                                dose_fit=dose_fits.get(c),
-                                               dose_unit=dose_unit))
+                                               dose_unit=dose_unit,
+                                               molar=hasattr(campaign, "ranking")))
             bar.update()
     flagged = ranking[ranking["flags"].astype(str) != ""][["compound", "status", "flags"]]
     failed = ranking[ranking["status"] == "failed"][["compound", "reason"]]
@@ -394,7 +401,7 @@ def render_report(campaign, *, potency=None, rates=None, time_dependent=None,
         "time_dependent": (_time_dependent_context(time_dependent)
                            if time_dependent is not None else None),
         "units": axis_units,
-        "param_units": ("concentrations in M, rates in the input's unit"
+        "param_units": ("concentrations in the unit of each row, rates in the input's unit"
                         if hasattr(campaign, "ranking") else "in the units of the fitted data"),
     }
     return ENVIRONMENT.get_template("report.html").render(**context)
@@ -464,7 +471,9 @@ def report(campaign, path, *, potency=None, rates=None, time_dependent=None,
     notes : sequence of str
         Extra paragraphs for the top of the report (e.g. "data invented for a demo").
     dpi : int
-        Resolution of the embedded matplotlib figures.
+        Resolution of the embedded matplotlib figures (default 144, twice the page's 72
+        dpi layout: sharp on high-density screens); it changes their sharpness and bytes,
+        not the size they are shown at.
     detail : str or sequence of str
         The compounds drawn with the full matplotlib figures (about a second each):
         ``"top:N"`` (the N best ranked; default ``"top:5"``), ``"flagged"``, ``"all"``,

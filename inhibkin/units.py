@@ -18,6 +18,8 @@ __all__ = [
     "TIME_UNITS",
     "to_molar",
     "from_molar",
+    "molar_unit",
+    "column_unit",
     "to_seconds",
     "split_unit",
     "header_column",
@@ -103,6 +105,28 @@ def from_molar(values, unit):
     factor = CONCENTRATION_UNITS[normalise_unit(unit)]
     out = np.asarray(values, dtype=float) / factor
     return float(out) if out.ndim == 0 else out
+
+
+# Units a molar concentration is written in for people, largest first.
+_DISPLAY_UNITS = ("M", "mM", "µM", "nM", "pM")
+
+
+def molar_unit(value_molar: float) -> str:
+    """The unit in which a concentration (M) reads at least 1 (0.36 mM -> µM), pM at
+    the smallest; for one number written for people."""
+    for unit in _DISPLAY_UNITS:
+        if abs(value_molar) >= to_molar(1.0, unit) * (1 - 1e-12):
+            return unit
+    return _DISPLAY_UNITS[-1]
+
+
+def column_unit(values_molar) -> str:
+    """One unit for a table column of concentrations (M): the unit of the median of its
+    finite positive values, so the typical entry reads between 1 and 1000 (µM when the
+    column holds none)."""
+    values = np.asarray(values_molar, dtype=float)
+    values = values[np.isfinite(values) & (values > 0)]
+    return molar_unit(float(np.median(values))) if values.size else "µM"
 
 
 def to_seconds(values, unit):

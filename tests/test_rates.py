@@ -325,3 +325,19 @@ def test_units_are_read_from_the_headers_of_the_reads():
     with pytest.raises(DataError, match=r"'product_uM'.*contradicts"):
         initial_rates(minutes, plate_map, time="time_min", signal="product_uM",
                       signal_unit="nM", substrate="substrate_uM")
+
+
+@pytest.mark.parametrize("header, factor", [("Time (min)", 60.0), ("time [s]", 1.0),
+                                            ("TIME_h", 3600.0), ("Time (s)", 1.0)])
+def test_a_bracketed_time_header_gives_the_time_unit(header, factor):
+    """Issue 17: the time header is matched as every header is (case, '(min)', '[s]'),
+    and its unit read: times in minutes give a rate per second 60 times smaller."""
+    curve = 0.5 + 0.2 * TIMES  # µM, 0.2 µM/s
+    reads, plate_map = plate([curve], [100.0])
+    reads = reads.assign(time=TIMES / factor).rename(columns={"time": header,
+                                                              "signal": "Product (uM)"})
+    res = initial_rates(reads, plate_map, signal="product", rate_time_unit="s")
+    assert res.table["rate"].iloc[0] == pytest.approx(0.2, rel=1e-9)
+    assert res.units["rate"] == "uM/s"
+    with pytest.raises(DataError, match="contradicts"):
+        initial_rates(reads, plate_map, signal="product", time_unit="ms")

@@ -213,6 +213,9 @@ def test_report_of_a_campaign_shows_its_own_dose_response_screen(tmp_path):
         assert plate in text
     for compound in ("DR-A", "DR-B", "DR-C"):
         assert text.count(compound) >= 2  # ranked table and the screen table
+    # Issue 17: one unit for the IC50 column, chosen by the size of its values (median
+    # 0.4 µM -> nM), never raw molar.
+    assert "IC50 (nM) [95% CI]" in text and "IC50 (M)" not in text
     assert_self_contained(text)
 
 
@@ -247,3 +250,32 @@ def test_sketched_report_has_no_raster_and_valid_svg(campaign, tmp_path):
     assert "&lt;script&gt;alert(1)&lt;/script&gt;" in text and HOSTILE not in text
     # Budget of the issue: 1,000 compounds in at most 20 MB.
     assert len(text.encode("utf-8")) / len(campaign.ranking) < 20_000
+
+
+def test_full_figures_are_embedded_at_twice_the_resolution_they_are_shown_at(written):
+    """Issue 17, item 6: the report's figures at twice the former 72 dpi, shown at the
+    same size, so each CSS pixel holds 2 × 2 image pixels (sharp on high-density screens)."""
+    import base64
+    import io
+
+    from PIL import Image
+
+    text = written.read_text(encoding="utf-8")
+    images = re.findall(r'<img [^>]*src="data:image/png;base64,([^"]+)" '
+                        r'width="(\d+)" height="(\d+)"', text)
+    assert len(images) == text.count("data:image/png;base64,") == 3
+    for data, width, height in images:
+        size = Image.open(io.BytesIO(base64.b64decode(data))).size
+        assert size[0] == 2 * int(width) and abs(size[1] - 2 * int(height)) <= 1
+
+
+def test_parameter_tables_write_each_concentration_in_a_unit_for_people(campaign):
+    """Issue 17, item 6: a campaign's constants (held in M) are written in the unit their
+    size suggests, named in a unit column, never as raw molar like 3.049e-05."""
+    text = render_report(campaign, detail="none", quiet=True)
+    rows = re.findall(r"<tr><td>(km|kic|kiu|ki)</td><td>([^<]*)</td><td>([^<]*)</td>", text)
+    assert len(rows) >= len(campaign.fits)
+    # A constant the data set no limit on ("not determined") keeps M.
+    assert {unit for _, unit, x in rows if x != "not determined"} <= {"mM", "µM", "nM", "pM"}
+    numbers = [float(x) for _, _, x in rows if x and x[0].isdigit()]
+    assert numbers and all(1 <= x <= 1000 for x in numbers)

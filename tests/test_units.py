@@ -6,8 +6,10 @@ import pytest
 from inhibkin.errors import UnitsError
 from inhibkin.units import (
     CONCENTRATION_UNITS,
+    column_unit,
     from_molar,
     header_column,
+    molar_unit,
     normalise_unit,
     resolve_units,
     split_unit,
@@ -119,3 +121,15 @@ def test_header_column_finds_the_column_and_its_unit(columns, name, expected):
 def test_header_column_refuses_two_headers_for_one_name():
     with pytest.raises(UnitsError, match="several columns declare 'substrate'"):
         header_column(["substrate_uM", "substrate_mM"], "substrate")
+
+
+@pytest.mark.parametrize("value, unit", [(3.6e-4, "µM"), (1e-3, "mM"), (2.5e-9, "nM"),
+                                         (0.5, "mM"), (7e-13, "pM"), (3e-15, "pM")])
+def test_a_concentration_is_written_in_the_unit_its_size_suggests(value, unit):
+    """Issue 17, item 6: the unit in which the number reads at least 1."""
+    assert molar_unit(value) == unit
+
+
+def test_a_column_gets_the_unit_of_its_typical_value():
+    assert column_unit([3e-8, 4e-7, 2e-6, np.nan, np.inf]) == "nM"
+    assert column_unit([np.nan]) == "µM"

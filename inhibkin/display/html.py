@@ -19,14 +19,19 @@ from jinja2 import Environment, PackageLoader, select_autoescape
 
 from .. import figures
 from ..fitting import format_estimate
-from ..units import from_molar
+from ..units import from_molar, molar_unit
 
-__all__ = ["ENVIRONMENT", "REPORT_DPI", "NOTEBOOK_DPI", "png_uri", "number_text", "cell",
+__all__ = ["ENVIRONMENT", "REPORT_DPI", "LAYOUT_DPI", "NOTEBOOK_DPI", "png_uri", "png_image",
+           "number_text", "cell",
            "table_cells", "parameter_cells", "ranking_rows", "fit_html", "dose_response_html",
            "campaign_html"]
 
-#: Resolution of the embedded figures (dots per inch): enough to read, small files.
-REPORT_DPI = 72
+#: Scale of the page: a figure of w inches is shown w × LAYOUT_DPI CSS pixels wide.
+LAYOUT_DPI = 72
+#: Resolution of the report's figures (dots per inch): twice the layout's, so each CSS pixel
+#: holds 2 × 2 image pixels and the figures stay sharp on high-density screens and when
+#: zoomed to 200 % (about 2.3 times the bytes of a 72 dpi figure).
+REPORT_DPI = 2 * LAYOUT_DPI
 NOTEBOOK_DPI = 60
 
 #: The templates (inhibkin/templates), autoescaped.
@@ -40,6 +45,15 @@ def png_uri(fig, dpi=REPORT_DPI) -> str:
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=dpi, metadata={"Software": None})
     return "data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii")
+
+
+def png_image(fig, dpi=REPORT_DPI) -> dict:
+    """A figure as an image of the page: its PNG data URI (``src``) at ``dpi``, and the
+    size it is shown at (``width``, ``height`` in CSS pixels, at :data:`LAYOUT_DPI`), so a
+    higher ``dpi`` makes the figure sharper, never larger."""
+    width, height = fig.get_size_inches()
+    return {"src": png_uri(fig, dpi), "width": round(width * LAYOUT_DPI),
+            "height": round(height * LAYOUT_DPI)}
 
 
 def number_text(x, fmt="{:.3g}") -> str:
@@ -79,23 +93,42 @@ def table_cells(frame: pd.DataFrame, *, index=True, fmt="{:.4g}") -> dict:
     return {"columns": columns, "rows": rows}
 
 
-def parameter_cells(model_fit) -> dict:
-    """Estimate as read (a number, or a bound), standard error and interval."""
+def parameter_cells(model_fit, *, molar=False) -> dict:
+    """Estimate as read (a number, or a bound), standard error and interval.
+
+    With ``molar`` (constants in M, as a campaign holds them) each concentration
+    constant (km, kic, kiu, ki) is written in the unit its estimate suggests
+    (:func:`inhibkin.units.molar_unit`), named in a unit column, never as raw molar.
+    """
+    from ..models import MODELS
+
     pct = f"{100 * model_fit.level:g}%"
     rows = []
     params = model_fit.params
+    law = MODELS[model_fit.model]
+    concentrations = {n for n, role in zip(law.param_names, law.roles)
+                      if role in ("substrate", "inhibitor")}
     # Column arrays, not iterrows: a report builds five of these tables per compound.
     columns = {c: params[c].to_numpy() for c in ("estimate", "se", "ci_low", "ci_high",
                                                  "determined")}
     for k, name in enumerate(params.index):
         row = {c: values[k] for c, values in columns.items()}
-        rows.append([cell(name), cell(format_estimate(row), row["estimate"]),
-                     cell(number_text(row["se"]), row["se"]),
-                     cell(f"[{number_text(row['ci_low'])}, {number_text(row['ci_high'])}]",
-                          row["ci_low"]),
-                     cell("yes" if row["determined"] else "no")])
-    return {"columns": ["parameter", "estimate", "SE", f"{pct} interval "
-                        f"({model_fit.interval_method})", "determined"], "rows": rows}
+        unit = ""
+        if molar and name in concentrations:
+            reference = row["estimate"] if row["determined"] else row["ci_low"]
+            unit = molar_unit(reference) if np.isfinite(reference) and reference > 0 else "M"
+            per_unit = from_molar(1.0, unit)
+            row = {**row, **{c: row[c] * per_unit for c in ("estimate", "se", "ci_low",
+                                                            "ci_high")}}
+        cells = [cell(name), cell(format_estimate(row), row["estimate"]),
+                 cell(number_text(row["se"]), row["se"]),
+                 cell(f"[{number_text(row['ci_low'])}, {number_text(row['ci_high'])}]",
+                      row["ci_low"]),
+                 cell("yes" if row["determined"] else "no")]
+        rows.append(cells[:1] + [cell(unit)] + cells[1:] if molar else cells)
+    header = ["parameter", "estimate", "SE", f"{pct} interval ({model_fit.interval_method})",
+              "determined"]
+    return {"columns": header[:1] + ["unit"] + header[1:] if molar else header, "rows": rows}
 
 
 def ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
@@ -120,10 +153,18 @@ def ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
                       cell(r["compound"]), cell(status), cell(r["verdict"]),
                       cell(r["mechanism"]), cell(ki, ki_sort), cell(pki, r["pki"]),
                       cell(number_text(r.get("pic50", np.nan), "{:.2f}"), r.get("pic50", np.nan)),
-                      cell(r["flags"]), cell(r["reason"])],
+                      cell(r["flags"]), cell(_reason_text(r))],
             "status": status,
         })
     return rows
+
+
+def _reason_text(row) -> str:
+    """The reason, and what an ambiguous verdict still establishes."""
+    established = row.get("established", "")
+    if isinstance(established, str) and established:
+        return f"{row['reason']} Established: {established}."
+    return row["reason"]
 
 
 def fit_html(fit, *, units=None) -> str:

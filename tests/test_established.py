@@ -1,0 +1,61 @@
+"""Issue 14, item 4: an ambiguous verdict still says what the data establish."""
+
+from html import escape
+
+import pytest
+
+from inhibkin.batch import fit_campaign
+from inhibkin.core.bound import Bound
+from inhibkin.mechanism import fit_mechanisms
+from inhibkin.report import render_report
+from inhibkin.simulate import simulate_grid
+
+# Mixed truth whose free-enzyme constant kic (10 mM) runs far past the highest inhibitor
+# level (36 µM) while kiu (40 µM) sits in the tested range; this seed is one the verdict
+# cannot separate (uncompetitive against mixed). Invented data, seeded.
+KIU_UM, KIC_UM, I_MAX_UM = 40.0, 1e4, 36.0
+SEED = 4
+
+
+@pytest.fixture(scope="module")
+def grid():
+    data = simulate_grid("mixed", vmax=10.0, km=2.0, kic=KIC_UM, kiu=KIU_UM, cv=0.05,
+                         seed=SEED, s=[0.25, 0.5, 1, 2, 4, 8], i=[0, 3, 10, 30, I_MAX_UM])
+    return data.rename(columns={"substrate": "substrate_uM", "inhibitor": "inhibitor_uM"})
+
+
+@pytest.fixture(scope="module")
+def fit(grid):
+    return fit_mechanisms(grid, weighting="relative", intervals="wald")
+
+
+def test_ambiguous_verdict_names_the_leader_the_determined_constant_and_the_bound(fit):
+    assert fit.verdict == "ambiguous" and set(fit.candidates) == {"uncompetitive", "mixed"}
+    found = fit.established
+    assert found.leading == "uncompetitive" and found.model == "mixed"
+    ((name, estimate, low, high),) = found.determined
+    assert name == "kiu" and low < KIU_UM * 1e-6 < high and low < estimate < high
+    ((bounded, bound),) = found.bounds
+    assert bounded == "kic" and isinstance(bound, Bound) and bound.side == ">"
+    # The limit lies past the tested range and below the truth (the data allow the truth).
+    assert I_MAX_UM * 1e-6 < bound.value < KIC_UM * 1e-6
+    text = found.text(molar=True)
+    assert text.startswith("leading uncompetitive; kiu ") and " µM [" in text
+    assert text.endswith(f"kic > {bound.value * 1e6:.3g} µM not excluded")
+    assert f"established: {found.text()}" in fit.summary()
+
+
+def test_other_verdicts_establish_nothing_extra():
+    data = simulate_grid("competitive", vmax=10.0, km=2.0, kic=0.5, cv=0.02, seed=1)
+    assert fit_mechanisms(data, weighting="relative", intervals="wald").established is None
+
+
+def test_ranked_table_and_report_carry_what_is_established(grid, fit):
+    campaign = fit_campaign(grid.assign(compound="CPD-A"), quiet=True, intervals="wald")
+    (row,) = campaign.ranking.to_dict("records")
+    assert row["verdict"] == "ambiguous"
+    assert row["established"].startswith("leading uncompetitive; kiu ")
+    assert "kic > " in row["established"] and row["established"].endswith("µM not excluded")
+    page = render_report(campaign, detail="none", quiet=True)
+    shown = f"Established: {escape(row['established'])}."
+    assert f"{shown}</td>" in page and f"<p>{shown}</p>" in page  # ranking and section
