@@ -177,6 +177,7 @@ class MechanismFit:
         lines = ["=" * width, f"Verdict: {self.verdict}", f"  {self.reason}"]
         if self.verdict in ("ambiguous", TIME_DEPENDENT):
             lines.append(f"  candidates: {', '.join(self.candidates)}; {self.basis}")
+        if self.established is not None:  # only an ambiguous verdict has one
             lines.append(f"  established: {self.established.text()}")
         lines += ["-" * width, f"Model comparison ({self.weighting} weighting)",
                   text_table(self.comparison), "-" * width, "Nested F-tests",

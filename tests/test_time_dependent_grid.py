@@ -67,11 +67,15 @@ def test_grid_fit_on_flagged_wells_reports_no_steady_state_ki(rates):
     assert slow.reason.startswith(TIME_DEPENDENT_REASON)
     assert "inhibkin inactivation" in slow.summary()
     assert slow.constants().empty
-    # The same rates without the flags are read as a steady-state grid: a Ki far from the
-    # true Ki = koff/kon = 1 µM (td_ode.Scheme), the error the verdict prevents.
-    steady = ik.fit_mechanisms(_compound(rates, "SLOW-1").drop(columns="flags"))
+    # The same rates without the flags: with the lack-of-fit test off they are read as a
+    # steady-state grid with a Ki far from the true Ki = koff/kon = 1 µM (td_ode.Scheme),
+    # the error the verdict prevents; with it on (the default) the grid is `inadequate`
+    # (its residuals run in patterns along S) and no constant is a result either.
+    unflagged = _compound(rates, "SLOW-1").drop(columns="flags")
+    steady = ik.fit_mechanisms(unflagged, lack_of_fit_alpha=0)
     assert steady.verdict != TIME_DEPENDENT
     assert steady.constants()["estimate"].min() > 5.0
+    assert ik.fit_mechanisms(unflagged).verdict == "inadequate"
 
 
 def test_rapid_equilibrium_grid_keeps_its_ki(rates):
