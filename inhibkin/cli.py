@@ -868,10 +868,42 @@ def _inactivation_arguments(parser):
     parser.add_argument("--inhibitor", default="inhibitor")
     parser.add_argument("--reversible", action="store_true",
                         help="slow reversible binding (fit vs, k6, koff) instead of covalent")
-    parser.add_argument("--substrate-conc", type=float,
-                        help="assay substrate concentration, for KI = KI,app/(1 + S/Km)")
-    parser.add_argument("--km", type=float, help="Km in the substrate's unit")
+    parser.add_argument("--substrate-conc",
+                        help="assay substrate concentration with its unit (e.g. 200uM), for "
+                             "KI = KI,app/(1 + S/Km)")
+    parser.add_argument("--km", help="Km with its unit (e.g. 40uM); a bare number is read "
+                                     "in the unit of a bare --substrate-conc")
     parser.add_argument("--level", type=float, default=0.95)
+
+
+def _substrate_and_km(substrate, km):
+    """--substrate-conc and --km as numbers of one unit: both with their units (read in M,
+    as every other stage reads concentrations) or both bare numbers of one unit."""
+    from .units import parse_concentration
+    from .validate import check_options
+
+    def is_bare(text):
+        try:
+            float(text)
+        except ValueError:
+            return False
+        return True
+
+    given = {option: text for option, text in (("--substrate-conc", substrate), ("--km", km))
+             if text is not None}
+    if not given:
+        return None, None
+    if len({is_bare(text) for text in given.values()}) > 1:
+        raise DataError(Problem("--km", None, f"{substrate} and {km}",
+                                "give --substrate-conc and --km both with their units "
+                                "(e.g. 200uM and 40uM) or both as bare numbers of one unit"))
+    if all(is_bare(text) for text in given.values()):
+        values = {option: float(text) for option, text in given.items()}
+    else:
+        values = {option: parse_concentration(text) for option, text in given.items()}
+    if "--km" in values:
+        check_options({"--km": values["--km"]})
+    return values.get("--substrate-conc"), values.get("--km")
 
 
 def _inactivation(args) -> int:
@@ -885,6 +917,7 @@ def _inactivation(args) -> int:
     kobs_path = _check_output(args.kobs, "--kobs") if args.kobs else None
     _check_paths({"reads": args.reads}, {"--output": output, "--kobs": kobs_path})
     check_options({"--level": args.level})
+    substrate, km = _substrate_and_km(args.substrate_conc, args.km)
     reads = read_table(args.reads, text_columns=[args.compound])
     if args.compound in reads.columns:
         groups = list(reads.groupby(args.compound, sort=False))
@@ -897,7 +930,7 @@ def _inactivation(args) -> int:
             fit = fit_time_dependent(part, well=args.well, time=args.time,
                                      signal=args.signal, inhibitor=args.inhibitor,
                                      irreversible=not args.reversible,
-                                     substrate=args.substrate_conc, km=args.km,
+                                     substrate=substrate, km=km,
                                      level=args.level, compound=name)
         except InhibkinError as err:
             failed += 1
@@ -988,7 +1021,7 @@ SUBCOMMANDS = [
     Subcommand(
         "inactivation", "kobs per well, one-step or two-step, kinact, KI and kinact/KI",
         "inhibkin inactivation data_demo/invented_covalent_reads.csv --time time_s "
-        "--signal product_uM --inhibitor inhibitor_uM --substrate-conc 200 --km 40 "
+        "--signal product_uM --inhibitor inhibitor_uM --substrate-conc 200uM --km 40uM "
         "-o constants.csv --kobs kobs.csv",
         _inactivation_arguments, _inactivation, parallel=False),
     Subcommand("demo", "run the demo flow on invented data", "inhibkin demo",

@@ -249,3 +249,22 @@ def test_cli_stage_isolates_a_bad_compound(tmp_path):
     assert "at least 4 inhibited wells" in table["error"].iloc[1]
     assert table["k5_over_ki_low"].iloc[0] < table["k5_over_ki"].iloc[0]
     assert set(pd.read_csv(kobs)["compound"]) == {"COV-1"}
+
+
+def test_inactivation_stage_reads_substrate_and_km_with_their_units(tmp_path):
+    # The other stages take concentrations with their units; so does this one, and two
+    # bare numbers of one unit give the same constants (only S/Km enters; common practice).
+    from inhibkin.cli import main
+
+    source = tmp_path / "reads.csv"
+    reads_of(COVALENT, 13).assign(compound="COV-1").to_csv(source, index=False)
+    tables = []
+    for substrate, km in (("100uM", f"{COVALENT.km:g}uM"), ("100", f"{COVALENT.km:g}")):
+        out = tmp_path / f"constants_{len(tables)}.csv"
+        assert main(["inactivation", str(source), "-o", str(out), "--substrate-conc",
+                     substrate, "--km", km, "--quiet"]) == 0
+        tables.append(pd.read_csv(out))
+    pd.testing.assert_frame_equal(tables[0], tables[1])
+    assert main(["inactivation", str(source), "-o", str(tmp_path / "x.csv"),
+                 "--substrate-conc", "100uM", "--km", "10", "--quiet"]) == 2
+    assert not (tmp_path / "x.csv").exists()
