@@ -163,7 +163,8 @@ def test_michaelis_menten_bad_input_names_the_value():
 
 def test_starts_follow_the_scale_of_small_and_negative_rates():
     """Rates of order 1e-3 with negative wells (issue 12, item 4): the fallback start of
-    vmax is on the rates' scale, not 1.1, and the engine starts at the same place."""
+    vmax is on the rates' scale, not 1.1, and a compound starts at the same place alone and
+    inside a batch (the engine's starts are the same rule over (B, n) arrays)."""
     from inhibkin.engine.starts import mechanism_starts
     from inhibkin.starts import michaelis_menten_start, starting_values
 
@@ -174,8 +175,10 @@ def test_starts_follow_the_scale_of_small_and_negative_rates():
     assert vmax == pytest.approx(1.1 * 0.004) and km > 0
     i = np.array([0.0, 0.0, 1.0, 1.0])
     v = np.array([0.004, -0.001, 0.003, -0.002])
+    # A neighbour on another scale must not move this compound's start.
+    batch = [np.stack([x, y]) for x, y in ((s, 3 * s), (i, 2 * i), (v, 50 * np.abs(v)))]
     for model in ("none", "competitive", "mixed"):
         expected = starting_values(model, s, i, v)
-        got = mechanism_starts(model, s[None], i[None], v[None], np.ones((1, 4), bool))[0]
+        got = mechanism_starts(model, *batch, np.ones((2, 4), bool))[0]
         np.testing.assert_allclose(got, list(expected.values()), rtol=1e-12)
         assert all(np.isfinite(x) and x > 0 for x in expected.values())
