@@ -19,10 +19,10 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
 from .errors import DataError
+from .io import plain_scalar
 
 __all__ = ["FORMULA_PREFIXES", "looks_like_formula", "write_workbook", "campaign_sheets",
            "read_workbook_rows", "rows_to_table"]
@@ -50,21 +50,15 @@ def looks_like_formula(text) -> bool:
 
 def _cell_value(value):
     """A table value as openpyxl should store it (None: an empty cell)."""
-    if value is None or value is pd.NA or value is pd.NaT:
-        return None
-    if isinstance(value, (bool, np.bool_)):
-        return bool(value)
-    if isinstance(value, (int, np.integer)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        value = float(value)
+    value = plain_scalar(value)
+    if isinstance(value, float):
         if math.isnan(value):
             return None
         # A worksheet cannot hold an infinity; its text keeps the meaning.
         return value if math.isfinite(value) else ("inf" if value > 0 else "-inf")
     if isinstance(value, pd.Timestamp):
         return value.to_pydatetime()
-    return str(value)
+    return value if value is None or isinstance(value, (bool, int)) else str(value)
 
 
 def write_workbook(sheets, path) -> Path:

@@ -31,12 +31,13 @@ import tempfile
 from contextlib import contextmanager
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from .errors import DataError, Problem
 
 __all__ = ["read_table", "write_table", "TABLE_FORMATS", "TEXT_COLUMNS", "LINE_INDEX",
-           "neutralise_formulas"]
+           "neutralise_formulas", "plain_scalar"]
 
 # File suffix to format. Anything else is refused rather than guessed.
 TABLE_FORMATS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
@@ -327,3 +328,18 @@ def write_table(table, path) -> Path:
                 raise DataError("writing Parquet needs pyarrow: pip install 'inhibkin[parquet]'",
                                 context=f"file {str(path)!r}") from None
     return path
+
+
+def plain_scalar(value):
+    """A table value as a plain Python value, for writers that take no numpy or pandas
+    scalars (a worksheet, JSON): missing values (None, NA, NaT) as None; numpy booleans,
+    integers and floats as bool, int and float; anything else as it is."""
+    if value is None or value is pd.NA or value is pd.NaT:
+        return None
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value)
+    return value

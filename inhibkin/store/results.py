@@ -36,6 +36,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError, InhibkinError, Problem
+from ..io import plain_scalar
 from .msr import minimum_significant_ratio
 
 try:
@@ -98,17 +99,10 @@ def file_digest(path) -> tuple[str, int]:
 
 def _cell(value):
     """A table cell as a JSON value; floats stay exact (json writes repr)."""
-    if value is None or value is pd.NA or value is pd.NaT:
-        return None
-    if isinstance(value, (bool, np.bool_)):
-        return bool(value)
-    if isinstance(value, (int, np.integer)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        return float(value)
+    value = plain_scalar(value)
     if isinstance(value, (pd.Timestamp, datetime)):
         return value.isoformat()
-    if isinstance(value, (str, list, dict)):
+    if value is None or isinstance(value, (bool, int, float, str, list, dict)):
         return value
     return str(value)
 
