@@ -168,22 +168,7 @@ def test_a_killed_writer_and_concurrent_writers(tmp_path, campaigns):
 
     # Two writers at once, each with its own connections (threads: the SQLite file lock
     # is what serialises them, as between processes).
-    errors = []
-
-    def write():
-        try:
-            with ResultStore(path) as own:
-                for _ in range(3):
-                    own.write(first, name="shared")
-        except Exception as err:  # reported below, not lost in the thread
-            errors.append(err)
-
-    threads = [threading.Thread(target=write) for _ in range(2)]
-    for thread in threads:
-        thread.start()
-    for thread in threads:
-        thread.join()
-    assert not errors, errors
+    _write_concurrently(path, first, name="shared", writes_each=3)
     with ResultStore(path) as store:
         kept = store.campaigns()
         assert sorted(kept.loc[kept["name"] == "shared", "version"]) == [1, 2, 3, 4, 5, 6]
@@ -288,22 +273,7 @@ def test_postgresql_round_trip_versions_and_concurrent_writers(postgres_url, cam
         store.write(first, name="pg", inputs=[path], notes="on a server")
         _exact(store.campaign_table("pg"), first.ranking)
         _exact(store.campaign_table("pg", "parameters"), first.parameters())
-        errors = []
-
-        def write():
-            try:
-                with ResultStore(postgres_url) as own:
-                    for _ in range(2):
-                        own.write(second, name="pg")
-            except Exception as err:  # reported below, not lost in the thread
-                errors.append(err)
-
-        threads = [threading.Thread(target=write) for _ in range(2)]
-        for thread in threads:
-            thread.start()
-        for thread in threads:
-            thread.join()
-        assert not errors, errors
+        _write_concurrently(postgres_url, second, name="pg", writes_each=2)
         kept = store.campaigns()
         assert sorted(kept["version"]) == [1, 2, 3, 4, 5]
         _exact(store.campaign_table("pg", version=5), second.ranking)
@@ -311,3 +281,24 @@ def test_postgresql_round_trip_versions_and_concurrent_writers(postgres_url, cam
         assert history["version"].tolist() == [1, 2, 3, 4, 5]
         assert json.loads(json.dumps(store.provenance("pg", version=1)["inputs"]))[0][
             "path"] == str(path)
+
+
+def _write_concurrently(url, campaign, *, name, writes_each, writers=2):
+    """``writers`` threads, each with its own store connection, writing ``campaign`` under
+    ``name`` ``writes_each`` times; an error in any thread fails the test."""
+    errors = []
+
+    def write():
+        try:
+            with ResultStore(url) as own:
+                for _ in range(writes_each):
+                    own.write(campaign, name=name)
+        except Exception as err:  # reported below, not lost in the thread
+            errors.append(err)
+
+    threads = [threading.Thread(target=write) for _ in range(writers)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join()
+    assert not errors, errors
