@@ -8,6 +8,7 @@ when asked, by a Morrison fit (:mod:`inhibkin.morrison`).
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
@@ -191,11 +192,17 @@ def _km_in_substrate_unit(km, df, substrate, substrate_unit):
                                     "declares none; name its unit (substrate_unit='uM', "
                                     "or a header such as 'substrate_uM')"))
         return float(from_molar(molar, declared))
-    if isinstance(km, bool) or not isinstance(km, (int, float, np.floating, np.integer)) \
-            or not np.isfinite(km) or km <= 0:
-        raise DataError(Problem("km", None, km, "km must be a positive number, text with "
-                                                "its unit (e.g. '40uM') or a column name"))
-    return float(from_molar(float(km), declared)) if declared is not None else float(km)
+    problem = Problem("km", None, km, "km must be a positive number, text with its unit "
+                                      "(e.g. '40uM') or a column name")
+    if isinstance(km, bool) or not isinstance(km, (int, float, np.floating, np.integer)):
+        raise DataError(problem)
+    try:
+        value = float(km)
+    except OverflowError:  # a Python int past the float range
+        raise DataError(problem) from None
+    if not (math.isfinite(value) and value > 0):
+        raise DataError(problem)
+    return float(from_molar(value, declared)) if declared is not None else value
 
 
 def _default_fitter(curves, *, fix_top, fix_bottom, intervals, level, class_options=None):

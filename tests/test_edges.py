@@ -530,3 +530,17 @@ def test_an_in_process_scheduler_address_passes_the_syntax_check():
     assert _SCHEDULER_ADDRESS.fullmatch("inproc://192.0.2.2/31764/1")
     assert not _SCHEDULER_ADDRESS.fullmatch("inproc://192.0.2.2")
     assert not _SCHEDULER_ADDRESS.fullmatch("notaurl")
+
+
+def test_a_python_int_km_past_the_float_range_is_a_clear_error():
+    # Found by the hostile-plates property test: km=2**64 raised a TypeError from
+    # np.isfinite, and an int past the float range would overflow float().
+    from inhibkin.errors import DataError
+    from inhibkin.potency_table import potency_table
+
+    plates = pd.DataFrame({"compound": ["A", None, None], "plate": ["P", "P", "P"],
+                           "role": ["sample", "max", "min"], "inhibitor": [1.0, 0.0, 0.0],
+                           "signal": [50.0, 100.0, 0.0], "substrate": [10.0, 10.0, 10.0]})
+    with pytest.raises(DataError, match="km must be a positive number"):
+        potency_table(plates, km=10**400, intervals="wald")
+    potency_table(plates, km=2**64, intervals="wald")  # finite: no TypeError
