@@ -15,7 +15,7 @@ import time
 
 import numpy as np
 
-from inhibkin.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
 
 _SEED = 20261216
 _CV = 0.05

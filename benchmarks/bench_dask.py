@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import time
 
-from inhibkin.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
 
 _SEED = 20261220
 _CV = 0.05

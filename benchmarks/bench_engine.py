@@ -25,9 +25,9 @@ import pandas as pd
 from scipy import optimize
 
 import inhibkin as ik
+from inhibkin.core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
+from inhibkin.core.models import MODEL_NAMES, MODELS
 from inhibkin.engine import fit_logistic_batch, fit_mechanism_arrays
-from inhibkin.logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
-from inhibkin.models import MODEL_NAMES, MODELS
 
 _SEED = 20261207
 _CV = 0.05

@@ -1,6 +1,6 @@
 """Initial rates: one vectorised pass over a 384-well plate against a per-well Python loop.
 
-Both columns run the same window fits (:func:`inhibkin.rates._rates_core`); the loop calls
+Both columns run the same window fits (:func:`inhibkin.rates.initial._rates_core`); the loop calls
 it once per well, the vectorised pass once per plate, so the ratio is the gain from
 vectorising alone. ``initial_rates`` adds the table checks, blank handling and assembly.
 """
@@ -12,7 +12,7 @@ import time
 import numpy as np
 import pandas as pd
 
-from inhibkin.rates import _rates_core, initial_rates
+from inhibkin.rates.initial import _rates_core, initial_rates
 
 _SEED = 20261204
 _FULL = {"wells": 384, "reads": 60, "repeats": 3}

@@ -16,8 +16,8 @@ import tempfile
 import time
 from pathlib import Path
 
-from inhibkin.batch import fit_campaign, simulate_campaign
-from inhibkin.report import DEFAULT_DETAIL, report
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign
+from inhibkin.reporting.report import DEFAULT_DETAIL, report
 
 _SEED = 20261219
 _CV = 0.05

@@ -3,7 +3,7 @@
 Each command runs in a fresh interpreter (best of a few runs, user + system CPU of the
 child, so a busy machine's waiting is not counted): importing numpy, pandas and
 scipy.optimize (the floor any stage pays), ``inhibkin --help``, ``inhibkin report
---help``, and ``import inhibkin.report`` (what a report stage loads before its work).
+--help``, and ``import inhibkin.reporting.report`` (what a report stage loads before its work).
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ _COMMANDS = {
     "import numpy, pandas, scipy.optimize": "import numpy, pandas, scipy.optimize",
     "inhibkin --help": "from inhibkin.cli import main; main(['--help'])",
     "inhibkin report --help": "from inhibkin.cli import main; main(['report', '--help'])",
-    "import inhibkin.report": "import inhibkin.report",
+    "import inhibkin.reporting.report": "import inhibkin.reporting.report",
 }
 
 

@@ -40,9 +40,9 @@ import pandas as pd
 
 import inhibkin as ik
 from inhibkin import cli
-from inhibkin.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
 from inhibkin.errors import InhibkinError
-from inhibkin.io import read_table
+from inhibkin.inputs.io import read_table
 
 OUTCOMES = ("correct", "clear error", "unclear error", "refused wrongly", "silent wrong",
             "traceback", "lost", "skipped")

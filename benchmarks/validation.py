@@ -36,10 +36,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from inhibkin.design import CALL_OUTCOMES, call_outcome
+from inhibkin.core.models import MODELS
 from inhibkin.errors import DataError
-from inhibkin.mechanism import fit_mechanisms
-from inhibkin.models import MODELS
+from inhibkin.mechanism.design import CALL_OUTCOMES, call_outcome
+from inhibkin.mechanism.fit import fit_mechanisms
 from inhibkin.simulate import simulate_grid, standard_design
 from inhibkin.validate import check_grid
 
@@ -126,7 +126,7 @@ DESIGNS: dict[str, Callable[[float, float], tuple[np.ndarray, np.ndarray]]] = {
     "low_substrate": _design_low_substrate,
 }
 
-#: Outcome classes, in display order: those of :func:`inhibkin.design.call_outcome`,
+#: Outcome classes, in display order: those of :func:`inhibkin.mechanism.design.call_outcome`,
 #: and ``rejected`` for a data set the input checks refuse (:func:`fit_case`).
 OUTCOMES = (*CALL_OUTCOMES, "rejected")
 
@@ -227,7 +227,7 @@ def _rejected(reason: str) -> dict:
 
 
 def record_of(case: Case, fit) -> dict:
-    """One record from a :class:`~inhibkin.mechanism.MechanismFit` of a ``case`` data set.
+    """One record from a :class:`~inhibkin.mechanism.fit.MechanismFit` of a ``case`` data set.
 
     The record holds the verdict and its outcome class and, for each parameter of the
     true model, the estimate, its interval from the fit of the true model, whether the

@@ -10,23 +10,21 @@ not pay for plotting, lmfit or statsmodels until something needs them.
 """
 
 import importlib
-import sys
-import types
 
 __version__ = "0.1.0"
 
-# Public name -> the module that defines it (a module exported as itself maps to itself).
+# Public name -> the module that defines it.
 _EXPORTS = {
-    "figures": "figures",
-    "Campaign": "batch",
-    "fit_campaign": "batch",
-    "simulate_campaign": "batch",
-    "VerdictOptions": "compare",
-    "cheng_prusoff": "conversion",
-    "ic50_from_ki": "conversion",
-    "CurveClassRules": "curve_class",
-    "GridPlan": "design",
-    "plan_grid": "design",
+    "figures": "reporting.figures",
+    "Campaign": "campaign.batch",
+    "fit_campaign": "campaign.batch",
+    "simulate_campaign": "campaign.batch",
+    "VerdictOptions": "core.compare",
+    "cheng_prusoff": "potency.conversion",
+    "ic50_from_ki": "potency.conversion",
+    "CurveClassRules": "core.curve_class",
+    "GridPlan": "mechanism.design",
+    "plan_grid": "mechanism.design",
     "fit_logistic_batch": "engine",
     "fit_mechanism_arrays": "engine",
     "fit_mechanisms_batch": "engine",
@@ -36,35 +34,35 @@ _EXPORTS = {
     "InhibkinWarning": "errors",
     "UnitsError": "errors",
     "OptionError": "errors",
-    "write_workbook": "excel",
-    "ModelFit": "fitting",
-    "fit_michaelis_menten": "fitting",
+    "write_workbook": "inputs.excel",
+    "ModelFit": "mechanism.one_model",
+    "fit_michaelis_menten": "mechanism.one_model",
     "read_any_table": "inputs",
     "read_plate_matrix": "inputs",
     "standardise_columns": "inputs",
-    "read_table": "io",
-    "write_table": "io",
-    "MechanismFit": "mechanism",
-    "fit_mechanisms": "mechanism",
-    "MODELS": "models",
-    "RateLaw": "models",
-    "MorrisonFit": "morrison",
-    "fit_morrison": "morrison",
-    "PlateQC": "plates",
-    "plate_qc": "plates",
-    "z_prime": "plates",
-    "DoseResponseFit": "potency",
-    "fit_dose_response": "potency",
-    "PotencyTable": "potency_table",
-    "potency_table": "potency_table",
-    "InitialRates": "rates",
-    "initial_rates": "rates",
-    "fit_html": "report",
-    "report": "report",
-    "CHROMOPHORES": "signal",
-    "BeerLambert": "signal",
-    "StandardCurve": "signal",
-    "fit_standard_curve": "signal",
+    "read_table": "inputs.io",
+    "write_table": "inputs.io",
+    "MechanismFit": "mechanism.fit",
+    "fit_mechanisms": "mechanism.fit",
+    "MODELS": "core.models",
+    "RateLaw": "core.models",
+    "MorrisonFit": "potency.morrison",
+    "fit_morrison": "potency.morrison",
+    "PlateQC": "rates.plates",
+    "plate_qc": "rates.plates",
+    "z_prime": "rates.plates",
+    "DoseResponseFit": "potency.curve",
+    "fit_dose_response": "potency.curve",
+    "PotencyTable": "potency.table",
+    "potency_table": "potency.table",
+    "InitialRates": "rates.initial",
+    "initial_rates": "rates.initial",
+    "fit_html": "reporting.report",
+    "report": "reporting.report",
+    "CHROMOPHORES": "rates.signal",
+    "BeerLambert": "rates.signal",
+    "StandardCurve": "rates.signal",
+    "fit_standard_curve": "rates.signal",
     "simulate_grid": "simulate",
     "standard_design": "simulate",
     "ResultStore": "store",
@@ -81,22 +79,8 @@ _EXPORTS = {
 
 __all__ = list(_EXPORTS)
 
-# Submodules that share their name with the public function they define: the function is
-# what ``inhibkin.report`` names, as it did when everything was imported eagerly.
-_FUNCTION_NAMED = frozenset(n for n, m in _EXPORTS.items() if n == m and n != "figures")
-
-
-class _Package(types.ModuleType):
-    """The package module; keeps the import system from binding a submodule over the
-    public function of the same name (it sets each submodule as a package attribute)."""
-
-    def __setattr__(self, name, value):
-        if name in _FUNCTION_NAMED and isinstance(value, types.ModuleType):
-            return
-        super().__setattr__(name, value)
-
-
-sys.modules[__name__].__class__ = _Package
+# Modules exported as themselves (``ik.figures``); every other entry names a function or class.
+_MODULE_EXPORTS = frozenset({"figures"})
 
 
 def __getattr__(name):
@@ -105,7 +89,7 @@ def __getattr__(name):
     except KeyError:
         raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
     module = importlib.import_module(f".{module_name}", __name__)
-    value = module if name == module_name and name == "figures" else getattr(module, name)
+    value = module if name in _MODULE_EXPORTS else getattr(module, name)
     globals()[name] = value
     return value
 

@@ -99,7 +99,7 @@ def _check_output(path, option="--output", suffixes=None) -> Path:
     The suffix must name a known format; the path must not be a directory; its
     directory must exist and be writable (the table goes to a temporary file there).
     """
-    from .io import TABLE_FORMATS
+    from .inputs.io import TABLE_FORMATS
 
     suffixes = suffixes or (*TABLE_FORMATS, ".xlsx")
     path = Path(path)
@@ -216,11 +216,11 @@ def _column_arguments(parser, roles=("compound", "substrate", "inhibitor")):
 
 def _write_output(table, path, *, campaign=None):
     """A table, or (.xlsx) a workbook with the campaign's parameters and plate QC too."""
-    from .io import write_table
+    from .inputs.io import write_table
 
     if Path(path).suffix.lower() != ".xlsx":
         return write_table(table, path)
-    from .excel import campaign_sheets, write_workbook
+    from .inputs.excel import campaign_sheets, write_workbook
 
     sheets = campaign_sheets(campaign) if campaign is not None else {"table": table}
     return write_workbook(sheets, path)
@@ -228,7 +228,7 @@ def _write_output(table, path, *, campaign=None):
 
 def _fit_options(args) -> dict:
     if getattr(args, "figures", None):  # checked before the fits, not after
-        from .figure_files import MIN_DPI
+        from .reporting.figure_files import MIN_DPI
 
         folder = Path(args.figures)
         if not (folder.parent if str(folder.parent) else Path(".")).is_dir():
@@ -269,7 +269,7 @@ def _weighting(chosen):
 
 def _km(text):
     """--km: a concentration with its unit (in M), or a column name."""
-    from .batch import parse_concentration
+    from .campaign.batch import parse_concentration
 
     if text is None:
         return None
@@ -294,7 +294,7 @@ def _keep(campaign, output, args) -> None:
 def _draw(campaign, args) -> None:
     """--figures DIR: every compound's figures as files (PNG at --dpi, or SVG)."""
     if getattr(args, "figures", None):
-        from .figure_files import write_figures
+        from .reporting.figure_files import write_figures
 
         write_figures(campaign, args.figures, format=args.figure_format, dpi=args.dpi)
 
@@ -429,8 +429,8 @@ class _MapOnly:
 
 
 def _rates(args) -> int:
-    from .rates import initial_rates
-    from .signal import BeerLambert
+    from .rates.initial import initial_rates
+    from .rates.signal import BeerLambert
     from .units import resolve_units
 
     output = _check_output(args.output)
@@ -556,7 +556,7 @@ def _store_stage_arguments(parser):
 
 def _store_stage(args) -> int:
     from . import store
-    from .text import text_table
+    from .reporting.text import text_table
 
     output = _check_output(args.output) if args.output else None
     if args.what in ("campaign", "history") and not args.name:
@@ -598,8 +598,8 @@ _DOSE_COLUMNS = ("compound", "inhibitor")
 
 
 def _mechanism(args) -> int:
-    from .batch import fit_campaign
-    from .io import write_table
+    from .campaign.batch import fit_campaign
+    from .inputs.io import write_table
 
     output = _check_output(args.output)
     params = _check_output(args.params, "--params") if args.params else None
@@ -624,7 +624,7 @@ def _potency_arguments(parser):
 
 
 def _potency(args) -> int:
-    from .batch import fit_campaign
+    from .campaign.batch import fit_campaign
 
     output = _check_output(args.output)
     _check_paths({"plates": args.plates}, {"--output": output})
@@ -664,7 +664,7 @@ def _rank_arguments(parser):
 
 def _whole_campaign(args):
     """fit_campaign over --grid and/or --dose-response (the rank and report stages)."""
-    from .batch import fit_campaign
+    from .campaign.batch import fit_campaign
 
     grid = (_read(args.grid, args, required=_GRID_COLUMNS, context="grid")
             if args.grid else None)
@@ -678,7 +678,7 @@ def _whole_campaign(args):
 
 def _time_dependent_ranking(args):
     """--time-dependent READS ranked in their own table (rank and report stages)."""
-    from .io import read_table
+    from .inputs.io import read_table
     from .time_dependent import rank_time_dependent
 
     reads = read_table(args.time_dependent, text_columns=["compound"])
@@ -700,7 +700,7 @@ def _rank(args) -> int:
     _check_fit_arguments(args)
     td_failed = 0
     if args.time_dependent:
-        from .io import write_table
+        from .inputs.io import write_table
 
         ranked = _time_dependent_ranking(args)
         write_table(ranked, td_output)
@@ -734,7 +734,7 @@ def _report_arguments(parser):
 
 
 def _report(args) -> int:
-    from .report import DEFAULT_DETAIL, check_detail, report
+    from .reporting.report import DEFAULT_DETAIL, check_detail, report
 
     if not args.grid and not args.dose_response:
         raise DataError("give --grid, --dose-response, or both")
@@ -800,8 +800,8 @@ def _levels(text, option):
 
 
 def _design(args) -> int:
-    from .design import plan_grid
-    from .io import write_table
+    from .inputs.io import write_table
+    from .mechanism.design import plan_grid
     from .units import normalise_unit
 
     output = _check_output(args.output) if args.output else None
@@ -838,8 +838,8 @@ def _simulate_arguments(parser):
 
 
 def _simulate(args) -> int:
-    from .batch import simulate_campaign
-    from .io import write_table
+    from .campaign.batch import simulate_campaign
+    from .inputs.io import write_table
 
     output = _check_output(args.output)
     truth_path = _check_output(args.truth, "--truth") if args.truth else None
@@ -909,7 +909,7 @@ def _substrate_and_km(substrate, km):
 def _inactivation(args) -> int:
     import pandas as pd
 
-    from .io import read_table, write_table
+    from .inputs.io import read_table, write_table
     from .time_dependent import fit_time_dependent
     from .validate import check_options
 

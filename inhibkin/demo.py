@@ -14,12 +14,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .batch import fit_campaign
+from .campaign.batch import fit_campaign
 from .errors import DataError
-from .io import read_table, write_table
-from .potency_table import potency_table
-from .rates import initial_rates
-from .report import report
+from .inputs.io import read_table, write_table
+from .potency.table import potency_table
+from .rates.initial import initial_rates
+from .reporting.report import report
 from .units import from_molar
 
 __all__ = ["run_demo", "DEMO_DATA", "DEFAULT_OUTPUT"]

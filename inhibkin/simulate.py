@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from .core.models import MODELS, get_model
 from .errors import DataError
-from .models import MODELS, get_model
 
 __all__ = ["simulate_grid", "standard_design"]
 
@@ -49,7 +49,7 @@ def simulate_grid(mechanism, *, vmax, km, kic=None, kiu=None, s=None, i=None, re
     Parameters
     ----------
     mechanism : str
-        One of :data:`inhibkin.models.MODELS`. ``noncompetitive`` takes its single
+        One of :data:`inhibkin.core.models.MODELS`. ``noncompetitive`` takes its single
         constant from ``kic`` (or ``kiu``).
     vmax, km : float
         Maximum rate (rate units) and Michaelis constant (substrate units).

@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import DataError, OptionError, Problem
-from .io import LINE_INDEX
+from .inputs.io import LINE_INDEX
 
 __all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_menten",
            "NO_SIGNAL", "ALL_EQUAL", "row_kind", "check_options", "OPTION_LIMITS", "Limit",

@@ -16,8 +16,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from inhibkin.logistic import logistic4
-from inhibkin.models import MODELS
+from inhibkin.core.logistic import logistic4
+from inhibkin.core.models import MODELS
 
 SEED = 20261201
 

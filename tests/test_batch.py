@@ -6,7 +6,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from inhibkin.batch import (
+from inhibkin.campaign.batch import (
     LE_KCAL_PER_PKI,
     RANKING_COLUMNS,
     STATUSES,
@@ -15,7 +15,7 @@ from inhibkin.batch import (
     simulate_campaign,
 )
 from inhibkin.errors import DataError, UnitsError
-from inhibkin.mechanism import fit_mechanisms
+from inhibkin.mechanism.fit import fit_mechanisms
 from inhibkin.simulate import simulate_grid
 
 CAMPAIGN_SEED = 20260501
@@ -327,9 +327,9 @@ def test_dose_response_needs_km_and_declared_units():
 
 
 def test_campaign_carries_the_plate_qc_table():
-    from inhibkin.batch import PLATE_COLUMNS
-    from inhibkin.plates import z_prime
-    from inhibkin.potency_table import potency_table
+    from inhibkin.campaign.batch import PLATE_COLUMNS
+    from inhibkin.potency.table import potency_table
+    from inhibkin.rates.plates import z_prime
 
     kis = {f"Q-{k}": 10.0 ** -p for k, p in enumerate(np.linspace(6.5, 8.0, 7))}
     plates = _dose_plates(kis, seed=51, per_plate=3)  # plates P1..P3
@@ -417,7 +417,7 @@ def test_one_ki_rule_for_a_mixed_inhibitor_on_both_routes():
 
 def test_km_takes_one_declared_unit_in_potency_table_and_fit_campaign():
     # Issue 12, item 2: km as text with its unit, or a number in M, means the same in both.
-    from inhibkin.potency_table import potency_table
+    from inhibkin.potency.table import potency_table
 
     rng = np.random.default_rng(4)
     rows = [{"compound": None, "plate": "P1", "role": role, "inhibitor_uM": np.nan,

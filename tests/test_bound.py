@@ -6,8 +6,8 @@ import warnings
 import numpy as np
 import pytest
 
-import inhibkin.batch as batch
-from inhibkin.batch import fit_campaign, simulate_dose_campaign
+import inhibkin.campaign.batch as batch
+from inhibkin.campaign.batch import fit_campaign, simulate_dose_campaign
 from inhibkin.core.bound import Bound
 
 

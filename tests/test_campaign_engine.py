@@ -14,15 +14,15 @@ import pytest
 from scipy import optimize
 from test_engine import _check_against_lmfit
 
-import inhibkin.batch as batch
-from inhibkin.batch import (
+import inhibkin.campaign.batch as batch
+from inhibkin.campaign.batch import (
     AUTO_ENGINE_MIN_COMPOUNDS,
     fit_campaign,
     simulate_campaign,
     simulate_dose_campaign,
 )
+from inhibkin.core.logistic import logistic4, logistic4_jacobian
 from inhibkin.errors import DataError
-from inhibkin.logistic import logistic4, logistic4_jacobian
 
 SEED = 20261215
 CV = 0.05

@@ -10,7 +10,7 @@ import pytest
 from test_batch import KM_M, _dose_plates
 
 from inhibkin.cli import SUBCOMMANDS, main
-from inhibkin.io import read_table
+from inhibkin.inputs.io import read_table
 
 # Generous: a subprocess imports numpy, pandas, scipy and lmfit before it starts.
 TIMEOUT_SECONDS = 180
@@ -252,7 +252,7 @@ DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 def test_rates_stage_reads_the_demo_headers(tmp_path):
     """Issue 12, item 9: the demo's own reads (time_s, product_uM) feed the rates stage,
     with the units read from the headers, and the rates equal the Python API's."""
-    from inhibkin.rates import initial_rates
+    from inhibkin.rates.initial import initial_rates
 
     done = run("rates", DEMO / "invented_moa_reads.csv", "--plate-map",
                DEMO / "invented_moa_plate_map.csv", "--signal", "product_uM",

@@ -7,7 +7,7 @@ import statsmodels.api as sm
 from scipy import stats
 from statsmodels.tools import eval_measures
 
-from inhibkin.compare import (
+from inhibkin.core.compare import (
     VerdictOptions,
     akaike_weights,
     decide,

@@ -6,14 +6,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from inhibkin.batch import fit_campaign
-from inhibkin.curve_class import CURVE_CLASSES, CurveClassRules, classify_curves
+from inhibkin.campaign.batch import fit_campaign
+from inhibkin.core.curve_class import CURVE_CLASSES, CurveClassRules, classify_curves
+from inhibkin.core.logistic import logistic4
 from inhibkin.demo import DEMO_DATA
 from inhibkin.engine import fit_logistic_batch
 from inhibkin.errors import DataError
-from inhibkin.logistic import logistic4
-from inhibkin.plates import percent_activity, plate_qc
-from inhibkin.potency import fit_dose_response
+from inhibkin.potency.curve import fit_dose_response
+from inhibkin.rates.plates import percent_activity, plate_qc
 
 # Demo compounds whose activity stays flat near 100 % (invented_screen_truth.csv marks
 # them inactive) that were reported "bound, Ki < 7.6e-10 M" with Hill ≈ 20 (issue 12).

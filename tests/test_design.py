@@ -7,7 +7,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from inhibkin.design import (
+from inhibkin.core.models import MODELS
+from inhibkin.errors import DataError
+from inhibkin.mechanism.design import (
     WINDOW_FACTOR,
     GridPlan,
     call_outcome,
@@ -15,8 +17,6 @@ from inhibkin.design import (
     naive_levels,
     plan_grid,
 )
-from inhibkin.errors import DataError
-from inhibkin.models import MODELS
 
 CRITERION_RTOL = 1e-6
 FINITE_DIFFERENCE_STEP = 1e-6

@@ -8,7 +8,7 @@ the tested range"; common practice).
 import numpy as np
 
 from inhibkin.core.determined import AT_BOUND, determined_flags
-from inhibkin.models import MODELS
+from inhibkin.core.models import MODELS
 
 MIXED = MODELS["mixed"]
 S = np.array([[1.0, 2.0, 5.0, 10.0, 20.0]])

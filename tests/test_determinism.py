@@ -8,8 +8,8 @@ import sys
 import pytest
 from test_batch import KM_M, _bad_compounds, _dose_plates
 
-from inhibkin.batch import fit_campaign, simulate_campaign
-from inhibkin.io import read_table, write_table
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign
+from inhibkin.inputs.io import read_table, write_table
 
 # Generous: a subprocess imports numpy, pandas, scipy and lmfit before it starts.
 TIMEOUT_SECONDS = 180

@@ -18,14 +18,14 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-import inhibkin.io as inhibkin_io
-from inhibkin.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+import inhibkin.inputs.io as inhibkin_io
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
 from inhibkin.cli import main
 from inhibkin.errors import DataError, FitError
-from inhibkin.io import LINE_INDEX, read_table, write_table
-from inhibkin.mechanism import fit_mechanisms
-from inhibkin.plates import ZERO_SPREAD, plate_qc, z_prime
-from inhibkin.rates import initial_rates
+from inhibkin.inputs.io import LINE_INDEX, read_table, write_table
+from inhibkin.mechanism.fit import fit_mechanisms
+from inhibkin.rates.initial import initial_rates
+from inhibkin.rates.plates import ZERO_SPREAD, plate_qc, z_prime
 from inhibkin.validate import OPTION_LIMITS, check_options
 
 # Text pandas would turn into numbers, booleans or missing values if it guessed types.
@@ -536,7 +536,7 @@ def test_a_python_int_km_past_the_float_range_is_a_clear_error():
     # Found by the hostile-plates property test: km=2**64 raised a TypeError from
     # np.isfinite, and an int past the float range would overflow float().
     from inhibkin.errors import DataError
-    from inhibkin.potency_table import potency_table
+    from inhibkin.potency.table import potency_table
 
     plates = pd.DataFrame({"compound": ["A", None, None], "plate": ["P", "P", "P"],
                            "role": ["sample", "max", "min"], "inhibitor": [1.0, 0.0, 0.0],

@@ -7,7 +7,10 @@ from reference_values import MISRA1D
 from scipy import optimize
 
 import inhibkin as ik
-from inhibkin import compare
+from inhibkin.core import compare
+from inhibkin.core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
+from inhibkin.core.models import MODEL_NAMES, MODELS
+from inhibkin.core.starts import log_bounds, starting_values
 from inhibkin.engine import lm
 from inhibkin.engine.dose_response import _Logistic, fit_logistic_batch
 from inhibkin.engine.mechanisms import (
@@ -17,11 +20,8 @@ from inhibkin.engine.mechanisms import (
     pad,
 )
 from inhibkin.engine.starts import logistic_starts, mechanism_log_bounds, mechanism_starts
-from inhibkin.fitting import fit_model
-from inhibkin.logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
-from inhibkin.mechanism import relative_weights
-from inhibkin.models import MODEL_NAMES, MODELS
-from inhibkin.starts import log_bounds, starting_values
+from inhibkin.mechanism.fit import relative_weights
+from inhibkin.mechanism.one_model import fit_model
 
 # NIST's yardstick for the certified values: 6 significant digits in the estimates,
 # 4 in the standard errors, and the residual sum of squares to 1e-8.
@@ -277,7 +277,7 @@ def test_vectorised_verdicts_equal_compare_rules(grid_set):
                                 weighting="uniform")
     assert list(fits) == [f"C{c}" for c in range(60)]
     for c, fit in enumerate(fits.values()):
-        # The tables built from arrays are the ones inhibkin.compare builds from the fits.
+        # The tables built from arrays are the ones inhibkin.core.compare builds from the fits.
         pd.testing.assert_frame_equal(fit.comparison, compare.comparison_table(fit.models))
         nested = compare.f_test_table(fit.models)
         pd.testing.assert_frame_equal(fit.ftests.iloc[:len(nested)], nested)

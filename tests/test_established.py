@@ -4,10 +4,10 @@ from html import escape
 
 import pytest
 
-from inhibkin.batch import fit_campaign
+from inhibkin.campaign.batch import fit_campaign
 from inhibkin.core.bound import Bound
-from inhibkin.mechanism import fit_mechanisms
-from inhibkin.report import render_report
+from inhibkin.mechanism.fit import fit_mechanisms
+from inhibkin.reporting.report import render_report
 from inhibkin.simulate import simulate_grid
 
 # Mixed truth whose free-enzyme constant kic (10 mM) runs far past the highest inhibitor

@@ -10,8 +10,8 @@ import pytest
 import inhibkin as ik
 from inhibkin.cli import main
 from inhibkin.errors import DataError
-from inhibkin.excel import looks_like_formula, read_workbook_rows, write_workbook
 from inhibkin.inputs import read_any_table
+from inhibkin.inputs.excel import looks_like_formula, read_workbook_rows, write_workbook
 
 openpyxl = pytest.importorskip("openpyxl")
 

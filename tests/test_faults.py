@@ -14,10 +14,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from inhibkin.batch import fit_campaign, simulate_campaign
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign
 from inhibkin.errors import DataError
-from inhibkin.io import read_table, write_table
-from inhibkin.mechanism import fit_mechanisms
+from inhibkin.inputs.io import read_table, write_table
+from inhibkin.mechanism.fit import fit_mechanisms
 
 # Environment variable naming the folder where a "die once" compound leaves its mark, so
 # the second attempt (on a fresh worker process) goes through. Spawned workers and Dask
@@ -93,7 +93,7 @@ def test_dose_response_chunks_survive_a_killed_worker(marks, monkeypatch):
     chunk of curves; the chunk is rerun, nothing is lost."""
     from test_batch import KM_M, _dose_plates
 
-    import inhibkin.batch as batch
+    import inhibkin.campaign.batch as batch
 
     kis = {f"DR-{k}": 10.0 ** -p for k, p in enumerate(np.linspace(6.0, 8.0, 6))}
     plates = _dose_plates(kis, seed=7, per_plate=3)
@@ -107,7 +107,7 @@ def test_dose_response_chunks_survive_a_killed_worker(marks, monkeypatch):
 
 def _dying_dose_chunk_fit(chunk, settings, mechanisms, keep_fits):
     """The dose-response chunk fitter, killing its process the first time it sees DR-3."""
-    from inhibkin.batch import _dose_results
+    from inhibkin.campaign.batch import _dose_results
 
     frame, names = chunk
     mark = Path(os.environ[MARK_DIR]) / "died"

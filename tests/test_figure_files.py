@@ -10,7 +10,7 @@ from test_batch import KM_M, _dose_plates
 import inhibkin as ik
 from inhibkin.cli import main
 from inhibkin.errors import DataError
-from inhibkin.figure_files import write_figures
+from inhibkin.reporting.figure_files import write_figures
 
 
 @pytest.fixture(scope="module")

@@ -7,10 +7,10 @@ import pytest
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 
-from inhibkin import figures
-from inhibkin.logistic import logistic4
-from inhibkin.mechanism import fit_mechanisms
-from inhibkin.potency import fit_dose_response
+from inhibkin.core.logistic import logistic4
+from inhibkin.mechanism.fit import fit_mechanisms
+from inhibkin.potency.curve import fit_dose_response
+from inhibkin.reporting import figures
 from inhibkin.simulate import simulate_grid
 
 SEED = 20261201

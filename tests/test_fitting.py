@@ -6,8 +6,8 @@ from reference_values import MISRA1D, PUROMYCIN_TREATED
 from scipy import optimize, stats
 
 import inhibkin as ik
-from inhibkin.fitting import _make_problem, _solve, fit_model
-from inhibkin.models import MODEL_NAMES, MODELS
+from inhibkin.core.models import MODEL_NAMES, MODELS
+from inhibkin.mechanism.one_model import _make_problem, _solve, fit_model
 
 # NIST's own yardstick: at least 6 significant digits in the estimates, 4 in the errors.
 ESTIMATE_RTOL = 1e-6
@@ -129,7 +129,7 @@ def test_constant_past_tested_range_is_a_bound_not_a_number():
     row = fit.params.loc["kic"]
     assert not row["determined"]
     assert "not determined" in fit.summary() or ">" in fit.summary()
-    from inhibkin.fitting import format_estimate
+    from inhibkin.mechanism.one_model import format_estimate
     text = format_estimate(row)
     assert text.startswith(">") or text == "not determined"
 
@@ -165,8 +165,8 @@ def test_starts_follow_the_scale_of_small_and_negative_rates():
     """Rates of order 1e-3 with negative wells (issue 12, item 4): the fallback start of
     vmax is on the rates' scale, not 1.1, and a compound starts at the same place alone and
     inside a batch (the engine's starts are the same rule over (B, n) arrays)."""
+    from inhibkin.core.starts import michaelis_menten_start, starting_values
     from inhibkin.engine.starts import mechanism_starts
-    from inhibkin.starts import michaelis_menten_start, starting_values
 
     s = np.array([1.0, 2.0, 4.0, 8.0])
     vmax, km = michaelis_menten_start(s, [0.004, -0.001, 0.003, 0.002])

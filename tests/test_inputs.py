@@ -20,9 +20,9 @@ from inhibkin.inputs import (
     standardise_columns,
     write_plate_matrix,
 )
+from inhibkin.inputs.io import read_table, write_table
 from inhibkin.inputs.layouts import dilution_layout, grid_layout, join_layout, plate_grid
 from inhibkin.inputs.wells import parse_well
-from inhibkin.io import read_table, write_table
 
 DEMO = Path(__file__).resolve().parents[1] / "data_demo"
 # Rates computed from the same reads through two readers agree to rounding of the sums.

@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 
 from inhibkin.errors import DataError
-from inhibkin.io import read_table, write_table
+from inhibkin.inputs.io import read_table, write_table
 
 
 @pytest.fixture

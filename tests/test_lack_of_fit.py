@@ -10,8 +10,8 @@ from scipy.integrate import solve_ivp
 
 import inhibkin as ik
 from inhibkin.core.lack_of_fit import pure_error_test, runs_test
+from inhibkin.core.models import EXTENDED_MODELS, MODELS
 from inhibkin.engine import fit_mechanisms_batch
-from inhibkin.models import EXTENDED_MODELS, MODELS
 
 # Both solvers settle noise-free fits to about 1e-10 relative (the check is 1e-6).
 RECOVERY_RTOL = 1e-6

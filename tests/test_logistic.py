@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from inhibkin.logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
+from inhibkin.core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
 
 # Central differences of a smooth function agree with the analytic derivative to about
 # the square of the step; 1e-6 relative leaves room for rounding.

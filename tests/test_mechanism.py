@@ -6,7 +6,7 @@ import pytest
 from scipy import stats
 
 import inhibkin as ik
-from inhibkin.models import MODEL_NAMES, MODELS
+from inhibkin.core.models import MODEL_NAMES, MODELS
 
 RECOVERY_RTOL = 1e-6
 TRUE = {"vmax": 10.0, "km": 2.0}
@@ -234,7 +234,7 @@ def _ambiguous_where_mixed_has_the_lowest_aicc():
 def test_ambiguous_constants_are_labelled_as_the_comparison_table_has_them():
     """Issue 12, item 5: the label of the constants must not claim "lowest AICc" for a
     model that the table shows with ΔAICc > 0."""
-    from inhibkin.batch import fit_campaign
+    from inhibkin.campaign.batch import fit_campaign
 
     data = _ambiguous_where_mixed_has_the_lowest_aicc()
     # The seed was found under uniform weighting.

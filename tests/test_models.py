@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from inhibkin.models import INHIBITION_MODELS, MODEL_NAMES, MODELS, get_model, nested_pairs
+from inhibkin.core.models import INHIBITION_MODELS, MODEL_NAMES, MODELS, get_model, nested_pairs
 
 JACOBIAN_RTOL = 1e-6
 FINITE_DIFFERENCE_STEP = 1e-6

@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 
 import inhibkin as ik
-from inhibkin.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
 from inhibkin.core.options import FitOptions
 from inhibkin.engine import fit_mechanism_arrays, fit_mechanisms_batch
 from inhibkin.errors import OptionError
@@ -84,7 +84,7 @@ def test_the_options_are_stored_as_checked(table):
 
 
 def test_a_custom_z_prime_threshold_reaches_the_options_and_the_report():
-    from inhibkin.report import _campaign_potency_context
+    from inhibkin.reporting.report import _campaign_potency_context
 
     dose, _ = simulate_dose_campaign(["A", "B"], seed=2)
     campaign = fit_campaign(dose_response=dose, km="20uM", quiet=True,

@@ -32,15 +32,15 @@ def test_help_loads_no_heavy_library():
 
 
 def test_every_public_name_resolves_to_its_object():
-    from inhibkin.potency_table import potency_table
-    from inhibkin.report import report
+    from inhibkin.potency.table import potency_table
+    from inhibkin.reporting.report import report
 
     for name in ik.__all__:
         assert getattr(ik, name) is not None, name
     assert set(ik.__all__) <= set(dir(ik))
     # A submodule named like its function leaves the function as the package's name.
     assert ik.report is report and ik.potency_table is potency_table
-    assert ik.figures.__name__ == "inhibkin.figures"
+    assert ik.figures.__name__ == "inhibkin.reporting.figures"
 
 
 def test_unknown_names_raise_attribute_error():

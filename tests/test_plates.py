@@ -5,7 +5,7 @@ import pandas as pd
 import pytest
 
 from inhibkin.errors import DataError
-from inhibkin.plates import Z_PRIME_THRESHOLD, percent_activity, plate_qc, z_prime
+from inhibkin.rates.plates import Z_PRIME_THRESHOLD, percent_activity, plate_qc, z_prime
 
 EXACT = 1e-12
 

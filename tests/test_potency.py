@@ -7,13 +7,18 @@ import pandas as pd
 import pytest
 from scipy import optimize, stats
 
-from inhibkin.conversion import cheng_prusoff, ic50_from_ki
+from inhibkin.core.logistic import logistic4
+from inhibkin.core.models import MODELS
 from inhibkin.errors import DataError, InhibkinError
-from inhibkin.logistic import logistic4
-from inhibkin.models import MODELS
-from inhibkin.morrison import fit_morrison, morrison
-from inhibkin.potency import FLAGS, DoseResponseFit, dose_response_from_estimates, fit_dose_response
-from inhibkin.potency_table import EngineFitter, potency_table
+from inhibkin.potency.conversion import cheng_prusoff, ic50_from_ki
+from inhibkin.potency.curve import (
+    FLAGS,
+    DoseResponseFit,
+    dose_response_from_estimates,
+    fit_dose_response,
+)
+from inhibkin.potency.morrison import fit_morrison, morrison
+from inhibkin.potency.table import EngineFitter, potency_table
 
 DATA = Path(__file__).parent / "data"
 
@@ -237,7 +242,7 @@ def _percent_activity(mechanism, s, km, ki, alpha, conc):
                                              ("mixed", 0.3)])
 @pytest.mark.parametrize("s_over_km", [0.2, 1.0, 5.0])
 def test_round_trip_rate_law_to_ki(mechanism, alpha, s_over_km):
-    # Rate laws of inhibkin.models (DESIGN.md, "The models") -> dose-response at one S
+    # Rate laws of inhibkin.core.models (DESIGN.md, "The models") -> dose-response at one S
     # -> 4PL -> Cheng–Prusoff -> the Ki used (the constant binding free enzyme, or Kiu
     # for uncompetitive). Noise-free.
     km, ki = 2.0, 0.05

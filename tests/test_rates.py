@@ -7,9 +7,9 @@ import statsmodels.api as sm
 from scipy.special import lambertw
 
 from inhibkin.errors import DataError
-from inhibkin.mechanism import fit_mechanisms
-from inhibkin.rates import _rates_core, _spd_inverse, initial_rates
-from inhibkin.signal import BeerLambert
+from inhibkin.mechanism.fit import fit_mechanisms
+from inhibkin.rates.initial import _rates_core, _spd_inverse, initial_rates
+from inhibkin.rates.signal import BeerLambert
 
 # The initial-rate estimate must be within 2 % of vmax·S0/(km + S0) (the brief's criterion).
 RATE_RTOL = 0.02

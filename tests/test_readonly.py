@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 import inhibkin as ik
-from inhibkin.batch import fit_campaign, simulate_campaign
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign
 from inhibkin.core.readonly import ReadOnlyFrame
 
 

@@ -10,13 +10,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from inhibkin.batch import fit_campaign, simulate_campaign
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign
+from inhibkin.core.logistic import logistic4
 from inhibkin.errors import DataError
-from inhibkin.logistic import logistic4
-from inhibkin.mechanism import fit_mechanisms
-from inhibkin.potency import fit_dose_response
-from inhibkin.potency_table import potency_table
-from inhibkin.report import (
+from inhibkin.mechanism.fit import fit_mechanisms
+from inhibkin.potency.curve import fit_dose_response
+from inhibkin.potency.table import potency_table
+from inhibkin.reporting.report import (
     CAUTIONS,
     campaign_html,
     check_detail,

@@ -12,18 +12,18 @@ import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from inhibkin.batch import STATUSES, fit_campaign, simulate_campaign
+from inhibkin.campaign.batch import STATUSES, fit_campaign, simulate_campaign
 from inhibkin.cli import main
-from inhibkin.conversion import cheng_prusoff
 from inhibkin.errors import DataError, InhibkinError, InhibkinWarning
-from inhibkin.fitting import fit_michaelis_menten, format_estimate
-from inhibkin.io import read_table, write_table
-from inhibkin.mechanism import fit_mechanisms
-from inhibkin.morrison import fit_morrison
-from inhibkin.plates import plate_qc
-from inhibkin.potency import fit_dose_response
-from inhibkin.potency_table import potency_table
-from inhibkin.rates import initial_rates
+from inhibkin.inputs.io import read_table, write_table
+from inhibkin.mechanism.fit import fit_mechanisms
+from inhibkin.mechanism.one_model import fit_michaelis_menten, format_estimate
+from inhibkin.potency.conversion import cheng_prusoff
+from inhibkin.potency.curve import fit_dose_response
+from inhibkin.potency.morrison import fit_morrison
+from inhibkin.potency.table import potency_table
+from inhibkin.rates.initial import initial_rates
+from inhibkin.rates.plates import plate_qc
 from inhibkin.simulate import simulate_grid
 
 # Bounded example counts: the whole file must stay within a minute or two on one core.

@@ -17,7 +17,7 @@ import pandas as pd
 import pytest
 
 import inhibkin
-from inhibkin.batch import fit_campaign, simulate_campaign
+from inhibkin.campaign.batch import fit_campaign, simulate_campaign
 from inhibkin.cli import main
 
 PACKAGE = Path(inhibkin.__file__).parent
@@ -90,9 +90,9 @@ def test_campaign_html_escapes_compound_ids_and_reasons():
 
 
 def test_report_escapes_everything_taken_from_the_input(tmp_path):
-    report_module = pytest.importorskip("inhibkin.report")
+    report_module = pytest.importorskip("inhibkin.reporting.report")
     if not hasattr(report_module, "report"):
-        pytest.fail("inhibkin.report.report is missing")
+        pytest.fail("inhibkin.reporting.report.report is missing")
     campaign = fit_campaign(_hostile_campaign(), quiet=True)
     path = tmp_path / "report.html"
     report_module.report(campaign, path, title="<script>title()</script>",

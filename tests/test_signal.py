@@ -6,8 +6,8 @@ import pytest
 from scipy import stats
 
 from inhibkin.errors import DataError
-from inhibkin.rates import initial_rates
-from inhibkin.signal import CHROMOPHORES, BeerLambert, blank_signal, fit_standard_curve
+from inhibkin.rates.initial import initial_rates
+from inhibkin.rates.signal import CHROMOPHORES, BeerLambert, blank_signal, fit_standard_curve
 
 # Agreement with scipy.stats.linregress (same least-squares line, other code).
 LINREGRESS_RTOL = 1e-10

@@ -7,12 +7,17 @@ import xml.etree.ElementTree as ET
 import numpy as np
 import pytest
 
-from inhibkin.figures import AxisUnits, level_palette
-from inhibkin.logistic import logistic4
-from inhibkin.mechanism import fit_mechanisms
-from inhibkin.potency import fit_dose_response
+from inhibkin.core.logistic import logistic4
+from inhibkin.mechanism.fit import fit_mechanisms
+from inhibkin.potency.curve import fit_dose_response
+from inhibkin.reporting.figures import AxisUnits, level_palette
+from inhibkin.reporting.sketch import (
+    dose_response_sketch,
+    grid_sketch,
+    level_colours,
+    residual_sketch,
+)
 from inhibkin.simulate import simulate_grid
-from inhibkin.sketch import dose_response_sketch, grid_sketch, level_colours, residual_sketch
 
 SEED = 20261219
 HOSTILE = "<script>alert(1)</script>"

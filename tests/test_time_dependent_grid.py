@@ -1,4 +1,4 @@
-"""A grid fit on time-dependent wells says so (rule 5 of inhibkin.compare).
+"""A grid fit on time-dependent wells says so (rule 5 of inhibkin.core.compare).
 
 Reads from the mass-action ODE of tests/td_ode.py (solve_ivp, LSODA, rtol 1e-10, each
 curve solved once per session), through the rates stage (``initial_rates``, which flags
@@ -11,7 +11,7 @@ import pytest
 from td_ode import Scheme, product_curve
 
 import inhibkin as ik
-from inhibkin.compare import TIME_DEPENDENT, TIME_DEPENDENT_REASON
+from inhibkin.core.compare import TIME_DEPENDENT, TIME_DEPENDENT_REASON
 
 TIMES = tuple(np.linspace(0.0, 3600.0, 61))
 SUBSTRATES = (5.0, 10.0, 20.0, 50.0, 100.0)          # Km of the scheme is 10 µM

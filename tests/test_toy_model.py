@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 
 import inhibkin as ik
+from inhibkin.core.models import MODELS, RateLaw
 from inhibkin.engine import fit_mechanisms_batch
-from inhibkin.models import MODELS, RateLaw
 
 # Both solvers settle estimates to about 1e-12 relative; the same problem under two names
 # must agree far tighter than this.

@@ -3,7 +3,7 @@
 A constant is fitted as its natural logarithm inside bounds that lie orders of magnitude
 beyond the data: they bind only when the data cannot determine it, and a constant at a
 bound is then reported as not determined (:mod:`inhibkin.core.determined`). The data axis
-that sets a parameter's bounds is its role (:data:`inhibkin.models.ROLES`).
+that sets a parameter's bounds is its role (:data:`inhibkin.core.models.ROLES`).
 """
 
 from __future__ import annotations
@@ -38,7 +38,7 @@ def log_bounds_arrays(law, s, i, v, mask):
 
     Parameters
     ----------
-    law : inhibkin.models.RateLaw
+    law : inhibkin.core.models.RateLaw
     s, i, v : numpy.ndarray, shape (B, n)
         Substrate and inhibitor concentrations and rates, padded.
     mask : numpy.ndarray of bool, shape (B, n)

@@ -2,7 +2,7 @@
 
 A constant is determined when the fit sets it: not at a bound, with a finite standard
 error and an interval that is finite above and positive below. On top of that, each
-parameter's role (:data:`inhibkin.models.ROLES`) adds what the tested levels can see:
+parameter's role (:data:`inhibkin.core.models.ROLES`) adds what the tested levels can see:
 
 - ``inhibitor`` (kic, kiu, ki): an estimate above ``factor`` × the largest inhibitor
   level is past the tested range;
@@ -36,7 +36,7 @@ def determined_flags(law, theta, lower, upper, ci_low, ci_high, se_log, s, i, ma
 
     Parameters
     ----------
-    law : inhibkin.models.RateLaw
+    law : inhibkin.core.models.RateLaw
     theta, lower, upper, se_log : numpy.ndarray, shape (B, k)
         Log-estimates, their bounds and standard errors (log units).
     ci_low, ci_high : numpy.ndarray, shape (B, k)

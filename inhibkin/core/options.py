@@ -34,7 +34,7 @@ class FitOptions:
     Parameters
     ----------
     weighting : {"relative", "uniform", "sd"}
-        See :func:`inhibkin.mechanism.fit_mechanisms`.
+        See :func:`inhibkin.mechanism.fit.fit_mechanisms`.
     intervals : {"profile", "wald"}
         Interval method.
     level : float

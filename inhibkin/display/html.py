@@ -1,9 +1,9 @@
 """HTML views of results: the notebook display and the cells the report is built from.
 
-The ``_repr_html_`` of :class:`~inhibkin.mechanism.MechanismFit`, potency fits and
-:class:`~inhibkin.batch.Campaign` call :func:`fit_html`, :func:`dose_response_html` and
+The ``_repr_html_`` of :class:`~inhibkin.mechanism.fit.MechanismFit`, potency fits and
+:class:`~inhibkin.campaign.batch.Campaign` call :func:`fit_html`, :func:`dose_response_html` and
 :func:`campaign_html` here (lazily: matplotlib loads only when a notebook asks), so the
-results never import the report; :mod:`inhibkin.report` builds its page from the same
+results never import the report; :mod:`inhibkin.reporting.report` builds its page from the same
 cells. Every text goes through Jinja2 with autoescaping on.
 """
 
@@ -17,8 +17,8 @@ import numpy as np
 import pandas as pd
 from jinja2 import Environment, PackageLoader, select_autoescape
 
-from .. import figures
-from ..fitting import format_estimate
+from ..mechanism.one_model import format_estimate
+from ..reporting import figures
 from ..units import from_molar, molar_unit
 
 __all__ = ["ENVIRONMENT", "REPORT_DPI", "LAYOUT_DPI", "NOTEBOOK_DPI", "png_uri", "png_image",
@@ -34,8 +34,8 @@ LAYOUT_DPI = 72
 REPORT_DPI = 2 * LAYOUT_DPI
 NOTEBOOK_DPI = 60
 
-#: The templates (inhibkin/templates), autoescaped.
-ENVIRONMENT = Environment(loader=PackageLoader("inhibkin", "templates"),
+#: The templates (inhibkin/display/templates), autoescaped.
+ENVIRONMENT = Environment(loader=PackageLoader("inhibkin.display", "templates"),
                           autoescape=select_autoescape(default=True, default_for_string=True),
                           trim_blocks=True, lstrip_blocks=True)
 
@@ -100,7 +100,7 @@ def parameter_cells(model_fit, *, molar=False) -> dict:
     constant (km, kic, kiu, ki) is written in the unit its estimate suggests
     (:func:`inhibkin.units.molar_unit`), named in a unit column, never as raw molar.
     """
-    from ..models import MODELS
+    from ..core.models import MODELS
 
     pct = f"{100 * model_fit.level:g}%"
     rows = []
@@ -168,7 +168,7 @@ def _reason_text(row) -> str:
 
 
 def fit_html(fit, *, units=None) -> str:
-    """Compact HTML of a :class:`~inhibkin.mechanism.MechanismFit` for a notebook.
+    """Compact HTML of a :class:`~inhibkin.mechanism.fit.MechanismFit` for a notebook.
 
     Verdict and reason, the comparison table, the nested F-tests, the best model's
     parameters with intervals, and one small figure (global fit, model support,
@@ -185,7 +185,7 @@ def fit_html(fit, *, units=None) -> str:
 
 
 def dose_response_html(fit, *, conc_unit="") -> str:
-    """Compact HTML of a potency fit (:class:`~inhibkin.potency.DoseResponseFit`)."""
+    """Compact HTML of a potency fit (:class:`~inhibkin.potency.curve.DoseResponseFit`)."""
     fig, axes = figures.new_figure(size=(3.6, 2.7))
     figures.plot_dose_response(fit, conc_unit=conc_unit, ax=axes[0, 0])
     params = fit.params.copy()
@@ -196,8 +196,8 @@ def dose_response_html(fit, *, conc_unit="") -> str:
 
 
 def campaign_html(campaign, *, rows=10, ki_unit="nM") -> str:
-    """Compact HTML of a :class:`~inhibkin.batch.Campaign`: counts and the top of the ranking,
-    with one small figure (pKi of the ranked compounds with their intervals)."""
+    """Compact HTML of a :class:`~inhibkin.campaign.batch.Campaign`: counts and the top of
+    the ranking, with one small figure (pKi of the ranked compounds with their intervals)."""
     ranking = campaign.ranking
     anchors: dict = {}
     fig, axes = figures.new_figure(size=(4.2, 2.6))

@@ -3,7 +3,7 @@
 A vectorised Levenberg–Marquardt solver (:mod:`.lm`) over padded numpy arrays, used for
 the five mechanism models (:mod:`.mechanisms`) and the four-parameter logistic
 (:mod:`.dose_response`) at screening scale, optionally in chunks on a dask cluster
-(:mod:`.chunks`). The lmfit path (:mod:`inhibkin.fitting`) stays the reference: the
+(:mod:`.chunks`). The lmfit path (:mod:`inhibkin.mechanism.one_model`) stays the reference: the
 engine uses its starting values, bounds, weighting and verdict rules, is tested against
 it, and hands it the fits it cannot converge.
 """

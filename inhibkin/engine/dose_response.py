@@ -1,6 +1,6 @@
 """Many four-parameter logistic (4PL) dose-response curves fitted at once.
 
-The curve, its Jacobian and its starting values are those of :mod:`inhibkin.logistic`
+The curve, its Jacobian and its starting values are those of :mod:`inhibkin.core.logistic`
 (parameters top, bottom, log_ic50, hill; fitted on x = log10(concentration)). top
 and/or bottom can be held at given values (a fixed-plateau fit). Parameters are fitted
 unbounded, on their natural scale, so the Wald intervals are estimate ± t·se.
@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..logistic import PARAM_NAMES
+from ..core.logistic import PARAM_NAMES
 from . import lm
 from .chunks import concat_batches, run_chunks
 from .starts import count_unique, logistic_starts
@@ -28,7 +28,7 @@ _LN10 = np.log(10.0)
 class _Logistic:
     """The 4PL as the solver wants it: batch-last, theta (4, b) and x (n, b).
 
-    The formulas are those of :func:`inhibkin.logistic.logistic4_jacobian` (the tests
+    The formulas are those of :func:`inhibkin.core.logistic.logistic4_jacobian` (the tests
     check the two agree), written into one (4, n, b) array with in-place operations:
     the per-iteration cost of the engine is mostly this evaluation, and the general
     function's stacking along the last axis would cost as much again.

@@ -1,9 +1,9 @@
 """Every mechanism fitted to many compounds at once, compared and decided.
 
-This is :func:`inhibkin.mechanism.fit_mechanisms` (with ``intervals="wald"``) for a
+This is :func:`inhibkin.mechanism.fit.fit_mechanisms` (with ``intervals="wald"``) for a
 whole campaign in stacked arrays: the same automatic starts, bounds and weighting rules,
 the same multi-start rule for mixed, the same criteria, F-tests and verdict rules
-(:mod:`inhibkin.compare`, vectorised here and checked against it by the tests). Fits the
+(:mod:`inhibkin.core.compare`, vectorised here and checked against it by the tests). Fits the
 engine cannot converge are refitted by the lmfit path and counted.
 
 Two entry points:
@@ -11,7 +11,7 @@ Two entry points:
 - :func:`fit_mechanism_arrays` — padded (B, n) arrays in, a :class:`MechanismBatch` of
   arrays out (the fast path, used by the benchmark);
 - :func:`fit_mechanisms_batch` — one table (or array set) per compound in, one
-  :class:`inhibkin.mechanism.MechanismFit` per compound out, interchangeable with the
+  :class:`inhibkin.mechanism.fit.MechanismFit` per compound out, interchangeable with the
   lmfit path's results.
 """
 
@@ -24,7 +24,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..compare import (
+from ..core.bounds import NESTED_FAR_FACTOR
+from ..core.compare import (
     EXACT_FIT_RTOL,
     Verdict,
     VerdictOptions,
@@ -34,9 +35,16 @@ from ..compare import (
     f_test_arrays,
     information_criteria,
 )
-from ..core.bounds import NESTED_FAR_FACTOR
 from ..core.determined import DETERMINATION_FACTOR, determined_flags
 from ..core.lack_of_fit import LACK_OF_FIT_ALPHA, lack_of_fit, residual_pattern
+from ..core.models import (
+    MODEL_NAMES,
+    MODELS,
+    ONE_CONSTANT_MODELS,
+    extension_of,
+    nested_pairs,
+    nested_start,
+)
 from ..core.options import FitOptions
 from ..core.weighting import (
     DEFAULT_WEIGHTING,
@@ -49,16 +57,8 @@ from ..core.weighting import (
     weighting_label,
 )
 from ..errors import DataError, Problem
-from ..fitting import ModelFit, fit_model, fixed_alpha_ssr
-from ..mechanism import MechanismFit, mixed_starts, molar_grid, relative_weights
-from ..models import (
-    MODEL_NAMES,
-    MODELS,
-    ONE_CONSTANT_MODELS,
-    extension_of,
-    nested_pairs,
-    nested_start,
-)
+from ..mechanism.fit import MechanismFit, mixed_starts, molar_grid, relative_weights
+from ..mechanism.one_model import ModelFit, fit_model, fixed_alpha_ssr
 from ..validate import ALL_EQUAL, NO_SIGNAL, check_grid
 from . import lm
 from .chunks import concat_batches, run_chunks
@@ -115,7 +115,7 @@ class ModelBatch:
         Row labels of the parameter columns: the law's parameters, plus ``alpha``
         (= kiu/kic, derived) for mixed.
     estimate, se, ci_low, ci_high : numpy.ndarray, shape (B, len(names))
-        As the columns of :attr:`inhibkin.fitting.ModelFit.params` (Wald intervals at
+        As the columns of :attr:`inhibkin.mechanism.one_model.ModelFit.params` (Wald intervals at
         ``level``); NaN for a failed fit.
     determined : numpy.ndarray of bool, shape (B, len(names))
     theta : numpy.ndarray, shape (B, k)
@@ -185,7 +185,7 @@ class MechanismBatch:
     ----------
     models : dict of str to ModelBatch
     verdict, best, reason : numpy.ndarray of object, shape (B,)
-        As :class:`inhibkin.compare.Verdict` (``best`` is None for ``failed``).
+        As :class:`inhibkin.core.compare.Verdict` (``best`` is None for ``failed``).
     candidates : numpy.ndarray of object, shape (B,)
         Tuples of model names.
     p_values : dict of (str, str) to numpy.ndarray
@@ -201,7 +201,7 @@ class MechanismBatch:
     level : float
     lack_of_fit : pandas.DataFrame
         One row per (compound, model) tested: compound, model, method, statistic,
-        p_value (rule 5 of :mod:`inhibkin.compare`). Extended laws appear in
+        p_value (rule 5 of :mod:`inhibkin.core.compare`). Extended laws appear in
         :attr:`models` with results only for the compounds that tried them.
     """
 
@@ -257,7 +257,7 @@ class MechanismBatch:
         return f"<pre>{self.summary()}</pre>"
 
     def to_mechanism_fits(self, *, data_index=None) -> list[MechanismFit]:
-        """One :class:`~inhibkin.mechanism.MechanismFit` per compound.
+        """One :class:`~inhibkin.mechanism.fit.MechanismFit` per compound.
 
         Parameters
         ----------
@@ -310,7 +310,7 @@ def _model_fit(m: ModelBatch, c, s, i, v, level) -> ModelFit:
 
 
 def _comparison_frame(models, c) -> pd.DataFrame:
-    """:func:`inhibkin.compare.comparison_table` for compound ``c``, built from arrays."""
+    """:func:`inhibkin.core.compare.comparison_table` for compound ``c``, built from arrays."""
     names = list(models)
     conv = np.array([models[n].converged[c] for n in names])
 
@@ -331,7 +331,7 @@ def _comparison_frame(models, c) -> pd.DataFrame:
 
 
 def _ftest_frame(models, p_values, c) -> pd.DataFrame:
-    """:func:`inhibkin.compare.f_test_table` for compound ``c``, built from arrays."""
+    """:func:`inhibkin.core.compare.f_test_table` for compound ``c``, built from arrays."""
     rows = []
     for (small, large), (f_value, p_value) in p_values.items():
         if large not in models or (small in MODELS and small not in models):
@@ -504,7 +504,7 @@ def _fill_from_lmfit(out, c, fit: ModelFit):
 
 
 def _relative_weights(s, i, v, mask, rows, max_iterations, fallback):
-    """:func:`inhibkin.mechanism.relative_weights` for the compounds ``rows``."""
+    """:func:`inhibkin.mechanism.fit.relative_weights` for the compounds ``rows``."""
     w = mask.astype(float)
     active = rows.copy()
     used_fallback = np.zeros(s.shape[0], bool)
@@ -533,16 +533,17 @@ def _relative_weights(s, i, v, mask, rows, max_iterations, fallback):
 
 
 def _f_tests(models, small, large, exact_ssr):
-    """Vectorised :func:`inhibkin.compare.f_test` for one nested pair (NaN unless both
+    """Vectorised :func:`inhibkin.core.compare.f_test` for one nested pair (NaN unless both
     fits converged); SSRs at or below ``exact_ssr`` count as exact fits, as in
-    :func:`inhibkin.compare.f_test_table`."""
+    :func:`inhibkin.core.compare.f_test_table`."""
     a, b = models[small], models[large]
     return _f_test_arrays(a["ssr"], a["converged"], a["n_params"], b, exact_ssr)
 
 
 def _f_test_arrays(ssr_small, converged_small, k_small, b, exact_ssr):
-    """:func:`inhibkin.compare.f_test_arrays` where both fits converged, with SSRs at or
-    below ``exact_ssr`` counted as exact fits (as in :func:`~inhibkin.compare.f_test_table`)."""
+    """:func:`inhibkin.core.compare.f_test_arrays` where both fits converged, with SSRs at or
+    below ``exact_ssr`` counted as exact fits (as in
+    :func:`~inhibkin.core.compare.f_test_table`)."""
     n = b["n_obs"]
     both = converged_small & b["converged"]
     ssr_a = np.where(ssr_small > exact_ssr, ssr_small, 0.0)
@@ -552,7 +553,7 @@ def _f_test_arrays(ssr_small, converged_small, k_small, b, exact_ssr):
 
 
 def _verdicts(models, p_values, valid, invalid_reason, options):
-    """:func:`inhibkin.compare.decide` for every compound, same rules and wording."""
+    """:func:`inhibkin.core.compare.decide` for every compound, same rules and wording."""
     b = len(valid)
     verdict = np.empty(b, dtype=object)
     best = np.empty(b, dtype=object)
@@ -583,11 +584,11 @@ def _verdicts(models, p_values, valid, invalid_reason, options):
 def _fixed_alpha_tests(out, s, i, v, mask, w, rows, far, exact_ssr, options,
                        max_iterations, fallback):
     """F-tests of mixed with alpha held at each edge against mixed, for every compound:
-    the lmfit path's fixed-alpha tests (:func:`inhibkin.fitting.fixed_alpha_ssr`) over
+    the lmfit path's fixed-alpha tests (:func:`inhibkin.mechanism.one_model.fixed_alpha_ssr`) over
     the same starts (the mixed solution, then each nested model's), the best successful
     SSR winning. With ``fallback``, a compound none of whose starts converged is refitted
     by the lmfit path
-    (:func:`inhibkin.fitting.fixed_alpha_ssr`) from the same starts."""
+    (:func:`inhibkin.mechanism.one_model.fixed_alpha_ssr`) from the same starts."""
     mixed = out["mixed"]
     b = s.shape[0]
     sub = rows[mixed["converged"][rows]]
@@ -638,7 +639,7 @@ def _start_rows(starts, sub, c):
 
 def _nested_start(out, name, rows, far):
     """Mixed's start from the solution of the nested model ``name`` (log scale), by
-    :func:`inhibkin.models.nested_start`."""
+    :func:`inhibkin.core.models.nested_start`."""
     p = np.exp(out["theta"][rows])
     values = {n: p[:, j] for j, n in enumerate(MODELS[name].param_names)}
     start = nested_start(name, values, "mixed", far[rows])
@@ -718,7 +719,7 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
 
 def _weighted_residuals(res, rows, s, i, v, mask, w, relative=False):
     """w·(v − fitted) of model ``res`` for the compounds ``rows`` (0 where masked); with
-    ``relative``, (v − fitted)/fitted, as :func:`inhibkin.mechanism.lack_of_fit_rows`."""
+    ``relative``, (v − fitted)/fitted, as :func:`inhibkin.mechanism.fit.lack_of_fit_rows`."""
     law = MODELS[res["model"]]
     p = np.exp(res["theta"][rows])
     with np.errstate(all="ignore"):
@@ -729,7 +730,7 @@ def _weighted_residuals(res, rows, s, i, v, mask, w, relative=False):
 
 def _lack_rows(res, rows, s, i, v, mask, w, exact_ssr, relative):
     """The lack-of-fit rows of model ``res`` for the compounds ``rows`` (NaN for an exact
-    fit, as :func:`inhibkin.mechanism.lack_of_fit_rows`)."""
+    fit, as :func:`inhibkin.mechanism.fit.lack_of_fit_rows`)."""
     method, statistic, p_value = lack_of_fit(_weighted_residuals(res, rows, s, i, v, mask, w,
                                                                  relative),
                                              s[rows], i[rows], mask[rows], res["n_params"])
@@ -741,7 +742,7 @@ def _lack_rows(res, rows, s, i, v, mask, w, exact_ssr, relative):
 
 def _solve_extended(name, out, s, i, v, mask, w, rows, max_iterations):
     """Extended law ``name`` for the compounds ``rows`` from the starts of
-    :func:`inhibkin.mechanism.extended_starts` (automatic; the classical solution with
+    :func:`inhibkin.mechanism.fit.extended_starts` (automatic; the classical solution with
     ksi at the largest S; each nested extension's solution), the best SSR winning."""
     law = MODELS[name]
     lower, upper = mechanism_log_bounds(name, s[rows], i[rows], v[rows], mask[rows])
@@ -778,10 +779,10 @@ def _solve_extended(name, out, s, i, v, mask, w, rows, max_iterations):
 def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w, rows,
                n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
                max_iterations, relative):
-    """Rule 5 of :mod:`inhibkin.compare` for every compound, as
-    :func:`inhibkin.mechanism.extended_verdict` applies it to one: the lack-of-fit test
+    """Rule 5 of :mod:`inhibkin.core.compare` for every compound, as
+    :func:`inhibkin.mechanism.fit.extended_verdict` applies it to one: the lack-of-fit test
     of the verdict's model; the extended laws fitted (by the engine) for the compounds
-    that fail it, and :func:`~inhibkin.compare.decide_extended` on each. Updates the
+    that fail it, and :func:`~inhibkin.core.compare.decide_extended` on each. Updates the
     verdict arrays, ``out`` and ``p_values`` in place; returns the lack-of-fit rows."""
     tables = []
     for name in (n for n in MODEL_NAMES if n in out):
@@ -868,7 +869,7 @@ class _Combined:
 
 def _mixed_multistart(out, s, i, v, mask, w, rows, first, lower, upper, far, max_iterations):
     """fit_model's rule over mixed's starts: the first result, then any successful one
-    with a lower SSR (the starts of :func:`inhibkin.mechanism.mixed_starts`)."""
+    with a lower SSR (the starts of :func:`inhibkin.mechanism.fit.mixed_starts`)."""
     best = _Combined(first.theta.copy(), first.ssr.copy(), first.status.copy(),
                      first.iterations.copy(), first.n_obs, first.covariance.copy())
     position = np.full(s.shape[0], -1)
@@ -918,7 +919,7 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     s, i, v : array_like, shape (B, n)
         Substrate and inhibitor concentrations and initial rates, one row per compound,
         padded to a common width (see :func:`pad`). Units as in
-        :func:`inhibkin.mechanism.fit_mechanisms`: km in the substrate's unit, inhibition
+        :func:`inhibkin.mechanism.fit.fit_mechanisms`: km in the substrate's unit, inhibition
         constants in the inhibitor's, vmax in the rate's.
     mask : array_like of bool, shape (B, n), optional
         True for real points (default: all).
@@ -926,16 +927,16 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
         Standard deviations of the rates, for ``weighting="sd"``; the rates' standard
         errors for ``weighting="rate_se"``.
     weighting : {"relative", "uniform", "sd", "rate_se"}
-        As :func:`inhibkin.mechanism.fit_mechanisms` (default relative: arrays carry no
+        As :func:`inhibkin.mechanism.fit.fit_mechanisms` (default relative: arrays carry no
         column names, so ``rate_se`` is chosen by name here).
     models : sequence of str
         Models to fit, in fitting order; the verdict needs ``none`` and ``mixed``.
     alpha, min_delta_aicc, alpha_factor : float
-        Verdict thresholds (:class:`inhibkin.compare.VerdictOptions`).
+        Verdict thresholds (:class:`inhibkin.core.compare.VerdictOptions`).
     level : float
         Confidence level of the (log-scale Wald) intervals.
     determination_factor : float
-        As :func:`inhibkin.fitting.fit_model`.
+        As :func:`inhibkin.mechanism.one_model.fit_model`.
     fallback : bool
         Refit with the lmfit path every fit the engine does not converge (counted in
         :attr:`MechanismBatch.n_fallback`).
@@ -947,7 +948,7 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
         Compounds per chunk (default: one chunk locally, and
         :data:`inhibkin.engine.chunks.DEFAULT_CHUNK_SIZE` on a client).
     lack_of_fit_alpha : float
-        Level of the lack-of-fit test (rule 5 of :mod:`inhibkin.compare`; 0 turns it off).
+        Level of the lack-of-fit test (rule 5 of :mod:`inhibkin.core.compare`; 0 turns it off).
 
     Returns
     -------
@@ -1036,7 +1037,7 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
                          determination_factor=DETERMINATION_FACTOR, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None, chunk_size=None,
                          lack_of_fit_alpha=LACK_OF_FIT_ALPHA):
-    """:func:`inhibkin.mechanism.fit_mechanisms` (Wald intervals) for many compounds at once.
+    """:func:`inhibkin.mechanism.fit.fit_mechanisms` (Wald intervals) for many compounds at once.
 
     Parameters
     ----------
@@ -1045,9 +1046,9 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
         ``inhibitor``, ``rate`` and ``sd``) or a tuple of arrays ``(s, i, v[, sd])``. A
         mapping keeps its keys as compound labels.
     substrate, inhibitor, rate, sd : str
-        Column names, as in :func:`~inhibkin.mechanism.fit_mechanisms`.
+        Column names, as in :func:`~inhibkin.mechanism.fit.fit_mechanisms`.
     weighting : {None, "relative", "uniform", "sd", "rate_se"}
-        As :func:`~inhibkin.mechanism.fit_mechanisms`: None is ``rate_se`` when every
+        As :func:`~inhibkin.mechanism.fit.fit_mechanisms`: None is ``rate_se`` when every
         table has a ``rate_se`` column (and ``sd`` is not given), else relative.
     models, alpha, min_delta_aicc, alpha_factor, level, determination_factor : see
         :func:`fit_mechanism_arrays`.

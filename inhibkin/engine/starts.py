@@ -1,8 +1,8 @@
 """Starting values and log-space bounds for padded batches, as the engine asks for them.
 
-The mechanism starts and bounds are the one rule of :mod:`inhibkin.starts` and
+The mechanism starts and bounds are the one rule of :mod:`inhibkin.core.starts` and
 :mod:`inhibkin.core.bounds` (which the lmfit path calls with one problem), re-exported
-here; :func:`logistic_starts` is :func:`inhibkin.logistic.logistic4_start` rewritten
+here; :func:`logistic_starts` is :func:`inhibkin.core.logistic.logistic4_start` rewritten
 over (B, n) arrays with a mask, checked against it by the tests.
 """
 
@@ -11,8 +11,8 @@ from __future__ import annotations
 import numpy as np
 
 from ..core.bounds import log_bounds_arrays
-from ..models import MODELS
-from ..starts import count_unique, masked_median, mechanism_starts
+from ..core.models import MODELS
+from ..core.starts import count_unique, masked_median, mechanism_starts
 
 __all__ = ["mechanism_starts", "mechanism_log_bounds", "logistic_starts", "count_unique"]
 
@@ -48,7 +48,7 @@ def _level_means(x, y, mask):
 
 
 def logistic_starts(x, y, mask) -> np.ndarray:
-    """Vectorised :func:`inhibkin.logistic.logistic4_start`: (B, 4) top, bottom,
+    """Vectorised :func:`inhibkin.core.logistic.logistic4_start`: (B, 4) top, bottom,
     log_ic50, hill."""
     n_batch, n = x.shape
     level_mask = None

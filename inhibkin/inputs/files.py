@@ -34,8 +34,8 @@ def read_any_table(path, *, sheet=None, plate=None, missing=(), text_columns=())
     missing : iterable of str
         Further cell texts of a matrix read as a missing read.
     text_columns : iterable of str
-        Columns of a CSV file read as exact text besides :data:`inhibkin.io.TEXT_COLUMNS`
-        (see :func:`inhibkin.io.read_table`).
+        Columns of a CSV file read as exact text besides :data:`inhibkin.inputs.io.TEXT_COLUMNS`
+        (see :func:`inhibkin.inputs.io.read_table`).
 
     Returns
     -------
@@ -49,7 +49,7 @@ def read_any_table(path, *, sheet=None, plate=None, missing=(), text_columns=())
         When the file is missing, of an unknown kind, or cannot be read; the message
         names the file and, where it applies, the line.
     """
-    from ..io import read_table
+    from .io import read_table
 
     path = Path(path)
     context = f"file {str(path)!r}"
@@ -60,7 +60,7 @@ def read_any_table(path, *, sheet=None, plate=None, missing=(), text_columns=())
     if not path.is_file():
         raise DataError("no such file", context)
     if suffix == ".xlsx":
-        from ..excel import read_workbook_rows, rows_to_table
+        from .excel import read_workbook_rows, rows_to_table
 
         rows = read_workbook_rows(path, sheet=sheet)
         if looks_like_plate_matrix(rows):

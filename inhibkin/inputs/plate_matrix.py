@@ -373,7 +373,7 @@ def write_plate_matrix(table, path, *, signal="signal", time="time_s") -> Path:
     block, tab-separated, values written with ``repr`` so that they read back exactly.
     Each plate's block has the smallest standard format that holds its wells.
     """
-    from ..io import atomic_output
+    from .io import atomic_output
     from .wells import parse_well, plate_format_for
 
     has_time = time in table.columns

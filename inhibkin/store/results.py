@@ -36,7 +36,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError, InhibkinError, Problem
-from ..io import plain_scalar
+from ..inputs.io import plain_scalar
 from .msr import minimum_significant_ratio
 
 try:

@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, stats
 
-from ..compare import akaike_weights, f_test, information_criteria
+from ..core.compare import akaike_weights, f_test, information_criteria
 from .schemes import SCHEMES
 
 __all__ = ["SchemeFit", "fit_scheme", "compare_schemes", "derived_constants"]

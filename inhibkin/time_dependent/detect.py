@@ -131,7 +131,7 @@ def time_dependent_grid(table, *, inhibitor="inhibitor", flags="flags") -> bool:
 
     The hook for a grid fit: a grid built on such wells violates the steady-state
     assumption, so its verdict says ``time_dependent`` instead of reporting a Ki
-    (:func:`inhibkin.mechanism.fit_mechanisms` and :func:`inhibkin.fit_campaign` ask it).
+    (:func:`inhibkin.mechanism.fit.fit_mechanisms` and :func:`inhibkin.fit_campaign` ask it).
 
     Parameters
     ----------

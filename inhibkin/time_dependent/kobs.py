@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, stats
 
-from ..compare import f_test
+from ..core.compare import f_test
 from .schemes import onset, progress_curve
 
 __all__ = ["kobs_arrays", "grid_profile", "KOBS_FLAGS"]

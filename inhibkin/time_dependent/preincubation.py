@@ -42,7 +42,7 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, stats
 
-from ..potency import fit_dose_response
+from ..potency.curve import fit_dose_response
 
 __all__ = ["ic50_at_time", "fit_ic50_times", "fit_activity_surface", "ic50_table",
            "ic50_shift"]

@@ -1,9 +1,9 @@
 """The potency table: IC50, Hill slope, Ki and pKi of every compound of a screen.
 
 :func:`potency_table` checks a tidy dose-response table, fits each compound's curve
-(:mod:`inhibkin.potency`, or a batched ``fitter`` such as :class:`EngineFitter`),
-converts IC50 to Ki by mechanism (:mod:`inhibkin.conversion`) and, for tight binders
-when asked, by a Morrison fit (:mod:`inhibkin.morrison`).
+(:mod:`inhibkin.potency.curve`, or a batched ``fitter`` such as :class:`EngineFitter`),
+converts IC50 to Ki by mechanism (:mod:`inhibkin.potency.conversion`) and, for tight binders
+when asked, by a Morrison fit (:mod:`inhibkin.potency.morrison`).
 """
 
 from __future__ import annotations
@@ -15,13 +15,14 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from ..core.curve_class import CURVE_CLASSES, DEFAULT_RULES, CurveClassRules, classify_curves
+from ..core.readonly import readonly_frame, readonly_mapping
+from ..errors import DataError, FitError, InhibkinError, Problem
+from ..rates.plates import Z_PRIME_THRESHOLD, ZERO_SPREAD, PlateQC, percent_activity, plate_qc
+from ..units import from_molar, normalise_unit, parse_concentration, split_unit
+from ..validate import check_columns, normalise_roles, row_kind
 from .conversion import CONVERSIONS, cheng_prusoff
-from .core.readonly import readonly_frame, readonly_mapping
-from .curve_class import CURVE_CLASSES, DEFAULT_RULES, CurveClassRules, classify_curves
-from .errors import DataError, FitError, InhibkinError, Problem
-from .morrison import fit_morrison
-from .plates import Z_PRIME_THRESHOLD, ZERO_SPREAD, PlateQC, percent_activity, plate_qc
-from .potency import (
+from .curve import (
     _HILL_MAX,
     _LOG_IC50_MARGIN,
     HILL_RANGE,
@@ -35,8 +36,7 @@ from .potency import (
     _fixed,
     _from_estimates,
 )
-from .units import from_molar, normalise_unit, parse_concentration, split_unit
-from .validate import check_columns, normalise_roles, row_kind
+from .morrison import fit_morrison
 
 __all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table",
            "check_potency_options"]
@@ -67,7 +67,7 @@ class PotencyTable:
     table : pandas.DataFrame
         One row per compound, columns :data:`TABLE_COLUMNS`. ``status`` is ``"ok"`` or
         ``"failed"`` (with the ``reason``); ``curve_class`` is one of
-        :data:`~inhibkin.curve_class.CURVE_CLASSES` (an ``inactive`` curve reports
+        :data:`~inhibkin.core.curve_class.CURVE_CLASSES` (an ``inactive`` curve reports
         "IC50 > highest concentration"), and for fitted compounds ``reason`` says why
         that class and which parameters the data do not set (their columns are empty:
         a Hill slope at its fitting bound, a plateau outside the tested range);
@@ -76,13 +76,13 @@ class PotencyTable:
         values themselves are in :attr:`records`);
         ``mechanism_source`` is ``"mechanism fit"`` or ``"default"``; ``ki_method`` is
         ``"cheng-prusoff"`` or ``"morrison"``; ``flags`` joins
-        :data:`~inhibkin.potency.FLAGS` keys with ", ".
+        :data:`~inhibkin.potency.curve.FLAGS` keys with ", ".
     fits : dict
         Compound to its :class:`DoseResponseFit` (fitted compounds only).
     plates : PlateQC
         Z'-factor and control statistics per plate.
     morrison_fits : dict
-        Compound to its :class:`~inhibkin.morrison.MorrisonFit` (only with
+        Compound to its :class:`~inhibkin.potency.morrison.MorrisonFit` (only with
         ``tight_binding="morrison"``).
     records : dict
         Compound to the values the table writes out as text: ``ic50_bound`` and
@@ -228,7 +228,7 @@ class EngineFitter:
 
     The curves go through :func:`inhibkin.engine.fit_logistic_batch` together; each
     solution becomes a :class:`DoseResponseFit` through
-    :func:`~inhibkin.potency.dose_response_from_estimates` (standard errors, Wald
+    :func:`~inhibkin.potency.curve.dose_response_from_estimates` (standard errors, Wald
     intervals and flags computed exactly as the lmfit path computes them). The lmfit path
     fits within bounds — a Hill slope between 0 and 20, the midpoint within the tested
     range ± 4 decades — and the engine without them; the two problems share their optimum
@@ -237,7 +237,7 @@ class EngineFitter:
     least-squares surface with several minima, where two optimisers from different
     starts can settle on different ones. So an engine solution is kept only when it
     converged strictly inside the bounds to a falling curve whose class
-    (:func:`~inhibkin.curve_class.classify_curves`, the rule the lmfit path applies,
+    (:func:`~inhibkin.core.curve_class.classify_curves`, the rule the lmfit path applies,
     here over the whole batch at once) is complete or incomplete and whose IC50 lies
     within the tested range; every other curve is refitted by the lmfit path, and its
     compound is recorded in :attr:`refitted`.
@@ -257,7 +257,7 @@ class EngineFitter:
 
     def __call__(self, curves, *, fix_top, fix_bottom, intervals, level,
                  class_options=None) -> dict:
-        from .engine import fit_logistic_batch  # the engine only when asked for
+        from ..engine import fit_logistic_batch
 
         class_options = dict(class_options or {})
         options = dict(fix_top=fix_top, fix_bottom=fix_bottom, intervals=intervals,
@@ -321,7 +321,7 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     df : pandas.DataFrame
         One row per well. ``role`` is ``"sample"`` (compound at a concentration),
         ``"max"`` (no inhibitor: full activity) or ``"min"`` (no enzyme or full
-        inhibition: zero activity); see :mod:`inhibkin.plates`. Control wells need no
+        inhibition: zero activity); see :mod:`inhibkin.rates.plates`. Control wells need no
         compound.
     compound, plate, role, concentration, response, substrate : str
         Column names. ``substrate`` holds the substrate concentration of the assay
@@ -330,7 +330,7 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         Michaelis constant: text with its unit (``"40uM"``), a number, or the column
         holding it (in the substrate column's unit). A number is in **M** when the
         substrate's unit is declared (``substrate_unit``, or a header such as
-        ``substrate_uM``), as in :func:`~inhibkin.batch.fit_campaign`; in a table
+        ``substrate_uM``), as in :func:`~inhibkin.campaign.batch.fit_campaign`; in a table
         whose substrate carries no unit, a number is in the substrate's own unit.
     substrate_unit : str, optional
         Unit of the substrate column, when its header does not carry it.
@@ -364,7 +364,7 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     tight_binding_factor : float
         IC50 below this multiple of the enzyme concentration is tight binding.
     curve_rules : CurveClassRules
-        Thresholds of the curve classes (:mod:`inhibkin.curve_class`); efficacy is
+        Thresholds of the curve classes (:mod:`inhibkin.core.curve_class`); efficacy is
         measured against the plate controls (100 % and 0 % activity) when
         ``normalise`` is on.
     fitter : callable, optional
@@ -372,9 +372,9 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         ``fitter(curves, *, fix_top, fix_bottom, intervals, level, class_options)``
         with ``curves`` mapping compound to (conc, response) arrays already validated
         and ``class_options`` the keywords (full_activity, zero_activity, curve_rules)
-        to hand to :func:`~inhibkin.potency.dose_response_from_estimates`, returning
+        to hand to :func:`~inhibkin.potency.curve.dose_response_from_estimates`, returning
         compound to :class:`DoseResponseFit` (see
-        :func:`~inhibkin.potency.dose_response_from_estimates`) or to the
+        :func:`~inhibkin.potency.curve.dose_response_from_estimates`) or to the
         :class:`~inhibkin.errors.InhibkinError` that stopped it.
 
     Returns
@@ -439,7 +439,7 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
             rows[name]["reason"] = str(error)
     if not isinstance(curve_rules, CurveClassRules):
         raise DataError(Problem("curve_rules", None, curve_rules,
-                                "must be an inhibkin.curve_class.CurveClassRules"))
+                                "must be an inhibkin.core.curve_class.CurveClassRules"))
     # Percent activity from the controls: the control window is 100 % to 0 %.
     class_options = {"full_activity": 100.0 if normalise else None, "zero_activity": 0.0,
                      "curve_rules": curve_rules}

@@ -1,6 +1,6 @@
 """Tight binding: the Morrison quadratic for the apparent Ki.
 
-When IC50 is within :data:`~inhibkin.potency_table.TIGHT_BINDING_FACTOR` (10×) of the
+When IC50 is within :data:`~inhibkin.potency.table.TIGHT_BINDING_FACTOR` (10×) of the
 active enzyme concentration, depletion of free inhibitor biases the Cheng–Prusoff result
 (common practice). :func:`fit_morrison` fits the Morrison (1969) quadratic for the
 apparent Ki instead; its IC50 is Ki,app + [E]/2.
@@ -15,9 +15,9 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ..errors import DataError, FitError, Problem
 from .conversion import as_array, cheng_prusoff
-from .errors import DataError, FitError, Problem
-from .potency import (
+from .curve import (
     INTERVAL_METHODS,
     _check_curve,
     _context,

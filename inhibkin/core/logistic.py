@@ -5,7 +5,7 @@
 With ``hill > 0`` the curve falls from ``top`` (low concentration) to ``bottom`` (high
 concentration), the usual inhibition curve; with ``hill < 0`` it rises. ``log_ic50`` is
 the log10 of the concentration at the midpoint, in the concentration's unit. Both the
-lmfit path (:mod:`inhibkin.potency`) and the batched engine read the curve, its
+lmfit path (:mod:`inhibkin.potency.curve`) and the batched engine read the curve, its
 Jacobian and its starting values from here.
 """
 

@@ -42,9 +42,9 @@ import pandas as pd
 import seaborn as sns
 from matplotlib.figure import Figure
 
-from .logistic import PARAM_NAMES, logistic4, logistic4_jacobian
-from .models import MODEL_NAMES, MODELS
-from .units import from_molar
+from ..core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian
+from ..core.models import MODEL_NAMES, MODELS
+from ..units import from_molar
 
 __all__ = [
     "AxisUnits",
@@ -397,7 +397,7 @@ def plot_akaike_weights(fit, *, ax=None):
     matplotlib.axes.Axes
         Non-converged models appear as empty rows marked "not converged". The
         verdict is decided by the F-tests and AICc rules, not by these weights alone
-        (see :mod:`inhibkin.compare`); the title says which verdict they led to.
+        (see :mod:`inhibkin.core.compare`); the title says which verdict they led to.
     """
     ax = _axes(ax)
     table = fit.comparison
@@ -442,7 +442,7 @@ def dose_response_band(x, estimates, covariance, *, free=PARAM_NAMES, z=_Z95):
     covariance : array_like, shape (k, k)
         Covariance of the ``free`` parameters at the optimum.
     free : sequence of str
-        The fitted parameters, in :data:`inhibkin.logistic.PARAM_NAMES` order; fixed
+        The fitted parameters, in :data:`inhibkin.core.logistic.PARAM_NAMES` order; fixed
         ones (e.g. top = 100) contribute no uncertainty.
     z : float
         Normal quantile of the band (1.96 for 95 %).
@@ -470,7 +470,7 @@ def plot_dose_response(fit, *, conc_unit="", response_label="activity (%)", band
     Parameters
     ----------
     fit : DoseResponseFit or pandas.DataFrame
-        A potency fit (:func:`inhibkin.potency.fit_dose_response`), or, for a compound
+        A potency fit (:func:`inhibkin.potency.curve.fit_dose_response`), or, for a compound
         whose fit failed, a table with columns ``conc`` and ``response`` (points only).
     conc_unit : str
         Unit label of the concentration (the fit's unit).

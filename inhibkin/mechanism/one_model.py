@@ -1,7 +1,7 @@
 """One compound's fits: each rate law fitted globally to all points, with lmfit.
 
 Every positive constant is fitted as its natural logarithm, inside wide bounds
-(:func:`inhibkin.starts.log_bounds`), with the analytic Jacobian of the model. All
+(:func:`inhibkin.core.starts.log_bounds`), with the analytic Jacobian of the model. All
 inhibitor levels are fitted at once with shared vmax and km; replicates stay separate
 points.
 
@@ -27,15 +27,15 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .compare import information_criteria
-from .core.determined import DETERMINATION_FACTOR, determined_flags
-from .core.options import INTERVAL_METHODS
-from .core.readonly import readonly_array, readonly_frame
-from .errors import FitError
-from .models import MODELS
-from .profile import profile_crossing
-from .starts import log_bounds, starting_values
-from .text import MISSING
+from ..core.compare import information_criteria
+from ..core.determined import DETERMINATION_FACTOR, determined_flags
+from ..core.models import MODELS
+from ..core.options import INTERVAL_METHODS
+from ..core.profile import profile_crossing
+from ..core.readonly import readonly_array, readonly_frame
+from ..core.starts import log_bounds, starting_values
+from ..errors import FitError
+from ..reporting.text import MISSING
 
 __all__ = ["ModelFit", "fit_model", "fit_michaelis_menten", "fixed_alpha_ssr",
            "INTERVAL_METHODS"]
@@ -63,7 +63,7 @@ class ModelFit:
     Attributes
     ----------
     model : str
-        Rate-law name (see :data:`inhibkin.models.MODELS`).
+        Rate-law name (see :data:`inhibkin.core.models.MODELS`).
     params : pandas.DataFrame
         Indexed by parameter: ``estimate``, ``se`` (delta-method standard error),
         ``ci_low``, ``ci_high`` (interval at ``level``), ``determined`` (False for a
@@ -412,7 +412,7 @@ def fixed_alpha_ssr(s, i, v, weights, alpha, starts) -> float:
     vmax, km and kic are re-optimised (kiu = alpha·kic) from each of ``starts`` (dicts of
     the mixed model's parameters); the best successful SSR is returned, NaN when none
     converged. This is the constrained fit behind the verdict's check that the data
-    place alpha where a mechanism's name claims (:mod:`inhibkin.compare`, rule 4).
+    place alpha where a mechanism's name claims (:mod:`inhibkin.core.compare`, rule 4).
     """
     problem = _make_problem("mixed", s, i, v, np.asarray(weights, dtype=float))
     names = MODELS["mixed"].param_names
@@ -444,7 +444,7 @@ def fit_michaelis_menten(s, v, weights=None, *, intervals="profile", level=0.95)
     weights : array_like, optional
         Residual multipliers w = 1/σ_i (relative values suffice).
     intervals : {"profile", "wald"}
-        Interval method; see :mod:`inhibkin.fitting`.
+        Interval method; see :mod:`inhibkin.mechanism.one_model`.
     level : float
         Confidence level.
 
@@ -460,7 +460,7 @@ def fit_michaelis_menten(s, v, weights=None, *, intervals="profile", level=0.95)
     >>> round(fit.best_values["km"], 1)
     2.0
     """
-    from .validate import check_michaelis_menten
+    from ..validate import check_michaelis_menten
 
     s, v, w = check_michaelis_menten(s, v, weights)
     fit = fit_model("none", s, np.zeros_like(s), v, w, intervals=intervals, level=level)

@@ -3,10 +3,10 @@
 The report shows every compound, so its per-compound figures must cost milliseconds: a
 sketch is a few hundred bytes of SVG text written from the fit's arrays (no plotting
 library, no rasterising), placed inline in the HTML, so the page stays one
-self-contained file. The full matplotlib figures (:mod:`inhibkin.figures`) are drawn
+self-contained file. The full matplotlib figures (:mod:`inhibkin.reporting.figures`) are drawn
 only for the compounds the report is asked to detail.
 
-Inhibitor levels use the same ordered ramp as :mod:`inhibkin.figures` (cubehelix,
+Inhibitor levels use the same ordered ramp as :mod:`inhibkin.reporting.figures` (cubehelix,
 Green 2011, Bull. Astr. Soc. India 39:289, lightness falling from the uninhibited
 level to the highest), computed here from the published formula.
 """
@@ -19,7 +19,7 @@ from html import escape
 
 import numpy as np
 
-from .models import MODELS
+from ..core.models import MODELS
 
 __all__ = ["level_colours", "grid_sketch", "residual_sketch", "dose_response_sketch"]
 
@@ -168,7 +168,7 @@ def grid_sketch(fit, *, units, label="") -> str:
     Parameters
     ----------
     fit : MechanismFit
-    units : inhibkin.figures.AxisUnits
+    units : inhibkin.reporting.figures.AxisUnits
         Unit labels and display factors of the axes.
     label : str
         Text for the sketch's accessible title (escaped).
@@ -241,7 +241,7 @@ def dose_response_sketch(fit, *, conc_unit="", label="") -> str:
     Wells without compound (concentration 0) sit at the left edge as open squares; the
     dashed line marks the IC50 when it lies in the tested range.
     """
-    from .logistic import logistic4
+    from ..core.logistic import logistic4
 
     conc, response = np.asarray(fit.conc, float), np.asarray(fit.response, float)
     positive = conc > 0

@@ -1,6 +1,6 @@
 """From detector signal to concentration: Beer–Lambert, standard curves, blank subtraction.
 
-An initial rate is a slope, so what :mod:`inhibkin.rates` needs from a conversion is its
+An initial rate is a slope, so what :mod:`inhibkin.rates.initial` needs from a conversion is its
 *sensitivity* (signal per unit concentration), the concentration unit it yields, and the
 signal range over which it may be trusted. Two conversions provide that:
 
@@ -9,7 +9,7 @@ signal range over which it may be trusted. Two conversions provide that:
   their molar absorption coefficients and the source of each value.
 * :class:`StandardCurve` — a straight line signal = intercept + slope·c fitted by least
   squares to standard wells (:func:`fit_standard_curve`), with its R² and the range of the
-  standards; reads outside that range are flagged by :func:`inhibkin.rates.initial_rates`.
+  standards; reads outside that range are flagged by :func:`inhibkin.rates.initial.initial_rates`.
 
 :func:`blank_signal` gives, for every read of a sample well, the mean signal of the blank
 wells (no enzyme) of the same plate and substrate level at the same time, interpolated
@@ -25,9 +25,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, Problem
-from .units import normalise_unit
-from .validate import check_columns, numeric_column
+from ..errors import DataError, Problem
+from ..units import normalise_unit
+from ..validate import check_columns, numeric_column
 
 __all__ = [
     "Chromophore",

@@ -41,7 +41,7 @@ two the fit determined, on the IC50 route kic·min(1, alpha) with alpha = kiu/ki
 the mechanism fit. ``ki_parameter`` says which constant it is on every row that
 reports a Ki or a bound. ``ki_source`` says where the Ki came from: ``grid fit``
 (global fit of a substrate × inhibitor grid) or ``converted IC50`` (a dose-response
-IC50 converted by :func:`~inhibkin.potency_table.potency_table`, Cheng–Prusoff by mechanism
+IC50 converted by :func:`~inhibkin.potency.table.potency_table`, Cheng–Prusoff by mechanism
 or a Morrison fit).
 
 Engines
@@ -82,28 +82,28 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 
-from .compare import TIME_DEPENDENT
-from .conversion import CONVERSIONS
-from .core.options import FitOptions
-from .core.readonly import readonly_frame, readonly_mapping
-from .core.weighting import SD_WEIGHTINGS, resolve_weighting, weighting_label
-from .engine import fit_mechanism_arrays, pad
-from .errors import DataError, InhibkinError, OptionError, Problem
-from .mechanism import MechanismFit, fit_mechanisms, with_time_dependence
-from .models import MODELS, ONE_CONSTANT_MODELS
-from .plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
-from .potency_table import EngineFitter, check_potency_options, potency_table
-from .progress import progress_bar
-from .simulate import simulate_grid
-from .text import text_table
-from .units import (
+from ..core.compare import TIME_DEPENDENT
+from ..core.models import MODELS, ONE_CONSTANT_MODELS
+from ..core.options import FitOptions
+from ..core.readonly import readonly_frame, readonly_mapping
+from ..core.weighting import SD_WEIGHTINGS, resolve_weighting, weighting_label
+from ..engine import fit_mechanism_arrays, pad
+from ..errors import DataError, InhibkinError, OptionError, Problem
+from ..mechanism.fit import MechanismFit, fit_mechanisms, with_time_dependence
+from ..potency.conversion import CONVERSIONS
+from ..potency.table import EngineFitter, check_potency_options, potency_table
+from ..progress import progress_bar
+from ..rates.plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
+from ..reporting.text import text_table
+from ..simulate import simulate_grid
+from ..units import (
     CONCENTRATION_UNITS,
     from_molar,
     parse_concentration,
     resolve_units,
     to_molar,
 )
-from .validate import check_columns, check_grid, check_options, normalise_roles, row_kind
+from ..validate import check_columns, check_grid, check_options, normalise_roles, row_kind
 
 __all__ = [
     "Campaign",
@@ -124,7 +124,7 @@ __all__ = [
 
 STATUSES = ("determined", "bound", "inactive", "inadequate", "time_dependent", "failed")
 #: The rates stage's column of well flags; a grid table that carries it is checked for
-#: wells flagged time_dependent (rule 6 of inhibkin.compare).
+#: wells flagged time_dependent (rule 6 of inhibkin.core.compare).
 RATE_FLAGS = "flags"
 
 # Ligand efficiency LE = 1.37 * pKi / heavy atoms, in kcal/mol per heavy atom: 1.37 is
@@ -138,7 +138,7 @@ RANKING_COLUMNS = (
     "established",
 )
 _EFFICIENCY_COLUMNS = ("heavy_atoms", "logp", "le", "lipe")
-#: Columns of :attr:`Campaign.plates` (those of :meth:`inhibkin.plates.PlateQC.to_frame`).
+#: Columns of :attr:`Campaign.plates` (those of :meth:`inhibkin.rates.plates.PlateQC.to_frame`).
 PLATE_COLUMNS = ("plate", "n_max", "mean_max", "sd_max", "n_min", "mean_min", "sd_min",
                  "z_prime", "flagged", "problem")
 
@@ -672,7 +672,7 @@ class Campaign:
     Attributes
     ----------
     ranking : pandas.DataFrame
-        One row per input compound, ranked (see :mod:`inhibkin.batch`): rank, compound,
+        One row per input compound, ranked (see :mod:`inhibkin.campaign.batch`): rank, compound,
         status, verdict, mechanism, ki_parameter, ki_M, ki_low_M, ki_high_M (interval at
         ``level``), pki, pki_low, pki_high, ki_reported (text), kic_M, kiu_M, alpha,
         ic50_M (and interval), pic50, hill, ki_source, flags, reason, established (for an
@@ -681,7 +681,7 @@ class Campaign:
         logp, le (kcal/mol per heavy atom) and lipe when those inputs were given.
         Concentrations in M.
     fits : Mapping
-        compound → :class:`~inhibkin.mechanism.MechanismFit` (constants in M) for every
+        compound → :class:`~inhibkin.mechanism.fit.MechanismFit` (constants in M) for every
         compound whose grid was fitted; compounds that failed validation have no entry.
     options : Mapping
         The settings of the run: weighting, intervals, level, engine (as asked),
@@ -691,14 +691,14 @@ class Campaign:
         n_fallback_grid model fits — plus relative weightings it set — and
         n_fallback_dose curves), declared units, seconds taken.
     potency_fits : Mapping
-        compound → :class:`~inhibkin.potency.DoseResponseFit` (concentrations in M) for
+        compound → :class:`~inhibkin.potency.curve.DoseResponseFit` (concentrations in M) for
         every compound whose dose-response curve was fitted.
     plates : pandas.DataFrame
         Control statistics and Z'-factor of every plate of the dose-response table, one
         row per plate in table order, columns :data:`PLATE_COLUMNS`: plate, n_max,
         mean_max, sd_max, n_min, mean_min, sd_min (signal units), z_prime, flagged (Z'
         below the threshold, or the plate could not be normalised) and problem (why
-        not, else empty). The numbers are those :func:`~inhibkin.potency_table.potency_table`
+        not, else empty). The numbers are those :func:`~inhibkin.potency.table.potency_table`
         uses to normalise the wells. Empty (same columns) without a dose-response table.
     """
 
@@ -773,7 +773,7 @@ class Campaign:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        from .display.html import campaign_html  # matplotlib only when a notebook asks
+        from ..display.html import campaign_html
 
         return campaign_html(self)
 
@@ -1153,7 +1153,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         compound column. Concentration units must be declared, in the headers
         (``substrate_uM``, ``inhibitor_nM``) or with ``units``.
     dose_response : pandas.DataFrame, optional
-        Tidy dose-response wells (see :func:`~inhibkin.potency_table.potency_table`): compound,
+        Tidy dose-response wells (see :func:`~inhibkin.potency.table.potency_table`): compound,
         plate, role (``sample``/``max``/``min``), inhibitor concentration, signal and
         the assay's substrate concentration, units declared as for ``table``. A compound
         found in both tables takes its Ki from the grid fit (when the grid determined
@@ -1168,7 +1168,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         Columns of the dose-response table.
     km : float or str
         Michaelis constant for the IC50 → Ki conversion: text with its unit
-        (``"40uM"``), a number in **M** (as :func:`~inhibkin.potency_table.potency_table`
+        (``"40uM"``), a number in **M** (as :func:`~inhibkin.potency.table.potency_table`
         takes it for a table with declared units), or the base name of a column with a
         declared unit. Required with ``dose_response``.
     enzyme : float or str, optional
@@ -1178,17 +1178,17 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         Units declared as an option, e.g. ``{"substrate": "uM", "inhibitor": "nM"}``.
     weighting : {None, "relative", "uniform", "sd", "rate_se"}
         None (default): ``rate_se`` (rate_se + variance model) when the grid table has a
-        ``rate_se`` column, as :func:`~inhibkin.rates.initial_rates` writes it, and
+        ``rate_se`` column, as :func:`~inhibkin.rates.initial.initial_rates` writes it, and
         ``sd`` is not given; else ``"relative"``
-        (:data:`~inhibkin.mechanism.DEFAULT_WEIGHTING`); see
-        :func:`~inhibkin.mechanism.fit_mechanisms`.
+        (:data:`~inhibkin.mechanism.fit.DEFAULT_WEIGHTING`); see
+        :func:`~inhibkin.mechanism.fit.fit_mechanisms`.
     intervals : {"wald", "profile"}
         Interval method of both the grid and the curve fits; ``wald`` by default at
         campaign scale (see the module notes).
     level, alpha, min_delta_aicc, determination_factor
-        Passed to the grid engine (see :func:`~inhibkin.mechanism.fit_mechanisms`).
+        Passed to the grid engine (see :func:`~inhibkin.mechanism.fit.fit_mechanisms`).
     potency_options : dict, optional
-        Further options of :func:`~inhibkin.potency_table.potency_table` (e.g.
+        Further options of :func:`~inhibkin.potency.table.potency_table` (e.g.
         ``default_mechanism``, ``fix_top``, ``tight_binding``).
     heavy_atoms, logp : str
         Optional columns (one value per compound, in either table) that add ligand
@@ -1207,14 +1207,14 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
             ``intervals="wald"``: every chunk's grids in one
             :func:`~inhibkin.engine.fit_mechanism_arrays` call, its curves in one
             :func:`~inhibkin.engine.fit_logistic_batch` call
-            (:class:`~inhibkin.potency_table.EngineFitter`); the fits it does not converge are
+            (:class:`~inhibkin.potency.table.EngineFitter`); the fits it does not converge are
             refitted by the lmfit path and counted in ``options["n_fallback"]``;
         ``"lmfit"``
-            one lmfit fit after another (:func:`~inhibkin.mechanism.fit_mechanisms`,
-            :func:`~inhibkin.potency.fit_dose_response`), the reference;
+            one lmfit fit after another (:func:`~inhibkin.mechanism.fit.fit_mechanisms`,
+            :func:`~inhibkin.potency.curve.fit_dose_response`), the reference;
         a function
             the per-compound grid fitter, with the signature of
-            :func:`~inhibkin.mechanism.fit_mechanisms`, returning a MechanismFit; it
+            :func:`~inhibkin.mechanism.fit.fit_mechanisms`, returning a MechanismFit; it
             must be importable by name (a module-level function) to run on workers.
             The curves take the lmfit path.
 
@@ -1253,7 +1253,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
 
     Examples
     --------
-    >>> from inhibkin.batch import fit_campaign, simulate_campaign
+    >>> from inhibkin.campaign.batch import fit_campaign, simulate_campaign
     >>> table, truth = simulate_campaign(5, seed=1)
     >>> campaign = fit_campaign(table, quiet=True)
     >>> len(campaign.ranking)

@@ -21,7 +21,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from .errors import DataError
+from ..errors import DataError
 from .io import plain_scalar
 
 __all__ = ["FORMULA_PREFIXES", "looks_like_formula", "write_workbook", "campaign_sheets",

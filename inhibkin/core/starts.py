@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .core.bounds import log_bounds_arrays
+from .bounds import log_bounds_arrays
 from .models import MODELS
 
 __all__ = ["michaelis_menten_start", "starting_values", "mechanism_starts", "log_bounds",
@@ -123,7 +123,7 @@ def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
     Parameters
     ----------
     model : str
-        A name in :data:`inhibkin.models.MODELS`.
+        A name in :data:`inhibkin.core.models.MODELS`.
     s, i, v : numpy.ndarray, shape (B, n)
         Substrate and inhibitor concentrations and rates, padded.
     mask : numpy.ndarray of bool, shape (B, n)
@@ -211,7 +211,7 @@ def starting_values(model: str, s, i, v, weights=None) -> dict[str, float]:
     Parameters
     ----------
     model : str
-        A name in :data:`inhibkin.models.MODELS`.
+        A name in :data:`inhibkin.core.models.MODELS`.
     s, i, v : array_like
         Substrate and inhibitor concentrations and rates, one entry per point.
     weights : array_like, optional

@@ -2,7 +2,7 @@
 
 Four-parameter logistic
 -----------------------
-:func:`fit_dose_response` fits the 4PL of :mod:`inhibkin.logistic` on x = log10(conc)
+:func:`fit_dose_response` fits the 4PL of :mod:`inhibkin.core.logistic` on x = log10(conc)
 by least squares (lmfit), with top and/or bottom optionally fixed; replicates are
 separate points. Standard errors come from the covariance s²(JᵀJ)⁻¹ at the optimum
 (s² = SSR/(n − k), J the analytic Jacobian). Intervals are profile-likelihood intervals
@@ -12,8 +12,8 @@ SSR·(1 + F(level; 1, n − k)/(n − k)); Bates & Watts 1988, §6.1) or Wald in
 asymmetric in IC50.
 
 The least-squares core here (one curve, some parameters fixed, covariance and profile
-intervals) also serves the Morrison fit of :mod:`inhibkin.morrison`. IC50 → Ki lives in
-:mod:`inhibkin.conversion`, the table of a whole screen in :mod:`inhibkin.potency_table`.
+intervals) also serves the Morrison fit of :mod:`inhibkin.potency.morrison`. IC50 → Ki lives in
+:mod:`inhibkin.potency.conversion`, the table of a whole screen in :mod:`inhibkin.potency.table`.
 """
 
 from __future__ import annotations
@@ -26,14 +26,14 @@ import numpy as np
 import pandas as pd
 from scipy import optimize, stats
 
-from .core.bound import Bound
-from .core.readonly import readonly_array, readonly_frame
-from .curve_class import DEFAULT_RULES, CurveClassRules, classify_curves
-from .errors import DataError, FitError, Problem
-from .fitting import INTERVAL_METHODS
-from .logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
-from .profile import profile_crossing
-from .validate import numeric_column, row_kind
+from ..core.bound import Bound
+from ..core.curve_class import DEFAULT_RULES, CurveClassRules, classify_curves
+from ..core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
+from ..core.profile import profile_crossing
+from ..core.readonly import readonly_array, readonly_frame
+from ..errors import DataError, FitError, Problem
+from ..mechanism.one_model import INTERVAL_METHODS
+from ..validate import numeric_column, row_kind
 
 __all__ = [
     "FLAGS",
@@ -64,7 +64,7 @@ FLAGS = {
     "tight_binding": "IC50 within 10x of the enzyme concentration: Cheng–Prusoff is biased",
     "inactive": "no curve: too little activity removed, a trend no better than a flat "
                 "line, or activity that rises with concentration (see "
-                "inhibkin.curve_class); IC50 above the highest concentration",
+                "inhibkin.core.curve_class); IC50 above the highest concentration",
     "single_point_activity": "only the highest tested concentration shows activity; IC50 "
                              "reported as a lower bound",
     "incomplete_curve": "one plateau of the curve lies outside the tested range",
@@ -310,7 +310,7 @@ class DoseResponseFit:
     free : tuple of str
         Names (from ``PARAM_NAMES``) that were fitted.
     curve_class : str
-        One of :data:`inhibkin.curve_class.CURVE_CLASSES`, decided before the IC50 is
+        One of :data:`inhibkin.core.curve_class.CURVE_CLASSES`, decided before the IC50 is
         believed.
     class_reason : str
         The class in words.
@@ -424,7 +424,7 @@ class DoseResponseFit:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        from .display.html import dose_response_html  # matplotlib only when a notebook asks
+        from ..display.html import dose_response_html
 
         return dose_response_html(self)
 
@@ -629,7 +629,7 @@ def fit_dose_response(conc, response, *, fix_top=None, fix_bottom=None, weights=
     full_activity, zero_activity : float, optional
         The responses at full and at zero activity (100 and 0 for percent activity
         from plate controls), against which the curve's efficacy is measured for its
-        class (:mod:`inhibkin.curve_class`); without ``full_activity`` the curve's
+        class (:mod:`inhibkin.core.curve_class`); without ``full_activity`` the curve's
         value at the lowest concentration stands in.
     curve_rules : CurveClassRules
         Thresholds of the curve classes.

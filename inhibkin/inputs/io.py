@@ -34,7 +34,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, Problem
+from ..errors import DataError, Problem
 
 __all__ = ["read_table", "write_table", "TABLE_FORMATS", "TEXT_COLUMNS", "LINE_INDEX",
            "neutralise_formulas", "plain_scalar"]

@@ -7,7 +7,7 @@ with autoescaping on, so a compound ID such as ``<script>alert(1)</script>`` is 
 text, never run.
 
 The report scales with the campaign: every compound gets its tables and small SVG
-sketches drawn from the fit's numbers (:mod:`inhibkin.sketch`, milliseconds each); the
+sketches drawn from the fit's numbers (:mod:`inhibkin.reporting.sketch`, milliseconds each); the
 full matplotlib figures (base64 PNG, about a second each) are drawn only for the
 compounds chosen by ``detail`` (the five best ranked by default, see
 :func:`select_detail`). Nothing is refitted: intervals are the campaign's own.
@@ -26,8 +26,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from . import figures, sketch
-from .display.html import (
+from ..display.html import (
     ENVIRONMENT,
     REPORT_DPI,
     campaign_html,
@@ -40,12 +39,13 @@ from .display.html import (
     ranking_rows,
     table_cells,
 )
-from .errors import DataError, Problem, UnitsError
-from .fitting import format_estimate
-from .io import atomic_output
-from .plates import Z_PRIME_THRESHOLD
-from .progress import progress_bar
-from .units import column_unit, from_molar, normalise_unit, to_molar
+from ..errors import DataError, Problem, UnitsError
+from ..inputs.io import atomic_output
+from ..mechanism.one_model import format_estimate
+from ..progress import progress_bar
+from ..rates.plates import Z_PRIME_THRESHOLD
+from ..units import column_unit, from_molar, normalise_unit, to_molar
+from . import figures, sketch
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
            "check_detail", "select_detail", "CAUTIONS", "DEFAULT_DETAIL"]
@@ -314,8 +314,8 @@ def _as_campaign(campaign):
                                       f"{number_text(ki['ci_high'])}] (fit units)")
             rows.append(row)
         return pd.DataFrame(rows), dict(campaign), {}
-    raise DataError(f"report() needs a Campaign (inhibkin.batch.fit_campaign) or a mapping of "
-                    f"compound to MechanismFit, got {type(campaign).__name__}")
+    raise DataError("report() needs a Campaign (inhibkin.campaign.batch.fit_campaign) or a "
+                    f"mapping of compound to MechanismFit, got {type(campaign).__name__}")
 
 
 def _time_dependent_context(table) -> dict:
@@ -372,7 +372,7 @@ def render_report(campaign, *, potency=None, rates=None, time_dependent=None,
     flagged = ranking[ranking["flags"].astype(str) != ""][["compound", "status", "flags"]]
     failed = ranking[ranking["status"] == "failed"][["compound", "reason"]]
     counts = ranking["status"].value_counts().to_dict()
-    from . import __version__
+    from .. import __version__
 
     context = {
         "title": title,
@@ -438,18 +438,18 @@ def report(campaign, path, *, potency=None, rates=None, time_dependent=None,
     Parameters
     ----------
     campaign : Campaign or mapping of str to MechanismFit
-        From :func:`inhibkin.batch.fit_campaign` (constants in M), or a mapping of
-        compound to :class:`~inhibkin.mechanism.MechanismFit` (constants in the fit's
+        From :func:`inhibkin.campaign.batch.fit_campaign` (constants in M), or a mapping of
+        compound to :class:`~inhibkin.mechanism.fit.MechanismFit` (constants in the fit's
         own units; ``units`` then labels the axes).
     path : str or os.PathLike
         The HTML file to write; written to a temporary file in the same directory and
         renamed, so an interrupted run leaves no half-written report.
     potency : PotencyTable, optional
-        The dose-response screen (:func:`inhibkin.potency_table.potency_table`): its table,
+        The dose-response screen (:func:`inhibkin.potency.table.potency_table`): its table,
         the Z'-factor of every plate, and the dose-response curves of the most potent
         compounds.
     rates : InitialRates or pandas.DataFrame, optional
-        The initial-rate table (:func:`inhibkin.rates.initial_rates`); its QC flags are
+        The initial-rate table (:func:`inhibkin.rates.initial.initial_rates`); its QC flags are
         counted in the QC summary.
     time_dependent : pandas.DataFrame, optional
         The time-dependent compounds' ranking

@@ -14,8 +14,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from .core.bound import Bound
-from .units import from_molar, molar_unit
+from ..core.bound import Bound
+from ..units import from_molar, molar_unit
 
 __all__ = ["Established", "established"]
 
@@ -67,7 +67,7 @@ class Established:
 
 
 def established(fit) -> Established | None:
-    """What an ambiguous :class:`~inhibkin.mechanism.MechanismFit` establishes, or None
+    """What an ambiguous :class:`~inhibkin.mechanism.fit.MechanismFit` establishes, or None
     when its verdict is not ambiguous."""
     if fit.verdict != "ambiguous" or fit.best is None:
         return None

@@ -46,7 +46,7 @@ at the limit
     path): the slope was stopped by the bound, not set by the data.
 
 The rule is written once, vectorised over (curves, points) with a mask; the lmfit path
-(:mod:`inhibkin.potency`) classifies a batch of one, the batched engine
+(:mod:`inhibkin.potency.curve`) classifies a batch of one, the batched engine
 (:mod:`inhibkin.engine.dose_response`) a batch of many.
 """
 
@@ -58,7 +58,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .errors import DataError, Problem
+from ..errors import DataError, Problem
 from .logistic import logistic4
 
 __all__ = ["CURVE_CLASSES", "CurveClassRules", "CurveClasses", "classify_curves",
@@ -188,7 +188,7 @@ def classify_curves(x, y, mask, estimate, *, weights=None, n_free=4, full_activi
         True for real points.
     estimate : array_like, shape (B, 4)
         top, bottom, log_ic50, hill of each fit (the order of
-        :data:`inhibkin.logistic.PARAM_NAMES`).
+        :data:`inhibkin.core.logistic.PARAM_NAMES`).
     weights : array_like, shape (B, n), optional
         Residual multipliers 1/σ used by the fit (default 1).
     n_free : int or array_like of shape (B,)

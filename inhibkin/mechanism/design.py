@@ -17,7 +17,7 @@ of its constants separates competitive from uncompetitive from noncompetitive an
 down Ki on the log scale that pKi is reported on. The noise has a constant-CV part and
 a floor: without the floor, constant-CV noise would make a rate a thousand times below
 vmax as informative as one near it, and the search would run to the ends of the
-dilution series. The Jacobian is the analytic one of :mod:`inhibkin.models`; the
+dilution series. The Jacobian is the analytic one of :mod:`inhibkin.core.models`; the
 search is a level exchange (swap one level for an unused one while the criterion
 improves) over every grid shape that fills the budget, among the levels of the series
 within :data:`WINDOW_FACTOR` of the prior ranges (the window).
@@ -44,10 +44,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .engine import fit_mechanism_arrays
-from .errors import DataError
-from .models import MODELS
-from .simulate import simulate_grid
+from ..core.models import MODELS
+from ..engine import fit_mechanism_arrays
+from ..errors import DataError
+from ..simulate import simulate_grid
 
 __all__ = ["GridPlan", "plan_grid", "call_outcome", "design_criterion", "naive_levels",
            "CALL_OUTCOMES", "SIMULATED_MECHANISMS"]
@@ -626,7 +626,7 @@ def plan_grid(*, km_range, ki_range, n_wells, substrate_choices, inhibitor_choic
 
     Examples
     --------
-    >>> from inhibkin.design import plan_grid
+    >>> from inhibkin.mechanism.design import plan_grid
     >>> plan = plan_grid(km_range=(5, 20), ki_range=(0.1, 1), n_wells=48,
     ...                  substrate_choices=[0.5 * 2**k for k in range(10)],
     ...                  inhibitor_choices=[0.01 * 3**k for k in range(9)],

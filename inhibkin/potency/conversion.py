@@ -24,8 +24,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .errors import DataError, Problem
-from .validate import numeric_column
+from ..errors import DataError, Problem
+from ..validate import numeric_column
 
 __all__ = ["CONVERSIONS", "cheng_prusoff", "ic50_from_ki"]
 
@@ -35,7 +35,7 @@ CONVERSIONS = ("competitive", "uncompetitive", "noncompetitive", "mixed")
 
 def as_array(value, name, problems, index, *, positive, allow_nan=False):
     """``value`` broadcast over ``index`` as a checked float array; every bad entry is
-    appended to ``problems`` (shared with :mod:`inhibkin.morrison`)."""
+    appended to ``problems`` (shared with :mod:`inhibkin.potency.morrison`)."""
     frame = pd.DataFrame({name: np.broadcast_to(np.asarray(value, dtype=object),
                                                 (len(index),))}, index=index)
     arr = numeric_column(frame, name, problems, allow_nan=allow_nan)

@@ -50,7 +50,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .core.lack_of_fit import LACK_OF_FIT_ALPHA
+from .lack_of_fit import LACK_OF_FIT_ALPHA
 from .models import MODELS, ONE_CONSTANT_MODELS, extension_of, nested_pairs
 
 #: An SSR below this fraction of the total weighted sum of squares of the rates is an

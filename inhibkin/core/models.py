@@ -14,7 +14,7 @@ they need from it.
 Each parameter has a *role* (:data:`ROLES`): the data axis that sets its bounds, its
 starting value and its "determined" rule. ``rate`` (vmax) is set by the rates,
 ``substrate`` (km) by the substrate levels, ``inhibitor`` (kic, kiu, ki) by the inhibitor
-levels. The starts (:mod:`inhibkin.starts`), the bounds and the "determined" rule
+levels. The starts (:mod:`inhibkin.core.starts`), the bounds and the "determined" rule
 (:mod:`inhibkin.core.determined`) read the roles, so both solvers treat a new constant
 alike without a list of names of their own.
 
@@ -84,7 +84,7 @@ class RateLaw:
         The constants a ranking by Ki reads (mixed: the tighter of kic and kiu).
     alpha_edges : tuple of {"low", "high"}
         Where the name places alpha = kiu/kic of mixed, as the edges the data must
-        reject before the name is called (rule 4 of :mod:`inhibkin.compare`): "high"
+        reject before the name is called (rule 4 of :mod:`inhibkin.core.compare`): "high"
         for alpha above ``alpha_factor`` (competitive), "low" for alpha below its
         inverse (uncompetitive), both for between them (noncompetitive).
     family : str
@@ -288,7 +288,7 @@ EXTENDED_MODELS: tuple[str, ...] = tuple(n for n in MODELS if n not in MODEL_NAM
 INHIBITION_MODELS: tuple[str, ...] = tuple(n for n in MODEL_NAMES
                                            if MODELS[n].inhibition_constants)
 #: Models with one inhibition constant that nest in a larger one: the candidates the
-#: verdict chooses between by AICc (:mod:`inhibkin.compare`).
+#: verdict chooses between by AICc (:mod:`inhibkin.core.compare`).
 ONE_CONSTANT_MODELS: tuple[str, ...] = tuple(
     n for n in MODEL_NAMES if len(MODELS[n].inhibition_constants) == 1)
 

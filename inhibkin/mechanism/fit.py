@@ -1,7 +1,7 @@
 """Which reversible mechanism, and how tight: every model fitted, compared, decided.
 
-:func:`fit_mechanisms` fits all five rate laws of :mod:`inhibkin.models` globally to one
-compound's substrate × inhibitor grid, compares them (:mod:`inhibkin.compare`) and
+:func:`fit_mechanisms` fits all five rate laws of :mod:`inhibkin.core.models` globally to one
+compound's substrate × inhibitor grid, compares them (:mod:`inhibkin.core.compare`) and
 returns a :class:`MechanismFit` holding the verdict and every table that justified it.
 """
 
@@ -13,7 +13,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .compare import (
+from ..core.bounds import NESTED_FAR_FACTOR
+from ..core.compare import (
     EXACT_FIT_RTOL,
     TIME_DEPENDENT,
     Verdict,
@@ -25,12 +26,13 @@ from .compare import (
     f_test_table,
     time_dependent_verdict,
 )
-from .core.bounds import NESTED_FAR_FACTOR
-from .core.determined import DETERMINATION_FACTOR
-from .core.lack_of_fit import LACK_OF_FIT_ALPHA, lack_of_fit, residual_pattern
-from .core.options import FitOptions
-from .core.readonly import readonly_frame, readonly_mapping
-from .core.weighting import (
+from ..core.determined import DETERMINATION_FACTOR
+from ..core.lack_of_fit import LACK_OF_FIT_ALPHA, lack_of_fit, residual_pattern
+from ..core.models import MODEL_NAMES, MODELS, extension_of, nested_start
+from ..core.options import FitOptions
+from ..core.readonly import readonly_frame, readonly_mapping
+from ..core.starts import log_bounds, starting_values
+from ..core.weighting import (
     DEFAULT_WEIGHTING,
     REWEIGHT_ITERATIONS,
     SD_WEIGHTINGS,
@@ -41,14 +43,12 @@ from .core.weighting import (
     resolve_weighting,
     weighting_label,
 )
-from .errors import DataError
-from .fitting import ModelFit, fit_model, fixed_alpha_ssr
-from .models import MODEL_NAMES, MODELS, extension_of, nested_start
-from .starts import log_bounds, starting_values
-from .text import text_table
-from .time_dependent.detect import flagged_inhibited
-from .units import header_column, to_molar
-from .validate import check_grid
+from ..errors import DataError
+from ..reporting.text import text_table
+from ..time_dependent.detect import flagged_inhibited
+from ..units import header_column, to_molar
+from ..validate import check_grid
+from .one_model import ModelFit, fit_model, fixed_alpha_ssr
 
 __all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "DEFAULT_WEIGHTING",
            "relative_weights", "mixed_starts", "molar_grid", "with_time_dependence"]
@@ -64,7 +64,8 @@ class MechanismFit:
     verdict : str
         A mechanism name, ``"ambiguous"``, ``"failed"`` or ``"time_dependent"`` (the
         rates stage flagged inhibited wells ``time_dependent``: no steady-state constant
-        is valid, :meth:`constants` is empty; see :func:`inhibkin.compare.time_dependent_verdict`).
+        is valid, :meth:`constants` is empty; see
+        :func:`inhibkin.core.compare.time_dependent_verdict`).
     best : str or None
         The model whose parameters stand for the compound (for ``ambiguous`` the
         one-constant candidate with the lowest AICc, which need not be the lowest AICc
@@ -151,7 +152,7 @@ class MechanismFit:
     @property
     def established(self):
         """What an ambiguous verdict still establishes (leading mechanism, determined
-        constants, bounds on the others; :func:`inhibkin.established.established`), or
+        constants, bounds on the others; :func:`inhibkin.mechanism.established.established`), or
         None for any other verdict."""
         from .established import established
 
@@ -190,7 +191,7 @@ class MechanismFit:
         return "\n".join(lines)
 
     def _repr_html_(self) -> str:
-        from .display.html import fit_html  # matplotlib is loaded only when a notebook asks
+        from ..display.html import fit_html
 
         return fit_html(self)
 
@@ -242,7 +243,7 @@ def extended_starts(name, fits, s, i, v, w) -> list[dict]:
 
 def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_ssr,
                      relative=False):
-    """Rule 5 of :mod:`inhibkin.compare` on one compound: the lack-of-fit test of the
+    """Rule 5 of :mod:`inhibkin.core.compare` on one compound: the lack-of-fit test of the
     verdict's model and, when it fails, the extended laws fitted and decided.
 
     Returns the verdict, every fit, the F-tests of the new pairs and the lack-of-fit rows.
@@ -345,7 +346,7 @@ def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate",
 def with_time_dependence(fit: MechanismFit, flags) -> MechanismFit:
     """``fit`` with the verdict ``time_dependent`` when inhibited wells carry that flag.
 
-    Both solvers' fits pass through here (rule 5 of :mod:`inhibkin.compare`), so the rule
+    Both solvers' fits pass through here (rule 5 of :mod:`inhibkin.core.compare`), so the rule
     is applied once.
 
     Parameters
@@ -461,9 +462,9 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         A one-constant mechanism is called only when the data also reject mixed with
         alpha = kiu/kic held at the edge of the region its name claims (alpha_factor for
         competitive, 1/alpha_factor for uncompetitive, both for noncompetitive); see
-        :mod:`inhibkin.compare`.
+        :mod:`inhibkin.core.compare`.
     intervals : {"profile", "wald"}
-        Interval method (see :mod:`inhibkin.fitting`).
+        Interval method (see :mod:`inhibkin.mechanism.one_model`).
     level : float
         Confidence level of the intervals.
     determination_factor : float
@@ -476,7 +477,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     lack_of_fit_alpha : float
         Level of the lack-of-fit test of the verdict's model (default 0.01; 0 turns it
         off). When the model fails it, the laws with substrate inhibition are fitted and
-        decided (rule 5 of :mod:`inhibkin.compare`): the verdict names one
+        decided (rule 5 of :mod:`inhibkin.core.compare`): the verdict names one
         ("competitive with substrate inhibition") or is ``inadequate``.
     context : str, optional
         Name of the compound, used in error messages.

@@ -27,8 +27,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, Problem
-from .validate import check_columns, normalise_roles, numeric_column, row_kind
+from ..errors import DataError, Problem
+from ..validate import check_columns, normalise_roles, numeric_column, row_kind
 
 __all__ = ["ROLES", "Z_PRIME_THRESHOLD", "PlateQC", "z_prime", "plate_qc", "percent_activity",
            "no_controls", "ZERO_SPREAD"]

@@ -3,7 +3,7 @@
 :func:`initial_rates` takes a tidy table of kinetic reads (plate, well, time, signal) and a
 plate map (plate, well, compound, substrate, inhibitor, role) and returns, for every sample
 well, its initial rate with a standard error, the window of reads used, and quality flags.
-Its table feeds :func:`inhibkin.mechanism.fit_mechanisms` directly (the substrate and
+Its table feeds :func:`inhibkin.mechanism.fit.fit_mechanisms` directly (the substrate and
 inhibitor columns keep the plate map's names and units; ``rate_se`` can serve as ``sd``).
 
 Windows
@@ -68,12 +68,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .errors import DataError, Problem, UnitsError
-from .inputs.columns import find_column
+from ..errors import DataError, Problem, UnitsError
+from ..inputs.columns import find_column
+from ..time_dependent.detect import time_dependence
+from ..units import from_molar, normalise_unit, split_unit, to_molar, to_seconds
+from ..validate import check_columns, normalise_roles, numeric_column, row_kind
 from .signal import BeerLambert, StandardCurve, blank_signal
-from .time_dependent.detect import time_dependence
-from .units import from_molar, normalise_unit, split_unit, to_molar, to_seconds
-from .validate import check_columns, normalise_roles, numeric_column, row_kind
 
 __all__ = ["InitialRates", "RateOptions", "initial_rates", "FLAGS", "METHODS", "ROLES"]
 
