@@ -557,6 +557,7 @@ def _store_stage_arguments(parser):
 def _store_stage(args) -> int:
     from . import store
     from .reporting.text import text_table
+    from .units import readable_units
 
     output = _check_output(args.output) if args.output else None
     if args.what in ("campaign", "history") and not args.name:
@@ -574,7 +575,7 @@ def _store_stage(args) -> int:
     if output is not None:
         _write_output(table, output)
     if not args.quiet:
-        print(text_table(table, index=False))
+        print(text_table(readable_units(table), index=False))
     return EXIT_OK
 
 

@@ -20,6 +20,10 @@ __all__ = [
     "from_molar",
     "molar_unit",
     "column_unit",
+    "restate_molar",
+    "family_unit",
+    "significant_text",
+    "readable_units",
     "to_seconds",
     "split_unit",
     "header_column",
@@ -127,6 +131,131 @@ def column_unit(values_molar) -> str:
     values = np.asarray(values_molar, dtype=float)
     values = values[np.isfinite(values) & (values > 0)]
     return molar_unit(float(np.median(values))) if values.size else "µM"
+
+
+# A concentration written in molar in a text: "3.05e-05 M", and the interval that may follow
+# it, "[2.9e-05, 3.2e-05]" (the form the ranked table's texts are written in).
+_NUMBER = r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?"
+_MOLAR_TEXT = re.compile(rf"(?<![\w.])(?P<value>{_NUMBER}) M(?![\w])"
+                         rf"(?P<interval> \[(?P<low>{_NUMBER}), (?P<high>{_NUMBER})\])?")
+
+
+def significant_text(value, digits=3) -> str:
+    """``value`` to ``digits`` significant digits, written without an exponent between
+    0.001 and a million (``12300``, ``0.0305``), with one outside."""
+    if np.isfinite(value) and 1e-3 <= abs(value) < 1e6:
+        return np.format_float_positional(value, precision=digits, unique=False,
+                                          fractional=False, trim="-")
+    return f"{value:.{digits}g}"
+
+
+def restate_molar(text, unit):
+    """A text with every concentration written in molar (``"3.05e-05 M"``, and the
+    interval ``"[2.9e-05, 3.2e-05]"`` right after one) restated in ``unit``, three
+    significant digits as written.
+
+    Examples
+    --------
+    >>> restate_molar("3.05e-05 M [2.9e-05, 3.2e-05]", "uM")
+    '30.5 µM [29, 32]'
+    >>> restate_molar("no inhibition detected up to 1e-05 M; Ki > 2e-06 M", "nM")
+    'no inhibition detected up to 10000 nM; Ki > 2000 nM'
+    """
+    if not isinstance(text, str):
+        return text
+    canonical = normalise_unit(unit)
+    shown = "µM" if canonical == "uM" else canonical
+    per_unit = 1.0 / CONCENTRATION_UNITS[canonical]
+
+    def number(written):
+        return significant_text(float(written) * per_unit)
+
+    def restated(match):
+        out = f"{number(match.group('value'))} {shown}"
+        if match.group("interval"):
+            out += f" [{number(match.group('low'))}, {number(match.group('high'))}]"
+        return out
+
+    return _MOLAR_TEXT.sub(restated, text)
+
+
+def family_unit(columns) -> str:
+    """One unit (:func:`column_unit`) for an estimate and its interval together: the
+    columns of molar values (e.g. a ranked table's ``ki_M``, ``ki_low_M``,
+    ``ki_high_M``), so a bound (only ``ki_low_M``) counts as much as a value."""
+    arrays = [np.asarray(c, dtype=float).ravel() for c in columns]
+    return column_unit(np.concatenate(arrays) if arrays else np.array([]))
+
+
+# A molar column's header: "ki_M", and its interval columns "ki_low_M", "ki_high_M".
+_MOLAR_HEADER = re.compile(r"^(?P<base>.+?)(?P<part>_low|_high)?_M$")
+
+
+def readable_units(frame):
+    """A table for people: every molar column in one unit chosen by magnitude and stated
+    in its header, the numbers still numbers.
+
+    A column ``x_M`` becomes ``x (unit)`` in the unit of :func:`column_unit`; an estimate
+    and its interval (``ki_M``, ``ki_low_M``, ``ki_high_M``) share one unit. In a tidy
+    parameter table (columns ``parameter`` and ``estimate``) each concentration constant
+    (km, kic, kiu, ki) takes one unit over all its rows, named in a ``unit`` column
+    beside ``parameter``; the ranked table's ``ki_reported`` text follows the unit of
+    ``ki``. The machine-readable tables (CSV, Parquet, the store) stay in molar.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Concentrations in M (columns ``*_M``; a parameter table's constants in M).
+
+    Returns
+    -------
+    pandas.DataFrame
+        A new table (``frame`` is not changed).
+    """
+    import pandas as pd
+
+    out = frame.copy()
+    families: dict = {}
+    for column in out.columns:
+        match = _MOLAR_HEADER.match(str(column))
+        if match:
+            families.setdefault(match.group("base"), []).append((column, match.group("part")))
+    renames = {}
+    for base, members in families.items():
+        values = {c: pd.to_numeric(out[c], errors="coerce") for c, _ in members}
+        if all(v.isna().all() and out[c].notna().any() for c, v in values.items()):
+            continue  # text, not numbers
+        unit = family_unit(values.values())
+        shown = "µM" if unit == "uM" else unit
+        for column, part in members:
+            out[column] = values[column] / CONCENTRATION_UNITS[unit]
+            renames[column] = f"{base}{part or ''} ({shown})"
+        if base == "ki" and "ki_reported" in out.columns:
+            out["ki_reported"] = [restate_molar(t, unit) for t in out["ki_reported"]]
+    out = out.rename(columns=renames)
+    if {"parameter", "estimate"} <= set(out.columns) and "unit" not in out.columns:
+        out = _readable_parameters(out)
+    return out
+
+
+def _readable_parameters(table):
+    from .core.models import MODELS
+
+    concentrations = {name for law in MODELS.values()
+                      for name, role in zip(law.param_names, law.roles)
+                      if role in ("substrate", "inhibitor")}
+    numbers = [c for c in ("estimate", "se", "ci_low", "ci_high") if c in table.columns]
+    table = table.astype({c: float for c in numbers})
+    units = [""] * len(table)
+    names = table["parameter"].astype(str).to_numpy()
+    for name in sorted(set(names) & concentrations):
+        rows = names == name
+        unit = column_unit(table.loc[rows, "estimate"].to_numpy(dtype=float))
+        table.loc[rows, numbers] = table.loc[rows, numbers] / CONCENTRATION_UNITS[unit]
+        for k in np.flatnonzero(rows):
+            units[k] = "µM" if unit == "uM" else unit
+    table.insert(list(table.columns).index("parameter") + 1, "unit", units)
+    return table
 
 
 def to_seconds(values, unit):

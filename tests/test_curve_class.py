@@ -14,6 +14,8 @@ from inhibkin.engine import fit_logistic_batch
 from inhibkin.errors import DataError
 from inhibkin.potency.curve import fit_dose_response
 from inhibkin.rates.plates import percent_activity, plate_qc
+from inhibkin.reporting.text import ranking_ki_unit
+from inhibkin.units import from_molar, significant_text
 
 # Demo compounds whose activity stays flat near 100 % (invented_screen_truth.csv marks
 # them inactive) that were reported "bound, Ki < 7.6e-10 M" with Hill ≈ 20 (issue 12).
@@ -41,10 +43,13 @@ def test_flat_demo_compounds_are_inactive_and_ranked_after_every_active():
     campaign = fit_campaign(dose_response=_demo_wells(FLAT_DEMO + ACTIVE_DEMO), km=40e-6,
                             engine="lmfit", quiet=True)
     ranking = campaign.ranking.set_index("compound")
+    # The Ki column's one unit (issue 17): the top tested concentration, 30 µM, in it.
+    unit = ranking_ki_unit(campaign.ranking)
+    top = significant_text(from_molar(3e-5, unit))
     for name in FLAT_DEMO:
         row = ranking.loc[name]
         assert row["status"] == "inactive", (name, row["status"], row["ki_reported"])
-        assert row["ki_reported"].startswith("inactive: IC50 > 3e-05 M")
+        assert row["ki_reported"].startswith(f"inactive: IC50 > {top} {unit}")
         assert np.isnan(row["ki_M"]) and np.isnan(row["pki"]) and np.isnan(row["hill"])
         assert "<" not in row["ki_reported"]
     order = list(campaign.ranking["compound"])

@@ -12,6 +12,8 @@ from inhibkin.cli import main
 from inhibkin.errors import DataError
 from inhibkin.inputs import read_any_table
 from inhibkin.inputs.excel import looks_like_formula, read_workbook_rows, write_workbook
+from inhibkin.reporting.text import ranking_ki_unit
+from inhibkin.units import to_molar
 
 openpyxl = pytest.importorskip("openpyxl")
 
@@ -28,7 +30,8 @@ def test_numbers_stay_numbers_and_formulas_stay_text(tmp_path, rng):
     table = pd.DataFrame({"compound": HOSTILE, "ki_M": values,
                           "n": np.arange(len(HOSTILE)), "ok": [True, False, True, True, False],
                           "missing": [np.nan, 1.0, np.inf, -np.inf, 2.0]})
-    path = write_workbook({"ranking": table}, tmp_path / "out.xlsx")
+    # readable=False: the table as it is (the molar column not restated for people).
+    path = write_workbook({"ranking": table}, tmp_path / "out.xlsx", readable=False)
     with zipfile.ZipFile(path) as archive:
         sheet = archive.read("xl/worksheets/sheet1.xml").decode()
     assert "<f>" not in sheet  # no formula anywhere in the sheet
@@ -55,6 +58,18 @@ def test_rank_writes_a_workbook_and_xlsx_is_read_as_input(tmp_path):
     ranking = read_any_table(tmp_path / "ranking.xlsx")
     assert sorted(ranking["compound"]) == sorted(["=CPD+1", table["Compound"].iloc[-1]])
     assert ranking["pki"].dtype == float
+    # Issue 17, item 6: concentrations for people, one unit per column stated in the
+    # header, the numbers still numbers (the CSV keeps ki_M, in M, for machines).
+    assert main(["rank", "--grid", str(tmp_path / "grid.xlsx"), "-o",
+                 str(tmp_path / "ranking.csv"), "--quiet"]) == 0
+    molar = ik.read_table(tmp_path / "ranking.csv")
+    unit = ranking_ki_unit(molar)
+    assert "ki_M" in molar.columns and "ki_M" not in ranking.columns
+    np.testing.assert_allclose(ranking[f"ki ({unit})"], molar["ki_M"] / to_molar(1.0, unit),
+                               rtol=XLSX_RTOL)
+    assert all(f" {unit} [" in t for t in ranking["ki_reported"])
+    params = read_any_table(tmp_path / "ranking.xlsx", sheet="parameters")
+    assert set(params.loc[params["parameter"] == "km", "unit"]) == {"µM"}
 
 
 def test_xlsx_plate_matrix_and_damaged_files(tmp_path, rng):

@@ -288,6 +288,12 @@ def test_layout_stage_writes_and_shows(tmp_path, capsys):
     assert main(["layout", "show", str(out), "--value", "inhibitor_nM"]) == 0
     shown = capsys.readouterr().out
     assert "plate P1 (inhibitor_nM)" in shown and shown.count("10") >= 3
+    # A new user asks for the base name, as the other stages take it: it was refused
+    # ("no such column in the layout"); a misspelling gets the closest header.
+    assert main(["layout", "show", str(out), "--value", "Substrate"]) == 0
+    assert "plate P1 (substrate_uM)" in capsys.readouterr().out
+    assert main(["layout", "show", str(out), "--value", "inhibitr"]) == 2
+    assert "did you mean 'inhibitor_nM'?" in capsys.readouterr().err
 
 
 @settings(max_examples=150, deadline=None)

@@ -26,7 +26,9 @@ from inhibkin.reporting.report import (
     report,
     select_detail,
 )
+from inhibkin.reporting.text import ranking_ki_unit
 from inhibkin.simulate import simulate_grid
+from inhibkin.units import column_unit, from_molar, significant_text
 
 SEED = 20261202
 HOSTILE = "<script>alert(1)</script>"
@@ -279,3 +281,57 @@ def test_parameter_tables_write_each_concentration_in_a_unit_for_people(campaign
     assert {unit for _, unit, x in rows if x != "not determined"} <= {"mM", "µM", "nM", "pM"}
     numbers = [float(x) for _, _, x in rows if x and x[0].isdigit()]
     assert numbers and all(1 <= x <= 1000 for x in numbers)
+
+
+def _png_sizes(html):
+    """(pixel size, shown width, shown height) of each inline PNG of a page."""
+    import base64
+    import io
+
+    from PIL import Image
+
+    images = re.findall(r'<img [^>]*src="data:image/png;base64,([^"]+)" '
+                        r'width="(\d+)" height="(\d+)"', html)
+    assert len(images) == html.count("data:image/png;base64,") >= 1
+    return [(Image.open(io.BytesIO(base64.b64decode(d))).size, int(w), int(h))
+            for d, w, h in images]
+
+
+def test_notebook_figures_are_as_sharp_as_the_report_s(campaign):
+    """Issue 17, item 6: the notebook views' figures were 60 dpi shown at their pixel size;
+    now 2 × 2 image pixels per CSS pixel, shown at the same size as before."""
+    fit = campaign.fits[HOSTILE]
+    for html, inches in ((fit_html(fit), None), (campaign_html(campaign), (4.2, 2.6))):
+        for (px_w, px_h), width, height in _png_sizes(html):
+            assert px_w == 2 * width and abs(px_h - 2 * height) <= 1
+            if inches is not None:  # the same size on the page as the former 60 dpi figure
+                assert (width, height) == (round(inches[0] * 60), round(inches[1] * 60))
+
+
+def test_ranking_ki_column_has_one_unit_chosen_by_magnitude(campaign):
+    """Issue 17, item 6: the report's and the notebook's Ki column was fixed in nM; now the
+    unit its values read in (column_unit of the Ki values and limits), stated in the
+    header, with each number the ranked table's ki_M in that unit."""
+    ranking = campaign.ranking
+    unit = ranking_ki_unit(ranking)
+    assert unit == column_unit(ranking[["ki_M", "ki_low_M", "ki_high_M"]].to_numpy().ravel())
+    for html in (render_report(campaign, detail="none", quiet=True), campaign_html(campaign)):
+        assert f"Ki ({unit}) [95% CI]" in html
+        for r in ranking[ranking["status"] == "determined"].itertuples():
+            assert f">{significant_text(from_molar(r.ki_M, unit))} [" in html
+    # An explicit unit still wins.
+    assert "Ki (pM) [95% CI]" in render_report(campaign, detail="none", quiet=True,
+                                               ki_unit="pM")
+
+
+def test_summary_states_the_ki_unit_once_and_the_ranked_text_follows_it(campaign):
+    """Issue 17, item 6: the printed summary had ki_reported in raw M ('3.27e-08 M
+    [3.08e-08, 3.48e-08]'); now one unit, in the header, and ki_reported in that unit."""
+    unit = ranking_ki_unit(campaign.ranking)
+    text = campaign.summary()
+    assert f"Ki ({unit}) [95% CI]" in text and " M [" not in text and "e-0" not in text
+    for r in campaign.ranking[campaign.ranking["status"] == "determined"].itertuples():
+        ki, low, high = (significant_text(from_molar(x, unit))
+                         for x in (r.ki_M, r.ki_low_M, r.ki_high_M))
+        assert f"{ki} [{low}, {high}]" in text
+        assert r.ki_reported == f"{ki} {unit} [{low}, {high}]"

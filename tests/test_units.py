@@ -1,9 +1,11 @@
 """Declared units: conversions, header parsing, and refusal of undeclared units."""
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from inhibkin.errors import UnitsError
+from inhibkin.reporting.text import ki_texts, ranking_ki_unit
 from inhibkin.units import (
     CONCENTRATION_UNITS,
     column_unit,
@@ -11,7 +13,9 @@ from inhibkin.units import (
     header_column,
     molar_unit,
     normalise_unit,
+    readable_units,
     resolve_units,
+    restate_molar,
     split_unit,
     to_molar,
     to_seconds,
@@ -133,3 +137,53 @@ def test_a_concentration_is_written_in_the_unit_its_size_suggests(value, unit):
 def test_a_column_gets_the_unit_of_its_typical_value():
     assert column_unit([3e-8, 4e-7, 2e-6, np.nan, np.inf]) == "nM"
     assert column_unit([np.nan]) == "µM"
+
+
+# Issue 17, item 6: one unit per column for people, chosen by magnitude.
+@pytest.mark.parametrize("text, unit, expected", [
+    ("3.05e-05 M [2.9e-05, 3.2e-05]", "uM", "30.5 µM [29, 32]"),
+    ("> 1e-05 M", "nM", "> 10000 nM"),
+    ("< 5e-10 M", "nM", "< 0.5 nM"),
+    ("no inhibition detected up to 1e-05 M; Ki > 2.5e-06 M whatever the mechanism", "µM",
+     "no inhibition detected up to 10 µM; Ki > 2.5 µM whatever the mechanism"),
+    # Not a molar concentration: left as written.
+    ("not determined within the tested range", "nM", "not determined within the tested range"),
+    ("1 mM ATP, 50 MW", "nM", "1 mM ATP, 50 MW"),
+])
+def test_restate_molar_rewrites_every_molar_number(text, unit, expected):
+    assert restate_molar(text, unit) == expected
+
+
+def test_readable_units_give_each_molar_column_one_unit_in_its_header():
+    ki = np.array([1.6e-9, 2.2e-6, np.nan, 4.1e-8])
+    table = pd.DataFrame({"compound": ["a", "b", "c", "d"], "ki_M": ki,
+                          "ki_low_M": ki * 0.9, "ki_high_M": ki * 1.1,
+                          "ic50_M": [3e-5, 1e-5, np.nan, 2e-6],
+                          "ki_reported": ["1.6e-09 M [1.44e-09, 1.76e-09]", "x", "", "y"]})
+    out = readable_units(table)
+    assert list(out.columns) == ["compound", "ki (nM)", "ki_low (nM)", "ki_high (nM)",
+                                 "ic50 (µM)", "ki_reported"]
+    np.testing.assert_allclose(out["ki_low (nM)"], ki * 0.9 / SI_PREFIXES["nM"], rtol=EXACT)
+    np.testing.assert_allclose(out["ic50 (µM)"], table["ic50_M"] / SI_PREFIXES["uM"],
+                               rtol=EXACT)
+    assert out["ki_reported"][0] == "1.6 nM [1.44, 1.76]"
+    assert list(table.columns)[1] == "ki_M"  # the input is not changed
+    params = pd.DataFrame({"parameter": ["vmax", "km", "kic", "km", "alpha"],
+                           "estimate": [100.0, 2e-5, 3e-9, 4e-5, 2.0],
+                           "se": [1.0, 1e-6, 1e-10, 2e-6, 0.1]})
+    out = readable_units(params)
+    assert list(out["unit"]) == ["", "µM", "nM", "µM", ""]
+    np.testing.assert_allclose(out["estimate"], [100.0, 20.0, 3.0, 40.0, 2.0], rtol=EXACT)
+    np.testing.assert_allclose(out["se"], [1.0, 1.0, 0.1, 2.0, 0.1], rtol=EXACT)
+
+
+def test_ki_texts_write_both_kinds_of_limit():
+    """A 'Ki < x' limit (low 0) was written '> 0' by the report's ranking rows."""
+    ranking = pd.DataFrame({"status": ["determined", "bound", "bound", "failed"],
+                            "ki_M": [2e-9, np.nan, np.nan, np.nan],
+                            "ki_low_M": [1e-9, 3e-6, 0.0, np.nan],
+                            "ki_high_M": [4e-9, np.inf, 5e-10, np.nan],
+                            "ki_reported": ["", "", "", "no constant"]})
+    texts = [t for t, _ in ki_texts(ranking, "nM")]
+    assert texts == ["2 [1, 4]", "> 3000", "< 0.5", "no constant"]
+    assert ranking_ki_unit(ranking) == "nM"

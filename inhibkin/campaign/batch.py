@@ -94,13 +94,14 @@ from ..potency.conversion import CONVERSIONS
 from ..potency.table import EngineFitter, check_potency_options, potency_table
 from ..progress import progress_bar
 from ..rates.plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
-from ..reporting.text import text_table
+from ..reporting.text import ki_texts, ranking_ki_unit, text_table
 from ..simulate import simulate_grid
 from ..units import (
     CONCENTRATION_UNITS,
     from_molar,
     parse_concentration,
     resolve_units,
+    restate_molar,
     to_molar,
 )
 from ..validate import check_columns, check_grid, check_options, normalise_roles, row_kind
@@ -662,6 +663,9 @@ def _rank(rows) -> pd.DataFrame:
     for column in ("ki_M", "ki_low_M", "ki_high_M", "pki", "pki_low", "pki_high", "kic_M",
                    "kiu_M", "alpha", "ic50_M", "ic50_low_M", "ic50_high_M", "pic50", "hill"):
         ranking[column] = ranking[column].astype(float)
+    # One unit for the whole Ki column, chosen by magnitude (the rows wrote M).
+    unit = ranking_ki_unit(ranking)
+    ranking["ki_reported"] = [restate_molar(t, unit) for t in ranking["ki_reported"]]
     return ranking
 
 
@@ -754,7 +758,10 @@ class Campaign:
         """Plain text: counts by status, the top of the ranking, every failure's reason."""
         width = 78
         shown = self.ranking.head(rows)[["rank", "compound", "status", "verdict", "mechanism",
-                                         "ki_reported", "pki", "ki_source"]]
+                                         "pki", "ki_source"]]
+        unit = ranking_ki_unit(self.ranking)
+        shown.insert(5, f"Ki ({unit}) [95% CI]",
+                     [t for t, _ in ki_texts(self.ranking.head(rows), unit)])
         lines = ["=" * width, self._head(),
                  f"({self.options.get('intervals', '')} intervals at "
                  f"{100 * self.options.get('level', 0.95):g}%, "

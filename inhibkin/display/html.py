@@ -19,9 +19,11 @@ from jinja2 import Environment, PackageLoader, select_autoescape
 
 from ..mechanism.one_model import format_estimate
 from ..reporting import figures
-from ..units import from_molar, molar_unit
+from ..reporting.text import ki_texts, ranking_ki_unit, unit_label
+from ..units import from_molar, molar_unit, normalise_unit
 
-__all__ = ["ENVIRONMENT", "REPORT_DPI", "LAYOUT_DPI", "NOTEBOOK_DPI", "png_uri", "png_image",
+__all__ = ["ENVIRONMENT", "REPORT_DPI", "LAYOUT_DPI", "NOTEBOOK_DPI", "NOTEBOOK_LAYOUT_DPI",
+           "png_uri", "png_image",
            "number_text", "cell",
            "table_cells", "parameter_cells", "ranking_rows", "fit_html", "dose_response_html",
            "campaign_html"]
@@ -32,7 +34,10 @@ LAYOUT_DPI = 72
 #: holds 2 × 2 image pixels and the figures stay sharp on high-density screens and when
 #: zoomed to 200 % (about 2.3 times the bytes of a 72 dpi figure).
 REPORT_DPI = 2 * LAYOUT_DPI
-NOTEBOOK_DPI = 60
+#: Scale of the notebook views: smaller than the report's, so a view fits beside the code.
+NOTEBOOK_LAYOUT_DPI = 60
+#: Resolution of the notebook figures: twice their layout's, as sharp as the report's.
+NOTEBOOK_DPI = 2 * NOTEBOOK_LAYOUT_DPI
 
 #: The templates (inhibkin/display/templates), autoescaped.
 ENVIRONMENT = Environment(loader=PackageLoader("inhibkin.display", "templates"),
@@ -47,13 +52,17 @@ def png_uri(fig, dpi=REPORT_DPI) -> str:
     return "data:image/png;base64," + base64.b64encode(buffer.getvalue()).decode("ascii")
 
 
-def png_image(fig, dpi=REPORT_DPI) -> dict:
+def png_image(fig, dpi=REPORT_DPI, *, layout_dpi=LAYOUT_DPI) -> dict:
     """A figure as an image of the page: its PNG data URI (``src``) at ``dpi``, and the
-    size it is shown at (``width``, ``height`` in CSS pixels, at :data:`LAYOUT_DPI`), so a
+    size it is shown at (``width``, ``height`` in CSS pixels, at ``layout_dpi``), so a
     higher ``dpi`` makes the figure sharper, never larger."""
     width, height = fig.get_size_inches()
-    return {"src": png_uri(fig, dpi), "width": round(width * LAYOUT_DPI),
-            "height": round(height * LAYOUT_DPI)}
+    return {"src": png_uri(fig, dpi), "width": round(width * layout_dpi),
+            "height": round(height * layout_dpi)}
+
+
+def _notebook_image(fig) -> dict:
+    return png_image(fig, NOTEBOOK_DPI, layout_dpi=NOTEBOOK_LAYOUT_DPI)
 
 
 def number_text(x, fmt="{:.3g}") -> str:
@@ -132,18 +141,11 @@ def parameter_cells(model_fit, *, molar=False) -> dict:
 
 
 def ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
-    factor = float(from_molar(1.0, ki_unit))
+    """The report's and the notebook's ranked rows, the Ki in ``ki_unit`` (the header
+    states it; :func:`inhibkin.reporting.text.ki_texts`)."""
     rows = []
-    for r in ranking.to_dict("records"):
+    for r, (ki, ki_sort) in zip(ranking.to_dict("records"), ki_texts(ranking, ki_unit)):
         status = r["status"]
-        if status == "determined" and np.isfinite(r["ki_M"]):
-            ki = (f"{number_text(r['ki_M'] * factor)} [{number_text(r['ki_low_M'] * factor)}, "
-                  f"{number_text(r['ki_high_M'] * factor)}]")
-            ki_sort = r["ki_M"]
-        elif status == "bound" and np.isfinite(r["ki_low_M"]):
-            ki, ki_sort = f"> {number_text(r['ki_low_M'] * factor)}", r["ki_low_M"]
-        else:
-            ki, ki_sort = r.get("ki_reported", "") or "", np.nan
         pki = ""
         if np.isfinite(r["pki"]):
             pki = f"{r['pki']:.2f} [{r['pki_low']:.2f}, {r['pki_high']:.2f}]"
@@ -181,7 +183,7 @@ def fit_html(fit, *, units=None) -> str:
         weighting=fit.weighting, best=fit.best, comparison=table_cells(fit.comparison),
         ftests=table_cells(fit.ftests, index=False),
         params=parameter_cells(best) if best is not None and best.converged else None,
-        png=png_uri(overview, NOTEBOOK_DPI))
+        png=_notebook_image(overview))
 
 
 def dose_response_html(fit, *, conc_unit="") -> str:
@@ -192,13 +194,16 @@ def dose_response_html(fit, *, conc_unit="") -> str:
     return ENVIRONMENT.get_template("dose_response.html").render(
         compound="" if fit.compound is None else str(fit.compound),
         ic50=fit.reported_ic50, conc_unit=conc_unit, n_obs=fit.n_obs,
-        flags=list(fit.flags), params=table_cells(params), png=png_uri(fig, NOTEBOOK_DPI))
+        flags=list(fit.flags), params=table_cells(params), png=_notebook_image(fig))
 
 
-def campaign_html(campaign, *, rows=10, ki_unit="nM") -> str:
+def campaign_html(campaign, *, rows=10, ki_unit=None) -> str:
     """Compact HTML of a :class:`~inhibkin.campaign.batch.Campaign`: counts and the top of
-    the ranking, with one small figure (pKi of the ranked compounds with their intervals)."""
+    the ranking, with one small figure (pKi of the ranked compounds with their intervals).
+    The Ki column is in ``ki_unit``, by default the one its values read best in
+    (:func:`inhibkin.reporting.text.ranking_ki_unit`)."""
     ranking = campaign.ranking
+    ki_unit = unit_label(normalise_unit(ki_unit) if ki_unit else ranking_ki_unit(ranking))
     anchors: dict = {}
     fig, axes = figures.new_figure(size=(4.2, 2.6))
     _plot_ranking(ranking.head(rows * 2), ax=axes[0, 0])
@@ -207,7 +212,7 @@ def campaign_html(campaign, *, rows=10, ki_unit="nM") -> str:
         columns=["rank", "compound", "status", "verdict", "mechanism",
                  f"Ki ({ki_unit}) [95% CI]", "pKi [95% CI]", "pIC50", "flags", "reason"],
         rows=ranking_rows(ranking.head(rows), anchors, ki_unit),
-        more=max(len(ranking) - rows, 0), png=png_uri(fig, NOTEBOOK_DPI))
+        more=max(len(ranking) - rows, 0), png=_notebook_image(fig))
 
 
 def _plot_ranking(ranking, *, ax):

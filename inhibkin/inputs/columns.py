@@ -21,7 +21,8 @@ import re
 from ..errors import DataError, Problem
 from ..units import CONCENTRATION_UNITS, TIME_UNITS, normalise_unit
 
-__all__ = ["ROLES", "split_header", "header_key", "find_column", "standardise_columns"]
+__all__ = ["ROLES", "split_header", "header_key", "find_column", "did_you_mean",
+           "standardise_columns"]
 
 #: Role -> the kind of unit its header may carry (None: a unit is a free label).
 ROLES = {"compound": None, "plate": None, "well": None, "role": None,
@@ -125,7 +126,10 @@ def find_column(columns, name, *, kind=None, label_ok=False, context=None, optio
                         context) from None
 
 
-def _did_you_mean(columns, name) -> str:
+def did_you_mean(columns, name) -> str:
+    """The closest headers to ``name`` as a hint ("did you mean 'Substrate (uM)'?"), or
+    the table's headers when none is close."""
+    columns = [str(c) for c in columns]
     keys = {header_key(split_header(c)[0]): c for c in columns}
     close = difflib.get_close_matches(header_key(split_header(name)[0]), list(keys),
                                       n=_CLOSEST, cutoff=0.5)
@@ -181,7 +185,7 @@ def standardise_columns(table, *, required=(), context=None, options=None, **nam
         if found is None:
             if role in required:
                 problems.append(Problem(options.get(role, role), None, name,
-                                        f"no such column; {_did_you_mean(columns, name)}"
+                                        f"no such column; {did_you_mean(columns, name)}"
                                         + (f" (name it with {options[role]})"
                                            if role in options else "")))
             continue

@@ -6,7 +6,10 @@ value as an empty cell), and every text cell as text — including text that sta
 otherwise run as a formula (formula injection: a compound named ``=HYPERLINK(...)``).
 Such cells are written as strings with the quote-prefix style, so the workbook shows the
 exact input text and never evaluates it. :func:`campaign_sheets` gives a campaign's
-ranked table, parameters and plate QC. Numbers carry 16 significant digits (openpyxl's
+ranked table, parameters and plate QC. Concentrations are written for people: one unit
+per column chosen by magnitude and stated in the header (``ki (nM)``, ``ic50 (µM)``), a
+parameter table's constants with a ``unit`` column; CSV and Parquet keep molar ``_M``
+columns for machines. Numbers carry 16 significant digits (openpyxl's
 number format; Excel shows 15): for copies exact to the bit use Parquet, CSV or the
 results store.
 
@@ -22,6 +25,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import DataError
+from ..units import readable_units
 from .io import plain_scalar
 
 __all__ = ["FORMULA_PREFIXES", "looks_like_formula", "write_workbook", "campaign_sheets",
@@ -61,7 +65,7 @@ def _cell_value(value):
     return value if value is None or isinstance(value, (bool, int)) else str(value)
 
 
-def write_workbook(sheets, path) -> Path:
+def write_workbook(sheets, path, *, readable=True) -> Path:
     """Write tables as the sheets of one ``.xlsx`` workbook, atomically.
 
     Parameters
@@ -69,6 +73,11 @@ def write_workbook(sheets, path) -> Path:
     sheets : dict
         Sheet name -> pandas.DataFrame, in order (names are cut to 31 characters).
     path : str or os.PathLike
+    readable : bool
+        Write molar columns (``ki_M``…) and a parameter table's constants in one unit per
+        column chosen by magnitude, stated in the header (``ki (nM)``) or in a ``unit``
+        column (:func:`inhibkin.units.readable_units`); False writes the tables as they
+        are.
 
     Returns
     -------
@@ -82,6 +91,8 @@ def write_workbook(sheets, path) -> Path:
     book = openpyxl.Workbook()
     book.remove(book.active)
     for name, table in sheets.items():
+        if readable:
+            table = readable_units(table)
         sheet = book.create_sheet(str(name)[:_SHEET_NAME_CHARS])
         sheet.append([str(c) for c in table.columns])
         for row in table.itertuples(index=False, name=None):

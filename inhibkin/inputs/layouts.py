@@ -22,6 +22,7 @@ import pandas as pd
 
 from ..errors import DataError, Problem
 from ..units import normalise_unit
+from .columns import did_you_mean, find_column
 from .wells import PLATE_FORMATS, normalise_wells, parse_well, row_letter, well_name
 
 __all__ = ["dilution_layout", "grid_layout", "plate_grid", "join_layout"]
@@ -134,12 +135,17 @@ def plate_grid(layout, *, value="compound", plate=None, width=10) -> str:
     layout : pandas.DataFrame
         plate, well and the ``value`` column.
     value : str
-        Column shown in the wells (e.g. ``"compound"``, ``"role"``, ``"inhibitor_uM"``).
+        Column shown in the wells (e.g. ``"compound"``, ``"role"``, ``"inhibitor_uM"``),
+        matched as the other stages match headers: ``"substrate"`` finds
+        ``substrate_uM`` or ``Substrate (uM)``.
     plate : str, optional
         Which plate (default: every plate, one grid after another).
     """
-    if value not in layout.columns:
-        raise DataError(Problem(value, None, None, "no such column in the layout"))
+    found = find_column(layout.columns, value, label_ok=True)
+    if found is None:
+        raise DataError(Problem(value, None, None, "no such column in the layout; "
+                                                   + did_you_mean(layout.columns, value)))
+    value = found[0]
     plates = [plate] if plate is not None else list(pd.unique(layout["plate"]))
     blocks = []
     for name in plates:

@@ -46,6 +46,7 @@ from ..progress import progress_bar
 from ..rates.plates import Z_PRIME_THRESHOLD
 from ..units import column_unit, from_molar, normalise_unit, to_molar
 from . import figures, sketch
+from .text import ki_texts, ranking_ki_unit, unit_label
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
            "check_detail", "select_detail", "CAUTIONS", "DEFAULT_DETAIL"]
@@ -265,18 +266,20 @@ def _campaign_potency_context(campaign, max_figures) -> dict | None:
     # One unit for the column, chosen by the size of its values (issue 17).
     ic50_unit = column_unit(screen["ic50_M"])
     per_unit = from_molar(1.0, ic50_unit)
+    ki_unit = ranking_ki_unit(ranking)
     rows = []
-    for r in screen.to_dict("records"):
+    for r, (ki, ki_sort) in zip(screen.to_dict("records"), ki_texts(screen, ki_unit)):
         ic50 = (f"{number_text(r['ic50_M'] * per_unit)} "
                 f"[{number_text(r['ic50_low_M'] * per_unit)}, "
                 f"{number_text(r['ic50_high_M'] * per_unit)}]"
                 if np.isfinite(r["ic50_M"]) else "")
         rows.append([cell(r["compound"]), cell(r["status"]), cell(ic50, r["ic50_M"]),
                      cell(number_text(r["pic50"], "{:.2f}"), r["pic50"]),
-                     cell(number_text(r["hill"], "{:.2f}"), r["hill"]), cell(r["ki_reported"]),
+                     cell(number_text(r["hill"], "{:.2f}"), r["hill"]), cell(ki, ki_sort),
                      cell(number_text(r["pki"], "{:.2f}"), r["pki"]), cell(r["mechanism"]),
                      cell(r["ki_source"]), cell(r["flags"]), cell(r["reason"])])
-    columns = ["compound", "status", f"IC50 ({ic50_unit}) [95% CI]", "pIC50", "Hill", "Ki (M)",
+    columns = ["compound", "status", f"IC50 ({ic50_unit}) [95% CI]", "pIC50", "Hill",
+               f"Ki ({ki_unit}) [95% CI]",
                "pKi", "mechanism", "Ki from", "flags", "reason"]
     by_potency = screen.sort_values("pic50", ascending=False, na_position="last")["compound"]
     threshold = dict(getattr(campaign, "options", {})).get("z_prime_threshold",
@@ -341,12 +344,17 @@ def _time_dependent_context(table) -> dict:
 
 def render_report(campaign, *, potency=None, rates=None, time_dependent=None,
                   title="Inhibitor campaign report",
-                  rate_unit="", units=None, ki_unit="nM", potency_unit="",
+                  rate_unit="", units=None, ki_unit=None, potency_unit="",
                   max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=REPORT_DPI,
                   detail=DEFAULT_DETAIL, quiet=False) -> str:
     """The report as an HTML string (see :func:`report`)."""
     check_detail(detail)
     ranking, fits, options = _as_campaign(campaign)
+    molar = hasattr(campaign, "ranking")
+    # One unit for the Ki column, by magnitude unless asked for; a mapping of fits keeps
+    # its fits' own units, written in its texts.
+    ki_unit = normalise_unit(ki_unit) if ki_unit else ranking_ki_unit(ranking)
+    ki_header = f"Ki ({unit_label(ki_unit)}) [95% CI]" if molar else "Ki [95% CI]"
     detailed = select_detail(detail, ranking)
     display = dict(units or {})
     if hasattr(campaign, "ranking"):
@@ -367,7 +375,7 @@ def render_report(campaign, *, potency=None, rates=None, time_dependent=None,
                                                detailed=c in detailed,
                                                dose_fit=dose_fits.get(c),
                                                dose_unit=dose_unit,
-                                               molar=hasattr(campaign, "ranking")))
+                                               molar=molar))
             bar.update()
     flagged = ranking[ranking["flags"].astype(str) != ""][["compound", "status", "flags"]]
     failed = ranking[ranking["status"] == "failed"][["compound", "reason"]]
@@ -383,11 +391,10 @@ def render_report(campaign, *, potency=None, rates=None, time_dependent=None,
         "counts": counts,
         "n_compounds": len(ranking),
         "options": {k: v for k, v in options.items() if k != "seconds"},
-        "ki_unit": ki_unit,
+        "ki_unit": unit_label(ki_unit),
         "ranking": ranking_rows(ranking, anchors, ki_unit),
         "ranking_columns": ["rank", "compound", "status", "verdict", "mechanism",
-                            f"Ki ({ki_unit}) [95% CI]", "pKi [95% CI]", "pIC50", "flags",
-                            "reason"],
+                            ki_header, "pKi [95% CI]", "pIC50", "flags", "reason"],
         "flagged": [{"compound": str(c), "anchor": anchors[c], "status": s, "flags": f}
                     for c, s, f in flagged.itertuples(index=False)],
         "failed": [{"compound": str(c), "anchor": anchors[c], "reason": r}
@@ -425,7 +432,7 @@ def _write_atomically(text: str, path: Path) -> None:
 
 def report(campaign, path, *, potency=None, rates=None, time_dependent=None,
            title="Inhibitor campaign report",
-           rate_unit="", units=None, ki_unit="nM", potency_unit="",
+           rate_unit="", units=None, ki_unit=None, potency_unit="",
            max_potency_figures=_MAX_POTENCY_FIGURES, notes=(), dpi=REPORT_DPI,
            detail=DEFAULT_DETAIL, quiet=False) -> Path:
     """Write the campaign's report as one self-contained HTML file.
@@ -461,8 +468,9 @@ def report(campaign, path, *, potency=None, rates=None, time_dependent=None,
     units : dict, optional
         Display units of the axes, ``{"substrate": "uM", "inhibitor": "nM"}``; by
         default the units the campaign declared.
-    ki_unit : str
-        Unit of Ki in the ranked table (pKi is always from molar).
+    ki_unit : str, optional
+        Unit of Ki in the ranked table (pKi is always from molar); by default the one
+        its values read best in (:func:`inhibkin.reporting.text.ranking_ki_unit`).
     potency_unit : str
         Unit label of the dose-response concentrations.
     max_potency_figures : int

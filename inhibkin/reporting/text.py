@@ -8,9 +8,12 @@ from __future__ import annotations
 
 import numbers
 
+import numpy as np
 import pandas as pd
 
-__all__ = ["MISSING", "text_table"]
+from ..units import CONCENTRATION_UNITS, family_unit, significant_text
+
+__all__ = ["MISSING", "text_table", "ranking_ki_unit", "ki_texts", "unit_label"]
 
 #: How a missing value is printed.
 MISSING = "-"
@@ -44,3 +47,41 @@ def text_table(frame: pd.DataFrame, *, float_format=lambda x: f"{x:.4g}", index=
         cells.index = pd.Index([_cell(x, float_format) for x in frame.index],
                                name=frame.index.name)
     return cells.to_string(index=index)
+
+
+def unit_label(unit) -> str:
+    """A concentration unit as printed for people (``uM`` as ``µM``)."""
+    return "µM" if unit == "uM" else str(unit)
+
+
+def ranking_ki_unit(ranking: pd.DataFrame) -> str:
+    """The one unit of a ranked table's Ki column, chosen by magnitude from its Ki values
+    and limits (:func:`inhibkin.units.family_unit`)."""
+    return family_unit(ranking[c] for c in ("ki_M", "ki_low_M", "ki_high_M")
+                       if c in ranking.columns)
+
+
+def ki_texts(ranking: pd.DataFrame, unit: str) -> list[tuple[str, float]]:
+    """Each ranked row's Ki as written under a header that states ``unit``: the value and
+    interval (``"1.65 [1.49, 1.82]"``), a limit (``"> 30"``, ``"< 0.5"``) or, without a
+    number, the row's ``ki_reported`` text; with the molar value the row sorts by (NaN
+    when none)."""
+    per_unit = 1.0 / CONCENTRATION_UNITS[unit]
+
+    def number(x) -> str:
+        return significant_text(float(x) * per_unit)
+
+    out = []
+    for r in ranking.to_dict("records"):
+        ki, low, high = (float(r.get(c, np.nan)) for c in ("ki_M", "ki_low_M", "ki_high_M"))
+        status = r.get("status")
+        if status == "determined" and np.isfinite(ki):
+            out.append((f"{number(ki)} [{number(low)}, {number(high)}]", ki))
+        elif status == "bound" and low > 0 and not np.isfinite(high):
+            out.append((f"> {number(low)}", low))
+        elif status == "bound" and np.isfinite(high) and not low > 0:
+            out.append((f"< {number(high)}", high))
+        else:
+            text = r.get("ki_reported", "")
+            out.append((text if isinstance(text, str) else "", np.nan))
+    return out
