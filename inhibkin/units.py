@@ -58,7 +58,9 @@ _HOW_TO_DECLARE = (
     "known units: " + ", ".join(CONCENTRATION_UNITS)
 )
 
-_SUFFIX = re.compile(r"^(?P<base>.+?)[_ ]\(?(?P<unit>[A-Za-zµμ]+)\)?$")
+# "inhibitor_nM", "substrate uM", "substrate (mM)", "S [µM]" (as the column mapping reads).
+_SUFFIX = re.compile(r"^(?P<base>.+?)(?:_|\s*\((?=.*\)$)|\s*\[(?=.*\]$)|\s)"
+                     r"(?P<unit>[A-Za-zµμ]+)[)\]]?$")
 
 
 def normalise_unit(unit, *, kind="concentration"):

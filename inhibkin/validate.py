@@ -59,11 +59,12 @@ def check_columns(df, columns, context=None) -> None:
                                                 "rename or drop one") for c in twice], context)
     missing = [c for c in columns if c not in df.columns]
     if missing:
-        have = ", ".join(map(repr, df.columns[:20]))
-        raise DataError(
-            [Problem(c, None, None, f"column is missing; the table has: {have}") for c in missing],
-            context,
-        )
+        # Imported here: inhibkin.inputs reads tables through this module.
+        from .inputs.columns import did_you_mean
+
+        raise DataError([Problem(c, None, None,
+                                 f"column is missing; {did_you_mean(df.columns, c)}")
+                         for c in missing], context)
 
 
 def _listed(problems, column, rows, values, message, kind="row"):

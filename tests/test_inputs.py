@@ -317,3 +317,115 @@ def test_a_superscript_digit_is_not_a_column_number():
     from inhibkin.inputs.plate_matrix import looks_like_plate_matrix
 
     assert not looks_like_plate_matrix(["compound,hostile", "²,True", ",True"])
+
+
+# ------------------------------------ a plate read from first principles, as exported
+
+# tests/grid_ode.py: the mass-action ODE of E, S, I, ES, EI (solve_ivp, LSODA, rtol 1e-10),
+# read as absorbance with 3 % read noise. A rapid-equilibrium competitive inhibitor,
+# Ki = 1 µM; read every 60 s for 10 min (11 reads, a common kinetic protocol).
+ODE_KI_UM = 1.0
+ODE_READ_STEP = 3  # every third of the simulator's 20 s reads
+
+
+@pytest.fixture(scope="module")
+def ode_plate():
+    from grid_ode import Mechanism, plate
+
+    reads, plate_map = plate(Mechanism(kic=ODE_KI_UM), seed=4, compound="CPD-3")
+    keep = (reads["time"] / 20.0).round().astype(int) % ODE_READ_STEP == 0
+    return reads[keep].reset_index(drop=True), plate_map
+
+
+def _tab_export(reads, path):
+    """The other common layout: tab-separated, the plate and time in a header line
+    ('plate P1, time 0:01:00'), decimal commas, instrument text between blocks."""
+    lines = ["Instrument: absorbance reader", "Wavelength: 340 nm", ""]
+    for time, group in reads.groupby("time", sort=True):
+        grid = np.full((8, 12), np.nan)
+        for well, value in zip(group["well"], group["signal"]):
+            r, c = parse_well(well)
+            grid[r, c - 1] = value
+        minutes, seconds = divmod(int(round(time)), 60)
+        lines += [f"plate P1, time 0:{minutes:02d}:{seconds:02d}",
+                  "\t" + "\t".join(str(c) for c in range(1, 13))]
+        lines += [chr(65 + r) + "\t" + "\t".join(f"{v:.5f}".replace(".", ",") for v in grid[r])
+                  for r in range(8)]
+        lines += ["", "Temperature: 25.0 °C", ""]
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return path
+
+
+def test_an_exported_plate_of_mass_action_reads_gives_the_true_mechanism(tmp_path,
+                                                                          ode_plate):
+    """Issue 17, done-when, as a new user runs it: the export and the map go through
+    `inhibkin rates` and `inhibkin mechanism` as they are. Before the fix of the
+    time-dependence test (Student's t instead of the normal for slopes of 4 reads), 10 of
+    the 80 inhibited wells of this rapid-equilibrium plate were flagged time_dependent and
+    the compound got no Ki."""
+    reads, plate_map = ode_plate
+    export = _tab_export(reads, tmp_path / "export.txt")
+    write_table(plate_map, tmp_path / "map.csv")
+    assert main(["rates", str(export), "--plate-map", str(tmp_path / "map.csv"),
+                 "-o", str(tmp_path / "rates.csv"), "--quiet"]) == 0
+    rates = read_table(tmp_path / "rates.csv")
+    assert len(rates) == len(plate_map)
+    assert not rates["flags"].fillna("").str.contains("time_dependent").any()
+    assert main(["mechanism", str(tmp_path / "rates.csv"), "-o",
+                 str(tmp_path / "ranked.csv"), "--quiet"]) == 0
+    row = read_table(tmp_path / "ranked.csv").iloc[0]
+    assert row["verdict"] == "competitive", row["reason"]
+    # The simulator's Ki inside the fit's 95 % interval (one seed).
+    assert row["ki_low_M"] <= ODE_KI_UM * 1e-6 <= row["ki_high_M"]
+
+
+def test_initial_rates_reads_a_layout_s_headers_in_python(ode_plate):
+    """The Python API took the reads' headers as the command line does but refused the
+    plate map's ('column substrate is missing' beside substrate_uM)."""
+    import inhibkin as ik
+
+    reads, plate_map = ode_plate
+    lab_map = plate_map.rename(columns={"substrate_uM": "Substrate (uM)",
+                                        "inhibitor_uM": "inhibitor [uM]"})
+    got = ik.initial_rates(reads, lab_map).table
+    expected = ik.initial_rates(reads, plate_map.rename(columns={
+        "substrate_uM": "substrate", "inhibitor_uM": "inhibitor"}), substrate_unit="uM",
+        inhibitor_unit="uM").table
+    np.testing.assert_array_equal(got["rate"], expected["rate"])
+    with pytest.raises(DataError, match=r"did you mean 'Substrate \(uM\)'\?"):
+        ik.initial_rates(reads, lab_map, substrate="substrat")
+
+
+def test_an_unnamed_plate_is_answered_with_how_to_name_it(tmp_path, ode_plate, capsys):
+    """A new user's first run: the export's blocks name no plate (so it takes the file's
+    name) and the layout says P1; the refusal listed both but not what to do."""
+    reads, plate_map = ode_plate
+    export = _tab_export(reads, tmp_path / "export.txt")
+    export.write_text(export.read_text(encoding="utf-8").replace("plate P1, ", ""),
+                      encoding="utf-8")
+    write_table(plate_map, tmp_path / "map.csv")
+    command = ["rates", str(export), "--plate-map", str(tmp_path / "map.csv"),
+               "-o", str(tmp_path / "rates.csv"), "--quiet"]
+    assert main(command) == 2
+    err = capsys.readouterr().err
+    assert "plates ['export']" in err and "--plate NAME" in err
+    assert main(command + ["--plate", "P1"]) == 0
+
+
+def test_fit_campaign_takes_lab_headers_by_keyword():
+    """In Python, fit_campaign(substrate='S [µM]') said 'concentration unit not declared'
+    (a bracketed unit was read only by standardise_columns), and a missing column listed
+    every header instead of the closest one."""
+    import inhibkin as ik
+
+    table, _ = ik.simulate_campaign(2, seed=5)
+    lab = table.rename(columns={"compound": "Cpd ID", "substrate_uM": "S [µM]",
+                                "inhibitor_nM": "Inhibitor (nM)", "rate": "V0 (mOD/min)"})
+    got = ik.fit_campaign(lab, compound="Cpd ID", substrate="S [µM]",
+                          inhibitor="Inhibitor (nM)", rate="V0 (mOD/min)", quiet=True)
+    expected = ik.fit_campaign(table, quiet=True)
+    np.testing.assert_array_equal(got.ranking["ki_M"], expected.ranking["ki_M"])
+    with pytest.raises(DataError, match=r"column 'V0': column is missing; did you mean "
+                                        r"'V0 \(mOD/min\)'\?"):
+        ik.fit_campaign(lab, compound="Cpd ID", substrate="S [µM]",
+                        inhibitor="Inhibitor (nM)", rate="V0", quiet=True)

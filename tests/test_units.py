@@ -57,7 +57,11 @@ def test_to_seconds(value, unit, seconds):
                           ("substrate (mM)", ("substrate", "mM")),
                           ("enzyme conc_pM", ("enzyme conc", "pM")),
                           ("rate", ("rate", None)),
-                          ("compound_id", ("compound_id", None))])
+                          ("compound_id", ("compound_id", None)),
+                          # Brackets, as the column mapping reads them (issue 17, item 3).
+                          ("S [µM]", ("S", "µM")),
+                          ("inhibitor[nM]", ("inhibitor", "nM")),
+                          ("substrate (mM]", ("substrate (mM]", None))])
 def test_split_unit(header, expected):
     assert split_unit(header) == expected
 

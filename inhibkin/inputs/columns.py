@@ -32,6 +32,9 @@ ROLES = {"compound": None, "plate": None, "well": None, "role": None,
 _UNIT_TAIL = re.compile(r"^(?P<base>.*?)\s*(?:[(\[](?P<bracketed>[^)\]]*)[)\]]"
                         r"|[_ ](?P<plain>[A-Za-zµμ/]+))\s*$")
 _CLOSEST = 3
+# difflib's similarity a header must reach to be offered: at 0.5 'rate' was offered
+# 'Substrat (uM)' (three letters in common); a dropped or swapped letter stays above 0.6.
+_CLOSE_ENOUGH = 0.6
 # Roles whose header unit may be a detector's label (RFU, mOD) rather than a concentration.
 _LABEL_OK = {"signal"}
 
@@ -132,7 +135,7 @@ def did_you_mean(columns, name) -> str:
     columns = [str(c) for c in columns]
     keys = {header_key(split_header(c)[0]): c for c in columns}
     close = difflib.get_close_matches(header_key(split_header(name)[0]), list(keys),
-                                      n=_CLOSEST, cutoff=0.5)
+                                      n=_CLOSEST, cutoff=_CLOSE_ENOUGH)
     if close:
         return "did you mean " + " or ".join(repr(keys[k]) for k in close) + "?"
     return "the table has: " + ", ".join(map(repr, columns[:20]))

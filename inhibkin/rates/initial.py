@@ -71,7 +71,7 @@ from scipy import stats
 from ..errors import DataError, Problem, UnitsError
 from ..inputs.columns import find_column
 from ..time_dependent.detect import time_dependence
-from ..units import from_molar, normalise_unit, split_unit, to_molar, to_seconds
+from ..units import from_molar, normalise_unit, to_molar, to_seconds
 from ..validate import check_columns, normalise_roles, numeric_column, row_kind
 from .signal import BeerLambert, StandardCurve, blank_signal
 
@@ -567,23 +567,25 @@ def _check_some_match(read_key, map_key):
         return sorted({k.split("\x1f")[0] for k in keys})[:5]
     def wells(keys):
         return sorted({k.split("\x1f")[1] for k in keys})[:5]
+    hint = ""
+    read_wells = {k.split("\x1f")[1] for k in read_key}
+    if read_wells & {k.split("\x1f")[1] for k in map_key}:
+        # The usual cause: a plate-reader matrix whose blocks name no plate took the
+        # file's name, and the layout calls the plate P1.
+        hint = (". The wells match but the plates do not: name the reads' plate as the map "
+                "does (a matrix block without 'plate NAME' takes the file's name; "
+                "--plate NAME, or read_plate_matrix(path, plate=NAME))")
     raise DataError(f"no well of the reads is in the plate map: the reads have plates "
                     f"{plates(read_key)} and wells {wells(read_key)}, the plate map plates "
                     f"{plates(map_key)} and wells {wells(map_key)}. Labels are compared as "
-                    f"text (spaces trimmed, A01 = A1), so plate '1' and '1.0' differ",
+                    f"text (spaces trimmed, A01 = A1), so plate '1' and '1.0' differ{hint}",
                     "reads and plate map")
 
 
-def _unit_of(column, declared, kind="concentration"):
-    if declared is not None:
-        return normalise_unit(declared, kind=kind)
-    found = split_unit(column, kind=kind)[1]
-    return normalise_unit(found, kind=kind) if found else None
-
-
-def _header_column(frame, name, declared, *, kind, what):
+def _header_column(frame, name, declared, *, kind, what, context="reads"):
     """The column ``name`` of ``frame`` (matched as the column mapping matches headers:
-    ``Time (min)``, ``time [min]`` and ``TIME_min`` are the time column) and its unit.
+    ``Time (min)``, ``time [min]`` and ``TIME_min`` are the time column; ``substrate_uM``
+    and ``Substrate (uM)`` the plate map's substrate) and its unit.
 
     The unit is the one ``declared`` as an option, else the one the header carries, else
     None; an option that contradicts the header is refused. A name that matches no
@@ -594,14 +596,14 @@ def _header_column(frame, name, declared, *, kind, what):
         return name, canonical
     # A signal header's unit may be a detector's label ('Signal (RFU)'); a time's may not.
     found = find_column(frame.columns, name, kind=kind, label_ok=what == "signal",
-                        context="reads")
+                        context=context)
     if found is None:
         return name, canonical
     column, header = found
     if canonical is not None and header is not None and canonical != header:
         raise UnitsError(Problem(column, None, declared,
                                  f"{what} unit given as an option ({declared}) contradicts "
-                                 f"the header {column!r}"), "reads")
+                                 f"the header {column!r}"), context)
     return column, canonical or header
 
 
@@ -707,8 +709,14 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     signal_unit = header_unit if conversion is None else signal_unit
     rate_time_unit = (normalise_unit(rate_time_unit, kind="time")
                       if rate_time_unit is not None else time_unit)
-    substrate_unit = _unit_of(substrate, substrate_unit)
-    inhibitor_unit = _unit_of(inhibitor, inhibitor_unit)
+    # The plate map's concentrations are found as every stage finds them: a layout of
+    # inhibkin.inputs.layouts (substrate_uM, inhibitor_nM) or a lab's 'Substrate (uM)'.
+    substrate, substrate_unit = _header_column(plate_map, substrate, substrate_unit,
+                                               kind="concentration", what="substrate",
+                                               context="plate map")
+    inhibitor, inhibitor_unit = _header_column(plate_map, inhibitor, inhibitor_unit,
+                                               kind="concentration", what="inhibitor",
+                                               context="plate map")
     t_all, y_all = _read_table(reads, time=time, signal=signal, plate=plate, well=well)
     roles, s_map, i_map = _read_map(plate_map, plate=plate, well=well, compound=compound,
                                     substrate=substrate, inhibitor=inhibitor, role=role)

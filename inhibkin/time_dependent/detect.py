@@ -10,7 +10,8 @@ per fraction of substrate converted is Km,app/(Km,app + S) ≤ 1, so an inhibito
 raise it from the references' Km/(Km + S) to 1; ``depletion_factor`` (default 2, the same
 margin the rates stage uses for its burst flag) covers that and product inhibition. A
 well is flagged when its fall exceeds the explained fall by more than ``min_excess`` and
-by more than z standard errors (one-sided level ``level``; strict, because every well is
+by more than z standard errors (one-sided level ``level`` of Student's t with the
+Welch–Satterthwaite degrees of freedom of the two slopes; strict, because every well is
 tested). Wells with no reference at their substrate level are not judged.
 """
 
@@ -36,7 +37,8 @@ LEVEL = 1e-3
 
 
 def _window_slopes(t, y, mask):
-    """Least-squares slope, its SE and the mean signal over ``mask`` in every row."""
+    """Least-squares slope, its SE (n − 2 degrees of freedom) and the mean signal over
+    ``mask`` in every row."""
     n = mask.sum(axis=1)
     tz, yz = np.where(mask, t, 0.0), np.where(mask, y, 0.0)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -83,7 +85,16 @@ def time_dependence(t, y, valid, *, substrate, inhibitor, group,
     v_late, se_late, m_late = _window_slopes(t, y, late)
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = v_late / v_early
-        ratio_se = np.abs(ratio) * np.sqrt((se_late / v_late) ** 2 + (se_early / v_early) ** 2)
+        relative_late, relative_early = (se_late / v_late) ** 2, (se_early / v_early) ** 2
+        ratio_se = np.abs(ratio) * np.sqrt(relative_late + relative_early)
+        # Each slope's SE comes from its window's n − 2 residual degrees of freedom (two
+        # when a window holds 4 reads): the ratio's z is referred to Student's t with the
+        # Welch–Satterthwaite degrees of freedom of the two variances (Satterthwaite 1946,
+        # Biometrics Bull. 2:110), not to the normal, which at 11 reads flagged 5.8 % of
+        # linear wells at the 0.1 % level.
+        df = ((relative_late + relative_early) ** 2
+              / (relative_late ** 2 / (late.sum(axis=1) - 2)
+                 + relative_early ** 2 / (early.sum(axis=1) - 2)))
     fall = 1.0 - ratio
     product = m_late - m_early
     frame = pd.DataFrame({"group": pd.Series(group).astype(str).to_numpy(),
@@ -99,7 +110,7 @@ def time_dependence(t, y, valid, *, substrate, inhibitor, group,
         z = (fall - explained) / ratio_se
     flagged = ((np.asarray(inhibitor, dtype=float) > 0) & np.isfinite(explained)
                & np.isfinite(z) & (fall - explained > min_excess)
-               & (z > stats.norm.isf(level)))
+               & (z > stats.t.isf(level, np.where(df > 0, df, np.nan))))
     return pd.DataFrame({"rate_fall": fall, "explained_fall": explained, "fall_se": ratio_se,
                          "time_dependent": flagged})
 
