@@ -17,9 +17,9 @@ import numpy as np
 import pandas as pd
 from jinja2 import Environment, PackageLoader, select_autoescape
 
-from ..mechanism.one_model import format_estimate
-from ..reporting import figures
 from ..units import from_molar, molar_unit
+from . import figures
+from .text import format_estimate
 
 __all__ = ["ENVIRONMENT", "REPORT_DPI", "LAYOUT_DPI", "NOTEBOOK_DPI", "png_uri", "png_image",
            "number_text", "cell",
