@@ -15,7 +15,7 @@ import argparse
 
 import numpy as np
 
-from inhibkin.mechanism.design import plan_grid
+from inhibkin.design import plan_grid
 
 SETUPS = {
     "help example (Ki 0.05-0.5, 3-fold from 0.001)": dict(

@@ -37,8 +37,8 @@ import pandas as pd
 from scipy import stats
 
 from inhibkin.core.models import MODELS
+from inhibkin.design import CALL_OUTCOMES, call_outcome
 from inhibkin.errors import DataError
-from inhibkin.mechanism.design import CALL_OUTCOMES, call_outcome
 from inhibkin.mechanism.fit import fit_mechanisms
 from inhibkin.simulate import simulate_grid, standard_design
 from inhibkin.validate import check_grid
@@ -126,7 +126,7 @@ DESIGNS: dict[str, Callable[[float, float], tuple[np.ndarray, np.ndarray]]] = {
     "low_substrate": _design_low_substrate,
 }
 
-#: Outcome classes, in display order: those of :func:`inhibkin.mechanism.design.call_outcome`,
+#: Outcome classes, in display order: those of :func:`inhibkin.design.call_outcome`,
 #: and ``rejected`` for a data set the input checks refuse (:func:`fit_case`).
 OUTCOMES = (*CALL_OUTCOMES, "rejected")
 

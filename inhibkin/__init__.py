@@ -15,7 +15,7 @@ __version__ = "0.1.0"
 
 # Public name -> the module that defines it.
 _EXPORTS = {
-    "figures": "reporting.figures",
+    "figures": "display.figures",
     "Campaign": "campaign.batch",
     "fit_campaign": "campaign.batch",
     "simulate_campaign": "campaign.batch",
@@ -23,8 +23,8 @@ _EXPORTS = {
     "cheng_prusoff": "potency.conversion",
     "ic50_from_ki": "potency.conversion",
     "CurveClassRules": "core.curve_class",
-    "GridPlan": "mechanism.design",
-    "plan_grid": "mechanism.design",
+    "GridPlan": "design",
+    "plan_grid": "design",
     "fit_logistic_batch": "engine",
     "fit_mechanism_arrays": "engine",
     "fit_mechanisms_batch": "engine",

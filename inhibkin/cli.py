@@ -556,7 +556,7 @@ def _store_stage_arguments(parser):
 
 def _store_stage(args) -> int:
     from . import store
-    from .reporting.text import text_table
+    from .display.text import text_table
     from .units import readable_units
 
     output = _check_output(args.output) if args.output else None
@@ -801,8 +801,8 @@ def _levels(text, option):
 
 
 def _design(args) -> int:
+    from .design import plan_grid
     from .inputs.io import write_table
-    from .mechanism.design import plan_grid
     from .units import normalise_unit
 
     output = _check_output(args.output) if args.output else None

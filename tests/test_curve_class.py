@@ -10,11 +10,11 @@ from inhibkin.campaign.batch import fit_campaign
 from inhibkin.core.curve_class import CURVE_CLASSES, CurveClassRules, classify_curves
 from inhibkin.core.logistic import logistic4
 from inhibkin.demo import DEMO_DATA
+from inhibkin.display.text import ranking_ki_unit
 from inhibkin.engine import fit_logistic_batch
 from inhibkin.errors import DataError
 from inhibkin.potency.curve import fit_dose_response
 from inhibkin.rates.plates import percent_activity, plate_qc
-from inhibkin.reporting.text import ranking_ki_unit
 from inhibkin.units import from_molar, significant_text
 
 # Demo compounds whose activity stays flat near 100 % (invented_screen_truth.csv marks

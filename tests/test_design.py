@@ -8,8 +8,7 @@ import pytest
 from scipy import stats
 
 from inhibkin.core.models import MODELS
-from inhibkin.errors import DataError
-from inhibkin.mechanism.design import (
+from inhibkin.design import (
     WINDOW_FACTOR,
     GridPlan,
     call_outcome,
@@ -17,6 +16,7 @@ from inhibkin.mechanism.design import (
     naive_levels,
     plan_grid,
 )
+from inhibkin.errors import DataError
 
 CRITERION_RTOL = 1e-6
 FINITE_DIFFERENCE_STEP = 1e-6

@@ -9,10 +9,10 @@ import pytest
 
 import inhibkin as ik
 from inhibkin.cli import main
+from inhibkin.display.text import ranking_ki_unit
 from inhibkin.errors import DataError
 from inhibkin.inputs import read_any_table
 from inhibkin.inputs.excel import looks_like_formula, read_workbook_rows, write_workbook
-from inhibkin.reporting.text import ranking_ki_unit
 from inhibkin.units import to_molar
 
 openpyxl = pytest.importorskip("openpyxl")

@@ -8,9 +8,9 @@ from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 
 from inhibkin.core.logistic import logistic4
+from inhibkin.display import figures
 from inhibkin.mechanism.fit import fit_mechanisms
 from inhibkin.potency.curve import fit_dose_response
-from inhibkin.reporting import figures
 from inhibkin.simulate import simulate_grid
 
 SEED = 20261201

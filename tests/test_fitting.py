@@ -129,7 +129,7 @@ def test_constant_past_tested_range_is_a_bound_not_a_number():
     row = fit.params.loc["kic"]
     assert not row["determined"]
     assert "not determined" in fit.summary() or ">" in fit.summary()
-    from inhibkin.mechanism.one_model import format_estimate
+    from inhibkin.display.text import format_estimate
     text = format_estimate(row)
     assert text.startswith(">") or text == "not determined"
 

@@ -40,7 +40,7 @@ def test_every_public_name_resolves_to_its_object():
     assert set(ik.__all__) <= set(dir(ik))
     # A submodule named like its function leaves the function as the package's name.
     assert ik.report is report and ik.potency_table is potency_table
-    assert ik.figures.__name__ == "inhibkin.reporting.figures"
+    assert ik.figures.__name__ == "inhibkin.display.figures"
 
 
 def test_unknown_names_raise_attribute_error():

@@ -12,6 +12,7 @@ import pytest
 
 from inhibkin.campaign.batch import fit_campaign, simulate_campaign
 from inhibkin.core.logistic import logistic4
+from inhibkin.display.text import ranking_ki_unit
 from inhibkin.errors import DataError
 from inhibkin.mechanism.fit import fit_mechanisms
 from inhibkin.potency.curve import fit_dose_response
@@ -26,7 +27,6 @@ from inhibkin.reporting.report import (
     report,
     select_detail,
 )
-from inhibkin.reporting.text import ranking_ki_unit
 from inhibkin.simulate import simulate_grid
 from inhibkin.units import column_unit, from_molar, significant_text
 

@@ -14,10 +14,11 @@ from hypothesis import strategies as st
 
 from inhibkin.campaign.batch import STATUSES, fit_campaign, simulate_campaign
 from inhibkin.cli import main
+from inhibkin.display.text import format_estimate
 from inhibkin.errors import DataError, InhibkinError, InhibkinWarning
 from inhibkin.inputs.io import read_table, write_table
 from inhibkin.mechanism.fit import fit_mechanisms
-from inhibkin.mechanism.one_model import fit_michaelis_menten, format_estimate
+from inhibkin.mechanism.one_model import fit_michaelis_menten
 from inhibkin.potency.conversion import cheng_prusoff
 from inhibkin.potency.curve import fit_dose_response
 from inhibkin.potency.morrison import fit_morrison

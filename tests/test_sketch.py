@@ -8,15 +8,15 @@ import numpy as np
 import pytest
 
 from inhibkin.core.logistic import logistic4
-from inhibkin.mechanism.fit import fit_mechanisms
-from inhibkin.potency.curve import fit_dose_response
-from inhibkin.reporting.figures import AxisUnits, level_palette
-from inhibkin.reporting.sketch import (
+from inhibkin.display.figures import AxisUnits, level_palette
+from inhibkin.display.sketch import (
     dose_response_sketch,
     grid_sketch,
     level_colours,
     residual_sketch,
 )
+from inhibkin.mechanism.fit import fit_mechanisms
+from inhibkin.potency.curve import fit_dose_response
 from inhibkin.simulate import simulate_grid
 
 SEED = 20261219

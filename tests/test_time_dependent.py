@@ -15,8 +15,8 @@ from td_ode import Scheme, plate_reads, preincubated, product_curve
 
 import inhibkin as ik
 from inhibkin.errors import DataError
+from inhibkin.rates.time_dependence import time_dependent_grid
 from inhibkin.time_dependent import plots
-from inhibkin.time_dependent.detect import time_dependent_grid
 from inhibkin.time_dependent.kobs import kobs_arrays
 from inhibkin.time_dependent.preincubation import ic50_at_time
 from inhibkin.time_dependent.schemes import SCHEMES, progress_curve

@@ -203,7 +203,7 @@ def test_linear_wells_are_flagged_at_about_the_stated_level(n_reads):
     grid of 60+ inhibited wells then lost its Ki). With Student's t and Welch–Satterthwaite
     degrees of freedom the rate is near the level (binomial: 3000 wells at 0.1 % give more
     than 15 with probability < 1e-6)."""
-    from inhibkin.time_dependent.detect import LEVEL, time_dependence
+    from inhibkin.rates.time_dependence import LEVEL, time_dependence
 
     rng = np.random.default_rng(3)
     n = 4000

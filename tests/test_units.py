@@ -4,8 +4,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from inhibkin.display.text import ki_texts, ranking_ki_unit
 from inhibkin.errors import UnitsError
-from inhibkin.reporting.text import ki_texts, ranking_ki_unit
 from inhibkin.units import (
     CONCENTRATION_UNITS,
     column_unit,

@@ -87,6 +87,7 @@ from ..core.models import MODELS, ONE_CONSTANT_MODELS
 from ..core.options import FitOptions
 from ..core.readonly import readonly_frame, readonly_mapping
 from ..core.weighting import SD_WEIGHTINGS, resolve_weighting, weighting_label
+from ..display.text import ki_texts, ranking_ki_unit, text_table
 from ..engine import fit_mechanism_arrays, pad
 from ..errors import DataError, InhibkinError, OptionError, Problem
 from ..mechanism.fit import MechanismFit, fit_mechanisms, with_time_dependence
@@ -94,7 +95,6 @@ from ..potency.conversion import CONVERSIONS
 from ..potency.table import EngineFitter, check_potency_options, potency_table
 from ..progress import progress_bar
 from ..rates.plates import ROLES, Z_PRIME_THRESHOLD, plate_qc
-from ..reporting.text import ki_texts, ranking_ki_unit, text_table
 from ..simulate import simulate_grid
 from ..units import (
     CONCENTRATION_UNITS,

@@ -33,7 +33,7 @@ The verdict follows the nesting of the models (see :func:`decide`):
    ``inadequate``, naming the residuals' pattern, and no constant is a result.
 6. *Were the rates steady-state rates at all?* When the rates stage flagged inhibited
    wells ``time_dependent`` (their progress curves bend beyond substrate depletion:
-   :mod:`inhibkin.time_dependent.detect`), every rate law above is the wrong model and
+   :mod:`inhibkin.rates.time_dependence`), every rate law above is the wrong model and
    the verdict is ``time_dependent`` whatever rules 1–5 say (:func:`time_dependent_verdict`);
    the inhibitor is characterised by kobs instead (``inhibkin inactivation``).
 

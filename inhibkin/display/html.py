@@ -17,10 +17,9 @@ import numpy as np
 import pandas as pd
 from jinja2 import Environment, PackageLoader, select_autoescape
 
-from ..mechanism.one_model import format_estimate
-from ..reporting import figures
-from ..reporting.text import ki_texts, ranking_ki_unit, unit_label
 from ..units import from_molar, molar_unit, normalise_unit
+from . import figures
+from .text import format_estimate, ki_texts, ranking_ki_unit, unit_label
 
 __all__ = ["ENVIRONMENT", "REPORT_DPI", "LAYOUT_DPI", "NOTEBOOK_DPI", "NOTEBOOK_LAYOUT_DPI",
            "png_uri", "png_image",
@@ -142,7 +141,7 @@ def parameter_cells(model_fit, *, molar=False) -> dict:
 
 def ranking_rows(ranking: pd.DataFrame, anchors, ki_unit) -> list:
     """The report's and the notebook's ranked rows, the Ki in ``ki_unit`` (the header
-    states it; :func:`inhibkin.reporting.text.ki_texts`)."""
+    states it; :func:`inhibkin.display.text.ki_texts`)."""
     rows = []
     for r, (ki, ki_sort) in zip(ranking.to_dict("records"), ki_texts(ranking, ki_unit)):
         status = r["status"]
@@ -201,7 +200,7 @@ def campaign_html(campaign, *, rows=10, ki_unit=None) -> str:
     """Compact HTML of a :class:`~inhibkin.campaign.batch.Campaign`: counts and the top of
     the ranking, with one small figure (pKi of the ranked compounds with their intervals).
     The Ki column is in ``ki_unit``, by default the one its values read best in
-    (:func:`inhibkin.reporting.text.ranking_ki_unit`)."""
+    (:func:`inhibkin.display.text.ranking_ki_unit`)."""
     ranking = campaign.ranking
     ki_unit = unit_label(normalise_unit(ki_unit) if ki_unit else ranking_ki_unit(ranking))
     anchors: dict = {}

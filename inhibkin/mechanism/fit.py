@@ -43,9 +43,9 @@ from ..core.weighting import (
     resolve_weighting,
     weighting_label,
 )
+from ..display.text import text_table
 from ..errors import DataError
-from ..reporting.text import text_table
-from ..time_dependent.detect import flagged_inhibited
+from ..rates.time_dependence import flagged_inhibited
 from ..units import header_column, to_molar
 from ..validate import check_grid
 from .one_model import ModelFit, fit_model, fixed_alpha_ssr

@@ -34,8 +34,8 @@ from ..core.options import INTERVAL_METHODS
 from ..core.profile import profile_crossing
 from ..core.readonly import readonly_array, readonly_frame
 from ..core.starts import log_bounds, starting_values
+from ..display.text import MISSING, format_estimate
 from ..errors import FitError
-from ..reporting.text import MISSING
 
 __all__ = ["ModelFit", "fit_model", "fit_michaelis_menten", "fixed_alpha_ssr",
            "INTERVAL_METHODS"]
@@ -144,15 +144,6 @@ class ModelFit:
     def _repr_html_(self) -> str:
         return (f"<p><b>{self.model}</b> — n = {self.n_obs}, SSR = {self.ssr:.4g}, "
                 f"AICc = {self.aicc:.4g}</p>" + self.params.to_html(float_format="{:.4g}".format))
-
-
-def format_estimate(row) -> str:
-    """An estimate as text: the number when determined, else the bound ("> x")."""
-    if row["determined"]:
-        return f"{row['estimate']:.4g}"
-    if np.isfinite(row["ci_low"]) and row["ci_low"] > 0:
-        return f"> {row['ci_low']:.3g}"
-    return "not determined"
 
 
 @dataclass(frozen=True)

@@ -70,10 +70,10 @@ from scipy import stats
 
 from ..errors import DataError, Problem, UnitsError
 from ..inputs.columns import find_column
-from ..time_dependent.detect import time_dependence
 from ..units import from_molar, normalise_unit, to_molar, to_seconds
 from ..validate import check_columns, normalise_roles, numeric_column, row_kind
 from .signal import BeerLambert, StandardCurve, blank_signal
+from .time_dependence import time_dependence
 
 __all__ = ["InitialRates", "RateOptions", "initial_rates", "FLAGS", "METHODS", "ROLES"]
 
@@ -99,7 +99,7 @@ FLAGS = {
     "time_dependent": "an inhibited well's rate falls with time beyond what substrate "
                       "depletion explains from the wells without inhibitor at the same "
                       "plate and substrate (slow binding or inactivation; see "
-                      "inhibkin.time_dependent.detect)",
+                      "inhibkin.rates.time_dependence)",
 }
 
 # A well label: row letters and a column number; "A01", "a1" and " A1" are one well.

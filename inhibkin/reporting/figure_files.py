@@ -47,7 +47,7 @@ def write_figures(campaign, directory, *, format="png", dpi=MIN_DPI, units=None)
     format : {"png", "svg"}
     dpi : float
         Resolution of PNG files (at least :data:`MIN_DPI`).
-    units : inhibkin.reporting.figures.AxisUnits, optional
+    units : inhibkin.display.figures.AxisUnits, optional
         Axis units; default the campaign's declared units (else µM substrate, nM
         inhibitor).
 
@@ -59,8 +59,8 @@ def write_figures(campaign, directory, *, format="png", dpi=MIN_DPI, units=None)
     """
     import matplotlib.pyplot as plt
 
+    from ..display import figures
     from ..inputs.io import atomic_output, write_table
-    from . import figures
 
     if format not in FIGURE_FORMATS:
         raise DataError(Problem("format", None, format, f"use one of {', '.join(FIGURE_FORMATS)}"))

@@ -7,7 +7,7 @@ with autoescaping on, so a compound ID such as ``<script>alert(1)</script>`` is 
 text, never run.
 
 The report scales with the campaign: every compound gets its tables and small SVG
-sketches drawn from the fit's numbers (:mod:`inhibkin.reporting.sketch`, milliseconds each); the
+sketches drawn from the fit's numbers (:mod:`inhibkin.display.sketch`, milliseconds each); the
 full matplotlib figures (base64 PNG, about a second each) are drawn only for the
 compounds chosen by ``detail`` (the five best ranked by default, see
 :func:`select_detail`). Nothing is refitted: intervals are the campaign's own.
@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..display import figures, sketch
 from ..display.html import (
     ENVIRONMENT,
     REPORT_DPI,
@@ -39,14 +40,12 @@ from ..display.html import (
     ranking_rows,
     table_cells,
 )
+from ..display.text import format_estimate, ki_texts, ranking_ki_unit, unit_label
 from ..errors import DataError, Problem, UnitsError
 from ..inputs.io import atomic_output
-from ..mechanism.one_model import format_estimate
 from ..progress import progress_bar
 from ..rates.plates import Z_PRIME_THRESHOLD
 from ..units import column_unit, from_molar, normalise_unit, to_molar
-from . import figures, sketch
-from .text import ki_texts, ranking_ki_unit, unit_label
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
            "check_detail", "select_detail", "CAUTIONS", "DEFAULT_DETAIL"]
@@ -470,7 +469,7 @@ def report(campaign, path, *, potency=None, rates=None, time_dependent=None,
         default the units the campaign declared.
     ki_unit : str, optional
         Unit of Ki in the ranked table (pKi is always from molar); by default the one
-        its values read best in (:func:`inhibkin.reporting.text.ranking_ki_unit`).
+        its values read best in (:func:`inhibkin.display.text.ranking_ki_unit`).
     potency_unit : str
         Unit label of the dose-response concentrations.
     max_potency_figures : int

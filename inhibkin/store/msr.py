@@ -80,7 +80,7 @@ class MSRResult:
         return pd.DataFrame([vars(e) for e in self.estimates])
 
     def summary(self) -> str:
-        from ..reporting.text import text_table
+        from ..display.text import text_table
 
         head = (f"Minimum significant ratio over {len(self.campaigns)} campaigns "
                 f"(Eastwood et al. 2006)")

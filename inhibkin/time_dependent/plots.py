@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..reporting.figures import level_palette, new_figure
+from ..display.figures import level_palette, new_figure
 from .schemes import SCHEMES, progress_curve
 
 

@@ -44,10 +44,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..core.models import MODELS
-from ..engine import fit_mechanism_arrays
-from ..errors import DataError
-from ..simulate import simulate_grid
+from .core.models import MODELS
+from .engine import fit_mechanism_arrays
+from .errors import DataError
+from .simulate import simulate_grid
 
 __all__ = ["GridPlan", "plan_grid", "call_outcome", "design_criterion", "naive_levels",
            "CALL_OUTCOMES", "SIMULATED_MECHANISMS"]
@@ -626,7 +626,7 @@ def plan_grid(*, km_range, ki_range, n_wells, substrate_choices, inhibitor_choic
 
     Examples
     --------
-    >>> from inhibkin.mechanism.design import plan_grid
+    >>> from inhibkin.design import plan_grid
     >>> plan = plan_grid(km_range=(5, 20), ki_range=(0.1, 1), n_wells=48,
     ...                  substrate_choices=[0.5 * 2**k for k in range(10)],
     ...                  inhibitor_choices=[0.01 * 3**k for k in range(9)],

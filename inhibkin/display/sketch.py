@@ -3,10 +3,10 @@
 The report shows every compound, so its per-compound figures must cost milliseconds: a
 sketch is a few hundred bytes of SVG text written from the fit's arrays (no plotting
 library, no rasterising), placed inline in the HTML, so the page stays one
-self-contained file. The full matplotlib figures (:mod:`inhibkin.reporting.figures`) are drawn
+self-contained file. The full matplotlib figures (:mod:`inhibkin.display.figures`) are drawn
 only for the compounds the report is asked to detail.
 
-Inhibitor levels use the same ordered ramp as :mod:`inhibkin.reporting.figures` (cubehelix,
+Inhibitor levels use the same ordered ramp as :mod:`inhibkin.display.figures` (cubehelix,
 Green 2011, Bull. Astr. Soc. India 39:289, lightness falling from the uninhibited
 level to the highest), computed here from the published formula.
 """
@@ -168,7 +168,7 @@ def grid_sketch(fit, *, units, label="") -> str:
     Parameters
     ----------
     fit : MechanismFit
-    units : inhibkin.reporting.figures.AxisUnits
+    units : inhibkin.display.figures.AxisUnits
         Unit labels and display factors of the axes.
     label : str
         Text for the sketch's accessible title (escaped).

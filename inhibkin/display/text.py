@@ -13,7 +13,8 @@ import pandas as pd
 
 from ..units import CONCENTRATION_UNITS, family_unit, significant_text
 
-__all__ = ["MISSING", "text_table", "ranking_ki_unit", "ki_texts", "unit_label"]
+__all__ = ["MISSING", "format_estimate", "text_table", "ranking_ki_unit", "ki_texts",
+           "unit_label"]
 
 #: How a missing value is printed.
 MISSING = "-"
@@ -47,6 +48,15 @@ def text_table(frame: pd.DataFrame, *, float_format=lambda x: f"{x:.4g}", index=
         cells.index = pd.Index([_cell(x, float_format) for x in frame.index],
                                name=frame.index.name)
     return cells.to_string(index=index)
+
+
+def format_estimate(row) -> str:
+    """An estimate as text: the number when determined, else the bound ("> x")."""
+    if row["determined"]:
+        return f"{row['estimate']:.4g}"
+    if np.isfinite(row["ci_low"]) and row["ci_low"] > 0:
+        return f"> {row['ci_low']:.3g}"
+    return "not determined"
 
 
 def unit_label(unit) -> str:
