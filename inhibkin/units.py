@@ -24,6 +24,7 @@ __all__ = [
     "family_unit",
     "significant_text",
     "readable_units",
+    "unit_label",
     "to_seconds",
     "split_unit",
     "header_column",
@@ -142,6 +143,11 @@ _MOLAR_TEXT = re.compile(rf"(?<![\w.])(?P<value>{_NUMBER}) M(?![\w])"
                          rf"(?P<interval> \[(?P<low>{_NUMBER}), (?P<high>{_NUMBER})\])?")
 
 
+def unit_label(unit) -> str:
+    """A concentration unit as printed for people (``uM`` as ``µM``)."""
+    return "µM" if unit == "uM" else str(unit)
+
+
 def significant_text(value, digits=3) -> str:
     """``value`` to ``digits`` significant digits, written without an exponent between
     0.001 and a million (``12300``, ``0.0305``), with one outside."""
@@ -166,7 +172,7 @@ def restate_molar(text, unit):
     if not isinstance(text, str):
         return text
     canonical = normalise_unit(unit)
-    shown = "µM" if canonical == "uM" else canonical
+    shown = unit_label(canonical)
     per_unit = 1.0 / CONCENTRATION_UNITS[canonical]
 
     def number(written):
@@ -228,7 +234,7 @@ def readable_units(frame):
         if all(v.isna().all() and out[c].notna().any() for c, v in values.items()):
             continue  # text, not numbers
         unit = family_unit(values.values())
-        shown = "µM" if unit == "uM" else unit
+        shown = unit_label(unit)
         for column, part in members:
             out[column] = values[column] / CONCENTRATION_UNITS[unit]
             renames[column] = f"{base}{part or ''} ({shown})"
@@ -255,7 +261,7 @@ def _readable_parameters(table):
         unit = column_unit(table.loc[rows, "estimate"].to_numpy(dtype=float))
         table.loc[rows, numbers] = table.loc[rows, numbers] / CONCENTRATION_UNITS[unit]
         for k in np.flatnonzero(rows):
-            units[k] = "µM" if unit == "uM" else unit
+            units[k] = unit_label(unit)
     table.insert(list(table.columns).index("parameter") + 1, "unit", units)
     return table
 

@@ -17,9 +17,9 @@ import numpy as np
 import pandas as pd
 from jinja2 import Environment, PackageLoader, select_autoescape
 
-from ..units import from_molar, molar_unit, normalise_unit
+from ..units import from_molar, molar_unit, normalise_unit, unit_label
 from . import figures
-from .text import format_estimate, ki_texts, ranking_ki_unit, unit_label
+from .text import format_estimate, ki_texts, ranking_ki_unit
 
 __all__ = ["ENVIRONMENT", "REPORT_DPI", "LAYOUT_DPI", "NOTEBOOK_DPI", "NOTEBOOK_LAYOUT_DPI",
            "png_uri", "png_image",

@@ -13,8 +13,7 @@ import pandas as pd
 
 from ..units import CONCENTRATION_UNITS, family_unit, significant_text
 
-__all__ = ["MISSING", "format_estimate", "text_table", "ranking_ki_unit", "ki_texts",
-           "unit_label"]
+__all__ = ["MISSING", "format_estimate", "text_table", "ranking_ki_unit", "ki_texts"]
 
 #: How a missing value is printed.
 MISSING = "-"
@@ -57,11 +56,6 @@ def format_estimate(row) -> str:
     if np.isfinite(row["ci_low"]) and row["ci_low"] > 0:
         return f"> {row['ci_low']:.3g}"
     return "not determined"
-
-
-def unit_label(unit) -> str:
-    """A concentration unit as printed for people (``uM`` as ``µM``)."""
-    return "µM" if unit == "uM" else str(unit)
 
 
 def ranking_ki_unit(ranking: pd.DataFrame) -> str:

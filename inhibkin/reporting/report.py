@@ -40,12 +40,12 @@ from ..display.html import (
     ranking_rows,
     table_cells,
 )
-from ..display.text import format_estimate, ki_texts, ranking_ki_unit, unit_label
+from ..display.text import format_estimate, ki_texts, ranking_ki_unit
 from ..errors import DataError, Problem, UnitsError
 from ..inputs.io import atomic_output
 from ..progress import progress_bar
 from ..rates.plates import Z_PRIME_THRESHOLD
-from ..units import column_unit, from_molar, normalise_unit, to_molar
+from ..units import column_unit, from_molar, normalise_unit, to_molar, unit_label
 
 __all__ = ["report", "render_report", "fit_html", "dose_response_html", "campaign_html",
            "check_detail", "select_detail", "CAUTIONS", "DEFAULT_DETAIL"]
