@@ -15,7 +15,8 @@ import time
 
 import numpy as np
 
-from inhibkin.campaign.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+from inhibkin.campaign import fit_campaign
+from inhibkin.simulate import simulate_campaign, simulate_dose_campaign
 
 _SEED = 20261216
 _CV = 0.05

@@ -13,7 +13,8 @@ from __future__ import annotations
 
 import time
 
-from inhibkin.campaign.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+from inhibkin.campaign import fit_campaign
+from inhibkin.simulate import simulate_campaign, simulate_dose_campaign
 
 _SEED = 20261220
 _CV = 0.05

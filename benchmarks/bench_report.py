@@ -16,8 +16,9 @@ import tempfile
 import time
 from pathlib import Path
 
-from inhibkin.campaign.batch import fit_campaign, simulate_campaign
+from inhibkin.campaign import fit_campaign
 from inhibkin.reporting.report import DEFAULT_DETAIL, report
+from inhibkin.simulate import simulate_campaign
 
 _SEED = 20261219
 _CV = 0.05

@@ -40,9 +40,10 @@ import pandas as pd
 
 import inhibkin as ik
 from inhibkin import cli
-from inhibkin.campaign.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+from inhibkin.campaign import fit_campaign
 from inhibkin.errors import InhibkinError
 from inhibkin.inputs.io import read_table
+from inhibkin.simulate import simulate_campaign, simulate_dose_campaign
 
 OUTCOMES = ("correct", "clear error", "unclear error", "refused wrongly", "silent wrong",
             "traceback", "lost", "skipped")

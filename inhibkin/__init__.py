@@ -16,9 +16,9 @@ __version__ = "0.1.0"
 # Public name -> the module that defines it.
 _EXPORTS = {
     "figures": "display.figures",
-    "Campaign": "campaign.batch",
-    "fit_campaign": "campaign.batch",
-    "simulate_campaign": "campaign.batch",
+    "Campaign": "campaign.result",
+    "fit_campaign": "campaign.fit",
+    "simulate_campaign": "simulate",
     "VerdictOptions": "core.compare",
     "cheng_prusoff": "potency.conversion",
     "ic50_from_ki": "potency.conversion",

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .campaign.batch import fit_campaign
+from .campaign import fit_campaign
 from .errors import DataError
 from .inputs.io import read_table, write_table
 from .potency.table import potency_table

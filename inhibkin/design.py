@@ -44,7 +44,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .core.models import MODELS
+from .core.models import INHIBITION_MODELS, MODELS
 from .engine import fit_mechanism_arrays
 from .errors import DataError
 from .simulate import simulate_grid
@@ -55,8 +55,9 @@ __all__ = ["GridPlan", "plan_grid", "call_outcome", "design_criterion", "naive_l
 #: Fewest substrate levels, and inhibitor levels counting I = 0, a plan may use.
 MIN_SUBSTRATE_LEVELS = 4
 MIN_INHIBITOR_LEVELS = 3
-#: The mechanisms the simulated correct-call rate cycles through.
-SIMULATED_MECHANISMS = ("competitive", "uncompetitive", "noncompetitive", "mixed")
+#: The mechanisms the simulated correct-call rate cycles through: every classical law
+#: with an inhibition constant (:data:`~inhibkin.core.models.INHIBITION_MODELS`).
+SIMULATED_MECHANISMS = INHIBITION_MODELS
 #: Outcome classes of a verdict against a known truth (see :func:`call_outcome`).
 CALL_OUTCOMES = ("correct", "ambiguous", "wrong", "larger", "missed", "failed")
 #: Level of the Clopper–Pearson bands on the simulated rates.
@@ -295,9 +296,12 @@ def _simulate_calls(grids, *, km_range, ki_range, cv, floor_sd, replicates, n_si
     for k in range(n_simulations):
         mechanism = SIMULATED_MECHANISMS[k % len(SIMULATED_MECHANISMS)]
         km, kic, kiu = draws[k]
-        constants = {"competitive": {"kic": kic}, "uncompetitive": {"kiu": kiu},
-                     "noncompetitive": {"kic": kic},
-                     "mixed": {"kic": kic, "kiu": kiu}}[mechanism]
+        # Each constant of the law takes the draw of the first mixed-law constant it
+        # stands for (noncompetitive's ki takes kic's).
+        drawn = {"kic": kic, "kiu": kiu}
+        constants = {first: drawn[first] for first in
+                     (MODELS[mechanism].stands_for(c)[0]
+                      for c in MODELS[mechanism].inhibition_constants)}
         truths.append((mechanism, km, constants))
     for grid, (s, i) in grids.items():
         columns = []

@@ -15,7 +15,8 @@ import pandas as pd
 from .errors import DataError, OptionError, Problem
 from .inputs.io import LINE_INDEX
 
-__all__ = ["check_columns", "numeric_column", "check_grid", "check_michaelis_menten",
+__all__ = ["check_columns", "numeric_column", "check_grid", "grid_rule_problems",
+           "check_michaelis_menten",
            "NO_SIGNAL", "ALL_EQUAL", "row_kind", "check_options", "OPTION_LIMITS", "Limit",
            "normalise_roles"]
 
@@ -162,29 +163,81 @@ def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True,
                     row_kind(df))
     if problems:
         raise DataError(problems, context)
-    if np.unique(s).size < 2:
-        problems.append(Problem(substrate, None, float(s[0]),
-                                "need at least two substrate concentrations"))
-    if need_inhibition and np.unique(i).size < 2:
-        problems.append(Problem(inhibitor, None, float(i[0]),
-                                "only one inhibitor level; inhibition models need at least two "
-                                "(include the uninhibited rate, I = 0)"))
-    if np.all(v == 0):
-        problems.append(Problem(rate, None, 0.0, "all rates are zero; nothing to fit"))
-    elif not np.mean(v) > 0:
-        problems.append(Problem(rate, None, float(np.mean(v)), NO_SIGNAL))
-    elif np.all(v == v[0]):
-        problems.append(Problem(rate, None, float(v[0]), ALL_EQUAL))
-    if np.all(s == 0):
-        problems.append(Problem(substrate, None, 0.0, "all substrate concentrations are zero"))
-    n_params = 4 if need_inhibition else 2
-    if len(v) <= n_params:
-        problems.append(Problem(None, None, len(v),
-                                f"{len(v)} points; the largest model has {n_params} parameters "
-                                f"and needs more points than that"))
+    (problems,) = grid_rule_problems(s[None], i[None], v[None], np.ones((1, v.size), bool),
+                                     need_inhibition=need_inhibition,
+                                     columns=(substrate, inhibitor, rate))
     if problems:
         raise DataError(problems, context)
     return s, i, v, sigma
+
+
+def grid_rule_problems(s, i, v, mask, *, need_inhibition=True,
+                       columns=("substrate", "inhibitor", "rate")) -> list[list[Problem]]:
+    """The rules every grid meets once its values are numbers, for many compounds at once.
+
+    The one definition read by :func:`check_grid` (one compound) and by the batched
+    engine's array check (:mod:`inhibkin.engine.mechanisms`): two substrate levels, two
+    inhibitor levels when inhibition is fitted, rates that carry a signal, a substrate
+    level above zero, more points than the largest model has parameters.
+
+    Parameters
+    ----------
+    s, i, v : numpy.ndarray, shape (B, n)
+        Substrate, inhibitor and rate of B compounds (finite where ``mask``).
+    mask : numpy.ndarray of bool, shape (B, n)
+        Which entries are points.
+    need_inhibition : bool
+        Whether the inhibitor must vary (inhibition models are fitted).
+    columns : (str, str, str)
+        The names the problems give the substrate, inhibitor and rate.
+
+    Returns
+    -------
+    list of list of Problem
+        Every problem of each compound, in a fixed order (empty: the grid can be fitted).
+    """
+    from .core.starts import count_unique
+
+    substrate, inhibitor, rate = columns
+    n_points = mask.sum(axis=1)
+    first = np.argmax(mask, axis=1)
+    rows = np.arange(s.shape[0])
+    s0, i0, v0 = s[rows, first], i[rows, first], v[rows, first]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.sum(np.where(mask, v, 0.0), axis=1) / n_points
+    one_substrate = count_unique(s, mask) < 2
+    one_inhibitor = (count_unique(i, mask) < 2) if need_inhibition else np.zeros_like(mask[:, 0])
+    all_zero = np.all((v == 0) | ~mask, axis=1)
+    no_signal = ~(mean > 0)
+    all_equal = np.all((v == v0[:, None]) | ~mask, axis=1)
+    zero_substrate = np.all((s == 0) | ~mask, axis=1)
+    n_params = 4 if need_inhibition else 2
+    out = []
+    for c in rows:
+        problems = []
+        if one_substrate[c]:
+            problems.append(Problem(substrate, None, float(s0[c]),
+                                    "need at least two substrate concentrations"))
+        if one_inhibitor[c]:
+            problems.append(Problem(inhibitor, None, float(i0[c]),
+                                    "only one inhibitor level; inhibition models need at "
+                                    "least two (include the uninhibited rate, I = 0)"))
+        if all_zero[c]:
+            problems.append(Problem(rate, None, 0.0, "all rates are zero; nothing to fit"))
+        elif no_signal[c]:
+            problems.append(Problem(rate, None, float(mean[c]), NO_SIGNAL))
+        elif all_equal[c]:
+            problems.append(Problem(rate, None, float(v0[c]), ALL_EQUAL))
+        if zero_substrate[c]:
+            problems.append(Problem(substrate, None, 0.0,
+                                    "all substrate concentrations are zero"))
+        if n_points[c] <= n_params:
+            problems.append(Problem(None, None, int(n_points[c]),
+                                    f"{int(n_points[c])} points; the largest model has "
+                                    f"{n_params} "
+                                    f"parameters and needs more points than that"))
+        out.append(problems)
+    return out
 
 
 def check_michaelis_menten(s, v, weights=None):

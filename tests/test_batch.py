@@ -6,17 +6,10 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from inhibkin.campaign.batch import (
-    LE_KCAL_PER_PKI,
-    RANKING_COLUMNS,
-    STATUSES,
-    Campaign,
-    fit_campaign,
-    simulate_campaign,
-)
+from inhibkin.campaign import LE_KCAL_PER_PKI, RANKING_COLUMNS, STATUSES, Campaign, fit_campaign
 from inhibkin.errors import DataError, UnitsError
 from inhibkin.mechanism.fit import fit_mechanisms
-from inhibkin.simulate import simulate_grid
+from inhibkin.simulate import simulate_campaign, simulate_grid
 
 CAMPAIGN_SEED = 20260501
 N_COMPOUNDS = 200
@@ -327,7 +320,7 @@ def test_dose_response_needs_km_and_declared_units():
 
 
 def test_campaign_carries_the_plate_qc_table():
-    from inhibkin.campaign.batch import PLATE_COLUMNS
+    from inhibkin.campaign import PLATE_COLUMNS
     from inhibkin.potency.table import potency_table
     from inhibkin.rates.plates import z_prime
 

@@ -6,9 +6,10 @@ import warnings
 import numpy as np
 import pytest
 
-import inhibkin.campaign.batch as batch
-from inhibkin.campaign.batch import fit_campaign, simulate_dose_campaign
+import inhibkin.campaign.dose as dose_route
+from inhibkin.campaign import fit_campaign
 from inhibkin.core.bound import Bound
+from inhibkin.simulate import simulate_dose_campaign
 
 
 def test_a_bound_is_a_value_and_a_side():
@@ -37,13 +38,13 @@ def test_the_ranking_takes_the_bound_as_a_number_not_as_rounded_text(dose):
 
 
 def test_a_warning_with_a_comma_stays_one_flag(dose, monkeypatch):
-    real = batch.potency_table
+    real = dose_route.potency_table
 
     def warning_potency_table(*args, **kwargs):
         warnings.warn("the controls drift, slightly, across the plate", stacklevel=2)
         return real(*args, **kwargs)
 
-    monkeypatch.setattr(batch, "potency_table", warning_potency_table)
+    monkeypatch.setattr(dose_route, "potency_table", warning_potency_table)
     campaign = fit_campaign(dose_response=dose, km="20uM", quiet=True)
     flags = campaign.ranking["flags"].to_numpy()
     assert all("the controls drift, slightly, across the plate" in f for f in flags)

@@ -14,15 +14,11 @@ import pytest
 from scipy import optimize
 from test_engine import _check_against_lmfit
 
-import inhibkin.campaign.batch as batch
-from inhibkin.campaign.batch import (
-    AUTO_ENGINE_MIN_COMPOUNDS,
-    fit_campaign,
-    simulate_campaign,
-    simulate_dose_campaign,
-)
+import inhibkin.campaign.grid as grid_route
+from inhibkin.campaign import AUTO_ENGINE_MIN_COMPOUNDS, fit_campaign
 from inhibkin.core.logistic import logistic4, logistic4_jacobian
 from inhibkin.errors import DataError
+from inhibkin.simulate import simulate_campaign, simulate_dose_campaign
 
 SEED = 20261215
 CV = 0.05
@@ -249,8 +245,8 @@ def test_engine_fits_it_cannot_converge_are_refitted_and_counted(monkeypatch):
     """Two iterations are not enough for most fits: the lmfit path redoes them, the
     count says how many, and the answers are the reference's."""
     grid, _ = simulate_campaign(8, seed=6)
-    starved = functools.partial(batch.fit_mechanism_arrays, max_iterations=2)
-    monkeypatch.setattr(batch, "fit_mechanism_arrays", starved)
+    starved = functools.partial(grid_route.fit_mechanism_arrays, max_iterations=2)
+    monkeypatch.setattr(grid_route, "fit_mechanism_arrays", starved)
     campaign = fit_campaign(grid, quiet=True, engine="batched", weighting="uniform")
     refitted = sum(m.message.startswith("refitted by the lmfit path")
                    for fit in campaign.fits.values() for m in fit.models.values())
@@ -264,7 +260,7 @@ def test_a_warning_lands_on_the_compound_that_raised_it(monkeypatch):
     import warnings
 
     grid, _ = simulate_campaign(5, seed=8)
-    real = batch.fit_mechanism_arrays
+    real = grid_route.fit_mechanism_arrays
 
     def warns_on_third(s, i, v, mask, **options):
         # Warn when CPD-3's first rate is among the batch's rates.
@@ -272,7 +268,7 @@ def test_a_warning_lands_on_the_compound_that_raised_it(monkeypatch):
             warnings.warn("odd grid", RuntimeWarning, stacklevel=1)
         return real(s, i, v, mask, **options)
 
-    monkeypatch.setattr(batch, "fit_mechanism_arrays", warns_on_third)
+    monkeypatch.setattr(grid_route, "fit_mechanism_arrays", warns_on_third)
     ranking = fit_campaign(grid, quiet=True, engine="batched").ranking.set_index("compound")
     assert "odd grid" in ranking.loc["CPD-3", "flags"]
     assert not ranking.drop(index="CPD-3")["flags"].str.contains("odd grid").any()

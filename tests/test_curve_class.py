@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from inhibkin.campaign.batch import fit_campaign
+from inhibkin.campaign import fit_campaign
 from inhibkin.core.curve_class import CURVE_CLASSES, CurveClassRules, classify_curves
 from inhibkin.core.logistic import logistic4
 from inhibkin.demo import DEMO_DATA

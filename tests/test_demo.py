@@ -55,7 +55,7 @@ def test_demo_potency_ranking_is_molar_and_ranks_no_flat_compound(demo):
     # Issue 12, items 1 and 2: the ranked-table columns the README documents, pIC50 and
     # pKi as −log10(value / 1 M), and no inactive compound of the screen's truth reported
     # as a bound below the tested range or ranked among the actives.
-    from inhibkin.campaign.batch import RANKING_COLUMNS
+    from inhibkin.campaign import RANKING_COLUMNS
 
     out, _ = demo
     ranking = pd.read_csv(out / "potency_ranking.csv")

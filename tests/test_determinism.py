@@ -8,8 +8,9 @@ import sys
 import pytest
 from test_batch import KM_M, _bad_compounds, _dose_plates
 
-from inhibkin.campaign.batch import fit_campaign, simulate_campaign
+from inhibkin.campaign import fit_campaign
 from inhibkin.inputs.io import read_table, write_table
+from inhibkin.simulate import simulate_campaign
 
 # Generous: a subprocess imports numpy, pandas, scipy and lmfit before it starts.
 TIMEOUT_SECONDS = 180

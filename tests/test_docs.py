@@ -22,9 +22,9 @@ import pandas as pd
 import pytest
 
 from inhibkin import cli
-from inhibkin.campaign.batch import simulate_dose_campaign
 from inhibkin.core.logistic import logistic4
 from inhibkin.demo import DEMO_DATA
+from inhibkin.simulate import simulate_dose_campaign
 
 README = Path(__file__).resolve().parent.parent / "README.md"
 FENCE = re.compile(r"^```(\w+)\n(.*?)^```", re.S | re.M)

@@ -19,13 +19,14 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import inhibkin.inputs.io as inhibkin_io
-from inhibkin.campaign.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+from inhibkin.campaign import fit_campaign
 from inhibkin.cli import main
 from inhibkin.errors import DataError, FitError
 from inhibkin.inputs.io import LINE_INDEX, read_table, write_table
 from inhibkin.mechanism.fit import fit_mechanisms
 from inhibkin.rates.initial import initial_rates
 from inhibkin.rates.plates import ZERO_SPREAD, plate_qc, z_prime
+from inhibkin.simulate import simulate_campaign, simulate_dose_campaign
 from inhibkin.validate import OPTION_LIMITS, check_options
 
 # Text pandas would turn into numbers, booleans or missing values if it guessed types.

@@ -4,7 +4,7 @@ from html import escape
 
 import pytest
 
-from inhibkin.campaign.batch import fit_campaign
+from inhibkin.campaign import fit_campaign
 from inhibkin.core.bound import Bound
 from inhibkin.mechanism.fit import fit_mechanisms
 from inhibkin.reporting.report import render_report

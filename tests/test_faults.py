@@ -14,10 +14,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from inhibkin.campaign.batch import fit_campaign, simulate_campaign
+from inhibkin.campaign import fit_campaign
 from inhibkin.errors import DataError
 from inhibkin.inputs.io import read_table, write_table
 from inhibkin.mechanism.fit import fit_mechanisms
+from inhibkin.simulate import simulate_campaign
 
 # Environment variable naming the folder where a "die once" compound leaves its mark, so
 # the second attempt (on a fresh worker process) goes through. Spawned workers and Dask
@@ -93,12 +94,12 @@ def test_dose_response_chunks_survive_a_killed_worker(marks, monkeypatch):
     chunk of curves; the chunk is rerun, nothing is lost."""
     from test_batch import KM_M, _dose_plates
 
-    import inhibkin.campaign.batch as batch
+    import inhibkin.campaign.dose as dose_route
 
     kis = {f"DR-{k}": 10.0 ** -p for k, p in enumerate(np.linspace(6.0, 8.0, 6))}
     plates = _dose_plates(kis, seed=7, per_plate=3)
     expected = fit_campaign(dose_response=plates, km=KM_M, quiet=True, chunk_size=2).ranking
-    monkeypatch.setattr(batch, "_dose_chunk_fit", _dying_dose_chunk_fit)
+    monkeypatch.setattr(dose_route, "fit_dose_chunk", _dying_dose_chunk_fit)
     ranking = fit_campaign(dose_response=plates, km=KM_M, workers=2, quiet=True,
                            chunk_size=2).ranking
     assert (marks / "died").exists()
@@ -107,14 +108,14 @@ def test_dose_response_chunks_survive_a_killed_worker(marks, monkeypatch):
 
 def _dying_dose_chunk_fit(chunk, settings, mechanisms, keep_fits):
     """The dose-response chunk fitter, killing its process the first time it sees DR-3."""
-    from inhibkin.campaign.batch import _dose_results
+    from inhibkin.campaign.dose import dose_results
 
     frame, names = chunk
     mark = Path(os.environ[MARK_DIR]) / "died"
     if "DR-3" in names and not mark.exists():
         mark.touch()
         os.kill(os.getpid(), signal.SIGKILL)
-    return _dose_results(frame, names, settings, mechanisms, keep_fits)
+    return dose_results(frame, names, settings, mechanisms, keep_fits)
 
 
 @pytest.fixture(scope="module")

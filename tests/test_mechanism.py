@@ -234,7 +234,7 @@ def _ambiguous_where_mixed_has_the_lowest_aicc():
 def test_ambiguous_constants_are_labelled_as_the_comparison_table_has_them():
     """Issue 12, item 5: the label of the constants must not claim "lowest AICc" for a
     model that the table shows with ΔAICc > 0."""
-    from inhibkin.campaign.batch import fit_campaign
+    from inhibkin.campaign import fit_campaign
 
     data = _ambiguous_where_mixed_has_the_lowest_aicc()
     # The seed was found under uniform weighting.

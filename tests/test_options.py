@@ -5,10 +5,11 @@ import numpy as np
 import pytest
 
 import inhibkin as ik
-from inhibkin.campaign.batch import fit_campaign, simulate_campaign, simulate_dose_campaign
+from inhibkin.campaign import fit_campaign
 from inhibkin.core.options import FitOptions
 from inhibkin.engine import fit_mechanism_arrays, fit_mechanisms_batch
 from inhibkin.errors import OptionError
+from inhibkin.simulate import simulate_campaign, simulate_dose_campaign
 
 CALLS = []
 

@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from inhibkin.campaign.batch import fit_campaign, simulate_campaign
+from inhibkin.campaign import fit_campaign
 from inhibkin.core.logistic import logistic4
 from inhibkin.display.text import ranking_ki_unit
 from inhibkin.errors import DataError
@@ -27,7 +27,7 @@ from inhibkin.reporting.report import (
     report,
     select_detail,
 )
-from inhibkin.simulate import simulate_grid
+from inhibkin.simulate import simulate_campaign, simulate_grid
 from inhibkin.units import column_unit, from_molar, significant_text
 
 SEED = 20261202

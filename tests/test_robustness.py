@@ -12,7 +12,7 @@ import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from inhibkin.campaign.batch import STATUSES, fit_campaign, simulate_campaign
+from inhibkin.campaign import STATUSES, fit_campaign
 from inhibkin.cli import main
 from inhibkin.display.text import format_estimate
 from inhibkin.errors import DataError, InhibkinError, InhibkinWarning
@@ -25,7 +25,7 @@ from inhibkin.potency.morrison import fit_morrison
 from inhibkin.potency.table import potency_table
 from inhibkin.rates.initial import initial_rates
 from inhibkin.rates.plates import plate_qc
-from inhibkin.simulate import simulate_grid
+from inhibkin.simulate import simulate_campaign, simulate_grid
 
 # Bounded example counts: the whole file must stay within a minute or two on one core.
 FEW = settings(max_examples=50, deadline=None,

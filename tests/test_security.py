@@ -17,8 +17,9 @@ import pandas as pd
 import pytest
 
 import inhibkin
-from inhibkin.campaign.batch import fit_campaign, simulate_campaign
+from inhibkin.campaign import fit_campaign
 from inhibkin.cli import main
+from inhibkin.simulate import simulate_campaign
 
 PACKAGE = Path(inhibkin.__file__).parent
 # Calls that run code or rebuild objects from bytes: none may take user data.

@@ -65,3 +65,19 @@ def test_the_toy_is_fitted_as_the_law_it_copies_by_both_solvers(toy, data):
         assert ("none", "toy") in pairs and ("toy", "mixed") in pairs
     np.testing.assert_allclose(engine.models["toy"].params["estimate"],
                                lmfit.models["toy"].params["estimate"], rtol=ESTIMATE_RTOL)
+
+
+
+def test_the_toy_converts_an_ic50_once_its_entry_says_which_constant_it_stands_for():
+    from dataclasses import replace
+
+    from inhibkin.potency.conversion import conversion_ratios
+
+    # Untied, kix is no constant of the mixed relation IC50 = (Km + S)/(Km/Kic + S/Kiu):
+    # no conversion is invented for it.
+    assert conversion_ratios(TOY) is None
+    # Tied to kiu in its entry, it converts exactly as uncompetitive (Kic infinite).
+    tied = replace(TOY, ties=(("kix", ("kiu",)),))
+    assert tied.stands_for("kix") == ("kiu",)
+    assert conversion_ratios(tied) == ("kix", *conversion_ratios(MODELS["uncompetitive"])[1:])
+    assert MODELS["noncompetitive"].stands_for("ki") == ("kic", "kiu")

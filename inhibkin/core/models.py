@@ -135,6 +135,11 @@ class RateLaw:
         """The rows of a parameter table: the parameters, then the derived quantities."""
         return self.param_names + tuple(d.name for d in self.derived)
 
+    def stands_for(self, constant: str) -> tuple[str, ...]:
+        """The constants of a larger model that ``constant`` stands for: itself, or those
+        of its tie (noncompetitive's ki stands for kic and kiu of mixed)."""
+        return dict(self.ties).get(constant, (constant,))
+
 
 def _none_rate(s, i, vmax, km):
     return vmax * s / (km + s)

@@ -1,7 +1,7 @@
 """HTML views of results: the notebook display and the cells the report is built from.
 
 The ``_repr_html_`` of :class:`~inhibkin.mechanism.fit.MechanismFit`, potency fits and
-:class:`~inhibkin.campaign.batch.Campaign` call :func:`fit_html`, :func:`dose_response_html` and
+:class:`~inhibkin.campaign.result.Campaign` call :func:`fit_html`, :func:`dose_response_html` and
 :func:`campaign_html` here (lazily: matplotlib loads only when a notebook asks), so the
 results never import the report; :mod:`inhibkin.reporting.report` builds its page from the same
 cells. Every text goes through Jinja2 with autoescaping on.
@@ -197,7 +197,7 @@ def dose_response_html(fit, *, conc_unit="") -> str:
 
 
 def campaign_html(campaign, *, rows=10, ki_unit=None) -> str:
-    """Compact HTML of a :class:`~inhibkin.campaign.batch.Campaign`: counts and the top of
+    """Compact HTML of a :class:`~inhibkin.campaign.result.Campaign`: counts and the top of
     the ranking, with one small figure (pKi of the ranked compounds with their intervals).
     The Ki column is in ``ki_unit``, by default the one its values read best in
     (:func:`inhibkin.display.text.ranking_ki_unit`)."""

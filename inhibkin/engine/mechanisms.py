@@ -59,10 +59,10 @@ from ..core.weighting import (
 from ..errors import DataError, Problem
 from ..mechanism.fit import MechanismFit, mixed_starts, molar_grid, relative_weights
 from ..mechanism.one_model import ModelFit, fit_model, fixed_alpha_ssr
-from ..validate import ALL_EQUAL, NO_SIGNAL, check_grid
+from ..validate import check_grid, grid_rule_problems
 from . import lm
 from .chunks import concat_batches, run_chunks
-from .starts import count_unique, mechanism_log_bounds, mechanism_starts
+from .starts import mechanism_log_bounds, mechanism_starts
 
 __all__ = ["ModelBatch", "MechanismBatch", "fit_mechanism_arrays", "fit_mechanisms_batch",
            "pad"]
@@ -374,7 +374,8 @@ def pad(groups):
 
 
 def _check_arrays(s, i, v, mask, sd, need_inhibition, allow_zero_sd=False):
-    """Why each compound cannot be fitted ('' when it can): check_grid's rules in arrays."""
+    """Why each compound cannot be fitted ('' when it can): each value's own checks here,
+    then the grid rules of :func:`inhibkin.validate.grid_rule_problems`."""
     b = s.shape[0]
     reason = np.full(b, "", dtype=object)
     values = [("substrate", s), ("inhibitor", i), ("rate", v)]
@@ -394,23 +395,11 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition, allow_zero_sd=False):
                  f"negative value in {name}; it must be ≥ 0")
     if sd is not None and not allow_zero_sd:
         flag(np.any((sd == 0) & mask, axis=1), "standard deviation must be > 0")
-    flag(count_unique(s, mask) < 2, "need at least two substrate concentrations")
-    if need_inhibition:
-        flag(count_unique(i, mask) < 2, "only one inhibitor level; inhibition models need at "
-             "least two (include the uninhibited rate, I = 0)")
-    flag(np.all((v == 0) | ~mask, axis=1), "all rates are zero; nothing to fit")
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.sum(np.where(mask, v, 0.0), axis=1) / mask.sum(axis=1)
-    silent = ~(mean > 0) & np.isfinite(mean)
-    for c in np.flatnonzero(silent & (reason == "")):
-        reason[c] = str(Problem("rate", None, float(mean[c]), NO_SIGNAL))
-    first = v[np.arange(b), np.argmax(mask, axis=1)]
-    for c in np.flatnonzero(np.all((v == first[:, None]) | ~mask, axis=1) & mask.any(axis=1)
-                            & (reason == "")):
-        reason[c] = str(Problem("rate", None, float(first[c]), ALL_EQUAL))
-    n_params = 4 if need_inhibition else 2
-    flag(mask.sum(axis=1) <= n_params, f"no more points than the largest model's {n_params} "
-         "parameters")
+    # The grid rules themselves are check_grid's, written once in inhibkin.validate.
+    for c, problems in enumerate(grid_rule_problems(s, i, v, mask,
+                                                    need_inhibition=need_inhibition)):
+        if problems and reason[c] == "":
+            reason[c] = str(problems[0])
     return reason
 
 

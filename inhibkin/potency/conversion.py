@@ -24,13 +24,53 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ..core.models import INHIBITION_MODELS, MODELS
 from ..errors import DataError, Problem
 from ..validate import numeric_column
 
-__all__ = ["CONVERSIONS", "cheng_prusoff", "ic50_from_ki"]
+__all__ = ["CONVERSIONS", "cheng_prusoff", "ic50_from_ki", "conversion_ratios"]
 
+# The two constants of the mixed relation above. Every law of core.models converts by
+# it: a constant that stands for Kic (its own name, or a tie such as noncompetitive's
+# ki = kic = kiu) enters as Kic, one that stands for Kiu as Kiu, and a constant the law
+# lacks is infinite (the law is the mixed law with that constant sent to infinity).
+_MIXED_CONSTANTS = ("kic", "kiu")
+
+
+def conversion_ratios(law):
+    """(the constant Ki is reported as, Kic/Ki, Kiu/Ki) for ``law``, each ratio 1, None
+    (alpha: a derived ratio of the law's own constants) or inf; None when the law's
+    constants are not those of the mixed relation."""
+    constants = law.inhibition_constants
+    if not constants or any(not set(law.stands_for(c)) <= set(_MIXED_CONSTANTS)
+                            for c in constants):
+        return None
+    reported = constants[0]
+    ratios = []
+    for target in _MIXED_CONSTANTS:
+        if target in law.stands_for(reported):
+            ratios.append(1.0)
+        elif any(d.denominator == reported and target in law.stands_for(d.numerator)
+                 for d in law.derived):
+            ratios.append(None)
+        else:
+            ratios.append(np.inf)
+    return reported, *ratios
+
+
+#: The constant an IC50 converts to, and its Kic and Kiu ratios, for every law that has
+#: one (read from :data:`~inhibkin.core.models.MODELS`).
+_CONVERTIBLE = {name: ratios for name in INHIBITION_MODELS
+                if (ratios := conversion_ratios(MODELS[name])) is not None}
 #: Mechanisms an IC50 can be converted under.
-CONVERSIONS = ("competitive", "uncompetitive", "noncompetitive", "mixed")
+CONVERSIONS = tuple(_CONVERTIBLE)
+# Mechanisms whose conversion needs alpha = Kiu/Kic.
+_NEEDS_ALPHA = tuple(n for n, (_, kic, kiu) in _CONVERTIBLE.items() if None in (kic, kiu))
+# Mechanisms with a constant that acts through Kiu alone (on the enzyme–substrate
+# complex, absent at S = 0): no IC50 at S = 0.
+_NEEDS_SUBSTRATE = tuple(n for n in CONVERSIONS
+                         if any(MODELS[n].stands_for(c) == ("kiu",)
+                                for c in MODELS[n].inhibition_constants))
 
 
 def as_array(value, name, problems, index, *, positive, allow_nan=False):
@@ -48,19 +88,22 @@ def as_array(value, name, problems, index, *, positive, allow_nan=False):
 
 
 def _log_factor(s, km, mechanism, alpha):
-    """ln(Ki/IC50) and its derivative in ln Km, per element."""
+    """ln(Ki/IC50) and its derivative in ln Km, per element: Ki/IC50 =
+    (Km/rc + S/ru)/(Km + S) with rc = Kic/Ki and ru = Kiu/Ki of the mechanism."""
     log_f = np.full(s.shape, np.nan)
     d_log_km = np.full(s.shape, np.nan)
     with np.errstate(divide="ignore", invalid="ignore"):
-        for name, f, d in (
-            ("competitive", km / (km + s), s / (km + s)),
-            ("uncompetitive", s / (km + s), -km / (km + s)),
-            ("noncompetitive", np.ones_like(s), np.zeros_like(s)),
-            ("mixed", (km + s / alpha) / (km + s), km / (km + s / alpha) - km / (km + s)),
-        ):
+        for name, (_, kic_ratio, kiu_ratio) in _CONVERTIBLE.items():
             here = mechanism == name
-            log_f[here] = np.log(f[here])
-            d_log_km[here] = d[here]
+            if not here.any():
+                continue
+            rc = alpha[here] if kic_ratio is None else kic_ratio
+            ru = alpha[here] if kiu_ratio is None else kiu_ratio
+            km_here, s_here = km[here], s[here]
+            through_kic, through_kiu = km_here / rc, s_here / ru
+            log_f[here] = np.log((through_kic + through_kiu) / (km_here + s_here))
+            d_log_km[here] = (through_kic / (through_kic + through_kiu)
+                              - km_here / (km_here + s_here))
     return log_f, d_log_km
 
 
@@ -93,7 +136,7 @@ def _conversion_inputs(value, s, km, mechanism, alpha, value_name):
         problems.append(Problem("mechanism", row, m,
                                 f"unknown mechanism; IC50 converts under {CONVERSIONS}"))
     alpha_arr = np.full(n, np.nan)
-    mixed = mech == "mixed"
+    mixed = np.isin(mech, _NEEDS_ALPHA)
     if mixed.any():
         if alpha is None:
             problems.append(Problem("alpha", None, None,
@@ -105,7 +148,7 @@ def _conversion_inputs(value, s, km, mechanism, alpha, value_name):
             for row in labels[missing][:5]:
                 problems.append(Problem("alpha", row, np.nan,
                                         "the mixed conversion needs alpha = Kiu/Kic"))
-    needs_s = np.isin(mech, ("uncompetitive", "mixed")) & np.isfinite(s_arr) & (s_arr == 0)
+    needs_s = np.isin(mech, _NEEDS_SUBSTRATE) & np.isfinite(s_arr) & (s_arr == 0)
     for row in labels[needs_s][:5]:
         problems.append(Problem("s", row, 0.0, "an uncompetitive or mixed inhibitor has no "
                                                "IC50 at S = 0; s must be > 0"))

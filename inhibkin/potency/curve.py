@@ -11,29 +11,34 @@ SSR·(1 + F(level; 1, n − k)/(n − k)); Bates & Watts 1988, §6.1) or Wald in
 (``"wald"``: estimate ± t·se). Both are computed on log10(IC50) and are therefore
 asymmetric in IC50.
 
-The least-squares core here (one curve, some parameters fixed, covariance and profile
-intervals) also serves the Morrison fit of :mod:`inhibkin.potency.morrison`. IC50 → Ki lives in
+The least-squares core (one curve, some parameters fixed, covariance and profile
+intervals) is :mod:`inhibkin.potency.least_squares`, shared with the Morrison fit of
+:mod:`inhibkin.potency.morrison`. IC50 → Ki lives in
 :mod:`inhibkin.potency.conversion`, the table of a whole screen in :mod:`inhibkin.potency.table`.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass, field
 
-import lmfit
 import numpy as np
 import pandas as pd
-from scipy import optimize, stats
 
 from ..core.bound import Bound
 from ..core.curve_class import DEFAULT_RULES, CurveClassRules, classify_curves
 from ..core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
-from ..core.profile import profile_crossing
 from ..core.readonly import readonly_array, readonly_frame
-from ..errors import DataError, FitError, Problem
+from ..errors import FitError
 from ..mechanism.one_model import INTERVAL_METHODS
-from ..validate import numeric_column, row_kind
+from .least_squares import (
+    Curve,
+    check_curve,
+    compound_context,
+    curve_intervals,
+    free_covariance,
+    lmfit_solve,
+    tidy_parameters,
+)
 
 __all__ = [
     "FLAGS",
@@ -79,202 +84,10 @@ MIN_POINTS_EACH_SIDE = 2
 #: bottom above this fraction of top is partial efficacy (common practice).
 PARTIAL_EFFICACY_FRACTION = 0.2
 
-# Convergence tolerances (relative) of the main fits: far below the 6 significant
-# digits the reference checks ask for.
-_TOL = 1e-12
-_MAX_FUNCTION_EVALUATIONS = 4000
-# Profile refits locate a crossing only.
-_PROFILE_TOL = 1e-10
-_PROFILE_MAX_DOUBLINGS = 30
-_PROFILE_XTOL = 1e-7
 # The midpoint is kept within this many decades beyond the tested range, and |hill|
 # below this, so that a flat or step-like curve ends at a bound instead of diverging.
-_LOG_IC50_MARGIN = 4.0
-_HILL_MAX = 20.0
-
-
-# --------------------------------------------------------------------------- least squares
-
-@dataclass(frozen=True)
-class _Curve:
-    """One least-squares problem: y ≈ model(x, *theta), some parameters fixed."""
-
-    model: Callable
-    jacobian: Callable
-    names: tuple
-    x: np.ndarray
-    y: np.ndarray
-    w: np.ndarray
-    free: np.ndarray          # bool mask over names
-    fixed_values: np.ndarray  # used where not free
-    lower: np.ndarray
-    upper: np.ndarray
-
-    def full(self, phi):
-        theta = self.fixed_values.copy()
-        theta[self.free] = phi
-        return theta
-
-    def residual(self, phi):
-        return self.w * (self.y - self.model(self.x, *self.full(phi)))
-
-    def residual_jacobian(self, phi):
-        return -self.w[:, None] * self.jacobian(self.x, *self.full(phi))[:, self.free]
-
-    def ssr(self, phi) -> float:
-        return float(np.sum(self.residual(phi) ** 2))
-
-
-def _lmfit_solve(curve: _Curve, phi0):
-    """Main fit with lmfit (MINPACK Levenberg–Marquardt, analytic Jacobian)."""
-    lower, upper = curve.lower[curve.free], curve.upper[curve.free]
-    params = lmfit.Parameters()
-    for m, value in enumerate(phi0):
-        params.add(f"p{m}", value=float(np.clip(value, lower[m], upper[m])), min=lower[m],
-                   max=upper[m])
-
-    def phi_of(pars):
-        return np.array([pars[f"p{m}"].value for m in range(len(phi0))])
-
-    minimizer = lmfit.Minimizer(lambda p: curve.residual(phi_of(p)), params, nan_policy="raise")
-    with np.errstate(all="ignore"):
-        result = minimizer.leastsq(Dfun=lambda p: curve.residual_jacobian(phi_of(p)),
-                                   col_deriv=0, ftol=_TOL, xtol=_TOL,
-                                   max_nfev=_MAX_FUNCTION_EVALUATIONS)
-    phi = phi_of(result.params)
-    return phi, curve.ssr(phi), bool(result.success), str(result.message)
-
-
-def _covariance(curve: _Curve, phi, ssr, dof):
-    """s²(JᵀJ)⁻¹ over the free parameters, or None when singular."""
-    J = curve.residual_jacobian(phi)
-    if dof <= 0 or not np.all(np.isfinite(J)):
-        return None
-    with np.errstate(all="ignore"):
-        info = J.T @ J
-        if np.linalg.matrix_rank(info) < info.shape[0]:
-            return None
-        return np.linalg.inv(info) * (ssr / dof)
-
-
-def _profile_refit(curve: _Curve, j, value, warm):
-    """Minimum SSR with free parameter j held at ``value`` (others re-optimised)."""
-    keep = np.arange(len(warm)) != j
-    if not keep.any():
-        phi = warm.copy()
-        phi[j] = value
-        return curve.ssr(phi), phi
-
-    def full(psi):
-        phi = np.empty(len(warm))
-        phi[j] = value
-        phi[keep] = psi
-        return phi
-
-    lower = curve.lower[curve.free][keep]
-    upper = curve.upper[curve.free][keep]
-    start = np.clip(warm[keep], lower, upper)
-    with np.errstate(all="ignore"):
-        out = optimize.least_squares(
-            lambda psi: curve.residual(full(psi)), start,
-            jac=lambda psi: curve.residual_jacobian(full(psi))[:, keep],
-            bounds=(lower, upper), method="trf", ftol=_PROFILE_TOL, xtol=_PROFILE_TOL,
-            gtol=_PROFILE_TOL)
-    phi = full(out.x)
-    return curve.ssr(phi), phi
-
-
-def _profile_limit(curve: _Curve, phi_hat, j, direction, target, step):
-    """Where the profile SSR of free parameter j crosses ``target`` (±inf when open)."""
-    centre = phi_hat[j]
-    bound = (curve.upper if direction > 0 else curve.lower)[curve.free][j]
-
-    def excess(c, warm):
-        value, phi = _profile_refit(curve, j, c, warm)
-        return value - target, phi
-
-    return profile_crossing(excess, centre, bound, direction, step, phi_hat,
-                            xtol=_PROFILE_XTOL * max(1.0, abs(centre)),
-                            max_doublings=_PROFILE_MAX_DOUBLINGS)
-
-
-def _intervals(curve, phi, ssr, se, method, level, dof):
-    """(low, high) of every free parameter, on the fitted scale."""
-    k = len(phi)
-    if dof <= 0:
-        return np.full(k, np.nan), np.full(k, np.nan)
-    if method == "wald" or ssr == 0:
-        t = stats.t.ppf(0.5 + level / 2, dof)
-        return phi - t * se, phi + t * se
-    target = ssr * (1 + stats.f.ppf(level, 1, dof) / dof)
-    low, high = np.empty(k), np.empty(k)
-    for j in range(k):
-        step = se[j] if np.isfinite(se[j]) and se[j] > 0 else 0.1 * max(1.0, abs(phi[j]))
-        low[j] = _profile_limit(curve, phi, j, -1, target, step)
-        high[j] = _profile_limit(curve, phi, j, +1, target, step)
-    return low, high
-
-
-# --------------------------------------------------------------------------- input checks
-
-def _check_curve(conc, response, weights, *, context, columns=("conc", "response", "weights"),
-                 rows=None, n_free=4, zero_allowed=False):
-    """Float arrays (conc, response, weights) after every check; DataError otherwise."""
-    table = {columns[0]: np.atleast_1d(np.asarray(conc, dtype=object)),
-             columns[1]: np.atleast_1d(np.asarray(response, dtype=object))}
-    if table[columns[0]].shape != table[columns[1]].shape or table[columns[0]].ndim != 1:
-        raise DataError(Problem(columns[1], None, table[columns[1]].size,
-                                f"{columns[0]} and {columns[1]} must be 1-d and of one length "
-                                f"({table[columns[0]].size} and {table[columns[1]].size})"),
-                        context)
-    if weights is not None:
-        table[columns[2]] = np.atleast_1d(np.asarray(weights, dtype=object))
-        if table[columns[2]].shape != table[columns[0]].shape:
-            raise DataError(Problem(columns[2], None, table[columns[2]].size,
-                                    "weights must have one entry per point"), context)
-    frame = pd.DataFrame(table, index=rows)
-    problems: list[Problem] = []
-    c = numeric_column(frame, columns[0], problems, allow_negative=True)
-    y = numeric_column(frame, columns[1], problems, allow_negative=True)
-    w = None if weights is None else numeric_column(frame, columns[2], problems)
-    labels = frame.index.to_numpy()
-    finite_c = np.where(np.isfinite(c), c, 1.0)
-    bad = finite_c < 0 if zero_allowed else finite_c <= 0
-    why = ("concentration must be ≥ 0" if zero_allowed else
-           "concentration must be > 0 (the curve is fitted on log concentration; "
-           "no-inhibitor wells belong in the 'max' controls)")
-    for row, value in list(zip(labels[bad], c[bad]))[:5]:
-        problems.append(Problem(columns[0], row, float(value), why, row_kind(frame)))
-    if w is not None:
-        zero = np.isfinite(w) & (w == 0)
-        for row in labels[zero][:5]:
-            problems.append(Problem(columns[2], row, 0.0, "weights must be > 0"))
-    if problems:
-        raise DataError(problems, context)
-    levels = np.unique(c)
-    if levels.size == 0:
-        raise DataError(Problem(columns[0], None, None,
-                                f"no points; a curve needs more than {n_free}"), context)
-    if levels.size < 2:
-        raise DataError(Problem(columns[0], None, float(levels[0]),
-                                "a single concentration; a dose-response curve needs several "
-                                f"(at least {n_free})"), context)
-    if levels.size < n_free:
-        raise DataError(Problem(columns[0], None, int(levels.size),
-                                f"{levels.size} distinct concentrations cannot determine "
-                                f"{n_free} curve parameters"), context)
-    if len(y) <= n_free:
-        raise DataError(Problem(columns[1], None, len(y),
-                                f"{len(y)} points; {n_free} parameters need more points "
-                                "than that"), context)
-    if np.all(y == y[0]):
-        raise DataError(Problem(columns[1], None, float(y[0]),
-                                "all responses are equal; there is no curve to fit"), context)
-    return c, y, (np.ones_like(y) if w is None else w)
-
-
-def _context(compound):
-    return None if compound is None else f"compound {compound!r}"
+LOG_IC50_MARGIN = 4.0
+HILL_MAX = 20.0
 
 
 # --------------------------------------------------------------------------- 4PL fit
@@ -397,10 +210,8 @@ class DoseResponseFit:
             return logistic4(np.log10(np.asarray(conc, dtype=float)), **self.estimates)
 
     def to_frame(self) -> pd.DataFrame:
-        """The parameter table, tidy, with the compound as a column."""
-        out = self.params.reset_index()
-        out.insert(0, "compound", self.compound)
-        return out
+        """The parameter table, tidy, with the compound as a column (an editable copy)."""
+        return tidy_parameters(self.params, self.compound)
 
     def summary(self) -> str:
         """Plain-text report."""
@@ -433,18 +244,18 @@ class DoseResponseFit:
 DIRECTIONS = ("any", "falling", "rising")
 
 
-def _logistic_curve(x, y, w, fixed: dict, direction="any") -> _Curve:
+def _logistic_curve(x, y, w, fixed: dict, direction="any") -> Curve:
     free = np.array([n not in fixed for n in PARAM_NAMES])
     values = np.array([float(fixed.get(n, np.nan)) for n in PARAM_NAMES])
-    hill_low = 0.0 if direction == "falling" else -_HILL_MAX
-    hill_high = 0.0 if direction == "rising" else _HILL_MAX
-    lower = np.array([-np.inf, -np.inf, x.min() - _LOG_IC50_MARGIN, hill_low])
-    upper = np.array([np.inf, np.inf, x.max() + _LOG_IC50_MARGIN, hill_high])
-    return _Curve(logistic4, logistic4_jacobian, PARAM_NAMES, x, y, w, free, values, lower,
+    hill_low = 0.0 if direction == "falling" else -HILL_MAX
+    hill_high = 0.0 if direction == "rising" else HILL_MAX
+    lower = np.array([-np.inf, -np.inf, x.min() - LOG_IC50_MARGIN, hill_low])
+    upper = np.array([np.inf, np.inf, x.max() + LOG_IC50_MARGIN, hill_high])
+    return Curve(logistic4, logistic4_jacobian, PARAM_NAMES, x, y, w, free, values, lower,
                   upper)
 
 
-def _curve_flags(curve: _Curve, est, *, n_free, direction, hill_range, min_points_each_side,
+def _curve_flags(curve: Curve, est, *, n_free, direction, hill_range, min_points_each_side,
                 partial_efficacy, full_activity=None, zero_activity=0.0,
                 curve_rules: CurveClassRules = DEFAULT_RULES):
     """Flags, the IC50 bound, the curve's class and what the data do not set."""
@@ -523,16 +334,16 @@ def _curve_flags(curve: _Curve, est, *, n_free, direction, hill_range, min_point
     return flags, bound, kind, str(classes.reason[0]), missing
 
 
-def _build_dose_response(curve: _Curve, phi, ssr, converged, message, *, conc, compound,
+def _build_dose_response(curve: Curve, phi, ssr, converged, message, *, conc, compound,
                          method, level, hill_range, min_points_each_side, partial_efficacy,
                          full_activity=None, zero_activity=0.0,
                          curve_rules: CurveClassRules = DEFAULT_RULES):
     n, k = len(curve.y), int(curve.free.sum())
     dof = n - k
-    covariance = _covariance(curve, phi, ssr, dof)
+    covariance = free_covariance(curve, phi, ssr, dof)
     se_free = (np.sqrt(np.clip(np.diag(covariance), 0, None)) if covariance is not None
                else np.full(k, np.nan))
-    low_free, high_free = _intervals(curve, phi, ssr, se_free, method, level, dof)
+    low_free, high_free = curve_intervals(curve, phi, ssr, se_free, method, level, dof)
     # A Hill slope held to one sign has a real limit at 0, not an open interval.
     h = int(np.sum(curve.free[:PARAM_NAMES.index("hill")]))
     if curve.lower[3] == 0.0:
@@ -579,7 +390,7 @@ def _build_dose_response(curve: _Curve, phi, ssr, converged, message, *, conc, c
                            tuple(f"{n}: {why}" for n, why in missing.items()))
 
 
-def _fixed(fix_top, fix_bottom) -> dict:
+def fixed_parameters(fix_top, fix_bottom) -> dict:
     out = {}
     if fix_top is not None:
         out["top"] = float(fix_top)
@@ -661,17 +472,17 @@ def fit_dose_response(conc, response, *, fix_top=None, fix_bottom=None, weights=
         raise FitError(f"intervals must be one of {INTERVAL_METHODS}, got {intervals!r}")
     if direction not in DIRECTIONS:
         raise FitError(f"direction must be one of {DIRECTIONS}, got {direction!r}")
-    fixed = _fixed(fix_top, fix_bottom)
-    c, y, w = _check_curve(conc, response, weights, context=_context(compound),
+    fixed = fixed_parameters(fix_top, fix_bottom)
+    c, y, w = check_curve(conc, response, weights, context=compound_context(compound),
                            n_free=4 - len(fixed))
-    return _fit_logistic(c, y, w, fixed, compound=compound, method=intervals, level=level,
+    return fit_logistic(c, y, w, fixed, compound=compound, method=intervals, level=level,
                          direction=direction, hill_range=hill_range,
                          min_points_each_side=min_points_each_side,
                          partial_efficacy=partial_efficacy, full_activity=full_activity,
                          zero_activity=zero_activity, curve_rules=curve_rules)
 
 
-def _fit_logistic(c, y, w, fixed, *, compound, method, level, direction="any",
+def fit_logistic(c, y, w, fixed, *, compound, method, level, direction="any",
                   **flag_options):
     x = np.log10(c)
     curve = _logistic_curve(x, y, w, fixed, direction)
@@ -687,13 +498,13 @@ def _fit_logistic(c, y, w, fixed, *, compound, method, level, direction="any",
     for shift in (0.0, -0.25, 0.25):
         trial = phi0.copy()
         trial[j] = phi0[j] + shift * (x.max() - x.min())
-        outcome = _lmfit_solve(curve, trial)
+        outcome = lmfit_solve(curve, trial)
         if np.isfinite(outcome[1]) and (best is None or outcome[1] < best[1] * (1 - 1e-12)):
             best = outcome
         if shift == 0.0 and outcome[2]:
             break
     if best is None:
-        raise FitError(f"{_context(compound) or 'dose-response'}: no finite least-squares "
+        raise FitError(f"{compound_context(compound) or 'dose-response'}: no finite least-squares "
                        f"solution found")
     phi, ssr, converged, message = best
     return _build_dose_response(curve, phi, ssr, converged, message, conc=c, compound=compound,
@@ -729,17 +540,17 @@ def dose_response_from_estimates(conc, response, estimates, *, weights=None, fix
     """
     if direction not in DIRECTIONS:
         raise FitError(f"direction must be one of {DIRECTIONS}, got {direction!r}")
-    fixed = _fixed(fix_top, fix_bottom)
-    c, y, w = _check_curve(conc, response, weights, context=_context(compound),
+    fixed = fixed_parameters(fix_top, fix_bottom)
+    c, y, w = check_curve(conc, response, weights, context=compound_context(compound),
                            n_free=4 - len(fixed))
-    return _from_estimates(c, y, w, fixed, estimates, level=level, compound=compound,
+    return from_estimates(c, y, w, fixed, estimates, level=level, compound=compound,
                            converged=converged, message=message, direction=direction,
                            hill_range=hill_range, min_points_each_side=min_points_each_side,
                            partial_efficacy=partial_efficacy, full_activity=full_activity,
                            zero_activity=zero_activity, curve_rules=curve_rules)
 
 
-def _from_estimates(c, y, w, fixed, estimates, *, level, compound, converged, message,
+def from_estimates(c, y, w, fixed, estimates, *, level, compound, converged, message,
                     direction, **flag_options) -> DoseResponseFit:
     """dose_response_from_estimates on arrays already checked."""
     curve = _logistic_curve(np.log10(c), y, w, fixed, direction)

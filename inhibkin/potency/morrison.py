@@ -15,17 +15,11 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ..core.readonly import readonly_array, readonly_frame
 from ..errors import DataError, FitError, Problem
+from . import least_squares
 from .conversion import as_array, cheng_prusoff
-from .curve import (
-    INTERVAL_METHODS,
-    _check_curve,
-    _context,
-    _covariance,
-    _Curve,
-    _intervals,
-    _lmfit_solve,
-)
+from .curve import INTERVAL_METHODS
 
 __all__ = ["MorrisonFit", "morrison", "fit_morrison"]
 
@@ -114,6 +108,12 @@ class MorrisonFit:
     response: np.ndarray = field(repr=False)
     fitted: np.ndarray = field(repr=False)
 
+    def __post_init__(self):
+        # Frozen all the way down: the parameter table and the arrays cannot be edited.
+        object.__setattr__(self, "params", readonly_frame(self.params))
+        for name in ("conc", "response", "fitted"):
+            object.__setattr__(self, name, readonly_array(getattr(self, name)))
+
     @property
     def ki_app(self) -> float:
         return float(self.params.loc["ki_app", "estimate"])
@@ -133,10 +133,8 @@ class MorrisonFit:
         return float(self.params.loc["enzyme", "estimate"])
 
     def to_frame(self) -> pd.DataFrame:
-        """The parameter table, tidy, with the compound as a column."""
-        out = self.params.reset_index()
-        out.insert(0, "compound", self.compound)
-        return out
+        """The parameter table, tidy, with the compound as a column (an editable copy)."""
+        return least_squares.tidy_parameters(self.params, self.compound)
 
     def summary(self) -> str:
         """Plain-text report."""
@@ -191,14 +189,15 @@ def fit_morrison(conc, v, *, enzyme, fit_enzyme=False, s=None, km=None, mechanis
     """
     if intervals not in INTERVAL_METHODS:
         raise FitError(f"intervals must be one of {INTERVAL_METHODS}, got {intervals!r}")
-    context = _context(compound)
+    context = least_squares.compound_context(compound)
     problems: list[Problem] = []
     e_value = as_array(enzyme, "enzyme", problems, pd.RangeIndex(1), positive=True)[0]
     if problems:
         raise DataError(problems, context)
     n_free = 3 if fit_enzyme else 2
-    i, y, w = _check_curve(conc, v, weights, context=context, columns=("conc", "v", "weights"),
-                           n_free=n_free, zero_allowed=True)
+    i, y, w = least_squares.check_curve(conc, v, weights, context=context,
+                                        columns=("conc", "v", "weights"), n_free=n_free,
+                                        zero_allowed=True)
     if np.unique(i).size < n_free + 1 or len(y) <= n_free:
         raise DataError(Problem("conc", None, int(np.unique(i).size),
                                 f"too few concentrations for {n_free} parameters"), context)
@@ -210,17 +209,18 @@ def fit_morrison(conc, v, *, enzyme, fit_enzyme=False, s=None, km=None, mechanis
     grid = np.geomspace(lo, hi, 13)
     log_e = np.log(e_value)
     ssr_grid = [np.sum((w * (y - morrison(i, start_v0, k, e_value))) ** 2) for k in grid]
-    curve = _Curve(_morrison_model, _morrison_jacobian, names, i, y, w, free,
-                   np.array([start_v0, np.log(grid[int(np.argmin(ssr_grid))]), log_e]),
-                   np.array([-np.inf, np.log(lo * _MORRISON_K_BELOW), log_e - np.log(1e3)]),
-                   np.array([np.inf, np.log(hi * _MORRISON_K_ABOVE), log_e + np.log(1e3)]))
-    phi, ssr, converged, message = _lmfit_solve(curve, curve.fixed_values[free])
+    curve = least_squares.Curve(
+        _morrison_model, _morrison_jacobian, names, i, y, w, free,
+        np.array([start_v0, np.log(grid[int(np.argmin(ssr_grid))]), log_e]),
+        np.array([-np.inf, np.log(lo * _MORRISON_K_BELOW), log_e - np.log(1e3)]),
+        np.array([np.inf, np.log(hi * _MORRISON_K_ABOVE), log_e + np.log(1e3)]))
+    phi, ssr, converged, message = least_squares.lmfit_solve(curve, curve.fixed_values[free])
     if not np.isfinite(ssr):
         raise FitError(f"{context or 'Morrison fit'}: no finite least-squares solution")
     dof = len(y) - n_free
-    cov = _covariance(curve, phi, ssr, dof)
+    cov = least_squares.free_covariance(curve, phi, ssr, dof)
     se = np.sqrt(np.clip(np.diag(cov), 0, None)) if cov is not None else np.full(n_free, np.nan)
-    low, high = _intervals(curve, phi, ssr, se, intervals, level, dof)
+    low, high = least_squares.curve_intervals(curve, phi, ssr, se, intervals, level, dof)
     theta = curve.full(phi)
     v0, k, e = theta[0], float(np.exp(theta[1])), float(np.exp(theta[2]))
     # An open profile limit is ±inf in log units; its exp saturates to 0 or inf quietly.

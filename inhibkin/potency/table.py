@@ -22,20 +22,20 @@ from ..rates.plates import Z_PRIME_THRESHOLD, ZERO_SPREAD, PlateQC, percent_acti
 from ..units import from_molar, normalise_unit, parse_concentration, split_unit
 from ..validate import check_columns, normalise_roles, row_kind
 from .conversion import CONVERSIONS, cheng_prusoff
+from .curve import HILL_MAX as _HILL_MAX
 from .curve import (
-    _HILL_MAX,
-    _LOG_IC50_MARGIN,
     HILL_RANGE,
     INTERVAL_METHODS,
     MIN_POINTS_EACH_SIDE,
     PARTIAL_EFFICACY_FRACTION,
     DoseResponseFit,
-    _check_curve,
-    _context,
-    _fit_logistic,
-    _fixed,
-    _from_estimates,
 )
+from .curve import LOG_IC50_MARGIN as _LOG_IC50_MARGIN
+from .curve import fit_logistic as _fit_logistic
+from .curve import fixed_parameters as _fixed
+from .curve import from_estimates as _from_estimates
+from .least_squares import check_curve as _check_curve
+from .least_squares import compound_context as _context
 from .morrison import fit_morrison
 
 __all__ = ["TIGHT_BINDING_FACTOR", "PotencyTable", "EngineFitter", "potency_table",
@@ -330,7 +330,7 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
         Michaelis constant: text with its unit (``"40uM"``), a number, or the column
         holding it (in the substrate column's unit). A number is in **M** when the
         substrate's unit is declared (``substrate_unit``, or a header such as
-        ``substrate_uM``), as in :func:`~inhibkin.campaign.batch.fit_campaign`; in a table
+        ``substrate_uM``), as in :func:`~inhibkin.campaign.fit.fit_campaign`; in a table
         whose substrate carries no unit, a number is in the substrate's own unit.
     substrate_unit : str, optional
         Unit of the substrate column, when its header does not carry it.

@@ -68,6 +68,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ..core.readonly import readonly_frame, readonly_mapping
 from ..errors import DataError, Problem, UnitsError
 from ..inputs.columns import find_column
 from ..units import from_molar, normalise_unit, to_molar, to_seconds
@@ -172,6 +173,13 @@ class InitialRates:
     unmatched: pd.DataFrame = field(repr=False)
     units: dict
     options: RateOptions
+
+    def __post_init__(self):
+        # Frozen all the way down: rates.table.loc[...] = ... and rates.units[...] = ...
+        # are refused; to_frame() gives a copy to edit.
+        for name in ("table", "controls", "unmatched"):
+            object.__setattr__(self, name, readonly_frame(getattr(self, name)))
+        object.__setattr__(self, "units", readonly_mapping(self.units))
 
     def to_frame(self) -> pd.DataFrame:
         """A copy of :attr:`table` (units in ``.attrs["units"]``)."""

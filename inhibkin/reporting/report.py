@@ -316,7 +316,7 @@ def _as_campaign(campaign):
                                       f"{number_text(ki['ci_high'])}] (fit units)")
             rows.append(row)
         return pd.DataFrame(rows), dict(campaign), {}
-    raise DataError("report() needs a Campaign (inhibkin.campaign.batch.fit_campaign) or a "
+    raise DataError("report() needs a Campaign (inhibkin.campaign.fit.fit_campaign) or a "
                     f"mapping of compound to MechanismFit, got {type(campaign).__name__}")
 
 
@@ -444,7 +444,7 @@ def report(campaign, path, *, potency=None, rates=None, time_dependent=None,
     Parameters
     ----------
     campaign : Campaign or mapping of str to MechanismFit
-        From :func:`inhibkin.campaign.batch.fit_campaign` (constants in M), or a mapping of
+        From :func:`inhibkin.campaign.fit.fit_campaign` (constants in M), or a mapping of
         compound to :class:`~inhibkin.mechanism.fit.MechanismFit` (constants in the fit's
         own units; ``units`` then labels the axes).
     path : str or os.PathLike
