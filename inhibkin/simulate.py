@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from .core.models import MODELS, get_model
+from .core.models import INHIBITION_MODELS, MODELS, get_model
 from .errors import DataError
 from .units import from_molar, to_molar
 
@@ -94,7 +94,7 @@ def simulate_grid(mechanism, *, vmax, km, kic=None, kiu=None, s=None, i=None, re
 
 def simulate_campaign(n_compounds, *, seed, cv=0.05, km_uM=20.0, vmax=100.0,
                       pki_range=(5.0, 9.0),
-                      mechanisms=("competitive", "uncompetitive", "noncompetitive", "mixed"),
+                      mechanisms=INHIBITION_MODELS,
                       design_error=0.5, n_substrate=6, n_inhibitor=5, replicates=2):
     """A campaign of compounds of known mechanism and Ki against one enzyme.
 

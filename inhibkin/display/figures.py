@@ -43,7 +43,7 @@ import seaborn as sns
 from matplotlib.figure import Figure
 
 from ..core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian
-from ..core.models import MODEL_NAMES, MODELS
+from ..core.models import MODELS
 from ..units import from_molar
 
 __all__ = [
@@ -72,9 +72,11 @@ __all__ = [
 #: Markers and line styles by inhibitor level (cycled when there are more levels).
 LEVEL_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "h")
 LEVEL_LINES = ("-", "--", "-.", ":", (0, (5, 1, 1, 1)), (0, (1, 2)), (0, (8, 2)), (0, (3, 3)))
+#: Hatch patterns, handed to the models in their registry order (cycled).
+HATCH_PATTERNS = ("", "//", "\\\\", "xx", "..", "++", "oo", "--", "||", "**")
 #: Hatch pattern per model (bar charts stay readable in grey).
-MODEL_HATCHES = {"none": "", "competitive": "//", "uncompetitive": "\\\\",
-                 "noncompetitive": "xx", "mixed": ".."}
+MODEL_HATCHES = {name: HATCH_PATTERNS[k % len(HATCH_PATTERNS)]
+                 for k, name in enumerate(MODELS)}
 #: Every linearised view's title starts with this.
 DIAGNOSTIC_PREFIX = "Diagnostic only (linearised view, not the fit)"
 
@@ -131,8 +133,8 @@ def level_palette(n: int) -> list:
 
 def model_colours() -> dict:
     """One colour per model (seaborn's colour-blind palette)."""
-    colours = sns.color_palette("colorblind", len(MODEL_NAMES))
-    return dict(zip(MODEL_NAMES, colours))
+    colours = sns.color_palette("colorblind", len(MODELS))
+    return dict(zip(MODELS, colours))
 
 
 class NotebookFigure(Figure):
