@@ -11,9 +11,9 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 
 from ..errors import OptionError
-from ..validate import check_options
 from .determined import DETERMINATION_FACTOR
 from .lack_of_fit import LACK_OF_FIT_ALPHA
+from .limits import check_options
 from .weighting import DEFAULT_WEIGHTING, WEIGHTINGS
 
 __all__ = ["FitOptions", "INTERVAL_METHODS"]
@@ -22,7 +22,7 @@ __all__ = ["FitOptions", "INTERVAL_METHODS"]
 INTERVAL_METHODS = ("profile", "wald")
 
 
-# The numeric options; their limits are declared once, in validate.OPTION_LIMITS.
+# The numeric options; their limits are declared once, in core/limits.py (OPTION_LIMITS).
 _NUMERIC = ("level", "alpha", "min_delta_aicc", "alpha_factor", "determination_factor",
             "lack_of_fit_alpha")
 
@@ -54,7 +54,7 @@ class FitOptions:
     ------
     OptionError
         Naming every option outside its allowed values (the limits of
-        :data:`inhibkin.validate.OPTION_LIMITS`).
+        :data:`inhibkin.core.limits.OPTION_LIMITS`).
     """
 
     weighting: str = DEFAULT_WEIGHTING
