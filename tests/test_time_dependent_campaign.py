@@ -194,3 +194,19 @@ def test_cli_rank_stores_and_writes_the_time_dependent_table(tmp_path, reads):
     pd.testing.assert_frame_equal(stored, written, check_dtype=False)
     rows = read_workbook_rows(out, sheet="time-dependent")
     assert [r[1] for r in rows[1:]] == list(written["compound"])
+
+
+def test_kobs_sketch_is_scaled_to_the_wells_and_the_chosen_scheme(ranking):
+    from inhibkin.display.sketch import kobs_sketch
+
+    fit = ranking.fits["007"]
+    used = fit.kobs[(fit.kobs["inhibitor"] > 0) & np.isfinite(fit.kobs["kobs_low"])]
+    curves = fit.fitted_kobs(30)
+    chosen = curves[curves["chosen"]]
+    assert set(chosen["scheme"]) == {fit.scheme}
+    top = max(used["kobs_high"].max(), chosen["kobs"].max()) * 1.05
+    svg = kobs_sketch(used, curves, label="k")
+    assert f">{top:.3g}<" in svg                   # the y axis ends just above the data
+    # Both schemes drawn, the chosen one solid; the other one cut where it leaves the axis.
+    assert svg.count("<polyline") == len(used) + 2
+    assert svg.count('stroke-dasharray="3 2"') == 1

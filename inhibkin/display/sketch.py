@@ -274,6 +274,13 @@ def dose_response_sketch(fit, *, conc_unit="", label="") -> str:
     return frame.svg(label or "dose-response")
 
 
+def _finite_max(values) -> float:
+    """The largest finite value (1.0 when there is none: an empty sketch still draws)."""
+    values = np.asarray(values, float)
+    finite = values[np.isfinite(values)]
+    return float(finite.max()) if finite.size else 1.0
+
+
 def _legend(frame, levels, colours, unit="") -> None:
     """The inhibitor levels beside the plot area (the grid sketch's legend)."""
     for k, level in enumerate(levels):
@@ -303,10 +310,10 @@ def progress_sketch(reads, fitted, *, label="") -> str:
     levels = np.unique(reads["inhibitor"].to_numpy(float))
     colours = level_colours(len(levels))
     t, y = reads["time"].to_numpy(float), reads["signal"].to_numpy(float)
-    finite = y[np.isfinite(y)]
-    frame = _Frame((0.0, float(np.nanmax(t, initial=1.0))),
-                   (min(0.0, float(finite.min(initial=0.0))),
-                    float(finite.max(initial=1.0)) * 1.05))
+    top, bottom = _finite_max(y), -_finite_max(-y)
+    # Read noise dipping below 0 at t = 0 does not move the axis off 0.
+    frame = _Frame((0.0, _finite_max(t)),
+                   (bottom if bottom < -0.05 * abs(top) else 0.0, top * 1.05))
     frame.axes("time", "signal")
     for well, part in reads.groupby("well", sort=False):
         k = int(np.searchsorted(levels, float(part["inhibitor"].iloc[0])))
@@ -340,9 +347,11 @@ def kobs_sketch(points, curves, *, label="") -> str:
     """
     x = points["inhibitor"].to_numpy(float)
     k, low, high = (points[c].to_numpy(float) for c in ("kobs", "kobs_low", "kobs_high"))
-    top = float(np.nanmax(np.concatenate([high, curves["kobs"].to_numpy(float)]),
-                          initial=1.0)) * 1.05
-    frame = _Frame((0.0, float(np.nanmax(curves["inhibitor"], initial=1.0))), (0.0, top))
+    # The wells and the chosen scheme set the range; the other scheme is cut where it
+    # leaves it (a line far above the data would flatten both).
+    chosen_kobs = curves.loc[curves["chosen"].astype(bool), "kobs"].to_numpy(float)
+    top = _finite_max(np.concatenate([high, k, chosen_kobs])) * 1.05
+    frame = _Frame((0.0, _finite_max(curves["inhibitor"].to_numpy(float))), (0.0, top))
     frame.axes("[I]", "kobs")
     for a, b, c in zip(x, low, high):
         frame.line(np.array([a, a]), np.array([b, c]), _FAINT, width=0.8)
@@ -351,7 +360,8 @@ def kobs_sketch(points, curves, *, label="") -> str:
     names = []
     for name, part in curves.groupby("scheme", sort=False):
         chosen = bool(part["chosen"].iloc[0])
-        frame.line(part["inhibitor"].to_numpy(float), part["kobs"].to_numpy(float), _INK,
+        y = part["kobs"].to_numpy(float)
+        frame.line(part["inhibitor"].to_numpy(float), np.where(y <= top, y, np.nan), _INK,
                    dash="" if chosen else "3 2", width=1.2 if chosen else 0.8)
         names.append(f"{name} {'solid' if chosen else 'dashed'}")
     frame.parts.append(f'<text x="{_LEFT + 4}" y="{_TOP - 5}" dx="30">'
