@@ -73,6 +73,8 @@ _EXPORTS = {
     "fit_preincubation": "time_dependent",
     "fit_time_dependent": "time_dependent",
     "rank_time_dependent": "time_dependent",
+    "fit_time_dependent_ranking": "time_dependent",
+    "TimeDependentRanking": "time_dependent",
     "from_molar": "units",
     "to_molar": "units",
 }

@@ -661,13 +661,24 @@ def _rank_arguments(parser):
                              "binding by Ki* with residence time")
     parser.add_argument("--reversible", action="store_true",
                         help="the --time-dependent compounds bind slowly and reversibly")
+    _time_dependent_substrate_arguments(parser)
     _fit_arguments(parser)
     _rate_column_argument(parser)
     _dose_arguments(parser)
 
 
-def _whole_campaign(args):
-    """fit_campaign over --grid and/or --dose-response (the rank and report stages)."""
+def _time_dependent_substrate_arguments(parser):
+    parser.add_argument("--time-dependent-substrate", metavar="CONC",
+                        help="substrate concentration of the --time-dependent assay with its "
+                             "unit (e.g. 100uM), for KI = KI,app/(1 + S/Km); with "
+                             "--time-dependent-km")
+    parser.add_argument("--time-dependent-km", metavar="CONC",
+                        help="Km of the --time-dependent assay with its unit (e.g. 10uM)")
+
+
+def _whole_campaign(args, time_dependent=None):
+    """fit_campaign over --grid and/or --dose-response (the rank and report stages), the
+    --time-dependent ranking carried along."""
     from .campaign import fit_campaign
 
     grid = (_read(args.grid, args, required=_GRID_COLUMNS, context="grid")
@@ -677,16 +688,23 @@ def _whole_campaign(args):
     dose_options = _dose_options(args) if dose is not None else {}
     with _execution(args) as where:
         return fit_campaign(grid, dose_response=dose, rate="rate", **dose_options,
-                            **_fit_options(args), **where)
+                            **_fit_options(args), **where, time_dependent=time_dependent)
 
 
 def _time_dependent_ranking(args):
-    """--time-dependent READS ranked in their own table (rank and report stages)."""
+    """--time-dependent READS ranked in their own table (rank and report stages), KI
+    corrected by 1 + S/Km when the assay's S and Km are given."""
     from .inputs.io import read_table
-    from .time_dependent import rank_time_dependent
+    from .time_dependent import fit_time_dependent_ranking
 
+    substrate, km = _substrate_and_km(args.time_dependent_substrate, args.time_dependent_km)
+    if (substrate is None) != (km is None):
+        raise DataError(Problem("--time-dependent-km", None, km,
+                                "give --time-dependent-substrate and --time-dependent-km "
+                                "together"))
     reads = read_table(args.time_dependent, text_columns=["compound"])
-    return rank_time_dependent(reads, irreversible=not args.reversible, level=args.level)
+    return fit_time_dependent_ranking(reads, irreversible=not args.reversible,
+                                      substrate=substrate, km=km, level=args.level)
 
 
 def _rank(args) -> int:
@@ -702,18 +720,18 @@ def _rank(args) -> int:
                   "--time-dependent": args.time_dependent},
                  {"--output": output, "--time-dependent-output": td_output})
     _check_fit_arguments(args)
-    td_failed = 0
+    td_failed, ranked = 0, None
     if args.time_dependent:
         from .inputs.io import write_table
 
         ranked = _time_dependent_ranking(args)
-        write_table(ranked, td_output)
-        td_failed = int((ranked["status"] == "failed").sum())
+        write_table(ranked.table, td_output)
+        td_failed = int((ranked.table["status"] == "failed").sum())
         if td_failed:
-            print(f"inhibkin rank: {td_failed} of {len(ranked)} time-dependent compounds "
-                  f"failed; their reasons are in the 'reason' column of {td_output}",
-                  file=sys.stderr)
-    status = _finish(_whole_campaign(args), output, args)
+            print(f"inhibkin rank: {td_failed} of {len(ranked.table)} time-dependent "
+                  f"compounds failed; their reasons are in the 'reason' column of "
+                  f"{td_output}", file=sys.stderr)
+    status = _finish(_whole_campaign(args, ranked), output, args)
     return EXIT_SOME_FAILED if td_failed and status == EXIT_OK else status
 
 
@@ -726,6 +744,7 @@ def _report_arguments(parser):
                              "time, signal, inhibitor): their own ranked section")
     parser.add_argument("--reversible", action="store_true",
                         help="the --time-dependent compounds bind slowly and reversibly")
+    _time_dependent_substrate_arguments(parser)
     parser.add_argument("--rate-unit", default="", help="label of the rates, e.g. uM/min")
     parser.add_argument("--detail", action="append", metavar="WHICH",
                         help="compounds drawn with the full figures (about a second each; "
@@ -750,13 +769,13 @@ def _report(args) -> int:
                  {"--output": output, "--ranking": ranking})
     _check_fit_arguments(args)
     time_dependent = _time_dependent_ranking(args) if args.time_dependent else None
-    campaign = _whole_campaign(args)
+    campaign = _whole_campaign(args, time_dependent)
     if ranking is not None:
         _write_output(campaign.ranking, ranking, campaign=campaign)
     _keep(campaign, ranking or output, args)
     _draw(campaign, args)
     path = report(campaign, output, rate_unit=args.rate_unit, detail=detail,
-                  time_dependent=time_dependent, quiet=args.quiet)
+                  quiet=args.quiet)
     if not args.quiet:
         print(f"report written to {path.resolve()}")
     n_failed = campaign.counts["failed"]

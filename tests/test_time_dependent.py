@@ -121,12 +121,68 @@ def test_covalent_two_step_recovers_kinact_ki_and_kinact_over_ki(covalent_fits):
             assert covered >= MIN_COVERED, (route, name, covered)
 
 
-def test_global_fit_and_two_step_route_agree(covalent_fit):
-    c, g = covalent_fit.constants, covalent_fit.global_constants
-    for name in ("k5", "ki", "k5_over_ki"):
+ONE_STEP_COVALENT = Scheme(kon=2e-5, koff=0.0)     # kobs = kon·[I], no first complex
+# Every scheme the global fit covers: (ODE scheme, irreversible, the scheme to be called).
+GLOBAL_CASES = {"covalent two-step": (COVALENT, True, "two_step"),
+                "covalent one-step": (ONE_STEP_COVALENT, True, "one_step"),
+                "slow one-step": (SLOW_ONE_STEP, False, "one_step"),
+                "slow two-step": (SLOW_TWO_STEP, False, "two_step")}
+
+
+@pytest.mark.parametrize("case", list(GLOBAL_CASES))
+def test_global_fit_and_kobs_route_agree_on_every_scheme(case):
+    scheme, irreversible, called = GLOBAL_CASES[case]
+    fit = ik.fit_time_dependent(reads_of(scheme, 11), irreversible=irreversible,
+                                substrate=SUBSTRATE, km=scheme.km)
+    assert fit.scheme == called
+    c, g = fit.constants, fit.global_constants
+    assert list(g.index) == list(c.index)        # the same scheme's constants
+    for name in c.index:
         # Each route's estimate inside the other route's interval.
-        assert g.loc[name, "ci_low"] < c.loc[name, "estimate"] < g.loc[name, "ci_high"]
-        assert c.loc[name, "ci_low"] < g.loc[name, "estimate"] < c.loc[name, "ci_high"]
+        assert g.loc[name, "ci_low"] < c.loc[name, "estimate"] < g.loc[name, "ci_high"], name
+        assert c.loc[name, "ci_low"] < g.loc[name, "estimate"] < c.loc[name, "ci_high"], name
+
+
+def test_one_step_ki_interval_is_fieller_against_statsmodels():
+    """Fieller's interval of koff/kon (Fieller 1954, J. R. Stat. Soc. B 16:175): at each
+    end r the t statistic of koff − r·kon = 0 in the weighted line kobs = koff + kon·[I]
+    equals the t quantile. The line refitted by statsmodels WLS (weights 1/SE²)."""
+    import statsmodels.api as sm
+    from scipy import stats
+
+    fit = ik.fit_time_dependent(reads_of(SLOW_ONE_STEP, 5), irreversible=False)
+    wells = fit.kobs[(fit.kobs["inhibitor"] > 0) & np.isfinite(fit.kobs["kobs_low"])]
+    se = wells["kobs"] * wells["log_kobs_se"]
+    wls = sm.WLS(wells["kobs"].to_numpy(), sm.add_constant(wells["inhibitor"].to_numpy()),
+                 weights=1 / se.to_numpy() ** 2).fit()
+    koff, kon = wls.params
+    c = fit.constants
+    assert c.loc["ki", "estimate"] == pytest.approx(koff / kon, rel=1e-5)
+    tq = stats.t.ppf(0.975, wls.df_resid)
+    for end in ("ci_low", "ci_high"):
+        r = c.loc["ki", end]
+        t_value = float(np.asarray(wls.t_test(np.array([[1.0, -r]])).tvalue).ravel()[0])
+        assert abs(t_value) == pytest.approx(tq, rel=1e-4)
+
+
+@pytest.fixture(scope="module")
+def slow_one_step_fits():
+    return [ik.fit_time_dependent(reads_of(SLOW_ONE_STEP, seed), irreversible=False,
+                                  substrate=SUBSTRATE, km=SLOW_ONE_STEP.km, global_fit=False)
+            for seed in SEEDS]
+
+
+def test_one_step_ki_covers_koff_over_kon_on_ode_plates(slow_one_step_fits):
+    # Ki = koff/kon of the elementary step (td_ode.Scheme.ki), S/Km corrected.
+    covered = sum(f.constants.loc["ki", "ci_low"] < SLOW_ONE_STEP.ki
+                  < f.constants.loc["ki", "ci_high"] for f in slow_one_step_fits)
+    assert covered >= MIN_COVERED, covered
+    table = ik.rank_time_dependent(reads_of(SLOW_ONE_STEP, 5).assign(compound="S-1"),
+                                   irreversible=False, substrate=SUBSTRATE,
+                                   km=SLOW_ONE_STEP.km)
+    row = table.iloc[0]
+    assert row["ki_star_low"] < SLOW_ONE_STEP.ki < row["ki_star_high"]
+    assert row["score"] == pytest.approx(-np.log10(row["ki_star"]))
 
 
 def test_one_step_slow_binding_is_called_one_step_with_kon_koff_and_residence_time():

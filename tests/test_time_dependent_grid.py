@@ -213,3 +213,50 @@ def test_linear_wells_are_flagged_at_about_the_stated_level(n_reads):
     flagged = time_dependence(t, y, np.ones_like(t, bool), substrate=np.full(n, 20.0),
                               inhibitor=inhibitor, group=np.zeros(n))["time_dependent"]
     assert LEVEL == 1e-3 and flagged[inhibitor > 0].sum() <= 15
+
+
+def test_compound_decision_corrects_for_the_number_of_wells():
+    """72 inhibited wells each flagged at the 0.1 % level hold a false flag with
+    probability 1 − 0.999⁷² = 6.9 % (binomial): the compound-level count rule asks for as
+    many flags as that level gives with probability ≤ 5 % (rates/time_dependence.py).
+    Null wells as in the test above (20 reads, constant rate, Gaussian noise; each well
+    flagged about 0.18 % of the time, above the nominal level), 600 compounds of 72
+    inhibited wells: any flag marked about 12 % of them (seed 16: 74), the count rule
+    0.8 % (5). Bounds: more than 30 before (5 %), at most 15 after (2.5 %)."""
+    from scipy import stats
+
+    from inhibkin.rates.time_dependence import (
+        COMPOUND_LEVEL,
+        LEVEL,
+        flagged_inhibited,
+        min_flagged,
+        time_dependence,
+    )
+
+    for n in (1, 20, 51, 52, 72, 355, 356):
+        k = min_flagged(n)
+        assert stats.binom.sf(k - 1, n, LEVEL) <= COMPOUND_LEVEL
+        assert k == 1 or stats.binom.sf(k - 2, n, LEVEL) > COMPOUND_LEVEL
+    assert [min_flagged(n) for n in (51, 52, 355, 356)] == [1, 2, 2, 3]
+    rng = np.random.default_rng(16)
+    n_compounds, n_wells = 600, 72
+    # Each compound's 72 inhibited wells and 24 references without inhibitor.
+    inhibitor = np.tile(np.r_[np.full(n_wells, 10.0), np.zeros(24)], n_compounds)
+    t = np.tile(np.linspace(0.0, 600.0, 20), (len(inhibitor), 1))
+    y = 0.05 + 1e-4 * t + rng.normal(0.0, 0.002, t.shape)
+    flagged = time_dependence(t, y, np.ones_like(t, bool), substrate=np.full(len(t), 20.0),
+                              inhibitor=inhibitor, group=np.repeat(np.arange(n_compounds),
+                                                                   n_wells + 24),
+                              )["time_dependent"].to_numpy()
+    flags = flagged[inhibitor > 0].reshape(n_compounds, n_wells)
+    any_flag = flags.any(axis=1)
+    counted = np.array([flagged_inhibited(np.where(row, "time_dependent", ""),
+                                          np.full(n_wells, 10.0))[0] > 0 for row in flags])
+    assert any_flag.sum() > 30
+    assert counted.sum() <= 15
+    # A slow-binding grid still fires: 60 of 72 inhibited wells flagged.
+    many = np.where(np.arange(n_wells) < 60, "time_dependent", "")
+    assert flagged_inhibited(many, np.full(n_wells, 10.0)) == (60, 72)
+    one = np.where(np.arange(n_wells) == 0, "time_dependent;low_signal", "")
+    assert flagged_inhibited(one, np.full(n_wells, 10.0)) == (0, 72)
+    assert flagged_inhibited(one[:20], np.full(20, 10.0)) == (1, 20)

@@ -24,7 +24,7 @@ from .grid import REFITS, GridSettings, grid_mechanism, lost_grid_chunk, split_g
 from .options import CampaignOptions
 from .prepare import DoseTable, GridTable, prepare_dose, prepare_grid, unique_index
 from .ranking import add_efficiencies, compound_properties, merge, rank, written_out
-from .result import Campaign, plates_frame
+from .result import Campaign, check_time_dependent, plates_frame
 
 __all__ = ["fit_campaign"]
 
@@ -36,7 +36,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                  min_delta_aicc=2.0, determination_factor=10.0, potency_options=None,
                  heavy_atoms="heavy_atoms", logp="logp", engine="auto", workers=None,
                  client=None, quiet=False, chunk_size=None,
-                 keep_fits=True) -> Campaign:
+                 keep_fits=True, time_dependent=None) -> Campaign:
     """Fit every compound of a campaign and rank them by pKi.
 
     Parameters
@@ -125,6 +125,11 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     keep_fits : bool
         Keep every fit in :attr:`Campaign.fits` and :attr:`Campaign.potency_fits` (turn
         off at very large scale to save memory; the ranking is the same).
+    time_dependent : TimeDependentRanking, optional
+        The time-dependent compounds, ranked apart
+        (:func:`inhibkin.fit_time_dependent_ranking`), carried as
+        :attr:`Campaign.time_dependent` so that the results store, the ``.xlsx``
+        workbook and the report hold them beside the pKi ranking (never merged into it).
 
     Returns
     -------
@@ -156,6 +161,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     """
     if table is None and dose_response is None:
         raise DataError("give a grid table, a dose_response table, or both")
+    check_time_dependent(time_dependent)
     # Every option is checked here, once, before any compound is fitted: a bad one is
     # one error, not the same failure repeated for every compound.
     options = CampaignOptions.build(
@@ -215,7 +221,8 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         "n_fallback_dose": dose_refits,
         "units": declared, "seconds": time.perf_counter() - started,
     }
-    return Campaign(written_out(ranking), grid_fits, run_options, potency_fits, plates)
+    return Campaign(written_out(ranking), grid_fits, run_options, potency_fits, plates,
+                    time_dependent)
 
 
 def _fit_grids(grid: GridTable, compound, rate, options: CampaignOptions):

@@ -16,9 +16,11 @@ import pandas as pd
 from ..core.readonly import readonly_frame, readonly_mapping
 from ..core.weighting import weighting_label
 from ..display.text import ki_texts, ranking_ki_unit, text_table
+from ..errors import OptionError
 from .ranking import STATUSES
 
-__all__ = ["Campaign", "PLATE_COLUMNS", "plates_frame", "SUMMARY_ROWS"]
+__all__ = ["Campaign", "PLATE_COLUMNS", "plates_frame", "SUMMARY_ROWS",
+           "check_time_dependent"]
 
 #: Columns of :attr:`Campaign.plates` (those of :meth:`inhibkin.rates.plates.PlateQC.to_frame`).
 PLATE_COLUMNS = ("plate", "n_max", "mean_max", "sd_max", "n_min", "mean_min", "sd_min",
@@ -62,6 +64,10 @@ class Campaign:
         below the threshold, or the plate could not be normalised) and problem (why
         not, else empty). The numbers are those :func:`~inhibkin.potency.table.potency_table`
         uses to normalise the wells. Empty (same columns) without a dose-response table.
+    time_dependent : TimeDependentRanking or None
+        The time-dependent compounds ranked apart (``fit_campaign(time_dependent=...)``,
+        :func:`inhibkin.fit_time_dependent_ranking`): its ``table`` and ``fits``; None
+        when the campaign had none.
     """
 
     ranking: pd.DataFrame
@@ -69,6 +75,7 @@ class Campaign:
     options: Mapping = field(default_factory=dict)
     potency_fits: Mapping = field(default_factory=dict, repr=False)
     plates: pd.DataFrame = field(default_factory=lambda: plates_frame(None), repr=False)
+    time_dependent: object = field(default=None, repr=False)
 
     def __post_init__(self):
         # Frozen all the way down: campaign.ranking.loc[...] = ... and
@@ -141,6 +148,17 @@ class Campaign:
         from ..display.html import campaign_html
 
         return campaign_html(self)
+
+
+def check_time_dependent(value) -> None:
+    """``fit_campaign(time_dependent=...)``: None or a TimeDependentRanking."""
+    if value is None:
+        return
+    from ..time_dependent.ranking import TimeDependentRanking
+
+    if not isinstance(value, TimeDependentRanking):
+        raise OptionError(f"time_dependent must be a TimeDependentRanking (from "
+                          f"inhibkin.fit_time_dependent_ranking), got {type(value).__name__}")
 
 
 def plates_frame(qc) -> pd.DataFrame:

@@ -21,7 +21,8 @@ import numpy as np
 
 from ..core.models import MODELS
 
-__all__ = ["level_colours", "grid_sketch", "residual_sketch", "dose_response_sketch"]
+__all__ = ["level_colours", "grid_sketch", "residual_sketch", "dose_response_sketch",
+           "progress_sketch", "kobs_sketch"]
 
 # Size of a sketch and its margins (CSS pixels).
 _WIDTH, _HEIGHT = 250, 160
@@ -30,6 +31,9 @@ _LEFT, _RIGHT, _TOP, _BOTTOM = 34, 8, 16, 26
 _LEGEND = 70
 # Points along each drawn curve.
 _CURVE_POINTS = 30
+# Reads drawn per well in a progress-curve sketch (evenly thinned): the fitted line shows
+# the rest, and the sketch stays a few kilobytes whatever the read count.
+_READS_PER_WELL = 16
 # The ramp of figures.level_palette (cubehelix start, rotations, hue, gamma, lightness).
 _RAMP = dict(start=0.3, rot=-0.55, hue=0.9, gamma=1.0, light=0.62, dark=0.12)
 _INK = "#222"
@@ -268,3 +272,98 @@ def dose_response_sketch(fit, *, conc_unit="", label="") -> str:
     frame.dots(np.full(int(np.sum(~positive)), lo), response[~positive], colour,
                open_square=True)
     return frame.svg(label or "dose-response")
+
+
+def _finite_max(values) -> float:
+    """The largest finite value (1.0 when there is none: an empty sketch still draws)."""
+    values = np.asarray(values, float)
+    finite = values[np.isfinite(values)]
+    return float(finite.max()) if finite.size else 1.0
+
+
+def _legend(frame, levels, colours, unit="") -> None:
+    """The inhibitor levels beside the plot area (the grid sketch's legend)."""
+    for k, level in enumerate(levels):
+        y = _TOP + 4 + 11 * k
+        frame.parts.append(f'<circle cx="{_WIDTH + 4}" cy="{y}" r="2.6" fill="{colours[k]}" '
+                           f'stroke="{_INK}" stroke-width="0.5"/><text x="{_WIDTH + 10}" '
+                           f'y="{y + 3}">{escape(_tick(level))} {escape(unit)}</text>')
+
+
+def progress_sketch(reads, fitted, *, label="") -> str:
+    """Progress curves: each well's reads (thinned) and its fitted slow-onset line.
+
+    Parameters
+    ----------
+    reads, fitted : pandas.DataFrame
+        Tidy well, inhibitor, time, signal: the reads, and the fitted curves
+        (``TimeDependentFit.reads`` with the wells' [I], and
+        ``TimeDependentFit.fitted_progress()``).
+    label : str
+        Accessible title (escaped).
+
+    Returns
+    -------
+    str
+        An ``<svg>`` element, shaded by [I] as the grid sketch is.
+    """
+    levels = np.unique(reads["inhibitor"].to_numpy(float))
+    colours = level_colours(len(levels))
+    t, y = reads["time"].to_numpy(float), reads["signal"].to_numpy(float)
+    top, bottom = _finite_max(y), -_finite_max(-y)
+    # Read noise dipping below 0 at t = 0 does not move the axis off 0.
+    frame = _Frame((0.0, _finite_max(t)),
+                   (bottom if bottom < -0.05 * abs(top) else 0.0, top * 1.05))
+    frame.axes("time", "signal")
+    for well, part in reads.groupby("well", sort=False):
+        k = int(np.searchsorted(levels, float(part["inhibitor"].iloc[0])))
+        step = max(1, math.ceil(len(part) / _READS_PER_WELL))
+        frame.dots(part["time"].to_numpy(float)[::step],
+                   part["signal"].to_numpy(float)[::step], colours[k])
+        line = fitted[fitted["well"] == well]
+        frame.line(line["time"].to_numpy(float), line["signal"].to_numpy(float), _INK,
+                   width=0.9)
+    _legend(frame, levels, colours)
+    return frame.svg(label or "progress curves", extra_width=_LEGEND)
+
+
+def kobs_sketch(points, curves, *, label="") -> str:
+    """kobs of every well with its interval, and each scheme's fitted kobs against [I].
+
+    Parameters
+    ----------
+    points : pandas.DataFrame
+        inhibitor, kobs, kobs_low, kobs_high of the wells used.
+    curves : pandas.DataFrame
+        Tidy scheme, chosen, inhibitor, kobs (``TimeDependentFit.fitted_kobs()``): the
+        chosen scheme solid, the other dashed.
+    label : str
+        Accessible title (escaped).
+
+    Returns
+    -------
+    str
+        An ``<svg>`` element.
+    """
+    x = points["inhibitor"].to_numpy(float)
+    k, low, high = (points[c].to_numpy(float) for c in ("kobs", "kobs_low", "kobs_high"))
+    # The wells and the chosen scheme set the range; the other scheme is cut where it
+    # leaves it (a line far above the data would flatten both).
+    chosen_kobs = curves.loc[curves["chosen"].astype(bool), "kobs"].to_numpy(float)
+    top = _finite_max(np.concatenate([high, k, chosen_kobs])) * 1.05
+    frame = _Frame((0.0, _finite_max(curves["inhibitor"].to_numpy(float))), (0.0, top))
+    frame.axes("[I]", "kobs")
+    for a, b, c in zip(x, low, high):
+        frame.line(np.array([a, a]), np.array([b, c]), _FAINT, width=0.8)
+    colour = level_colours(3)[1]
+    frame.dots(x, k, colour)
+    names = []
+    for name, part in curves.groupby("scheme", sort=False):
+        chosen = bool(part["chosen"].iloc[0])
+        y = part["kobs"].to_numpy(float)
+        frame.line(part["inhibitor"].to_numpy(float), np.where(y <= top, y, np.nan), _INK,
+                   dash="" if chosen else "3 2", width=1.2 if chosen else 0.8)
+        names.append(f"{name} {'solid' if chosen else 'dashed'}")
+    frame.parts.append(f'<text x="{_LEFT + 4}" y="{_TOP - 5}" dx="30">'
+                       f'{escape(", ".join(names))}</text>')
+    return frame.svg(label or "kobs against [I]")

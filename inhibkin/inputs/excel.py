@@ -110,10 +110,14 @@ def write_workbook(sheets, path, *, readable=True) -> Path:
 
 def campaign_sheets(campaign) -> dict:
     """The sheets of a campaign's workbook: ranking, parameters, plate QC (when the
-    campaign had dose-response plates)."""
+    campaign had dose-response plates), time-dependent (when it carried time-dependent
+    compounds: their own ranked table, in the reads' units)."""
     sheets = {"ranking": campaign.ranking, "parameters": campaign.parameters()}
     if len(campaign.plates):
         sheets["plate QC"] = campaign.plates
+    time_dependent = getattr(campaign, "time_dependent", None)
+    if time_dependent is not None:
+        sheets["time-dependent"] = time_dependent.table
     return sheets
 
 

@@ -13,6 +13,16 @@ well is flagged when its fall exceeds the explained fall by more than ``min_exce
 by more than z standard errors (one-sided level ``level`` of Student's t with the
 Welch–Satterthwaite degrees of freedom of the two slopes; strict, because every well is
 tested). Wells with no reference at their substrate level are not judged.
+
+A compound's grid holds many wells, so a per-well level alone is not a per-compound one:
+72 inhibited wells of a rapid-equilibrium compound, each flagged with probability
+``LEVEL`` = 0.1 %, carry at least one false flag 7 % of the time (1 − 0.999⁷²). The
+compound-level decision (:func:`flagged_inhibited`, the grid verdict's rule 6) therefore
+counts the flagged wells against the binomial tail: a grid is time-dependent when at
+least :func:`min_flagged` (n) of its n inhibited wells are flagged, the smallest count
+that n wells at the per-well level reach with probability ≤ ``COMPOUND_LEVEL`` (5 %).
+That is one well up to 51 inhibited wells, two up to 355, and so on; a slow-binding grid
+flags most of its inhibited wells (docs/time_dependent.md), far above either.
 """
 
 from __future__ import annotations
@@ -21,7 +31,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-__all__ = ["time_dependence", "time_dependent_grid", "flagged_inhibited", "FLAG"]
+__all__ = ["time_dependence", "time_dependent_grid", "flagged_inhibited", "min_flagged",
+           "FLAG", "LEVEL", "COMPOUND_LEVEL"]
 
 #: The rates stage's name of the flag (a well's ``flags`` are joined by ";").
 FLAG = "time_dependent"
@@ -34,6 +45,9 @@ MIN_EXCESS = 0.10
 # One-sided level of the test (every well is tested; a depletion curve should almost
 # never be flagged).
 LEVEL = 1e-3
+# The false-alarm rate the compound-level decision keeps to (the quiet rate the time-
+# dependence check promises for rapid-equilibrium compounds).
+COMPOUND_LEVEL = 0.05
 
 
 def _window_slopes(t, y, mask):
@@ -115,8 +129,24 @@ def time_dependence(t, y, valid, *, substrate, inhibitor, group,
                          "time_dependent": flagged})
 
 
+def min_flagged(n_inhibited, *, level=LEVEL, compound_level=COMPOUND_LEVEL) -> int:
+    """Flagged wells a grid of ``n_inhibited`` inhibited wells needs to be time-dependent.
+
+    The smallest k ≥ 1 with P(Binomial(n, level) ≥ k) ≤ ``compound_level`` (module notes).
+    """
+    n = max(int(n_inhibited), 0)
+    k = 1
+    while stats.binom.sf(k - 1, n, level) > compound_level:
+        k += 1
+    return k
+
+
 def flagged_inhibited(flags, inhibitor) -> tuple[int, int]:
     """How many inhibited wells carry the ``time_dependent`` flag, and how many there are.
+
+    The count is the one a compound-level decision reads: it is 0 when fewer than
+    :func:`min_flagged` of the inhibited wells are flagged, as many flags as wells at
+    the per-well level would raise by chance over the whole grid (module notes).
 
     Parameters
     ----------
@@ -134,11 +164,13 @@ def flagged_inhibited(flags, inhibitor) -> tuple[int, int]:
     inhibited = pd.to_numeric(pd.Series(np.asarray(inhibitor)), errors="coerce").to_numpy() > 0
     names = pd.Series(np.asarray(flags, dtype=object)).fillna("").astype(str).str.split(";")
     marked = names.apply(lambda listed: FLAG in (n.strip() for n in listed)).to_numpy(bool)
-    return int((inhibited & marked).sum()), int(inhibited.sum())
+    n_flagged, n_inhibited = int((inhibited & marked).sum()), int(inhibited.sum())
+    return (n_flagged if n_flagged >= min_flagged(n_inhibited) else 0), n_inhibited
 
 
 def time_dependent_grid(table, *, inhibitor="inhibitor", flags="flags") -> bool:
-    """Whether any inhibited well of a rates table carries the ``time_dependent`` flag.
+    """Whether a rates table's inhibited wells carry the ``time_dependent`` flag: at least
+    :func:`min_flagged` of them (one, up to 51 inhibited wells).
 
     The hook for a grid fit: a grid built on such wells violates the steady-state
     assumption, so its verdict says ``time_dependent`` instead of reporting a Ki

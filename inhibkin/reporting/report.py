@@ -61,6 +61,8 @@ CAUTIONS = (
     "practice.",
 )
 
+# Points along each fitted curve of the time-dependent sketches.
+_TD_CURVE_POINTS = 30
 # Dose-response sketches in the report's gallery (the most potent first); the table lists all.
 _MAX_POTENCY_FIGURES = 24
 #: Compounds drawn with the full matplotlib figures unless ``detail`` says otherwise.
@@ -320,8 +322,31 @@ def _as_campaign(campaign):
                     f"mapping of compound to MechanismFit, got {type(campaign).__name__}")
 
 
-def _time_dependent_context(table) -> dict:
-    """The time-dependent section: its own ranked table, by its class's metric."""
+def _time_dependent_sketches(fits, compounds) -> list:
+    """Progress curves with their fits and kobs against [I] with both schemes, as small
+    SVG sketches (milliseconds each) for every compound in ``compounds`` with a fit."""
+    out = []
+    for compound in compounds:
+        fit = fits.get(compound)
+        if fit is None:
+            continue
+        conc = fit.kobs.set_index("well")["inhibitor"]
+        reads = fit.reads.assign(inhibitor=fit.reads["well"].map(conc).to_numpy())
+        used = fit.kobs[(fit.kobs["inhibitor"] > 0) & np.isfinite(fit.kobs["kobs_low"])]
+        out.append({"compound": str(compound), "svgs": [
+            sketch.progress_sketch(reads, fit.fitted_progress(_TD_CURVE_POINTS),
+                                   label=f"progress curves of {compound}"),
+            sketch.kobs_sketch(used, fit.fitted_kobs(_TD_CURVE_POINTS),
+                               label=f"kobs against [I] of {compound}")]})
+    return out
+
+
+def _time_dependent_context(time_dependent) -> dict:
+    """The time-dependent section: its own ranked table, by its class's metric, and (for a
+    TimeDependentRanking, which keeps the fits) each compound's sketches."""
+    table = getattr(time_dependent, "table", time_dependent)
+    fits = getattr(time_dependent, "fits", {}) or {}
+
     def number(value):
         return "-" if pd.isna(value) else f"{value:.3g}"
 
@@ -338,7 +363,7 @@ def _time_dependent_context(table) -> dict:
                                                      if isinstance(x, str) and x)]
             for _, r in table.iterrows()]
     return {"metrics": sorted(set(table["metric"].astype(str))), "columns": columns,
-            "rows": rows}
+            "rows": rows, "sketches": _time_dependent_sketches(fits, table["compound"])}
 
 
 def render_report(campaign, *, potency=None, rates=None, time_dependent=None,
@@ -348,6 +373,8 @@ def render_report(campaign, *, potency=None, rates=None, time_dependent=None,
                   detail=DEFAULT_DETAIL, quiet=False) -> str:
     """The report as an HTML string (see :func:`report`)."""
     check_detail(detail)
+    if time_dependent is None:
+        time_dependent = getattr(campaign, "time_dependent", None)
     ranking, fits, options = _as_campaign(campaign)
     molar = hasattr(campaign, "ranking")
     # One unit for the Ki column, by magnitude unless asked for; a mapping of fits keeps
@@ -457,10 +484,14 @@ def report(campaign, path, *, potency=None, rates=None, time_dependent=None,
     rates : InitialRates or pandas.DataFrame, optional
         The initial-rate table (:func:`inhibkin.rates.initial.initial_rates`); its QC flags are
         counted in the QC summary.
-    time_dependent : pandas.DataFrame, optional
-        The time-dependent compounds' ranking
-        (:func:`inhibkin.time_dependent.rank_time_dependent`), shown as a section of its
-        own, apart from the pKi ranking.
+    time_dependent : TimeDependentRanking or pandas.DataFrame, optional
+        The time-dependent compounds' ranking, shown as a section of its own, apart from
+        the pKi ranking; by default the campaign's own (``Campaign.time_dependent``).
+        A :class:`~inhibkin.time_dependent.TimeDependentRanking`
+        (:func:`inhibkin.fit_time_dependent_ranking`) keeps the fits, so every compound
+        also gets two small SVG sketches: its progress curves with their fits, and kobs
+        against [I] with both schemes (the chosen one solid); a bare table
+        (:func:`inhibkin.rank_time_dependent`) gives the table only.
     title : str
     rate_unit : str
         Unit label of the rates, e.g. ``"µM/min"``.

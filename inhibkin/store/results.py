@@ -55,8 +55,9 @@ except ImportError:  # SQLAlchemy is the optional 'store' extra; ResultStore say
 __all__ = ["ResultStore", "StoredCampaign", "StoreError", "write_campaign", "TABLES",
            "SQLITE_BUSY_SECONDS"]
 
-#: The tables kept for each campaign.
-TABLES = ("ranking", "parameters", "comparisons", "plates")
+#: The tables kept for each campaign (``time_dependent``: the time-dependent compounds'
+#: own ranked table, kept when the campaign carries one, see ``Campaign.time_dependent``).
+TABLES = ("ranking", "parameters", "comparisons", "plates", "time_dependent")
 #: How long an SQLite writer waits for another writer's lock before giving up.
 SQLITE_BUSY_SECONDS = 60.0
 # Attempts at a PostgreSQL write whose (name, version) another writer took meanwhile.
@@ -142,11 +143,15 @@ def _campaign_tables(campaign) -> dict:
         frame = fit.comparison.reset_index()
         frame.insert(0, "compound", compound)
         comparisons.append(frame)
-    return {"ranking": campaign.ranking,
-            "parameters": campaign.parameters(),
-            "comparisons": (pd.concat(comparisons, ignore_index=True) if comparisons
-                            else pd.DataFrame(columns=["compound", "model"])),
-            "plates": campaign.plates}
+    tables = {"ranking": campaign.ranking,
+              "parameters": campaign.parameters(),
+              "comparisons": (pd.concat(comparisons, ignore_index=True) if comparisons
+                              else pd.DataFrame(columns=["compound", "model"])),
+              "plates": campaign.plates}
+    time_dependent = getattr(campaign, "time_dependent", None)
+    if time_dependent is not None:
+        tables["time_dependent"] = time_dependent.table
+    return tables
 
 
 def _float_or_none(value):
@@ -373,7 +378,14 @@ class ResultStore:
         return record
 
     def campaign_table(self, name, table="ranking", *, version=None) -> pd.DataFrame:
-        """One of the campaign's tables (:data:`TABLES`), exactly as written."""
+        """One of the campaign's tables (:data:`TABLES`), exactly as written.
+
+        Raises
+        ------
+        StoreError
+            No such campaign, or it holds no such table (``time_dependent`` is kept only
+            for a campaign that carried time-dependent compounds).
+        """
         from sqlalchemy import select
 
         if table not in TABLES:
@@ -382,7 +394,9 @@ class ResultStore:
             campaign_id = self._campaign_id(connection, name, version)
             columns = connection.execute(select(STORED_TABLE.c.columns).where(
                 STORED_TABLE.c.campaign_id == campaign_id,
-                STORED_TABLE.c.name == table)).scalar_one()
+                STORED_TABLE.c.name == table)).scalar_one_or_none()
+            if columns is None:
+                raise StoreError(f"campaign {name!r} holds no {table!r} table")
             rows = connection.execute(select(STORED_ROW.c.cells).where(
                 STORED_ROW.c.campaign_id == campaign_id, STORED_ROW.c.table_name == table)
                 .order_by(STORED_ROW.c.position)).scalars().all()

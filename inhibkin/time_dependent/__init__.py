@@ -9,9 +9,10 @@ result objects), :mod:`.ranking` (the ranked table of time-dependent compounds) 
 :mod:`.plots` (the figures a reviewer checks).
 """
 
-from .ranking import rank_time_dependent
+from .ranking import TimeDependentRanking, fit_time_dependent_ranking, rank_time_dependent
 from .results import PreincubationFit, TimeDependentFit, fit_preincubation, fit_time_dependent
 from .schemes import SCHEMES, KobsScheme, progress_curve
 
 __all__ = ["PreincubationFit", "TimeDependentFit", "fit_preincubation", "fit_time_dependent",
-           "rank_time_dependent", "SCHEMES", "KobsScheme", "progress_curve"]
+           "rank_time_dependent", "fit_time_dependent_ranking", "TimeDependentRanking",
+           "SCHEMES", "KobsScheme", "progress_curve"]

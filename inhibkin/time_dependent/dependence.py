@@ -18,6 +18,13 @@ multiplied, by 1 + S/Km; without them the constants are the apparent ones.
 Slow, tight reversible binding (two-step with k6 > 0): the overall constant is
 Ki* = Ki·k6/(k5 + k6) and the residence time of the final complex 1/k6
 (Copeland, as above). For the one-step scheme Ki = koff/kon and the residence time 1/koff.
+
+The interval of the one-step Ki = koff/kon is Fieller's (Fieller 1954, J. R. Stat. Soc. B
+16:175): kobs = koff + kon·[I] is linear in both constants, so the set of ratios r for
+which koff − r·kon = 0 is not rejected by the t-test at ``level`` is exact under normal
+kobs errors (it is the profile interval of the line) and, unlike a log-scale delta
+interval, stays honest when koff is barely told from 0: its lower end is then 0, and when
+kon itself is not told from 0 its upper end is infinite.
 """
 
 from __future__ import annotations
@@ -29,7 +36,8 @@ from scipy import optimize, stats
 from ..core.compare import akaike_weights, f_test, information_criteria
 from .schemes import SCHEMES
 
-__all__ = ["SchemeFit", "fit_scheme", "compare_schemes", "derived_constants"]
+__all__ = ["SchemeFit", "fit_scheme", "compare_schemes", "derived_constants", "unpack_theta",
+           "free_names", "fieller_ratio"]
 
 
 class SchemeFit(dict):
@@ -37,7 +45,7 @@ class SchemeFit(dict):
     the fitted scale); internal to :mod:`inhibkin.time_dependent`."""
 
 
-def _unpack(scheme, theta, irreversible):
+def unpack_theta(scheme, theta, irreversible):
     """Natural parameters from the fitted vector: log for rates and KI, linear off-rate."""
     names = SCHEMES[scheme].params
     values = {}
@@ -50,6 +58,14 @@ def _unpack(scheme, theta, irreversible):
             values[name] = float(np.exp(theta[j]))
             j += 1
     return values
+
+
+def free_names(scheme, irreversible):
+    """Names of the fitted-scale entries: ``log_<name>``, the off-rate itself (linear, ≥ 0)
+    unless held at 0."""
+    entry = SCHEMES[scheme]
+    return tuple(("log_" + p if p != entry.off_rate else p) for p in entry.params
+                 if not (irreversible and p == entry.off_rate))
 
 
 def fit_scheme(scheme, inhibitor, kobs, kobs_se, *, irreversible=True):
@@ -77,14 +93,13 @@ def fit_scheme(scheme, inhibitor, kobs, kobs_se, *, irreversible=True):
     i_pos = inhibitor[inhibitor > 0]
 
     def unpack(theta):
-        return _unpack(scheme, theta, irreversible)
+        return unpack_theta(scheme, theta, irreversible)
 
     def residual(theta):
         v = unpack(theta)
         return w * (fn(inhibitor, *(v[p] for p in entry.params)) - kobs)
 
-    free = [("log_" + p if p != entry.off_rate else p) for p in entry.params
-            if not (irreversible and p == entry.off_rate)]
+    free = free_names(scheme, irreversible)
     lower = [(0.0 if name == entry.off_rate else -np.inf) for name in free]
     starts = []
     if scheme == "one_step":
@@ -196,7 +211,39 @@ def derived_constants(fit, *, substrate=None, km=None, level=0.95):
                 "estimate": 1 / koff if koff > 0 else np.inf,
                 "ci_low": 1 / high, "ci_high": 1 / low if low > 0 else np.inf,
                 "meaning": "1/koff, time unit"}
+            kon = fit["values"]["kon"]
+            # (koff, kon) covariance from that of (koff, log kon): d kon = kon·d log kon.
+            j = pos["log_kon"]
+            v_ff, v_fk, v_kk = (cov[pos["koff"], pos["koff"]], kon * cov[pos["koff"], j],
+                                kon ** 2 * cov[j, j])
+            low, high = fieller_ratio(koff, kon, v_ff, v_fk, v_kk, tq)
+            rows["ki"] = {"estimate": koff / kon / factor, "ci_low": low / factor,
+                          "ci_high": high / factor,
+                          "meaning": "Ki = koff/kon, [I] unit (Fieller interval)" + corrected}
     return pd.DataFrame.from_dict(rows, orient="index")
+
+
+def fieller_ratio(a, b, v_aa, v_ab, v_bb, tq):
+    """Fieller's interval of a/b from estimates a, b with covariance (v_aa, v_ab, v_bb).
+
+    The r with (a − r·b)² ≤ tq²·(v_aa − 2r·v_ab + r²·v_bb); a ratio of non-negative
+    constants, so the lower end is clipped at 0. When b is not told from 0 at this
+    quantile (b² ≤ tq²·v_bb) the set is unbounded and the upper end is infinite.
+
+    Returns
+    -------
+    (float, float)
+        ci_low, ci_high (NaN, NaN when tq is not finite).
+    """
+    if not np.isfinite(tq):
+        return np.nan, np.nan
+    q = tq ** 2
+    quad, half_lin, const = b * b - q * v_bb, a * b - q * v_ab, a * a - q * v_aa
+    disc = half_lin ** 2 - quad * const
+    if quad <= 0 or disc < 0:
+        return 0.0, np.inf
+    root = np.sqrt(disc)
+    return max((half_lin - root) / quad, 0.0), (half_lin + root) / quad
 
 
 def _reversible_rows(rows, fit, pos, tq, factor, corrected):

@@ -1,29 +1,34 @@
-"""One fit of every progress curve of an irreversible inhibitor: shared kinact and KI.
+"""One fit of every progress curve at once: the scheme's constants shared by every well.
 
-Every well w follows P_w(t) = P0_w + vi_w·(1 − e^(−kobs_w·t))/kobs_w with
-kobs_w = kinact·[I]_w/(KI,app + [I]_w): kinact and KI,app are shared, the offset P0_w and
-initial rate vi_w are each well's own (vi falls with [I] through the rapid first step,
-and plates differ in offset). Fitted in one :func:`scipy.optimize.least_squares` call
-(log kinact and log KI,app; sparse Jacobian structure declared), the covariance of the
-two shared constants from the Jacobian with the residual variance estimated. This route
-uses every read rather than one kobs per well, and agrees with the two-step route of
-:mod:`.dependence` within their intervals (tests/test_time_dependent.py).
+Every well w follows P_w(t) = P0_w + vs_w·t + (vi_w − vs_w)·(1 − e^(−kobs_w·t))/kobs_w
+with kobs_w given by the scheme at the well's [I] (:data:`.schemes.SCHEMES`): kon and koff
+(one-step), kinact or k5, KI,app and k6 (two-step). The scheme's constants are shared;
+the offset P0_w, initial rate vi_w and (reversible binding) steady-state rate vs_w are
+each well's own (vi falls with [I] through the rapid first step, plates differ in
+offset); irreversible inhibition holds vs_w = 0 and the off-rate at 0. Fitted in one
+:func:`scipy.optimize.least_squares` call on the scale of
+:func:`.dependence.fit_scheme` (log constants, the off-rate linear and ≥ 0; a dense
+finite-difference Jacobian, which on a plate's few dozen parameters was about 100 times
+faster than declaring its sparsity to the bounded solver), the covariance of the shared
+constants from the Jacobian with the residual variance estimated. This route uses every
+read rather than one kobs per well, and agrees with the kobs route of :mod:`.dependence`
+within their intervals (tests/test_time_dependent.py, on mass-action ODE plates of every
+scheme).
 """
 
 from __future__ import annotations
 
 import numpy as np
 from scipy import optimize
-from scipy.sparse import lil_matrix
 
-from .dependence import SchemeFit
-from .schemes import kobs_two_step, onset
+from .dependence import SchemeFit, unpack_theta
+from .schemes import SCHEMES, onset
 
-__all__ = ["fit_global_inactivation"]
+__all__ = ["fit_global"]
 
 
-def fit_global_inactivation(t, y, valid, inhibitor, *, kinact_start, ki_start):
-    """Shared kinact and KI,app from padded (wells, reads) progress curves.
+def fit_global(t, y, valid, inhibitor, *, start: SchemeFit, irreversible=True) -> SchemeFit:
+    """The scheme of ``start`` fitted to padded (wells, reads) progress curves at once.
 
     Parameters
     ----------
@@ -32,51 +37,62 @@ def fit_global_inactivation(t, y, valid, inhibitor, *, kinact_start, ki_start):
     valid : numpy.ndarray of bool
     inhibitor : numpy.ndarray
         [I] of each well.
-    kinact_start, ki_start : float
-        Starting values (the two-step route's estimates serve).
+    start : SchemeFit
+        The kobs route's fit of the scheme (:func:`.dependence.fit_scheme`): its scheme,
+        fitted-scale names and estimates start the shared constants.
+    irreversible : bool
+        vs = 0 in every well and the off-rate held at 0 (as ``start`` was fitted).
 
     Returns
     -------
     SchemeFit
-        Of scheme ``two_step`` with k6 = 0: ``values`` kinact (as k5) and ki (KI,app),
-        ``theta`` (log k5, log ki), ``cov`` (2 × 2), ``ssr``, ``n``, ``k``, ``dof``.
+        Of ``start``'s scheme: ``values``, ``theta`` and ``cov`` of the shared constants
+        (fitted scale, the names in ``free``), ``ssr``, ``n``, ``k`` (every parameter,
+        per-well ones included), ``dof``, ``converged``.
     """
-    n_wells = t.shape[0]
+    scheme, free = start["scheme"], start["free"]
+    entry = SCHEMES[scheme]
+    n_wells, n_shared = t.shape[0], len(free)
+    n_local = 2 if irreversible else 3
     rows, cols = np.nonzero(valid)
     tt, yy, ii = t[rows, cols], y[rows, cols], inhibitor[rows]
     scale = max(np.ptp(yy), np.finfo(float).tiny)
 
+    def kobs(theta, conc):
+        values = unpack_theta(scheme, theta, irreversible)
+        return entry.function(conc, *(values[p] for p in entry.params))
+
     def linear_start():
-        k = kobs_two_step(inhibitor, kinact_start, ki_start)
-        g = onset(t, k[:, None])
-        p0, vi = np.zeros(n_wells), np.zeros(n_wells)
+        g = onset(t, kobs(start["theta"], inhibitor)[:, None])
+        local = np.zeros((n_local, n_wells))
         for w in range(n_wells):
-            a = np.column_stack([np.ones(valid[w].sum()), g[w, valid[w]]])
-            p0[w], vi[w] = np.linalg.lstsq(a, y[w, valid[w]], rcond=None)[0]
-        return p0, vi
+            tw, gw = t[w, valid[w]], g[w, valid[w]]
+            columns = [np.ones_like(tw), gw] + ([] if irreversible else [tw - gw])
+            local[:, w] = np.linalg.lstsq(np.column_stack(columns), y[w, valid[w]],
+                                          rcond=None)[0]
+        return local.ravel()
 
     def residual(theta):
-        kinact, ki = np.exp(theta[0]), np.exp(theta[1])
-        p0, vi = theta[2:2 + n_wells], theta[2 + n_wells:]
-        k = kobs_two_step(ii, kinact, ki)
-        return (p0[rows] + vi[rows] * onset(tt, k) - yy) / scale
+        local = theta[n_shared:].reshape(n_local, n_wells)
+        g = onset(tt, kobs(theta[:n_shared], ii))
+        model = local[0, rows] + local[1, rows] * g
+        if not irreversible:
+            model = model + local[2, rows] * (tt - g)
+        return (model - yy) / scale
 
-    sparsity = lil_matrix((len(tt), 2 + 2 * n_wells), dtype=int)
-    sparsity[:, :2] = 1
-    sparsity[np.arange(len(tt)), 2 + rows] = 1
-    sparsity[np.arange(len(tt)), 2 + n_wells + rows] = 1
-    p0, vi = linear_start()
-    x0 = np.concatenate([[np.log(kinact_start), np.log(ki_start)], p0, vi])
-    res = optimize.least_squares(residual, x0, jac_sparsity=sparsity, method="trf",
-                                 x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12)
-    jac = res.jac.toarray() * scale
-    n, k = len(tt), len(x0)
+    n_par = n_shared + n_local * n_wells
+    lower = np.full(n_par, -np.inf)
+    lower[:n_shared] = [0.0 if name == entry.off_rate else -np.inf for name in free]
+    x0 = np.concatenate([start["theta"], linear_start()])
+    x0[:n_shared] = np.maximum(x0[:n_shared], lower[:n_shared])
+    res = optimize.least_squares(residual, x0, method="trf",
+                                 bounds=(lower, np.inf), x_scale="jac",
+                                 xtol=1e-12, ftol=1e-12, gtol=1e-12)
+    jac = res.jac * scale
+    n = len(tt)
     ssr = float(np.sum((res.fun * scale) ** 2))
-    dof = n - k
-    cov = (ssr / dof) * np.linalg.pinv(jac.T @ jac)[:2, :2]
-    return SchemeFit(scheme="two_step",
-                     values={"k5": float(np.exp(res.x[0])), "ki": float(np.exp(res.x[1])),
-                             "k6": 0.0},
-                     theta=res.x[:2], cov=cov, ssr=ssr, n=n, k=k, dof=dof,
-                     converged=bool(res.success), free=("log_k5", "log_ki"),
-                     sum_log_weights=0.0)
+    dof = n - n_par
+    cov = (ssr / dof) * np.linalg.pinv(jac.T @ jac)[:n_shared, :n_shared]
+    return SchemeFit(scheme=scheme, values=unpack_theta(scheme, res.x[:n_shared], irreversible),
+                     theta=res.x[:n_shared], cov=cov, ssr=ssr, n=n, k=n_par, dof=dof,
+                     converged=bool(res.success), free=free, sum_log_weights=0.0)

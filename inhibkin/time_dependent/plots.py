@@ -2,6 +2,8 @@
 
 Each function takes a :class:`~inhibkin.time_dependent.TimeDependentFit` first, draws on
 ``ax`` when given (else on a new figure, not attached to pyplot) and returns the Axes.
+The curves come from the fit's ``fitted_progress()`` and ``fitted_kobs()``, which the
+report's SVG sketches draw too.
 """
 
 from __future__ import annotations
@@ -9,7 +11,6 @@ from __future__ import annotations
 import numpy as np
 
 from ..display.figures import level_palette, new_figure
-from .schemes import SCHEMES, progress_curve
 
 
 def _axes(ax):
@@ -30,14 +31,15 @@ def progress_curves(fit, *, ax=None):
     """
     ax = _axes(ax)
     wells = fit.kobs.sort_values("inhibitor", kind="stable")
+    curves = fit.fitted_progress(200)
     colours = level_palette(len(wells))
     for colour, (_, row) in zip(colours, wells.iterrows()):
         reads = fit.reads[fit.reads["well"] == row["well"]]
         ax.plot(reads["time"], reads["signal"], ".", ms=3, color=colour)
-        grid = np.linspace(0.0, reads["time"].max(), 200)
-        if np.isfinite(row["kobs"]):
-            curve = progress_curve(grid, row["p0"], row["vi"], row["vs"], row["kobs"])
-            ax.plot(grid, curve, "-", lw=1, color=colour, label=f"{row['inhibitor']:g}")
+        curve = curves[curves["well"] == row["well"]]
+        if len(curve):
+            ax.plot(curve["time"], curve["signal"], "-", lw=1, color=colour,
+                    label=f"{row['inhibitor']:g}")
     ax.set_xlabel("time")
     ax.set_ylabel("signal")
     ax.set_title("Progress curves and slow-onset fits")
@@ -64,20 +66,10 @@ def kobs_against_inhibitor(fit, *, ax=None):
     ax.errorbar(rows["inhibitor"], rows["kobs"],
                 yerr=[rows["kobs"] - rows["kobs_low"], rows["kobs_high"] - rows["kobs"]],
                 fmt="o", color="0.2", ms=4, capsize=2, label="kobs per well")
-    grid = np.linspace(0.0, rows["inhibitor"].max() * 1.05, 200)
-    for name, table in (("two_step", fit.two_step_constants),
-                        ("one_step", fit.one_step_constants)):
-        if name == "two_step":
-            k6 = table.loc["k6", "estimate"] if "k6" in table.index else 0.0
-            curve = SCHEMES[name].function(grid, table.loc["k5", "estimate"],
-                                           table.loc["ki_app", "estimate"], k6)
-        else:
-            factor = 1.0 + fit.substrate / fit.km if fit.km else 1.0
-            koff = table.loc["koff", "estimate"] if "koff" in table.index else 0.0
-            curve = SCHEMES[name].function(grid, table.loc["kon", "estimate"] / factor, koff)
-        style = "-" if name == fit.scheme else "--"
-        ax.plot(grid, curve, style, lw=1.2, label=name + (" (chosen)" if name == fit.scheme
-                                                            else ""))
+    for name, curve in fit.fitted_kobs(200).groupby("scheme", sort=False):
+        chosen = bool(curve["chosen"].iloc[0])
+        ax.plot(curve["inhibitor"], curve["kobs"], "-" if chosen else "--", lw=1.2,
+                label=name + (" (chosen)" if chosen else ""))
     ax.set_xlabel("[I]")
     ax.set_ylabel("kobs (per time unit)")
     ax.set_title("kobs against [I]")

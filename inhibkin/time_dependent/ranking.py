@@ -6,19 +6,31 @@ slow-binding reversible inhibitor by its overall constant Ki* (pKi* = −log10 K
 potent first) with its residence time beside it. Neither is put on one axis with the pKi
 of rapid reversible inhibitors: :func:`rank_time_dependent` gives its own table, shown as
 its own section by the report and written as its own file by ``inhibkin rank``.
+
+:func:`fit_time_dependent_ranking` gives the same table inside a
+:class:`TimeDependentRanking`, which also keeps every compound's
+:class:`~inhibkin.time_dependent.TimeDependentFit` (the report draws its progress curves
+and kobs against [I] from them). Handed to :func:`inhibkin.fit_campaign` as
+``time_dependent=``, it travels with the :class:`~inhibkin.Campaign` into the results
+store (table ``time_dependent``) and the ``.xlsx`` workbook (sheet ``time-dependent``).
 """
 
 from __future__ import annotations
 
+import html
 import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
+from ..core.readonly import readonly_frame, readonly_mapping
 from ..errors import InhibkinError
 from .results import fit_time_dependent
 
-__all__ = ["rank_time_dependent", "TIME_DEPENDENT_COLUMNS", "CLASSES"]
+__all__ = ["rank_time_dependent", "fit_time_dependent_ranking", "TimeDependentRanking",
+           "TIME_DEPENDENT_COLUMNS", "CLASSES"]
 
 #: The two classes and the quantity each ranks by.
 CLASSES = {"covalent": "log10(kinact/KI)", "slow binding": "pKi* = -log10(Ki*)"}
@@ -53,9 +65,10 @@ def _row(name, fit, covalent) -> dict:
         row["score"] = math.log10(score) if score > 0 else np.nan
     else:
         if "ki_star" not in c.index and "koff" in c.index:
-            # One-step slow binding: Ki* = Ki = koff/kon (no interval is propagated).
-            row["ki_star"] = _value(c, "koff") / _value(c, "kon")
-            row["note"] = "one-step: Ki* = koff/kon, point estimate only"
+            # One-step slow binding: the overall constant is Ki = koff/kon itself.
+            for suffix, source in (("", "estimate"), ("_low", "ci_low"), ("_high", "ci_high")):
+                row["ki_star" + suffix] = _value(c, "ki", source)
+            row["note"] = "one-step: Ki* = Ki = koff/kon (Fieller interval)"
         row["score"] = -math.log10(row["ki_star"]) if row["ki_star"] > 0 else np.nan
     if not np.isfinite(row["score"]):
         row.update(status="failed", reason=f"{CLASSES['covalent' if covalent else 'slow binding']}"
@@ -67,6 +80,59 @@ def rank_time_dependent(reads, *, compound="compound", well="well", time="time",
                         signal="signal", inhibitor="inhibitor", irreversible=True,
                         substrate=None, km=None, level=0.95) -> pd.DataFrame:
     """Fit every compound's kinetic reads and rank them within their class.
+
+    The table of :func:`fit_time_dependent_ranking` (same arguments), as an ordinary
+    DataFrame.
+    """
+    return fit_time_dependent_ranking(
+        reads, compound=compound, well=well, time=time, signal=signal, inhibitor=inhibitor,
+        irreversible=irreversible, substrate=substrate, km=km, level=level).to_frame()
+
+
+@dataclass(frozen=True)
+class TimeDependentRanking:
+    """The time-dependent compounds ranked within their class, and their fits.
+
+    Attributes
+    ----------
+    table : pandas.DataFrame
+        Columns :data:`TIME_DEPENDENT_COLUMNS`, one row per input compound (see
+        :func:`fit_time_dependent_ranking`).
+    fits : Mapping
+        compound → :class:`~inhibkin.time_dependent.TimeDependentFit` of every compound
+        whose fit succeeded.
+    """
+
+    table: pd.DataFrame
+    fits: Mapping = field(default_factory=dict, repr=False)
+
+    def __post_init__(self):
+        object.__setattr__(self, "table", readonly_frame(self.table))
+        object.__setattr__(self, "fits", readonly_mapping(self.fits, nested=False))
+
+    def to_frame(self) -> pd.DataFrame:
+        """The ranked table (an ordinary, editable copy)."""
+        return self.table.copy()
+
+    def summary(self) -> str:
+        """Plain text: the class's metric and the ranked table."""
+        shown = self.table[["rank", "compound", "status", "scheme", "score",
+                            "kinact_over_ki", "ki_star", "residence_time"]]
+        metrics = ", ".join(sorted(set(self.table["metric"].astype(str))))
+        return "\n".join([f"Time-dependent compounds ranked by {metrics}",
+                          shown.to_string(index=False,
+                                          float_format=lambda x: f"{x:.4g}")])
+
+    def _repr_html_(self) -> str:
+        head = html.escape(f"Time-dependent ranking of {len(self.table)} compounds")
+        return (f"<div><p><b>{head}</b></p>"
+                + self.table.to_html(float_format="{:.4g}".format, max_rows=40) + "</div>")
+
+
+def fit_time_dependent_ranking(reads, *, compound="compound", well="well", time="time",
+                               signal="signal", inhibitor="inhibitor", irreversible=True,
+                               substrate=None, km=None, level=0.95) -> TimeDependentRanking:
+    """Fit every compound's kinetic reads, rank them within their class, keep the fits.
 
     Parameters
     ----------
@@ -86,16 +152,16 @@ def rank_time_dependent(reads, *, compound="compound", well="well", time="time",
 
     Returns
     -------
-    pandas.DataFrame
-        Columns :data:`TIME_DEPENDENT_COLUMNS`, one row per input compound under its exact
-        input text: ``determined`` rows ranked by ``score`` (the class's metric, higher is
-        more potent), then ``failed`` rows with their ``reason``. kinact and 1/residence
-        time are per the reads' time unit, KI and Ki* in the inhibitor's unit, kinact/KI
-        per inhibitor unit per time unit.
+    TimeDependentRanking
+        ``table``: columns :data:`TIME_DEPENDENT_COLUMNS`, one row per input compound
+        under its exact input text: ``determined`` rows ranked by ``score`` (the class's
+        metric, higher is more potent), then ``failed`` rows with their ``reason``.
+        kinact and 1/residence time are per the reads' time unit, KI and Ki* in the
+        inhibitor's unit, kinact/KI per inhibitor unit per time unit.
     """
     covalent = bool(irreversible)
     label = "covalent" if covalent else "slow binding"
-    rows = []
+    rows, fits = [], {}
     for name, part in reads.groupby(compound, sort=False):
         try:
             fit = fit_time_dependent(part, well=well, time=time, signal=signal,
@@ -103,6 +169,7 @@ def rank_time_dependent(reads, *, compound="compound", well="well", time="time",
                                      substrate=substrate, km=km, level=level,
                                      global_fit=False, compound=name)
             row = _row(name, fit, covalent)
+            fits[name] = fit
         except InhibkinError as err:
             row = dict.fromkeys(TIME_DEPENDENT_COLUMNS, np.nan)
             row.update(compound=name, status="failed", scheme="", note="", reason=str(err))
@@ -114,4 +181,4 @@ def rank_time_dependent(reads, *, compound="compound", well="well", time="time",
     ranked = table["status"] == "determined"
     table["rank"] = pd.array([pd.NA] * len(table), dtype="Int64")
     table.loc[ranked, "rank"] = np.arange(1, int(ranked.sum()) + 1)
-    return table
+    return TimeDependentRanking(table, fits)

@@ -19,9 +19,10 @@ import pandas as pd
 from ..errors import DataError, Problem
 from ..validate import check_columns, numeric_column
 from .dependence import compare_schemes, derived_constants, fit_scheme
-from .global_fit import fit_global_inactivation
+from .global_fit import fit_global
 from .kobs import kobs_arrays
 from .preincubation import fit_activity_surface, fit_ic50_times, ic50_shift, ic50_table
+from .schemes import SCHEMES, progress_curve
 
 __all__ = ["TimeDependentFit", "PreincubationFit", "fit_time_dependent", "fit_preincubation"]
 
@@ -68,7 +69,8 @@ class TimeDependentFit:
     two_step_constants, one_step_constants : pandas.DataFrame
         The same for each scheme, whatever the verdict.
     global_constants : pandas.DataFrame or None
-        kinact, KI and kinact/KI from the global fit (irreversible inhibitors only).
+        The chosen scheme's constants from the global fit of every progress curve (None
+        when not asked for).
     irreversible : bool
     substrate, km : float or None
         The assay's S and Km used for the competitive correction (None: apparent values).
@@ -98,9 +100,50 @@ class TimeDependentFit:
         name = "k5_over_ki" if self.scheme == "two_step" else "kon"
         return float(self.constants.loc[name, "estimate"])
 
+    def fitted_progress(self, n_points=50) -> pd.DataFrame:
+        """Each well's fitted slow-onset curve: well, inhibitor, time, signal (tidy).
+
+        ``n_points`` times from 0 to the well's last read; wells whose kobs the reads do
+        not determine have no curve.
+        """
+        parts = []
+        ends = self.reads.groupby("well", sort=False)["time"].max()
+        for row in self.kobs.itertuples(index=False):
+            if not np.isfinite(row.kobs):
+                continue
+            grid = np.linspace(0.0, float(ends[row.well]), n_points)
+            parts.append(pd.DataFrame({
+                "well": row.well, "inhibitor": row.inhibitor, "time": grid,
+                "signal": progress_curve(grid, row.p0, row.vi, row.vs, row.kobs)}))
+        if not parts:
+            return pd.DataFrame(columns=["well", "inhibitor", "time", "signal"])
+        return pd.concat(parts, ignore_index=True)
+
+    def fitted_kobs(self, n_points=50) -> pd.DataFrame:
+        """Both schemes' kobs against [I] as fitted (apparent constants, the assay's S):
+        scheme, chosen, inhibitor, kobs (tidy), from [I] = 0 to 1.05 × the largest."""
+        used = self.kobs[(self.kobs["inhibitor"] > 0) & np.isfinite(self.kobs["kobs_low"])]
+        grid = np.linspace(0.0, float(used["inhibitor"].max()) * 1.05, n_points)
+        factor = (1.0 + self.substrate / self.km) if self.km else 1.0
+        parts = []
+        for name, table in (("two_step", self.two_step_constants),
+                            ("one_step", self.one_step_constants)):
+            def value(constant, scale=1.0, table=table):
+                return (float(table.loc[constant, "estimate"]) * scale
+                        if constant in table.index else 0.0)
+            if name == "two_step":
+                args = (value("k5"), value("ki_app"), value("k6"))
+            else:
+                args = (value("kon", 1.0 / factor), value("koff"))
+            parts.append(pd.DataFrame({"scheme": name, "chosen": name == self.scheme,
+                                       "inhibitor": grid,
+                                       "kobs": SCHEMES[name].function(grid, *args)}))
+        return pd.concat(parts, ignore_index=True)
+
     def to_frame(self) -> pd.DataFrame:
         """The constants of every route, one row each: route, constant, estimate, ci_low,
-        ci_high, chosen (the verdict's scheme)."""
+        ci_high, chosen (the verdict's scheme); the ``global`` route fits the verdict's
+        scheme to every progress curve."""
         parts = []
         for route, table in (("two_step", self.two_step_constants),
                              ("one_step", self.one_step_constants),
@@ -203,7 +246,9 @@ def fit_time_dependent(reads, *, well="well", time="time", signal="signal",
     alpha : float
         Level of the F-test of one_step against two_step.
     global_fit : bool
-        Also fit every progress curve at once (irreversible inhibitors only).
+        Also fit every progress curve at once with the chosen scheme's constants shared
+        (:func:`inhibkin.time_dependent.global_fit.fit_global`; every scheme, irreversible
+        or reversible).
     compound : str, optional
         Named on the result.
 
@@ -262,11 +307,10 @@ def fit_time_dependent(reads, *, well="well", time="time", signal="signal",
     by_scheme = {name: derived_constants(fit, substrate=substrate, km=km, level=level)
                  for name, fit in fits.items()}
     global_constants = None
-    if global_fit and irreversible:
-        start = fits["two_step"]["values"]
+    if global_fit:
         keep = np.isfinite(table["kobs"].to_numpy()) | (conc == 0)
-        joint = fit_global_inactivation(t[keep], y[keep], valid[keep], conc[keep],
-                                        kinact_start=start["k5"], ki_start=start["ki"])
+        joint = fit_global(t[keep], y[keep], valid[keep], conc[keep], start=fits[scheme],
+                           irreversible=irreversible)
         global_constants = derived_constants(joint, substrate=substrate, km=km, level=level)
     return TimeDependentFit(compound, table, scheme, comparison, pd.Series(ftest),
                             by_scheme[scheme], by_scheme["two_step"], by_scheme["one_step"],
