@@ -552,7 +552,8 @@ def _store_stage_arguments(parser):
     parser.add_argument("name", nargs="?", help="the campaign or the compound")
     parser.add_argument("--version", type=int, help="campaign version (default: the latest)")
     parser.add_argument("--table", default="ranking",
-                        choices=("ranking", "parameters", "comparisons", "plates"),
+                        choices=("ranking", "parameters", "comparisons", "plates",
+                                 "time_dependent"),
                         help="which of the campaign's tables (with 'campaign')")
     parser.add_argument("-o", "--output", help="also write the table (.csv, .parquet, .xlsx)")
 

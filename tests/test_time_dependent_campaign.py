@@ -194,6 +194,10 @@ def test_cli_rank_stores_and_writes_the_time_dependent_table(tmp_path, reads):
     pd.testing.assert_frame_equal(stored, written, check_dtype=False)
     rows = read_workbook_rows(out, sheet="time-dependent")
     assert [r[1] for r in rows[1:]] == list(written["compound"])
+    again = tmp_path / "again.parquet"
+    assert main(["store", str(tmp_path / "s.sqlite"), "campaign", "week 1", "--table",
+                 "time_dependent", "-o", str(again), "--quiet"]) == 0
+    pd.testing.assert_frame_equal(pd.read_parquet(again), written, check_dtype=False)
 
 
 def test_kobs_sketch_is_scaled_to_the_wells_and_the_chosen_scheme(ranking):

@@ -7,7 +7,8 @@
 * ``result`` — one row per compound of a version, the ranked table's figures that
   cross-campaign queries read (a compound's history, the MSR).
 * ``stored_table`` / ``stored_row`` — every table of a version (ranking, parameters,
-  comparisons, plates) exactly: column names and dtypes, then one JSON array per row.
+  comparisons, plates, and time_dependent when the campaign carried time-dependent
+  compounds) exactly: column names and dtypes, then one JSON array per row.
   JSON numbers are written with Python's shortest round-trip ``repr``, so every float
   reads back to the bit (NaN and ±inf included).
 """
