@@ -49,38 +49,61 @@ CONSTANTS = {
     "noncompetitive": lambda m: {"ki": m.kic},
     "mixed": lambda m: {"kic": m.kic, "kiu": m.kiu, "alpha": m.kiu / m.kic},
 }
-WEIGHTINGS = {"relative": "relative", "default": None}
+#: The routes from reads to constants: rates (method, weighting) then fit_mechanisms, or
+#: the whole progress curves fitted (fit_progress_curves).
+ROUTES = {
+    "linear rates, relative": ("linear", "relative"),
+    "linear rates, default": ("linear", None),
+    "curve rates, default": ("curve", None),
+    "progress curves": ("progress", None),
+}
 START = "<!-- reads-study -->"
 END = "<!-- /reads-study -->"
 #: Absorbance per M of the product, for the Beer–Lambert conversion (path 1 cm).
 EPSILON = EPSILON_PATH * 1e6
+COLUMNS = dict(substrate="substrate_uM", inhibitor="inhibitor_uM")
 
 
-def fit_plate(truth: str, seed: int) -> list[dict]:
-    """One plate read, its rates, both fits: one record per weighting."""
+def _scored(record, params, truth_values):
+    """Coverage and log10 width of each true constant's interval."""
+    for name, value in truth_values.items():
+        row = params.loc[name]
+        record[f"{name}_covered"] = bool(row["ci_low"] <= value <= row["ci_high"])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            record[f"{name}_width"] = float(np.log10(row["ci_high"] / row["ci_low"]))
+    return record
+
+
+def fit_plate(truth: str, seed: int, routes=tuple(ROUTES)) -> list[dict]:
+    """One plate read, then every route of ``routes``: one record each."""
     mechanism = TRUTHS[truth]
     reads, plate_map = plate(mechanism, seed)
-    rates = ik.initial_rates(reads, plate_map, substrate="substrate_uM",
-                             inhibitor="inhibitor_uM", conversion=ik.BeerLambert(EPSILON))
-    table = rates.table
+    conversion = ik.BeerLambert(EPSILON)
     truth_values = {k: (v * 1e-6 if k != "alpha" else v)
                     for k, v in CONSTANTS[truth](mechanism).items()}
+    tables = {}
     records = []
-    for label, weighting in WEIGHTINGS.items():
-        record = {"truth": truth, "seed": seed, "weighting": label,
-                  "noisy_or_flat": int(table["flags"].str.contains("noisy|flat").sum())}
+    for label in routes:
+        method, weighting = ROUTES[label]
+        record = {"truth": truth, "seed": seed, "route": label}
+        if method == "progress":
+            fit = ik.fit_progress_curves(reads, plate_map, conversion=conversion, **COLUMNS)
+            record.update(verdict=fit.verdict, used=fit.integration.split(" (")[0],
+                          noisy_or_flat=0)
+            records.append(_scored(record, fit.models[truth].params, truth_values))
+            continue
+        if method not in tables:
+            tables[method] = ik.initial_rates(reads, plate_map, conversion=conversion,
+                                              method=method, **COLUMNS).table
+        table = tables[method]
+        record["noisy_or_flat"] = int(table["flags"].str.contains("noisy|flat").sum())
         try:
-            fit = ik.fit_mechanisms(table, substrate="substrate_uM", inhibitor="inhibitor_uM",
-                                    weighting=weighting)
+            fit = ik.fit_mechanisms(table, weighting=weighting, **COLUMNS)
         except ik.DataError:
             records.append({**record, "verdict": "rejected", "used": ""})
             continue
         record.update(verdict=fit.verdict, used=fit.weighting)
-        params = fit.models[truth].params
-        for name, value in truth_values.items():
-            row = params.loc[name]
-            record[f"{name}_covered"] = bool(row["ci_low"] <= value <= row["ci_high"])
-        records.append(record)
+        records.append(_scored(record, fit.models[truth].params, truth_values))
     return records
 
 
@@ -98,36 +121,35 @@ def _band(hits, total) -> str:
     return f"{hits / total:.0%} [{float(low):.0%}, {float(high):.0%}]" if total else "-"
 
 
+def _row(truth, group, truths) -> dict:
+    classes = [outcome(t, v) for t, v in zip(truths, group["verdict"])]
+    covered = group.filter(like="_covered").to_numpy(dtype=float).ravel()
+    covered = covered[np.isfinite(covered)]
+    widths = group.filter(like="_width").to_numpy(dtype=float).ravel()
+    widths = widths[np.isfinite(widths)]
+    n = len(group)
+    return {
+        "truth": truth, "route": group["route"].iloc[0],
+        "fit": ", ".join(sorted(set(group["used"]) - {""})),
+        "plates": n,
+        "correct": _band(classes.count("correct"), n),
+        "ambiguous": _band(classes.count("ambiguous"), n),
+        "wrong": _band(classes.count("wrong"), n),
+        "rejected": classes.count("rejected"),
+        "coverage (pooled)": _band(int(covered.sum()), covered.size),
+        "median width (log10)": f"{np.median(widths):.2f}" if widths.size else "-",
+    }
+
+
 def summary_table(records: pd.DataFrame) -> pd.DataFrame:
-    """Per truth and weighting: correct, ambiguous, confidently wrong, pooled coverage."""
-    out = []
-    for (truth, _), group in records.groupby(["truth", "weighting"], sort=False):
-        classes = [outcome(truth, v) for v in group["verdict"]]
-        covered = group.filter(like="_covered").to_numpy(dtype=float).ravel()
-        covered = covered[np.isfinite(covered)]
-        n = len(group)
-        out.append({
-            "truth": truth, "fit weighting": ", ".join(sorted(set(group["used"]) - {""})),
-            "plates": n,
-            "correct": _band(classes.count("correct"), n),
-            "ambiguous": _band(classes.count("ambiguous"), n),
-            "wrong": _band(classes.count("wrong"), n),
-            "rejected": classes.count("rejected"),
-            "coverage (pooled)": _band(int(covered.sum()), covered.size),
-        })
-    table = pd.DataFrame(out)
-    for _, group in records.groupby("weighting", sort=False):
-        covered = group.filter(like="_covered").to_numpy(dtype=float).ravel()
-        covered = covered[np.isfinite(covered)]
-        classes = [outcome(t, v) for t, v in zip(group["truth"], group["verdict"])]
-        table.loc[len(table)] = {
-            "truth": "all", "fit weighting": ", ".join(sorted(set(group["used"]) - {""})),
-            "plates": len(group), "correct": _band(classes.count("correct"), len(group)),
-            "ambiguous": _band(classes.count("ambiguous"), len(group)),
-            "wrong": _band(classes.count("wrong"), len(group)),
-            "rejected": classes.count("rejected"),
-            "coverage (pooled)": _band(int(covered.sum()), covered.size)}
-    return table
+    """Per truth and route: correct, ambiguous, confidently wrong, pooled coverage and
+    the median log10 width (ci_high/ci_low) of the true constants' intervals; then the
+    same over every truth, per route."""
+    out = [_row(truth, group, [truth] * len(group))
+           for (truth, _), group in records.groupby(["truth", "route"], sort=False)]
+    out += [_row("all", group, group["truth"])
+            for _, group in records.groupby("route", sort=False)]
+    return pd.DataFrame(out)
 
 
 def markdown(frame: pd.DataFrame) -> str:
@@ -140,7 +162,7 @@ def markdown(frame: pd.DataFrame) -> str:
 
 def section(records: pd.DataFrame, n: int, seconds: float) -> str:
     """The Markdown section written between the markers."""
-    flagged = records.loc[records["weighting"] == "relative", "noisy_or_flat"]
+    flagged = records.loc[records["route"] == "linear rates, relative", "noisy_or_flat"]
     return "\n".join([
         START,
         "## From plate reads (mass-action ODE → absorbance → initial rates → fit)",

@@ -29,7 +29,7 @@ from scipy import stats
 
 from ..core.compare import information_criteria
 from ..core.determined import DETERMINATION_FACTOR, determined_flags
-from ..core.models import MODELS
+from ..core.models import MODELS, ratio_tie
 from ..core.options import INTERVAL_METHODS
 from ..core.profile import profile_crossing
 from ..core.readonly import readonly_array, readonly_frame
@@ -407,12 +407,7 @@ def fixed_alpha_ssr(s, i, v, weights, alpha, starts) -> float:
     """
     problem = _make_problem("mixed", s, i, v, np.asarray(weights, dtype=float))
     names = MODELS["mixed"].param_names
-    (ratio,) = MODELS["mixed"].derived  # alpha = kiu/kic
-    kic, kiu = names.index(ratio.denominator), names.index(ratio.numerator)
-    tie = np.delete(np.eye(len(names)), kiu, axis=1)
-    tie[kiu, kic] = 1.0
-    offset = np.zeros(len(names))
-    offset[kiu] = np.log(alpha)
+    tie, offset = ratio_tie(MODELS["mixed"], alpha)  # alpha = kiu/kic
     best = np.nan
     for start in starts:
         theta0 = np.log([start[p] for p in names])
