@@ -20,6 +20,7 @@ from inhibkin.mechanism.progress_curves import (
     CLOSED_FORM,
     ODE,
     closed_form_product,
+    closed_form_sensitivities,
     product_formed,
 )
 
@@ -49,6 +50,19 @@ def test_closed_form_does_not_overflow_far_above_km():
     # loses the digits below eps·S0 ≈ 2e-10.
     product = closed_form_product(np.array([0.0, 10.0]), 1e6, 1.0, 1.0)
     assert product == pytest.approx([0.0, 10.0 * (1 - 1e-6)], abs=1e-8)
+
+
+def test_sensitivities_match_finite_differences():
+    # The solver's Jacobian is built from these; central differences are the reference.
+    t, s0, v, k = np.linspace(0.0, 3000.0, 31), 5.0, 2e-3, 10.0
+    d_v, d_k = closed_form_sensitivities(t, s0, v, k)
+    h = 1e-6
+    assert d_v == pytest.approx((closed_form_product(t, s0, v * (1 + h), k)
+                                 - closed_form_product(t, s0, v * (1 - h), k)) / (2 * h * v),
+                                rel=1e-5, abs=1e-9)
+    assert d_k == pytest.approx((closed_form_product(t, s0, v, k * (1 + h))
+                                 - closed_form_product(t, s0, v, k * (1 - h))) / (2 * h * k),
+                                rel=1e-5, abs=1e-9)
 
 
 @pytest.mark.parametrize("substrate, inhibitor", [(2.0, 0.0), (10.0, 4.0), (100.0, 8.0)])

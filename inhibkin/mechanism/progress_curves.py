@@ -96,6 +96,8 @@ _PROFILE_MAX_EVALUATIONS = 100
 _PROFILE_FIRST_STEP = 0.25
 _PROFILE_MAX_DOUBLINGS = 20
 _PROFILE_XTOL = 1e-5
+# Step (log units) of the central differences of the apparent constants.
+_APPARENT_STEP = 1e-6
 # S/v must be linear in S to within this relative error for the closed form to hold.
 _HYPERBOLIC_RTOL = 1e-9
 # ODE tolerances: relative, and absolute as a fraction of the largest substrate.
@@ -105,22 +107,37 @@ _ODE_ATOL_FRACTION = 1e-12
 _EARLY_FRACTION = 1.0 / 3.0
 
 
-def apparent_constants(law, inhibitor, params, scale):
+def apparent_constants(law, inhibitor, params, scale, *, check=True):
     """Vapp and Kapp of a law that is hyperbolic in S, at each inhibitor level.
 
     S/v = (Kapp + S)/Vapp is evaluated at S = ``scale`` and 2·``scale`` (the law's own
-    rate function), which gives both constants; None when S/v is not linear in S (the
-    law is not Michaelis–Menten in S at fixed I).
+    rate function), which gives both constants; with ``check``, None when S/v is not
+    linear in S (the law is not Michaelis–Menten in S at fixed I; a third point tells).
     """
     s1, s2, s3 = scale, 2.0 * scale, 5.0 * scale
+    shape = np.shape(inhibitor)
     with np.errstate(divide="ignore", invalid="ignore"):
-        q1, q2, q3 = (s / law.rate(np.full(np.shape(inhibitor), s), inhibitor, *params)
-                      for s in (s1, s2, s3))
+        q1, q2 = (s / law.rate(np.full(shape, s), inhibitor, *params) for s in (s1, s2))
         slope = (q2 - q1) / (s2 - s1)  # 1/Vapp
         intercept = q1 - slope * s1    # Kapp/Vapp
-        if not np.allclose(q3, intercept + slope * s3, rtol=_HYPERBOLIC_RTOL, atol=0):
-            return None
+        if check:
+            q3 = s3 / law.rate(np.full(shape, s3), inhibitor, *params)
+            if not np.allclose(q3, intercept + slope * s3, rtol=_HYPERBOLIC_RTOL, atol=0):
+                return None
         return 1.0 / slope, intercept / slope
+
+
+def closed_form_sensitivities(t, s0, vapp, kapp):
+    """dP/dVapp and dP/dKapp of :func:`closed_form_product`, per read.
+
+    From the implicit form S + Kapp·ln S = S0 + Kapp·ln S0 − Vapp·t: dS/dVapp =
+    −t·S/(S + Kapp) and dS/dKapp = S·ln(S0/S)/(S + Kapp); P = S0 − S.
+    """
+    s = s0 - closed_form_product(t, s0, vapp, kapp)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.where(s > 0, s / (s + kapp), 0.0)
+        log_ratio = np.where(s > 0, np.log(s0 / s), 0.0)
+    return t * share, -share * log_ratio
 
 
 def closed_form_product(t, s0, vapp, kapp):
@@ -264,9 +281,31 @@ class _Curves:
         if method == ODE:
             return ode_product(law, params, self.grid, self.s0, self.inhibitor,
                                product_ki)[self.code, self.column]
-        vapp, kapp = apparent_constants(law, self.inhibitor, params, self.scale)
+        vapp, kapp = apparent_constants(law, self.inhibitor, params, self.scale,
+                                        check=False)
         return closed_form_product(self.t, self.s0[self.code], vapp[self.code],
                                    kapp[self.code])
+
+    def product_jacobian(self, law, theta):
+        """dP/dtheta (theta the log-parameters) of the closed form, per read: the
+        sensitivities to Vapp and Kapp times dVapp/dtheta and dKapp/dtheta, the latter
+        by central differences over the wells' levels (cheap: one value per well)."""
+        params = np.exp(theta)
+        vapp, kapp = apparent_constants(law, self.inhibitor, params, self.scale, check=False)
+        d_v, d_k = closed_form_sensitivities(self.t, self.s0[self.code], vapp[self.code],
+                                             kapp[self.code])
+        out = np.empty((len(self.t), len(theta)))
+        for j in range(len(theta)):
+            step = np.zeros(len(theta))
+            step[j] = _APPARENT_STEP
+            up = apparent_constants(law, self.inhibitor, np.exp(theta + step), self.scale,
+                                    check=False)
+            down = apparent_constants(law, self.inhibitor, np.exp(theta - step), self.scale,
+                                      check=False)
+            dv = (up[0] - down[0]) / (2 * _APPARENT_STEP)
+            dk = (up[1] - down[1]) / (2 * _APPARENT_STEP)
+            out[:, j] = d_v * dv[self.code] + d_k * dk[self.code]
+        return out
 
 
 @dataclass(frozen=True)
@@ -298,6 +337,21 @@ class _Problem:
         r = self.w * (self.y - self.fitted(theta))
         return np.where(np.isfinite(r), r, 1e150)
 
+    def jacobian(self, theta):
+        """d residual / d theta with the offsets projected out (each column minus its
+        weighted well mean), or None where the product comes from the ODE."""
+        if self.method == ODE:
+            return None
+        d_product = self.curves.product_jacobian(self.law, theta)
+        w2 = self.w**2
+        n_wells = len(self.curves.s0)
+        weight = np.bincount(self.curves.code, w2, minlength=n_wells)
+        means = np.column_stack([
+            np.bincount(self.curves.code, w2 * column, minlength=n_wells)
+            for column in d_product.T]) / np.where(weight > 0, weight, 1.0)[:, None]
+        out = -self.w[:, None] * (d_product - means[self.curves.code])
+        return np.where(np.isfinite(out), out, 0.0)
+
 
 def _solve(problem, theta0, tie=None, offset=None, *, tol=_TOL, max_evaluations=_MAX_EVALUATIONS):
     """Minimise the SSR over phi, theta = tie @ phi + offset (as one_model's solver).
@@ -313,11 +367,13 @@ def _solve(problem, theta0, tie=None, offset=None, *, tol=_TOL, max_evaluations=
     upper = np.array([problem.upper[j] - b[j] for j in owner])
     phi0 = np.linalg.lstsq(A, np.asarray(theta0) - b, rcond=None)[0]
     phi0 = np.clip(phi0, lower + 1e-9, upper - 1e-9)
+    jac = "2-point" if problem.method == ODE else (
+        lambda phi: problem.jacobian(A @ phi + b) @ A)
     with np.errstate(all="ignore"):
         result = optimize.least_squares(lambda phi: problem.residual(A @ phi + b), phi0,
-                                        bounds=(lower, upper), method="trf", ftol=tol,
-                                        xtol=tol, gtol=tol, max_nfev=max_evaluations,
-                                        x_scale=1.0)
+                                        jac=jac, bounds=(lower, upper), method="trf",
+                                        ftol=tol, xtol=tol, gtol=tol,
+                                        max_nfev=max_evaluations, x_scale=1.0)
     theta = A @ result.x + b
     ssr = float(np.sum(result.fun**2))
     covariance = None
