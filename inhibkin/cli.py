@@ -31,10 +31,10 @@ EXIT_UNUSABLE_INPUT = 2
 _DESCRIPTION = """\
 Characterise enzyme inhibitors from plate data, one stage at a time: initial rates from
 kinetic reads (rates), the mechanism of each compound from its substrate × inhibitor grid
-(mechanism), IC50 and Ki from dose-response plates (potency), a ranking by pKi (rank), an
-HTML report (report) and kinact, KI and kinact/KI of time-dependent inhibitors
-(inactivation). Each stage reads and writes CSV or Parquet tables; `inhibkin
-STAGE --help` shows its options and a worked example.
+(mechanism) or from its whole progress curves (progress), IC50 and Ki from dose-response
+plates (potency), a ranking by pKi (rank), an HTML report (report) and kinact, KI and
+kinact/KI of time-dependent inhibitors (inactivation). Each stage reads and writes CSV or
+Parquet tables; `inhibkin STAGE --help` shows its options and a worked example.
 
 Exit status: 0 when every compound was fitted, 1 when some failed (every result is still
 written, each failure with its reason), 2 when the input cannot be used (the problems are

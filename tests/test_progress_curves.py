@@ -1,4 +1,5 @@
-"""Whole progress curves fitted globally (inhibkin/mechanism/progress_curves.py).
+"""Whole progress curves fitted globally (inhibkin/mechanism/progress_curves.py) and the
+product curve they fit (inhibkin/mechanism/product_curve.py).
 
 References: the closed form is checked against a numerical integration of the
 Michaelis–Menten rate law (scipy.integrate.solve_ivp, independent of the Lambert W
@@ -16,7 +17,7 @@ from grid_ode import EPSILON_PATH, Mechanism, plate, product_curve
 from scipy.integrate import solve_ivp
 
 import inhibkin as ik
-from inhibkin.mechanism.progress_curves import (
+from inhibkin.mechanism.product_curve import (
     CLOSED_FORM,
     ODE,
     closed_form_product,
