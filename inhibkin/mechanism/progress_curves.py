@@ -49,7 +49,7 @@ from ..core.compare import (
 from ..core.determined import DETERMINATION_FACTOR, determined_flags
 from ..core.models import MODEL_NAMES, MODELS, nested_start, ratio_tie
 from ..core.options import INTERVAL_METHODS
-from ..core.profile import profile_crossing
+from ..core.profile import profile_crossing, profile_tie
 from ..core.readonly import readonly_frame, readonly_mapping
 from ..core.starts import log_bounds, starting_values
 from ..display.text import text_table
@@ -159,18 +159,8 @@ def _solve(problem, theta0, tie=None, offset=None, *, tol=_TOL, max_evaluations=
 def _profile(problem, theta_hat, target, direction, first_step, j=None, contrast=None):
     """Where the profile SSR of theta_j (or of theta_b − theta_a) crosses ``target``."""
     k = len(theta_hat)
-    if contrast is None:
-        fixed = j
-        A = np.delete(np.eye(k), j, axis=1)
-        centre = theta_hat[j]
-        limit = problem.upper[j] if direction > 0 else problem.lower[j]
-    else:
-        a, fixed = contrast
-        A = np.delete(np.eye(k), fixed, axis=1)
-        A[fixed, a] = 1.0
-        centre = theta_hat[fixed] - theta_hat[a]
-        limit = (problem.upper[fixed] - problem.lower[a] if direction > 0
-                 else problem.lower[fixed] - problem.upper[a])
+    A, fixed, centre, limit = profile_tie(theta_hat, problem.lower, problem.upper, direction,
+                                          j, contrast)
 
     def excess(c, warm):
         b = np.zeros(k)
