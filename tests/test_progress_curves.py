@@ -195,3 +195,12 @@ def test_cli_stage_fits_each_compound_and_keeps_the_bad_one(mixed_plate, tmp_pat
     assert out.loc["CPD-1", "verdict"] != "failed"
     params = read_table(tmp_path / "params.csv")
     assert set(params["compound"]) == {"CPD-1"} and "unit" in params
+
+
+def test_no_inhibitor_is_called_none_and_a_missing_read_is_no_trouble():
+    reads, plate_map = plate(Mechanism(), 5)  # kic = kiu = inf: no inhibition at all
+    reads = reads.copy()
+    reads.loc[7, "signal"] = np.nan  # one read lost: the well keeps its other reads
+    fit = ik.fit_progress_curves(reads, plate_map, intervals="wald", **COLUMNS)
+    assert fit.verdict == "none"
+    assert len(fit.data) == len(reads) - 1 and len(fit.offsets) == 96
