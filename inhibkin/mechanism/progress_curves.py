@@ -317,10 +317,11 @@ class ProgressCurveFit:
     comparison, ftests : pandas.DataFrame
         As :class:`inhibkin.MechanismFit`.
     data : pandas.DataFrame
-        The reads fitted: well, substrate, inhibitor, time (s), product, weight.
+        The reads fitted: well, substrate, inhibitor (M when declared), time (s),
+        product (M), weight (1/sd of the read).
     offsets : pandas.DataFrame
-        Per well: well, substrate, inhibitor, offset (product units) of the verdict's
-        law.
+        Per well: plate, well, substrate, inhibitor and the offset of the verdict's law
+        (the product's scale, M).
     integration : str
         How the product curve was computed: the closed form, or the ODE and why.
     variance_model : tuple of float
@@ -545,19 +546,21 @@ def fit_progress_curves(reads, plate_map, *, compound_id=None, time="time", sign
                         chosen)
     fit = _fit_compound(curves, y, models=tuple(models), integration=integration,
                         product_ki=kp, intervals=intervals, level=level, options=options,
-                        determination_factor=determination_factor, context=chosen)
+                        determination_factor=determination_factor)
     verdict, fits, comparison, ftests, w, method, coef = fit
     data = pd.DataFrame({"well": table[well].to_numpy(), "substrate": s, "inhibitor": i,
                          "time": curves.t, "product": y, "weight": w})
     best = fits.get(verdict.best)
-    offset = None
-    offsets = pd.DataFrame({"well": table[well].drop_duplicates().to_numpy(),
-                            "substrate": curves.s0, "inhibitor": curves.inhibitor})
+    first_read = np.unique(code, return_index=True)[1]  # one row per well, in code order
+    offsets = pd.DataFrame({"plate": table[plate].to_numpy()[first_read],
+                            "well": table[well].to_numpy()[first_read],
+                            "substrate": curves.s0, "inhibitor": curves.inhibitor,
+                            "offset": np.nan})
     if best is not None and best.converged:
-        offset = np.bincount(code, best.fitted - _product_of(curves, verdict.best, best,
-                                                             method, kp),
-                             minlength=len(curves.s0)) / np.bincount(code)
-    offsets["offset"] = offset if offset is not None else np.nan
+        # Every read of a well carries the same offset: fitted − product formed.
+        offsets["offset"] = np.bincount(
+            code, best.fitted - _product_of(curves, verdict.best, best, method, kp),
+            minlength=len(curves.s0)) / np.bincount(code)
     molar = {"substrate": "M" if units["substrate"] else None,
              "inhibitor": "M" if units["inhibitor"] else units["inhibitor"],
              "rate": "M/s"}
@@ -574,12 +577,11 @@ def _product_of(curves, model, fit, method, product_ki):
 
 
 def _fit_compound(curves, y, *, models, integration, product_ki, intervals, level, options,
-                  determination_factor, context):
+                  determination_factor):
     """Every law fitted with shared variance-model weights; the verdict."""
     s_points = curves.s0[curves.code]
     i_points = curves.inhibitor[curves.code]
     v0 = _early_rates(curves, y)
-    n_wells = len(curves.s0)
     methods = {name: integration_of(MODELS[name], integration, product_ki, curves.scale)
                for name in models}
     w = np.full(len(y), 1.0 / _read_noise(curves, y))
@@ -639,8 +641,5 @@ def _fit_compound(curves, y, *, models, integration, product_ki, intervals, leve
                          "p_value": p_value})
         ftests = pd.concat([ftests, pd.DataFrame(rows)], ignore_index=True)
     verdict: Verdict = decide(comparison, ftests, options)
-    if n_wells and verdict.best is None:
-        verdict = Verdict(verdict.verdict, None, verdict.candidates,
-                          f"{verdict.reason} ({context})")
     return verdict, fits, comparison, ftests, w, methods.get(verdict.best or general,
                                                              CLOSED_FORM), coef
