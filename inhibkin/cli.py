@@ -31,10 +31,10 @@ EXIT_UNUSABLE_INPUT = 2
 _DESCRIPTION = """\
 Characterise enzyme inhibitors from plate data, one stage at a time: initial rates from
 kinetic reads (rates), the mechanism of each compound from its substrate × inhibitor grid
-(mechanism), IC50 and Ki from dose-response plates (potency), a ranking by pKi (rank), an
-HTML report (report) and kinact, KI and kinact/KI of time-dependent inhibitors
-(inactivation). Each stage reads and writes CSV or Parquet tables; `inhibkin
-STAGE --help` shows its options and a worked example.
+(mechanism) or from its whole progress curves (progress), IC50 and Ki from dose-response
+plates (potency), a ranking by pKi (rank), an HTML report (report) and kinact, KI and
+kinact/KI of time-dependent inhibitors (inactivation). Each stage reads and writes CSV or
+Parquet tables; `inhibkin STAGE --help` shows its options and a worked example.
 
 Exit status: 0 when every compound was fitted, 1 when some failed (every result is still
 written, each failure with its reason), 2 when the input cannot be used (the problems are
@@ -375,13 +375,27 @@ def _dose_options(args) -> dict:
 
 
 def _rates_arguments(parser):
+    _reads_arguments(parser, "initial-rate table")
+    parser.add_argument("--rate", default="rate", metavar="COLUMN",
+                        help="name of the rate column written (default: 'rate'; give the "
+                             "same --rate to the mechanism stage)")
+    parser.add_argument("--rate-time-unit", choices=("s", "ms", "min", "h"),
+                        help="time unit of the rates written, e.g. min for µM/min "
+                             "(default: --time-unit)")
+    parser.add_argument("--method", choices=("linear", "curve"), default="linear",
+                        help="linear: slope of the longest linear early window (default); "
+                             "curve: slope at t = 0 of a quadratic over the early curve")
+
+
+def _reads_arguments(parser, output):
+    """The options of the stages that read kinetic reads and a plate map."""
     parser.add_argument("reads", help="kinetic reads: a table (plate, well, time, signal; "
                                       "CSV, Parquet or .xlsx) or a plate-reader matrix of "
                                       "blocks (see README, 'Plate matrices')")
     parser.add_argument("--plate-map", required=True,
                         help="one row per well: plate, well, compound, substrate_<unit>, "
                              "inhibitor_<unit>, role")
-    parser.add_argument("-o", "--output", required=True, help="initial-rate table")
+    parser.add_argument("-o", "--output", required=True, help=output)
     parser.add_argument("--time", default="time", metavar="COLUMN",
                         help="time column of the reads (default: 'time', or the one "
                              "'time_<unit>' column, e.g. time_s, whose unit is then used)")
@@ -389,21 +403,12 @@ def _rates_arguments(parser):
                         help="signal column of the reads (default: 'signal'); a header "
                              "with a concentration unit, e.g. product_uM, declares the "
                              "signal a concentration in that unit")
-    parser.add_argument("--rate", default="rate", metavar="COLUMN",
-                        help="name of the rate column written (default: 'rate'; give the "
-                             "same --rate to the mechanism stage)")
     _column_arguments(parser)
     parser.add_argument("--plate", metavar="NAME",
                         help="plate name of plate-matrix blocks that name none (default: "
                              "the file's name)")
     parser.add_argument("--time-unit", choices=("s", "ms", "min", "h"),
                         help="unit of the times (default: the time header's unit, else s)")
-    parser.add_argument("--rate-time-unit", choices=("s", "ms", "min", "h"),
-                        help="time unit of the rates written, e.g. min for µM/min "
-                             "(default: --time-unit)")
-    parser.add_argument("--method", choices=("linear", "curve"), default="linear",
-                        help="linear: slope of the longest linear early window (default); "
-                             "curve: slope at t = 0 of a quadratic over the early curve")
     parser.add_argument("--chromophore", help="convert absorbance by Beer–Lambert, e.g. NADH")
     parser.add_argument("--path-length", type=float, default=1.0, help="cm (with --chromophore)")
     parser.add_argument("--signal-unit", help="concentration unit of the signal, when it is "
@@ -431,32 +436,42 @@ class _MapOnly:
                                                          args.inhibitor)
 
 
-def _rates(args) -> int:
-    from .rates.initial import initial_rates
-    from .rates.signal import BeerLambert
-    from .units import resolve_units
-
-    output = _check_output(args.output)
-    _check_paths({"reads": args.reads, "--plate-map": args.plate_map}, {"--output": output})
+def _reads_and_map(args):
+    """The reads and the plate map of a reads stage, read with its column options."""
     reads = _read(args.reads, _ReadsOnly(args), required=("plate", "well", "signal"),
                   context="reads")
     plate_map = _read(args.plate_map, _MapOnly(args), required=("plate", "well"),
                       context="plate map")
-    if not any(c == "time" or c.startswith("time_") for c in map(str, reads.columns)):
-        return _endpoint(reads, plate_map, output, args)
+    return reads, plate_map
+
+
+def _reads_options(args, plate_map) -> dict:
+    """The keyword options a reads stage passes to initial_rates / fit_progress_curves."""
+    from .rates.signal import BeerLambert
+    from .units import resolve_units
+
     found = resolve_units(plate_map.columns, ["substrate", "inhibitor"],
                           units=_units(args.units), context="plate map")
     (substrate, substrate_unit), (inhibitor, inhibitor_unit) = (found["substrate"],
                                                                 found["inhibitor"])
     conversion = (BeerLambert.of(args.chromophore, path_length=args.path_length)
                   if args.chromophore else None)
-    result = initial_rates(reads, plate_map, time="time", signal="signal",
-                           time_unit=args.time_unit,
-                           rate_time_unit=args.rate_time_unit, method=args.method,
-                           conversion=conversion, signal_unit=args.signal_unit,
-                           substrate=substrate, inhibitor=inhibitor,
-                           substrate_unit=substrate_unit, inhibitor_unit=inhibitor_unit,
-                           direction=args.direction)
+    return dict(time="time", signal="signal", time_unit=args.time_unit,
+                conversion=conversion, signal_unit=args.signal_unit, substrate=substrate,
+                inhibitor=inhibitor, substrate_unit=substrate_unit,
+                inhibitor_unit=inhibitor_unit, direction=args.direction)
+
+
+def _rates(args) -> int:
+    from .rates.initial import initial_rates
+
+    output = _check_output(args.output)
+    _check_paths({"reads": args.reads, "--plate-map": args.plate_map}, {"--output": output})
+    reads, plate_map = _reads_and_map(args)
+    if not any(c == "time" or c.startswith("time_") for c in map(str, reads.columns)):
+        return _endpoint(reads, plate_map, output, args)
+    result = initial_rates(reads, plate_map, rate_time_unit=args.rate_time_unit,
+                           method=args.method, **_reads_options(args, plate_map))
     _write_output(result.to_frame().rename(columns={"rate": args.rate}), output)
     if not args.quiet:
         print(result.summary())
@@ -464,6 +479,72 @@ def _rates(args) -> int:
     if n_failed:
         print(f"inhibkin rates: {n_failed} wells failed; see the 'flags' and 'status' columns "
               f"of {output}", file=sys.stderr)
+        return EXIT_SOME_FAILED
+    return EXIT_OK
+
+
+def _progress_arguments(parser):
+    _reads_arguments(parser, "one row per compound: verdict, reason, how the curves were "
+                             "computed, and the verdict's constants (M where the plate "
+                             "map declares units)")
+    parser.add_argument("--params", help="also write every model's parameters of every "
+                                         "compound (tidy table, with a unit column)")
+    parser.add_argument("--product-ki", type=float, metavar="KP",
+                        help="competitive product inhibition constant, in the substrate's "
+                             "unit: the curves are then integrated numerically (ODE)")
+    parser.add_argument("--integration", choices=("auto", "closed", "ode"), default="auto",
+                        help="auto (default): the integrated Michaelis–Menten closed form "
+                             "where it holds, else the ODE; closed; ode")
+    parser.add_argument("--intervals", choices=("profile", "wald"), default="profile",
+                        help="profile-likelihood (default) or log-scale Wald intervals")
+
+
+def _progress(args) -> int:
+    import pandas as pd
+
+    from .inputs.io import write_table
+    from .mechanism.progress_curves import fit_progress_curves
+
+    output = _check_output(args.output)
+    params = _check_output(args.params, "--params") if args.params else None
+    _check_paths({"reads": args.reads, "--plate-map": args.plate_map},
+                 {"--output": output, "--params": params})
+    reads, plate_map = _reads_and_map(args)
+    options = _reads_options(args, plate_map)
+    samples = plate_map
+    if "role" in plate_map.columns:
+        samples = plate_map[plate_map["role"].astype(str).str.strip().str.lower() == "sample"]
+    compounds = pd.unique(samples["compound"].astype(str)) if "compound" in samples else []
+    rows, tables = [], []
+    for name in compounds:
+        try:
+            fit = fit_progress_curves(reads, plate_map, compound_id=name,
+                                      integration=args.integration,
+                                      product_ki=args.product_ki, intervals=args.intervals,
+                                      **options)
+        except InhibkinError as err:
+            rows.append({"compound": name, "verdict": "failed", "best": None,
+                         "reason": str(err)})
+            continue
+        row = {"compound": name, "verdict": fit.verdict, "best": fit.best,
+               "reason": fit.reason, "integration": fit.integration,
+               "wells": len(fit.offsets), "reads": len(fit.data)}
+        unit = fit.units.get("inhibitor")
+        for constant, values in fit.constants().iterrows():
+            suffix = "" if constant == "alpha" or not unit else f"_{unit}"
+            for column in ("estimate", "ci_low", "ci_high"):
+                row[f"{constant}_{column}{suffix}"] = values[column]
+        rows.append(row)
+        tables.append(fit.to_frame())
+        if not args.quiet:
+            print(fit.summary())
+    _write_output(pd.DataFrame(rows), output)
+    if params is not None:
+        write_table(pd.concat(tables, ignore_index=True) if tables else pd.DataFrame(), params)
+    failed = [r["compound"] for r in rows if r["verdict"] == "failed"]
+    if failed:
+        print(f"inhibkin progress: {len(failed)} compounds failed ({', '.join(failed[:5])}); "
+              f"see the 'reason' column of {output}", file=sys.stderr)
         return EXIT_SOME_FAILED
     return EXIT_OK
 
@@ -995,6 +1076,11 @@ SUBCOMMANDS = [
         "data_demo/invented_moa_plate_map.csv --signal product_uM --rate-time-unit min "
         "-o demo_rates.csv",
         _rates_arguments, _rates, parallel=False),
+    Subcommand(
+        "progress", "fit every mechanism to whole progress curves (all reads of all wells)",
+        "inhibkin progress reads.csv --plate-map plate_map.csv --time-unit min --chromophore NADH "
+        "--direction decrease -o progress.csv --params progress_parameters.csv",
+        _progress_arguments, _progress, parallel=False),
     Subcommand(
         "mechanism", "fit every mechanism to each compound's substrate × inhibitor grid",
         "inhibkin mechanism rates.csv --weighting relative -o mechanisms.csv "

@@ -26,11 +26,14 @@ def test_simulator_early_rate_is_the_steady_state_law(substrate, inhibitor):
     assert rate == pytest.approx(law, rel=EARLY_RATE_RTOL)
 
 
-def test_two_plates_run_through_both_weightings():
+def test_two_plates_run_through_every_route():
     records = [r for seed in (1, 2) for r in reads_study.fit_plate("competitive", seed)]
-    assert [r["weighting"] for r in records] == ["relative", "default"] * 2
-    assert {r["used"] for r in records} == {"relative", "rate_se + variance model"}
+    assert [r["route"] for r in records] == list(reads_study.ROUTES) * 2
+    assert {r["used"] for r in records} == {"relative", "rate_se + variance model",
+                                            "closed form"}
     assert all(isinstance(r.get("kic_covered"), bool) for r in records)
+    assert all(np.isfinite(r["kic_width"]) for r in records)
     table = reads_study.summary_table(pd.DataFrame(records))
     assert set(table["truth"]) == {"competitive", "all"}
-    assert np.all(table["plates"] > 0)
+    assert len(table) == 2 * len(reads_study.ROUTES)
+    assert np.all(table["plates"] == 2)

@@ -31,7 +31,7 @@ import numpy as np
 
 __all__ = ["RateLaw", "Derived", "MODELS", "MODEL_NAMES", "INHIBITION_MODELS",
            "ONE_CONSTANT_MODELS", "EXTENDED_MODELS", "ROLES", "get_model", "nested_pairs",
-           "nested_start", "extension_of"]
+           "nested_start", "extension_of", "ratio_tie"]
 
 #: The roles a parameter can have: the data axis that sets its bounds, start and
 #: "determined" rule. ``substrate_inhibition`` (ksi) is set by the substrate levels like
@@ -352,3 +352,26 @@ def nested_start(small: str, values, large: str, far) -> dict:
         else:
             out[name] = far
     return out
+
+
+def ratio_tie(law: RateLaw, value: float):
+    """The map theta = tie @ phi + offset that holds the law's derived ratio at ``value``.
+
+    theta are the law's log-parameters; the ratio's numerator is tied to its
+    denominator (log kiu = log kic + log value for mixed's alpha), every other
+    parameter is free. Both solvers' fixed-alpha fits (rule 4 of
+    :mod:`inhibkin.core.compare`) use it.
+
+    Returns
+    -------
+    tie : numpy.ndarray, shape (k, k − 1)
+    offset : numpy.ndarray, shape (k,)
+    """
+    (ratio,) = law.derived
+    names = law.param_names
+    low, high = names.index(ratio.denominator), names.index(ratio.numerator)
+    tie = np.delete(np.eye(len(names)), high, axis=1)
+    tie[high, low] = 1.0
+    offset = np.zeros(len(names))
+    offset[high] = np.log(value)
+    return tie, offset

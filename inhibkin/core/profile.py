@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import optimize
 
-__all__ = ["profile_crossing"]
+__all__ = ["profile_crossing", "profile_tie"]
 
 
 def profile_crossing(excess, centre, limit, direction, first_step, start, *, xtol,
@@ -67,3 +67,39 @@ def profile_crossing(excess, centre, limit, direction, first_step, start, *, xto
         inner, inner_start = outer, solution
         step *= 2
     return direction * np.inf
+
+
+def profile_tie(theta_hat, lower, upper, direction, j=None, contrast=None):
+    """How a profile holds one log-parameter, or a difference of two, fixed.
+
+    Parameters
+    ----------
+    theta_hat, lower, upper : numpy.ndarray
+        The log-estimates and their bounds.
+    direction : {-1, +1}
+        Which side of the estimate the search runs.
+    j : int, optional
+        The parameter profiled.
+    contrast : tuple of int, optional
+        ``(a, b)``: profile theta_b − theta_a instead (theta_b = theta_a + c, e.g.
+        log alpha = log kiu − log kic).
+
+    Returns
+    -------
+    tie : numpy.ndarray, shape (k, k − 1)
+        theta = tie @ phi + offset(c), phi the free parameters.
+    fixed : int
+        The entry of the offset that carries the profiled value c.
+    centre, limit : float
+        The estimate of the profiled quantity and the bound of the search on this side.
+    """
+    k = len(theta_hat)
+    if contrast is None:
+        tie = np.delete(np.eye(k), j, axis=1)
+        limit = upper[j] if direction > 0 else lower[j]
+        return tie, j, float(theta_hat[j]), float(limit)
+    a, fixed = contrast
+    tie = np.delete(np.eye(k), fixed, axis=1)
+    tie[fixed, a] = 1.0
+    limit = upper[fixed] - lower[a] if direction > 0 else lower[fixed] - upper[a]
+    return tie, fixed, float(theta_hat[fixed] - theta_hat[a]), float(limit)

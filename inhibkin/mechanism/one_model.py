@@ -29,9 +29,9 @@ from scipy import stats
 
 from ..core.compare import information_criteria
 from ..core.determined import DETERMINATION_FACTOR, determined_flags
-from ..core.models import MODELS
+from ..core.models import MODELS, ratio_tie
 from ..core.options import INTERVAL_METHODS
-from ..core.profile import profile_crossing
+from ..core.profile import profile_crossing, profile_tie
 from ..core.readonly import readonly_array, readonly_frame
 from ..core.starts import log_bounds, starting_values
 from ..display.text import MISSING, format_estimate
@@ -233,31 +233,13 @@ def _profile_limit(problem, theta_hat, ssr_target, j, direction, first_step, con
     before the bounds (the data set no limit on that side).
     """
     k = len(theta_hat)
-    if contrast is None:
-        A = np.delete(np.eye(k), j, axis=1)
+    A, fixed, centre, limit = profile_tie(theta_hat, problem.lower, problem.upper, direction,
+                                          j, contrast)
 
-        def offset(c):
-            b = np.zeros(k)
-            b[j] = c
-            return b
-
-        centre = theta_hat[j]
-        limit = problem.upper[j] if direction > 0 else problem.lower[j]
-    else:
-        # Profile of theta_b - theta_a: theta_b = theta_a + c, the others free.
-        a, bidx = contrast
-        A = np.delete(np.eye(k), bidx, axis=1)
-        A[bidx, a] = 1.0
-
-        def offset(c):
-            b = np.zeros(k)
-            b[bidx] = c
-            return b
-
-        centre = theta_hat[bidx] - theta_hat[a]
-        span = (problem.upper[bidx] - problem.lower[a]) if direction > 0 else (
-            problem.lower[bidx] - problem.upper[a])
-        limit = span
+    def offset(c):
+        b = np.zeros(k)
+        b[fixed] = c
+        return b
 
     def excess(c, warm_theta):
         theta, ssr, _, _, _ = _solve(problem, warm_theta, A, offset(c), tol=_PROFILE_TOL,
@@ -407,12 +389,7 @@ def fixed_alpha_ssr(s, i, v, weights, alpha, starts) -> float:
     """
     problem = _make_problem("mixed", s, i, v, np.asarray(weights, dtype=float))
     names = MODELS["mixed"].param_names
-    (ratio,) = MODELS["mixed"].derived  # alpha = kiu/kic
-    kic, kiu = names.index(ratio.denominator), names.index(ratio.numerator)
-    tie = np.delete(np.eye(len(names)), kiu, axis=1)
-    tie[kiu, kic] = 1.0
-    offset = np.zeros(len(names))
-    offset[kiu] = np.log(alpha)
+    tie, offset = ratio_tie(MODELS["mixed"], alpha)  # alpha = kiu/kic
     best = np.nan
     for start in starts:
         theta0 = np.log([start[p] for p in names])

@@ -76,7 +76,8 @@ from ..validate import check_columns, normalise_roles, numeric_column, row_kind
 from .signal import BeerLambert, StandardCurve, blank_signal
 from .time_dependence import time_dependence
 
-__all__ = ["InitialRates", "RateOptions", "initial_rates", "FLAGS", "METHODS", "ROLES"]
+__all__ = ["InitialRates", "RateOptions", "initial_rates", "product_curves", "FLAGS",
+           "METHODS", "ROLES"]
 
 METHODS = ("linear", "curve")
 DIRECTIONS = ("increase", "decrease")
@@ -615,6 +616,155 @@ def _header_column(frame, name, declared, *, kind, what, context="reads"):
     return column, canonical or header
 
 
+_PREPARED = ("time_unit", "substrate_unit", "inhibitor_unit", "roles", "s_map", "i_map",
+             "sensitivity", "to_substrate", "rate_conc_unit", "map_key", "has_reads",
+             "unmatched", "t", "raw", "oriented", "map_row", "no_blank_read")
+
+
+def _prepare(reads, plate_map, *, time, signal, plate, well, compound, substrate, inhibitor,
+             role, time_unit, conversion, signal_unit, substrate_unit, inhibitor_unit,
+             direction, subtract_blanks) -> dict:
+    """The reads checked, matched to the plate map, blank-corrected and oriented: the part
+    of the rates stage that :func:`initial_rates` and :func:`product_curves` share.
+
+    Returns a dict with the names of :data:`_PREPARED`; ``t``, ``raw``, ``oriented``,
+    ``map_row`` and ``no_blank_read`` are per read of every mapped non-blank well.
+    """
+    time, time_unit = _header_column(reads, time, time_unit, kind="time", what="time")
+    time_unit = time_unit or "s"
+    signal, header_unit = _header_column(reads, signal, signal_unit if conversion is None
+                                         else None, kind="concentration", what="signal")
+    if conversion is not None and header_unit:
+        raise UnitsError(Problem(signal, None, conversion.unit,
+                                 "the header declares the signal a concentration, but a "
+                                 "conversion was given; give one or the other"), "reads")
+    signal_unit = header_unit if conversion is None else signal_unit
+    # The plate map's concentrations are found as every stage finds them: a layout of
+    # inhibkin.inputs.layouts (substrate_uM, inhibitor_nM) or a lab's 'Substrate (uM)'.
+    substrate, substrate_unit = _header_column(plate_map, substrate, substrate_unit,
+                                               kind="concentration", what="substrate",
+                                               context="plate map")
+    inhibitor, inhibitor_unit = _header_column(plate_map, inhibitor, inhibitor_unit,
+                                               kind="concentration", what="inhibitor",
+                                               context="plate map")
+    t_all, y_all = _read_table(reads, time=time, signal=signal, plate=plate, well=well)
+    roles, s_map, i_map = _read_map(plate_map, plate=plate, well=well, compound=compound,
+                                    substrate=substrate, inhibitor=inhibitor, role=role)
+
+    # Concentration unit of the signal and the factor from it to the substrate's unit.
+    if conversion is not None:
+        sensitivity = conversion.sensitivity
+        signal_conc_unit = conversion.unit
+    else:
+        sensitivity = 1.0
+        signal_conc_unit = normalise_unit(signal_unit) if signal_unit is not None else None
+    if signal_conc_unit is not None and substrate_unit is not None:
+        to_substrate = float(from_molar(to_molar(1.0, signal_conc_unit), substrate_unit))
+        rate_conc_unit = substrate_unit
+    elif signal_conc_unit is not None:
+        to_substrate = np.nan
+        rate_conc_unit = signal_conc_unit
+    else:
+        to_substrate = np.nan
+        rate_conc_unit = None
+    if conversion is not None and signal_conc_unit is None and substrate_unit is None:
+        raise UnitsError(Problem("conversion", None, None,
+                                 "the standard curve has no unit; give it unit= or declare "
+                                 "substrate_unit="))
+
+    map_key = _key(plate_map, plate, well).to_numpy()
+    read_key = _key(reads, plate, well).to_numpy()
+    _check_some_match(read_key, map_key)
+    map_index = pd.Index(map_key)
+    where = map_index.get_indexer(read_key)
+    in_map = where >= 0
+    read_wells = pd.unique(read_key)
+    unmatched_rows = []
+    for key in pd.unique(read_key[~in_map]):
+        p, w = key.split("\x1f")
+        unmatched_rows.append({"plate": p, "well": w, "where": "reads",
+                               "reason": "well in the reads but not in the plate map"})
+    has_reads = np.isin(map_key, read_wells)
+    for row in np.flatnonzero(~has_reads):
+        unmatched_rows.append({"plate": plate_map[plate].iloc[row],
+                               "well": plate_map[well].iloc[row], "where": "plate map",
+                               "reason": "well in the plate map but without reads"})
+    unmatched = pd.DataFrame(unmatched_rows, columns=["plate", "well", "where", "reason"])
+
+    # Reads of mapped wells, blank-corrected and oriented so that product raises the signal.
+    t = t_all[in_map]
+    raw = y_all[in_map]
+    map_row = where[in_map]
+    read_role = roles[map_row]
+    uses_blanks = subtract_blanks and bool(np.any(roles == "blank"))
+    if uses_blanks:
+        group_frame = pd.DataFrame({"p": plate_map[plate].astype(str).to_numpy()[map_row],
+                                    "s": s_map[map_row]})
+        group = group_frame.groupby(["p", "s"], sort=False, dropna=False).ngroup().to_numpy()
+        background = blank_signal(t, raw, group, read_role == "blank")
+        corrected = raw - np.nan_to_num(background)
+        no_blank_read = np.isnan(background)
+    else:
+        corrected = raw
+        no_blank_read = np.zeros(len(t), dtype=bool)
+    sign = 1.0 if direction == "increase" else -1.0
+    oriented = sign * corrected
+
+    rated = read_role != "blank"
+    t, raw, oriented, map_row = t[rated], raw[rated], oriented[rated], map_row[rated]
+    no_blank_read = no_blank_read[rated]
+    return dict(zip(_PREPARED, (time_unit, substrate_unit, inhibitor_unit, roles, s_map, i_map,
+                                sensitivity, to_substrate, rate_conc_unit, map_key, has_reads,
+                                unmatched, t, raw, oriented, map_row, no_blank_read)))
+
+
+def product_curves(reads, plate_map, *, time="time", signal="signal", plate="plate",
+                   well="well", compound="compound", substrate="substrate",
+                   inhibitor="inhibitor", role="role", time_unit=None, conversion=None,
+                   signal_unit=None, substrate_unit=None, inhibitor_unit=None,
+                   direction="increase", stoichiometry=1.0,
+                   subtract_blanks=True) -> pd.DataFrame:
+    """Every read of every sample well as product formed, for fits of whole progress curves.
+
+    The reads are checked, matched to the plate map, blank-corrected and oriented exactly
+    as :func:`initial_rates` does (same options, same messages); then the signal is
+    turned into substrate converted (``conversion`` or ``signal_unit``, times
+    ``stoichiometry``) in the substrate's unit, and the times into seconds.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per finite read of a sample well: the plate map's columns, ``time``
+        (s) and ``product`` (the substrate's unit; the signal's concentration unit when
+        the substrate's is undeclared; signal units when neither is known). The reads
+        keep their offset (the blank when no blank wells are given): a fit of whole
+        curves fits one offset per well. ``.attrs["units"]`` holds ``substrate``,
+        ``inhibitor``, ``product`` and ``time`` (``s``).
+    """
+    _check_options("linear", direction, 0.05, 0.01, 0.1, 6, 0.1, None, stoichiometry,
+                   conversion)
+    prepared = _prepare(reads, plate_map, time=time, signal=signal, plate=plate, well=well,
+                        compound=compound, substrate=substrate, inhibitor=inhibitor,
+                        role=role, time_unit=time_unit, conversion=conversion,
+                        signal_unit=signal_unit, substrate_unit=substrate_unit,
+                        inhibitor_unit=inhibitor_unit, direction=direction,
+                        subtract_blanks=subtract_blanks)
+    to_product = 1.0 / prepared["sensitivity"] / stoichiometry
+    if np.isfinite(prepared["to_substrate"]):
+        to_product *= prepared["to_substrate"]
+    keep = (prepared["roles"][prepared["map_row"]] == "sample") & np.isfinite(
+        prepared["oriented"])
+    rows = prepared["map_row"][keep]
+    out = plate_map.iloc[rows].reset_index(drop=True)
+    out["time"] = to_seconds(prepared["t"][keep], prepared["time_unit"])
+    out["product"] = prepared["oriented"][keep] * to_product
+    out = out.sort_values([plate, well, "time"], kind="stable").reset_index(drop=True)
+    out.attrs["units"] = {"substrate": prepared["substrate_unit"],
+                          "inhibitor": prepared["inhibitor_unit"],
+                          "product": prepared["rate_conc_unit"], "time": "s"}
+    return out
+
+
 def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plate", well="well",
                   compound="compound", substrate="substrate", inhibitor="inhibitor",
                   role="role", time_unit=None, rate_time_unit=None, method="linear",
@@ -706,93 +856,19 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     """
     _check_options(method, direction, alpha, max_bias, max_conversion, min_points, max_rate_cv,
                    ceiling, stoichiometry, conversion)
-    time, time_unit = _header_column(reads, time, time_unit, kind="time", what="time")
-    time_unit = time_unit or "s"
-    signal, header_unit = _header_column(reads, signal, signal_unit if conversion is None
-                                         else None, kind="concentration", what="signal")
-    if conversion is not None and header_unit:
-        raise UnitsError(Problem(signal, None, conversion.unit,
-                                 "the header declares the signal a concentration, but a "
-                                 "conversion was given; give one or the other"), "reads")
-    signal_unit = header_unit if conversion is None else signal_unit
+    prepared = _prepare(reads, plate_map, time=time, signal=signal, plate=plate, well=well,
+                        compound=compound, substrate=substrate, inhibitor=inhibitor,
+                        role=role, time_unit=time_unit, conversion=conversion,
+                        signal_unit=signal_unit, substrate_unit=substrate_unit,
+                        inhibitor_unit=inhibitor_unit, direction=direction,
+                        subtract_blanks=subtract_blanks)
+    (time_unit, substrate_unit, inhibitor_unit, roles, s_map, i_map, sensitivity,
+     to_substrate, rate_conc_unit, map_key, has_reads, unmatched, t, raw, oriented, map_row,
+     no_blank_read) = (prepared[name] for name in _PREPARED)
     rate_time_unit = (normalise_unit(rate_time_unit, kind="time")
                       if rate_time_unit is not None else time_unit)
-    # The plate map's concentrations are found as every stage finds them: a layout of
-    # inhibkin.inputs.layouts (substrate_uM, inhibitor_nM) or a lab's 'Substrate (uM)'.
-    substrate, substrate_unit = _header_column(plate_map, substrate, substrate_unit,
-                                               kind="concentration", what="substrate",
-                                               context="plate map")
-    inhibitor, inhibitor_unit = _header_column(plate_map, inhibitor, inhibitor_unit,
-                                               kind="concentration", what="inhibitor",
-                                               context="plate map")
-    t_all, y_all = _read_table(reads, time=time, signal=signal, plate=plate, well=well)
-    roles, s_map, i_map = _read_map(plate_map, plate=plate, well=well, compound=compound,
-                                    substrate=substrate, inhibitor=inhibitor, role=role)
     options = RateOptions(method, direction, alpha, max_bias, max_conversion, min_points,
                           max_rate_cv, ceiling, stoichiometry, time_unit, rate_time_unit)
-
-    # Concentration unit of the signal and the factor from it to the substrate's unit.
-    if conversion is not None:
-        sensitivity = conversion.sensitivity
-        signal_conc_unit = conversion.unit
-    else:
-        sensitivity = 1.0
-        signal_conc_unit = normalise_unit(signal_unit) if signal_unit is not None else None
-    if signal_conc_unit is not None and substrate_unit is not None:
-        to_substrate = float(from_molar(to_molar(1.0, signal_conc_unit), substrate_unit))
-        rate_conc_unit = substrate_unit
-    elif signal_conc_unit is not None:
-        to_substrate = np.nan
-        rate_conc_unit = signal_conc_unit
-    else:
-        to_substrate = np.nan
-        rate_conc_unit = None
-    if conversion is not None and signal_conc_unit is None and substrate_unit is None:
-        raise UnitsError(Problem("conversion", None, None,
-                                 "the standard curve has no unit; give it unit= or declare "
-                                 "substrate_unit="))
-
-    map_key = _key(plate_map, plate, well).to_numpy()
-    read_key = _key(reads, plate, well).to_numpy()
-    _check_some_match(read_key, map_key)
-    map_index = pd.Index(map_key)
-    where = map_index.get_indexer(read_key)
-    in_map = where >= 0
-    read_wells = pd.unique(read_key)
-    unmatched_rows = []
-    for key in pd.unique(read_key[~in_map]):
-        p, w = key.split("\x1f")
-        unmatched_rows.append({"plate": p, "well": w, "where": "reads",
-                               "reason": "well in the reads but not in the plate map"})
-    has_reads = np.isin(map_key, read_wells)
-    for row in np.flatnonzero(~has_reads):
-        unmatched_rows.append({"plate": plate_map[plate].iloc[row],
-                               "well": plate_map[well].iloc[row], "where": "plate map",
-                               "reason": "well in the plate map but without reads"})
-    unmatched = pd.DataFrame(unmatched_rows, columns=["plate", "well", "where", "reason"])
-
-    # Reads of mapped wells, blank-corrected and oriented so that product raises the signal.
-    t = t_all[in_map]
-    raw = y_all[in_map]
-    map_row = where[in_map]
-    read_role = roles[map_row]
-    uses_blanks = subtract_blanks and bool(np.any(roles == "blank"))
-    if uses_blanks:
-        group_frame = pd.DataFrame({"p": plate_map[plate].astype(str).to_numpy()[map_row],
-                                    "s": s_map[map_row]})
-        group = group_frame.groupby(["p", "s"], sort=False, dropna=False).ngroup().to_numpy()
-        background = blank_signal(t, raw, group, read_role == "blank")
-        corrected = raw - np.nan_to_num(background)
-        no_blank_read = np.isnan(background)
-    else:
-        corrected = raw
-        no_blank_read = np.zeros(len(t), dtype=bool)
-    sign = 1.0 if direction == "increase" else -1.0
-    oriented = sign * corrected
-
-    rated = read_role != "blank"
-    t, raw, oriented, map_row = t[rated], raw[rated], oriented[rated], map_row[rated]
-    no_blank_read = no_blank_read[rated]
     wells_rated = np.flatnonzero((roles != "blank") & has_reads)
     code = np.searchsorted(wells_rated, map_row)
     order = np.lexsort((t, code))
