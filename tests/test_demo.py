@@ -88,6 +88,23 @@ def test_demo_report_names_every_compound_and_the_poor_plate(demo):
     assert "invented" in text
 
 
+def test_demo_report_ranks_the_invented_covalent_series_apart(demo):
+    # The invented covalent series (data_demo/invented_covalent_truth.csv) has its own
+    # section, ranked by kinact/KI in the order of the invented truth, with its figures.
+    out, text = demo
+    page = (out / "report.html").read_text(encoding="utf-8")
+    assert page.count('<section id="time-dependent">') == 1
+    section = page[page.index('<section id="time-dependent">'):]
+    section = section[:section.index("</section>")]
+    table = section[section.index('id="time-dependent-table"'):section.index("</table>")]
+    truth = pd.read_csv(DEMO_DATA / "invented_covalent_truth.csv")
+    expected = list(truth.sort_values("kinact_over_ki_per_uM_per_s",
+                                      ascending=False)["compound"])
+    assert sorted(table.index(c) for c in expected) == [table.index(c) for c in expected]
+    assert all(f"<figcaption>{c}</figcaption>" in section for c in expected)
+    assert "ranked apart in the report" in text
+
+
 def test_demo_report_renders_in_a_browser(demo):
     out, _ = demo
     shot = out / "report.png"

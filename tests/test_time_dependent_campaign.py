@@ -13,7 +13,7 @@ import pytest
 from td_ode import Scheme, plate_reads
 
 import inhibkin as ik
-from inhibkin.errors import OptionError
+from inhibkin.errors import DataError, OptionError
 
 TIMES = tuple(np.linspace(0.0, 3600.0, 61))
 SUBSTRATE = 100.0
@@ -73,6 +73,27 @@ def test_campaign_carries_the_time_dependent_ranking_apart(campaign, ranking):
     with pytest.raises(OptionError, match="TimeDependentRanking"):
         ik.fit_campaign(ik.simulate_campaign(1, seed=1)[0], quiet=True,
                         time_dependent=ranking.table)
+
+
+def test_campaign_summary_counts_the_time_dependent_compounds(campaign):
+    text = " ".join(campaign.summary().split())
+    assert ("3 time-dependent compounds (2 determined, 1 failed) ranked apart by "
+            "log10(kinact/KI)") in text
+    assert "Campaign.time_dependent.table" in text
+    lines = campaign.summary().splitlines()
+    first = next(j for j, line in enumerate(lines) if "time-dependent compounds" in line)
+    assert all(len(line) <= 78 for line in lines[first:first + 3])      # wrapped to 78
+    plain = ik.fit_campaign(ik.simulate_campaign(1, seed=1)[0], quiet=True)
+    assert "time-dependent" not in plain.summary()
+
+
+def test_ranking_carries_substrate_depletion_and_checks_it_once(reads):
+    # product_per_signal checked before any compound is fitted (not once per compound).
+    with pytest.raises(DataError, match="product_per_signal"):
+        ik.fit_time_dependent_ranking(reads, product_per_signal=1.0)
+    carried = ik.fit_time_dependent_ranking(reads, substrate=SUBSTRATE, km=STRONG.km,
+                                            product_per_signal=1.0)
+    assert (carried.fits["007"].kobs["depletion_factor"].dropna() > 1).all()
 
 
 def test_store_round_trip_of_the_time_dependent_table(tmp_path, campaign):

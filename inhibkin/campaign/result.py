@@ -8,6 +8,7 @@ editable copy (as every result's ``to_frame()`` gives its main table).
 
 from __future__ import annotations
 
+import textwrap
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
@@ -120,7 +121,9 @@ class Campaign:
         return f"Campaign of {len(self.ranking)} compounds: {parts}"
 
     def summary(self, rows=SUMMARY_ROWS) -> str:
-        """Plain text: counts by status, the top of the ranking, every failure's reason."""
+        """Plain text: counts by status, the top of the ranking, the time-dependent
+        compounds ranked apart (how many, and where their table is), every failure's
+        reason."""
         width = 78
         shown = self.ranking.head(rows)[["rank", "compound", "status", "verdict", "mechanism",
                                          "pki", "ki_source"]]
@@ -137,6 +140,8 @@ class Campaign:
             lines += ["-" * width, f"{len(self.plates)} dose-response plates, {len(flagged)} "
                                    f"flagged (low Z' or unusable controls)"
                                    + (f": {', '.join(map(str, flagged))}" if len(flagged) else "")]
+        if self.time_dependent is not None:
+            lines += ["-" * width, *_time_dependent_lines(self.time_dependent.table, width)]
         failed = self.failed
         if len(failed):
             lines += ["-" * width, "Failed:"]
@@ -148,6 +153,17 @@ class Campaign:
         from ..display.html import campaign_html
 
         return campaign_html(self)
+
+
+def _time_dependent_lines(table, width) -> list[str]:
+    """How many time-dependent compounds were ranked apart, by what, and where to look."""
+    determined = int((table["status"] == "determined").sum())
+    metrics = ", ".join(sorted(set(table["metric"].dropna().astype(str))))
+    return textwrap.wrap(
+        f"{len(table)} time-dependent compounds ({determined} determined, "
+        f"{len(table) - determined} failed) ranked apart by {metrics}, not in the table "
+        "above: Campaign.time_dependent.table, the report's time-dependent section, the "
+        "store's time_dependent table, the workbook's time-dependent sheet.", width)
 
 
 def check_time_dependent(value) -> None:

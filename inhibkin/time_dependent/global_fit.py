@@ -13,7 +13,8 @@ faster than declaring its sparsity to the bounded solver), the covariance of the
 constants from the Jacobian with the residual variance estimated. This route uses every
 read rather than one kobs per well, and agrees with the kobs route of :mod:`.dependence`
 within their intervals (tests/test_time_dependent.py, on mass-action ODE plates of every
-scheme).
+scheme). Given a :class:`.depletion.Depletion` (irreversible inhibition), each well's curve
+is :func:`.depletion.depleting_curve` instead: the substrate the well consumes is carried.
 """
 
 from __future__ import annotations
@@ -22,12 +23,14 @@ import numpy as np
 from scipy import optimize
 
 from .dependence import SchemeFit, unpack_theta
+from .depletion import Depletion, depleting_curve
 from .schemes import SCHEMES, onset
 
 __all__ = ["fit_global"]
 
 
-def fit_global(t, y, valid, inhibitor, *, start: SchemeFit, irreversible=True) -> SchemeFit:
+def fit_global(t, y, valid, inhibitor, *, start: SchemeFit, irreversible=True,
+               depletion: Depletion | None = None) -> SchemeFit:
     """The scheme of ``start`` fitted to padded (wells, reads) progress curves at once.
 
     Parameters
@@ -42,6 +45,8 @@ def fit_global(t, y, valid, inhibitor, *, start: SchemeFit, irreversible=True) -
         fitted-scale names and estimates start the shared constants.
     irreversible : bool
         vs = 0 in every well and the off-rate held at 0 (as ``start`` was fitted).
+    depletion : Depletion, optional
+        Carry each well's substrate depletion (irreversible only; module notes).
 
     Returns
     -------
@@ -72,8 +77,15 @@ def fit_global(t, y, valid, inhibitor, *, start: SchemeFit, irreversible=True) -
                                           rcond=None)[0]
         return local.ravel()
 
+    t_read = np.where(valid, t, 0.0)
+
     def residual(theta):
         local = theta[n_shared:].reshape(n_local, n_wells)
+        if depletion is not None:
+            model = depleting_curve(t_read, local[0], local[1], inhibitor, scheme=scheme,
+                                    values=unpack_theta(scheme, theta[:n_shared], True),
+                                    depletion=depletion)[rows, cols]
+            return (model - yy) / scale
         g = onset(tt, kobs(theta[:n_shared], ii))
         model = local[0, rows] + local[1, rows] * g
         if not irreversible:

@@ -27,6 +27,7 @@ import pandas as pd
 
 from ..core.readonly import readonly_frame, readonly_mapping
 from ..errors import InhibkinError
+from .depletion import check_depletion
 from .results import fit_time_dependent
 
 __all__ = ["rank_time_dependent", "fit_time_dependent_ranking", "TimeDependentRanking",
@@ -78,7 +79,8 @@ def _row(name, fit, covalent) -> dict:
 
 def rank_time_dependent(reads, *, compound="compound", well="well", time="time",
                         signal="signal", inhibitor="inhibitor", irreversible=True,
-                        substrate=None, km=None, level=0.95) -> pd.DataFrame:
+                        substrate=None, km=None, product_per_signal=None,
+                        level=0.95) -> pd.DataFrame:
     """Fit every compound's kinetic reads and rank them within their class.
 
     The table of :func:`fit_time_dependent_ranking` (same arguments), as an ordinary
@@ -86,7 +88,8 @@ def rank_time_dependent(reads, *, compound="compound", well="well", time="time",
     """
     return fit_time_dependent_ranking(
         reads, compound=compound, well=well, time=time, signal=signal, inhibitor=inhibitor,
-        irreversible=irreversible, substrate=substrate, km=km, level=level).to_frame()
+        irreversible=irreversible, substrate=substrate, km=km,
+        product_per_signal=product_per_signal, level=level).to_frame()
 
 
 @dataclass(frozen=True)
@@ -131,7 +134,8 @@ class TimeDependentRanking:
 
 def fit_time_dependent_ranking(reads, *, compound="compound", well="well", time="time",
                                signal="signal", inhibitor="inhibitor", irreversible=True,
-                               substrate=None, km=None, level=0.95) -> TimeDependentRanking:
+                               substrate=None, km=None, product_per_signal=None,
+                               level=0.95) -> TimeDependentRanking:
     """Fit every compound's kinetic reads, rank them within their class, keep the fits.
 
     Parameters
@@ -147,6 +151,9 @@ def fit_time_dependent_ranking(reads, *, compound="compound", well="well", time=
         Assay substrate and Km (same unit) for KI = KI,app/(1 + S/Km); without them the
         constants are apparent (the order of substrate-competitive compounds assayed at
         one S is the same).
+    product_per_signal : float, optional
+        Product (substrate's unit) per signal unit: carry each well's substrate
+        depletion (:func:`inhibkin.fit_time_dependent`; irreversible only).
     level : float
         Confidence level of the intervals.
 
@@ -160,13 +167,15 @@ def fit_time_dependent_ranking(reads, *, compound="compound", well="well", time=
         inhibitor's unit, kinact/KI per inhibitor unit per time unit.
     """
     covalent = bool(irreversible)
+    check_depletion(product_per_signal, substrate, km, covalent)
     label = "covalent" if covalent else "slow binding"
     rows, fits = [], {}
     for name, part in reads.groupby(compound, sort=False):
         try:
             fit = fit_time_dependent(part, well=well, time=time, signal=signal,
                                      inhibitor=inhibitor, irreversible=covalent,
-                                     substrate=substrate, km=km, level=level,
+                                     substrate=substrate, km=km,
+                                     product_per_signal=product_per_signal, level=level,
                                      global_fit=False, compound=name)
             row = _row(name, fit, covalent)
             fits[name] = fit

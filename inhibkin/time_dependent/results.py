@@ -19,6 +19,7 @@ import pandas as pd
 from ..errors import DataError, Problem
 from ..validate import check_columns, numeric_column
 from .dependence import compare_schemes, derived_constants, fit_scheme
+from .depletion import check_depletion, depletion_factors
 from .global_fit import fit_global
 from .kobs import kobs_arrays
 from .preincubation import fit_activity_surface, fit_ic50_times, ic50_shift, ic50_table
@@ -56,7 +57,10 @@ class TimeDependentFit:
     kobs : pandas.DataFrame
         One row per well: well, inhibitor, kobs, kobs_low, kobs_high, log_kobs_se, vi,
         vi_se, vs, vs_se, p0, n_points, residual_sd, p_curvature, converged, flags
-        (kobs per the reads' time unit; rates in signal per time unit).
+        (kobs per the reads' time unit; rates in signal per time unit), and
+        depletion_factor: how much the well's substrate depletion raised its fitted kobs
+        (the schemes were fitted to kobs/depletion_factor; 1 when depletion is not
+        carried, NaN for wells not in the kobs-against-[I] fit).
     scheme : str
         ``one_step`` or ``two_step`` (the verdict of the nested F-test).
     comparison : pandas.DataFrame
@@ -74,6 +78,8 @@ class TimeDependentFit:
     irreversible : bool
     substrate, km : float or None
         The assay's S and Km used for the competitive correction (None: apparent values).
+    product_per_signal : float or None
+        Product (substrate's unit) per signal unit when substrate depletion was carried.
     level : float
     reads : pandas.DataFrame
         The reads fitted: well, time, signal (for the figures).
@@ -91,6 +97,7 @@ class TimeDependentFit:
     irreversible: bool = True
     substrate: float | None = None
     km: float | None = None
+    product_per_signal: float | None = None
     level: float = 0.95
     reads: pd.DataFrame | None = field(default=None, repr=False)
 
@@ -165,6 +172,9 @@ class TimeDependentFit:
         correction = (f"S = {self.substrate:g}, Km = {self.km:g} (competitive correction)"
                       if self.substrate is not None and self.km is not None
                       else "no substrate correction: constants are apparent")
+        if self.product_per_signal is not None:
+            correction += (f"; substrate depletion carried ({self.product_per_signal:g} "
+                           "product per signal unit)")
         lines = ["=" * _WIDTH, head, f"  {kind}; {correction}",
                  f"  scheme: {self.scheme} (F = {self.ftest['f_value']:.4g}, "
                  f"p = {self.ftest['p_value']:.3g} for one_step against two_step)",
@@ -222,7 +232,7 @@ def _wells(reads, *, well, time, signal, inhibitor):
 
 def fit_time_dependent(reads, *, well="well", time="time", signal="signal",
                        inhibitor="inhibitor", irreversible=True, substrate=None, km=None,
-                       level=0.95, alpha=0.05, global_fit=True,
+                       product_per_signal=None, level=0.95, alpha=0.05, global_fit=True,
                        compound=None) -> TimeDependentFit:
     """kobs of every well, one-step against two-step, kinact, KI and kinact/KI.
 
@@ -241,6 +251,15 @@ def fit_time_dependent(reads, *, well="well", time="time", signal="signal",
     substrate, km : float, optional
         The assay's substrate concentration and Km (same unit), to correct KI,app =
         KI(1 + S/Km) for a substrate-competitive inhibitor. Give both or neither.
+    product_per_signal : float, optional
+        Product concentration (in the substrate's unit) per signal unit, e.g. 1.0 when the
+        signal is the product concentration. Given with ``substrate`` and ``km`` for an
+        irreversible inhibitor, both routes carry the substrate each well consumes
+        (:mod:`inhibkin.time_dependent.depletion`): the global fit integrates it, and the
+        kobs route divides each well's kobs by the rise depletion alone causes in that
+        fit (the ``depletion_factor`` column). Without it the progress curves hold S at
+        its initial value, which reads kinact/KI high by about half the fraction of
+        substrate the controls convert at S = 10 Km (docs/time_dependent.md).
     level : float
         Confidence level of every interval.
     alpha : float
@@ -260,7 +279,9 @@ def fit_time_dependent(reads, *, well="well", time="time", signal="signal",
     ------
     DataError
         Missing or non-numeric columns, a well with two [I], fewer than four inhibited
-        wells with a determined kobs, or only one of ``substrate`` and ``km``.
+        wells with a determined kobs, only one of ``substrate`` and ``km``, or
+        ``product_per_signal`` not > 0, without ``substrate`` and ``km``, or with
+        ``irreversible=False`` (depletion is carried for inactivation only).
 
     Examples
     --------
@@ -287,6 +308,7 @@ def fit_time_dependent(reads, *, well="well", time="time", signal="signal",
     if km is not None and not (np.isfinite(km) and km > 0 and np.isfinite(substrate)
                                and substrate >= 0):
         raise DataError(Problem("km", None, km, "km must be > 0 and substrate ≥ 0"))
+    depletion = check_depletion(product_per_signal, substrate, km, irreversible)
     names, t, y, valid, conc = _wells(reads, well=well, time=time, signal=signal,
                                       inhibitor=inhibitor)
     table = kobs_arrays(t, y, valid, irreversible=irreversible, level=level)
@@ -301,6 +323,17 @@ def fit_time_dependent(reads, *, well="well", time="time", signal="signal",
     i_use = conc[use]
     k_use = table["kobs"].to_numpy()[use]
     se_use = k_use * table["log_kobs_se"].to_numpy()[use]
+    factor = np.where(use, 1.0, np.nan)
+    if depletion is not None:
+        # The two-step scheme nests the one-step one, so its fit describes kobs either way.
+        raw = fit_scheme("two_step", i_use, k_use, se_use, irreversible=True)
+        factor[use] = depletion_factors(
+            t[use], valid[use], i_use, table["p0"].to_numpy()[use],
+            table["vi"].to_numpy()[use], scheme="two_step", values=raw["values"],
+            depletion=depletion,
+            fit_kobs=lambda tt, yy, vv: kobs_arrays(tt, yy, vv, level=level)["kobs"].to_numpy())
+        k_use, se_use = k_use / factor[use], se_use / factor[use]
+    table["depletion_factor"] = factor
     fits = {name: fit_scheme(name, i_use, k_use, se_use, irreversible=irreversible)
             for name in ("one_step", "two_step")}
     comparison, ftest, scheme = compare_schemes(fits, alpha=alpha)
@@ -310,11 +343,12 @@ def fit_time_dependent(reads, *, well="well", time="time", signal="signal",
     if global_fit:
         keep = np.isfinite(table["kobs"].to_numpy()) | (conc == 0)
         joint = fit_global(t[keep], y[keep], valid[keep], conc[keep], start=fits[scheme],
-                           irreversible=irreversible)
+                           irreversible=irreversible, depletion=depletion)
         global_constants = derived_constants(joint, substrate=substrate, km=km, level=level)
     return TimeDependentFit(compound, table, scheme, comparison, pd.Series(ftest),
                             by_scheme[scheme], by_scheme["two_step"], by_scheme["one_step"],
-                            global_constants, irreversible, substrate, km, level,
+                            global_constants, irreversible, substrate, km, product_per_signal,
+                            level,
                             pd.DataFrame({"well": reads[well].to_numpy(),
                                           "time": reads[time].to_numpy(dtype=float),
                                           "signal": reads[signal].to_numpy(dtype=float)}))

@@ -8,7 +8,7 @@ time scale of the read, product follows
 
 from the initial rate vi (slope at t = 0) to the steady-state rate vs (slope as t → ∞);
 vs = 0 for irreversible inactivation. The equation assumes substrate and inhibitor are not
-depleted over the read.
+depleted over the read; :mod:`.depletion` carries the substrate a well consumes.
 
 kobs against the inhibitor concentration [I] tells the schemes apart:
 
