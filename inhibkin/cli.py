@@ -978,12 +978,18 @@ def _inactivation_arguments(parser):
                              "KI = KI,app/(1 + S/Km)")
     parser.add_argument("--km", help="Km with its unit (e.g. 40uM); a bare number is read "
                                      "in the unit of a bare --substrate-conc")
+    parser.add_argument("--product-per-signal",
+                        help="product per signal unit, as a concentration (e.g. 6.2uM per "
+                             "absorbance unit; a bare number in the unit of a bare "
+                             "--substrate-conc): carries each well's substrate depletion in "
+                             "the covalent fits (needs --substrate-conc and --km)")
     parser.add_argument("--level", type=float, default=0.95)
 
 
-def _substrate_and_km(substrate, km):
-    """--substrate-conc and --km as numbers of one unit: both with their units (read in M,
-    as every other stage reads concentrations) or both bare numbers of one unit."""
+def _substrate_and_km(substrate, km, product_per_signal=None):
+    """--substrate-conc, --km (and --product-per-signal) as numbers of one unit: all with
+    their units (read in M, as every other stage reads concentrations) or all bare numbers
+    of one unit. Returns (substrate, km) or, with product_per_signal given, all three."""
     from .units import parse_concentration
     from .validate import check_options
 
@@ -994,21 +1000,21 @@ def _substrate_and_km(substrate, km):
             return False
         return True
 
-    given = {option: text for option, text in (("--substrate-conc", substrate), ("--km", km))
-             if text is not None}
-    if not given:
-        return None, None
+    options = (("--substrate-conc", substrate), ("--km", km),
+               ("--product-per-signal", product_per_signal))
+    given = {option: text for option, text in options if text is not None}
     if len({is_bare(text) for text in given.values()}) > 1:
-        raise DataError(Problem("--km", None, f"{substrate} and {km}",
-                                "give --substrate-conc and --km both with their units "
-                                "(e.g. 200uM and 40uM) or both as bare numbers of one unit"))
+        raise DataError(Problem("--km", None, " and ".join(given.values()),
+                                f"give {', '.join(given)} all with their units "
+                                "(e.g. 200uM and 40uM) or all as bare numbers of one unit"))
     if all(is_bare(text) for text in given.values()):
         values = {option: float(text) for option, text in given.items()}
     else:
         values = {option: parse_concentration(text) for option, text in given.items()}
     if "--km" in values:
         check_options({"--km": values["--km"]})
-    return values.get("--substrate-conc"), values.get("--km")
+    pair = values.get("--substrate-conc"), values.get("--km")
+    return pair if product_per_signal is None else (*pair, values["--product-per-signal"])
 
 
 def _inactivation(args) -> int:
@@ -1022,7 +1028,9 @@ def _inactivation(args) -> int:
     kobs_path = _check_output(args.kobs, "--kobs") if args.kobs else None
     _check_paths({"reads": args.reads}, {"--output": output, "--kobs": kobs_path})
     check_options({"--level": args.level})
-    substrate, km = _substrate_and_km(args.substrate_conc, args.km)
+    substrate, km, *depletion = _substrate_and_km(args.substrate_conc, args.km,
+                                                  args.product_per_signal)
+    product_per_signal = depletion[0] if depletion else None
     reads = read_table(args.reads, text_columns=[args.compound])
     if args.compound in reads.columns:
         groups = list(reads.groupby(args.compound, sort=False))
@@ -1036,6 +1044,7 @@ def _inactivation(args) -> int:
                                      signal=args.signal, inhibitor=args.inhibitor,
                                      irreversible=not args.reversible,
                                      substrate=substrate, km=km,
+                                     product_per_signal=product_per_signal,
                                      level=args.level, compound=name)
         except InhibkinError as err:
             failed += 1

@@ -324,3 +324,29 @@ def test_inactivation_stage_reads_substrate_and_km_with_their_units(tmp_path):
     assert main(["inactivation", str(source), "-o", str(tmp_path / "x.csv"),
                  "--substrate-conc", "100uM", "--km", "10", "--quiet"]) == 2
     assert not (tmp_path / "x.csv").exists()
+
+
+def test_inactivation_stage_carries_substrate_depletion_as_the_python_fit_does(tmp_path):
+    # --product-per-signal is the CLI's product_per_signal: the stage's constants are the
+    # Python fit's, and carrying depletion moves them (tests/test_time_dependent_depletion.py
+    # checks the depleting curve itself against the mass-action ODE).
+    from inhibkin.cli import main
+
+    reads = reads_of(COVALENT, 13)
+    source = tmp_path / "reads.csv"
+    reads.assign(compound="COV-1").to_csv(source, index=False)
+    out, plain = tmp_path / "carried.csv", tmp_path / "plain.csv"
+    base = ["--substrate-conc", "100", "--km", f"{COVALENT.km:g}", "--quiet"]
+    assert main(["inactivation", str(source), "-o", str(out), "--product-per-signal", "1",
+                 *base]) == 0
+    assert main(["inactivation", str(source), "-o", str(plain), *base]) == 0
+    fit = ik.fit_time_dependent(reads, substrate=100.0, km=COVALENT.km, product_per_signal=1.0)
+    carried = pd.read_csv(out)
+    assert carried["k5_over_ki"].iloc[0] == pytest.approx(
+        fit.constants.loc["k5_over_ki", "estimate"], rel=1e-9)
+    assert carried["k5_over_ki"].iloc[0] != pd.read_csv(plain)["k5_over_ki"].iloc[0]
+    # With units on some options and not on others the stage refuses before any work.
+    assert main(["inactivation", str(source), "-o", str(tmp_path / "x.csv"),
+                 "--substrate-conc", "100uM", "--km", "10uM", "--product-per-signal", "1",
+                 "--quiet"]) == 2
+    assert not (tmp_path / "x.csv").exists()
