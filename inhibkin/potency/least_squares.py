@@ -24,6 +24,7 @@ from ..errors import DataError, Problem
 from ..validate import numeric_column, row_kind
 
 __all__ = ["Curve", "lmfit_solve", "free_covariance", "curve_intervals", "check_curve",
+           "check_curve_points",
            "compound_context", "tidy_parameters"]
 
 # Convergence tolerances (relative) of the main fits: far below the 6 significant
@@ -190,6 +191,13 @@ def check_curve(conc, response, weights, *, context, columns=("conc", "response"
             problems.append(Problem(columns[2], row, 0.0, "weights must be > 0"))
     if problems:
         raise DataError(problems, context)
+    check_curve_points(c, y, context=context, columns=columns, n_free=n_free)
+    return c, y, (np.ones_like(y) if w is None else w)
+
+
+def check_curve_points(c, y, *, context, columns=("conc", "response"), n_free=4) -> None:
+    """The checks of :func:`check_curve` once every value is a valid number: enough
+    concentrations and points for ``n_free`` parameters, responses not all equal."""
     levels = np.unique(c)
     if levels.size == 0:
         raise DataError(Problem(columns[0], None, None,
@@ -209,7 +217,6 @@ def check_curve(conc, response, weights, *, context, columns=("conc", "response"
     if np.all(y == y[0]):
         raise DataError(Problem(columns[1], None, float(y[0]),
                                 "all responses are equal; there is no curve to fit"), context)
-    return c, y, (np.ones_like(y) if w is None else w)
 
 
 def compound_context(compound):
