@@ -160,14 +160,21 @@ class DoseResponseFit:
         object.__setattr__(self, "params", readonly_frame(self.params))
         for name in ("conc", "response", "fitted", "covariance"):
             object.__setattr__(self, name, readonly_array(getattr(self, name)))
+        # The parameter table as numbers, read once: a screen reads every curve's
+        # properties, and each read of the table costs as much as this.
+        object.__setattr__(self, "_numbers", {
+            name: (float(estimate), bool(fixed) or bool(determined))
+            for name, estimate, fixed, determined in zip(
+                self.params.index, self.params["estimate"].to_numpy(),
+                self.params["fixed"].to_numpy(), self.params["determined"].to_numpy())})
 
     def _value(self, name):
-        return float(self.params.loc[name, "estimate"])
+        return self._numbers[name][0]
 
     def _result(self, name):
         """The estimate when the data set it (or it was fixed), else NaN."""
-        row = self.params.loc[name]
-        return float(row["estimate"]) if row["fixed"] or row["determined"] else np.nan
+        estimate, set_ = self._numbers[name]
+        return estimate if set_ else np.nan
 
     @property
     def estimates(self) -> dict[str, float]:

@@ -11,6 +11,7 @@ points with :func:`check_curve`.
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -75,8 +76,10 @@ def lmfit_solve(curve: Curve, phi0):
         params.add(f"p{m}", value=float(np.clip(value, lower[m], upper[m])), min=lower[m],
                    max=upper[m])
 
+    names = [f"p{m}" for m in range(len(phi0))]
+
     def phi_of(pars):
-        return np.array([pars[f"p{m}"].value for m in range(len(phi0))])
+        return np.array([pars[name].value for name in names])
 
     minimizer = lmfit.Minimizer(lambda p: curve.residual(phi_of(p)), params, nan_policy="raise")
     with np.errstate(all="ignore"):
@@ -140,13 +143,19 @@ def _profile_limit(curve: Curve, phi_hat, j, direction, target, step):
                             max_doublings=_PROFILE_MAX_DOUBLINGS)
 
 
+@functools.lru_cache(maxsize=256)
+def _t_quantile(q, dof):
+    # A screen asks for a handful of (level, dof) pairs thousands of times.
+    return stats.t.ppf(q, dof)
+
+
 def curve_intervals(curve, phi, ssr, se, method, level, dof):
     """(low, high) of every free parameter, on the fitted scale."""
     k = len(phi)
     if dof <= 0:
         return np.full(k, np.nan), np.full(k, np.nan)
     if method == "wald" or ssr == 0:
-        t = stats.t.ppf(0.5 + level / 2, dof)
+        t = _t_quantile(0.5 + level / 2, dof)
         return phi - t * se, phi + t * se
     target = ssr * (1 + stats.f.ppf(level, 1, dof) / dof)
     low, high = np.empty(k), np.empty(k)

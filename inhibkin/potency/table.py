@@ -169,6 +169,23 @@ def _per_compound_value(spec, columns, at, name):
     return float(spec)
 
 
+def _conversion_factors(keys) -> dict:
+    """Ki/IC50 of every distinct (substrate, km, mechanism, alpha) in one conversion, or
+    {} when the conversion refuses one of them (each compound is then converted on its
+    own, so that only it fails, with its message)."""
+    keys = list(dict.fromkeys(keys))
+    if not keys:
+        return {}
+    s, km, mechanism, alpha = zip(*keys)
+    try:
+        factors = cheng_prusoff(np.ones(len(keys)), np.array(s, dtype=float),
+                                np.array(km, dtype=float), np.array(mechanism, dtype=object),
+                                np.array([np.nan if a is None else a for a in alpha]))
+    except InhibkinError:
+        return {}
+    return {key: float(f) for key, f in zip(keys, factors)}
+
+
 def _mechanism_of(name, mechanisms, default_mechanism, default_alpha):
     if mechanisms is not None and name in mechanisms:
         entry = mechanisms[name]
@@ -472,7 +489,20 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     # screen has one substrate concentration and a handful of mechanisms).
     columns = {c: pd.to_numeric(df[c], errors="coerce").to_numpy(dtype=float)
                for c in (substrate, km, enzyme) if isinstance(c, str)}
-    factors = {}
+    keys = []
+    for name in curves:
+        if not isinstance(results.get(name), DoseResponseFit):
+            continue
+        try:
+            at = info[name][0]
+            key = (_per_compound_value(substrate, columns, at, "substrate"),
+                   _per_compound_value(km, columns, at, "km"))
+        except DataError:
+            continue  # the compound's row says why
+        mech, alpha, _ = _mechanism_of(name, mechanisms, default_mechanism, default_alpha)
+        if mech in CONVERSIONS:
+            keys.append((*key, mech, None if np.isnan(alpha) else alpha))
+    factors = _conversion_factors(keys)
     for name in curves:
         outcome = results.get(name)
         row = rows[name]
