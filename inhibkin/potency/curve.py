@@ -385,10 +385,13 @@ def _build_dose_response(curve: Curve, phi, ssr, converged, message, *, conc, co
     rows["ic50"] = ic50_row
     rows["pic50"] = [-theta[j], se[j], -high[j], -low[j], fixed[j], ic50_row[5]]
     order = ["top", "bottom", "ic50", "log_ic50", "pic50", "hill"]
-    params = pd.DataFrame([rows[r] for r in order], index=pd.Index(order, name="parameter"),
-                          columns=["estimate", "se", "ci_low", "ci_high", "fixed", "determined"])
-    params["fixed"] = params["fixed"].astype(bool)
-    params["determined"] = params["determined"].astype(bool)
+    # Built column by column from typed arrays (a screen builds one per curve).
+    table = list(zip(*(rows[r] for r in order)))
+    params = pd.DataFrame(
+        {name: np.array(values, dtype=bool if name in ("fixed", "determined") else float)
+         for name, values in zip(("estimate", "se", "ci_low", "ci_high", "fixed",
+                                  "determined"), table)},
+        index=pd.Index(order, name="parameter"))
     fitted = curve.model(curve.x, *theta)
     return DoseResponseFit(compound, params, tuple(flags), bound, n, k, dof, ssr,
                            float(np.sqrt(ssr / dof)) if dof > 0 else np.nan, converged,
