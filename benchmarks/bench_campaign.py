@@ -1,6 +1,15 @@
-"""A whole campaign through the lmfit path and through the batched engine, side by side.
+"""A whole campaign: end to end against the solvers alone, and the lmfit path against the
+batched engine, side by side.
 
-One seeded campaign of compounds that each have a substrate × inhibitor grid (6 × 5
+End to end against the solvers (issue 19, item 1): ``fit_campaign`` with the batched
+engine (in this process) at 500 and at 10,000 compounds, then, in the same run, the
+solvers alone on the same work: :func:`~inhibkin.engine.fit_mechanism_arrays` on every
+compound's grid (padded arrays in M, the campaign's weighting) plus
+:func:`~inhibkin.engine.fit_logistic_batch` on every curve (the percent activities the
+campaign fitted). The ratio is what everything around the solvers costs. Each size runs
+in a fresh process, whose peak resident set size is the campaign's peak memory.
+
+Then one seeded campaign of compounds that each have a substrate × inhibitor grid (6 × 5
 levels in duplicate) and a ten-point duplicate dose-response curve, 5 % CV, goes through
 ``fit_campaign`` with ``engine="lmfit"`` and with ``engine="batched"`` (in this process,
 no workers, so the ratio is the engine's and not the scheduler's). Prints compounds per
@@ -10,12 +19,16 @@ and how many fits the engine handed back to the lmfit path.
 
 from __future__ import annotations
 
+import json
+import resource
+import subprocess
 import sys
 import time
 
 import numpy as np
 
 from inhibkin.campaign import fit_campaign
+from inhibkin.engine import fit_logistic_batch, fit_mechanism_arrays, pad
 from inhibkin.simulate import simulate_campaign, simulate_dose_campaign
 
 _SEED = 20261216
@@ -23,6 +36,12 @@ _CV = 0.05
 _KM_M = 20e-6
 _FULL = 1_000
 _SMOKE = 12
+# Campaign sizes of the end-to-end / solvers ratio (issue 19), and its goal.
+_END_TO_END_SIZES = (500, 10_000)
+_END_TO_END_SMOKE = (20,)
+_END_TO_END_GOAL = 2.0
+# fit_campaign's chunk size with the batched engine.
+_CAMPAIGN_CHUNK = 256
 # Agreement asked of the engine (issue 7).
 _AGREEMENT_RTOL = 1e-6
 _VERDICT_AGREEMENT = 0.995
@@ -69,8 +88,68 @@ def _curve_agreement(engine, reference):
     return beyond, engine_lower
 
 
+def _solver_inputs(grid, campaign):
+    """The solvers' own inputs for the work of ``campaign``: every grid padded (M), and
+    every curve it fitted (log10 M, percent activity)."""
+    groups = [(g["substrate_uM"].to_numpy() * 1e-6, g["inhibitor_nM"].to_numpy() * 1e-9,
+               g["rate"].to_numpy()) for _, g in grid.groupby("compound", sort=False)]
+    curves = [(np.log10(fit.conc), fit.response) for fit in campaign.potency_fits.values()]
+    x, y, mask = pad(curves)
+    return pad(groups), (x, y, mask)
+
+
+def _solvers(grids, curves, weighting, chunk_size=None):
+    s, i, v, mask = grids
+    fit_mechanism_arrays(s, i, v, mask, weighting=weighting, chunk_size=chunk_size)
+    fit_logistic_batch(*curves, chunk_size=chunk_size)
+
+
+def end_to_end(n: int) -> dict:
+    """Seconds of ``fit_campaign`` (batched, in this process) and of the solvers alone on
+    the same grids and curves, and this process's peak resident set size (bytes)."""
+    grid, plates = _campaign(n)
+    t_campaign, campaign = _timed(lambda: fit_campaign(grid, dose_response=plates, km=_KM_M,
+                                                       engine="batched", quiet=True))
+    grids, curves = _solver_inputs(grid, campaign)
+    t_solvers, _ = _timed(lambda: _solvers(grids, curves, campaign.options["weighting"]))
+    # The same work in chunks of the campaign's default size, as fit_campaign runs it.
+    t_chunked, _ = _timed(lambda: _solvers(grids, curves, campaign.options["weighting"],
+                                           _CAMPAIGN_CHUNK))
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024  # kB on Linux
+    return {"n": n, "campaign": t_campaign, "solvers": t_solvers, "chunked": t_chunked,
+            "peak_bytes": peak,
+            "fallback_dose": int(campaign.options["n_fallback_dose"]),
+            "curves": len(campaign.potency_fits)}
+
+
+def _end_to_end_lines(sizes):
+    lines = ["end to end against the solvers alone (batched engine, one process per size; "
+             f"goal ≤ {_END_TO_END_GOAL:g}x):"]
+    for n in sizes:
+        # A fresh process per size: its peak memory is this campaign's alone.
+        done = subprocess.run([sys.executable, "-m", "benchmarks.bench_campaign",
+                               "--end-to-end", str(n)], capture_output=True, text=True,
+                              check=True)
+        r = json.loads(done.stdout.splitlines()[-1])
+        lines.append(
+            f"  {n:>7,} compounds: fit_campaign {r['campaign']:8.2f} s, solvers "
+            f"{r['solvers']:7.2f} s, ratio {r['campaign'] / r['solvers']:5.1f}x (solvers in "
+            f"chunks of {_CAMPAIGN_CHUNK}, as the campaign runs them: {r['chunked']:.2f} s, "
+            f"{r['campaign'] / r['chunked']:.1f}x); "
+            f"peak memory {r['peak_bytes'] / 2**30:.2f} GiB (max RSS); "
+            f"{r['fallback_dose']} of {r['curves']:,} curves refitted by the lmfit path")
+    return lines
+
+
 def main(smoke: bool = False) -> str:
-    """Compounds per second on both paths, the ratio, agreement and fallbacks."""
+    """End to end against the solvers; compounds per second on both paths, the ratio,
+    agreement and fallbacks."""
+    head = _end_to_end_lines(_END_TO_END_SMOKE if smoke else _END_TO_END_SIZES)
+    return "\n".join(head + [_comparison(smoke)])
+
+
+def _comparison(smoke: bool) -> str:
+    """The lmfit path against the batched engine on one campaign."""
     n = _SMOKE if smoke else _FULL
     grid, plates = _campaign(n)
     common = dict(dose_response=plates, km=_KM_M, quiet=True)
@@ -122,4 +201,7 @@ def main(smoke: bool = False) -> str:
 
 
 if __name__ == "__main__":
-    print(main(smoke="--smoke" in sys.argv[1:]))
+    if "--end-to-end" in sys.argv[1:]:
+        print(json.dumps(end_to_end(int(sys.argv[sys.argv.index("--end-to-end") + 1]))))
+    else:
+        print(main(smoke="--smoke" in sys.argv[1:]))

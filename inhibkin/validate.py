@@ -14,7 +14,7 @@ from .core.limits import MAX_MAGNITUDE, MIN_MAGNITUDE, OPTION_LIMITS, Limit, che
 from .errors import DataError, Problem
 from .inputs.io import LINE_INDEX
 
-__all__ = ["check_columns", "numeric_column", "check_grid", "grid_rule_problems",
+__all__ = ["check_columns", "numeric_column", "numeric_rows", "check_grid", "grid_rule_problems",
            "check_michaelis_menten",
            "NO_SIGNAL", "ALL_EQUAL", "row_kind", "check_options", "OPTION_LIMITS", "Limit",
            "normalise_roles"]
@@ -70,6 +70,31 @@ def _listed(problems, column, rows, values, message, kind="row"):
         problems.append(Problem(column, None, None, f"and {extra} more rows: {message}"))
 
 
+def _number_faults(raw, values):
+    """(what is wrong, mask) for every kind of bad entry of a number column, in the order
+    the messages list them; the one rule of :func:`numeric_column` and
+    :func:`numeric_rows`."""
+    text = np.isnan(values) & raw.notna().to_numpy()
+    with np.errstate(invalid="ignore"):
+        magnitude = np.abs(values)
+        huge = np.isfinite(values) & (magnitude > MAX_MAGNITUDE)
+        tiny = (magnitude > 0) & (magnitude < MIN_MAGNITUDE)
+        negative = values < 0
+    return (("not a number", text),
+            ("missing value (NaN)", np.isnan(values) & ~text),
+            ("infinite value", np.isinf(values)),
+            (f"too large to fit (magnitude above {MAX_MAGNITUDE:g}); rescale the column, "
+             f"e.g. express it in another unit", huge),
+            (f"too small to fit (magnitude below {MIN_MAGNITUDE:g}); rescale the column, "
+             f"e.g. express it in another unit", tiny),
+            ("negative value; concentrations and rates must be ≥ 0", negative))
+
+
+def _allowed(message, allow_negative, allow_nan):
+    return not ((allow_nan and message.startswith("missing"))
+                or (allow_negative and message.startswith("negative")))
+
+
 def numeric_column(df, column, problems, *, allow_negative=False, allow_nan=False):
     """The column as a float array; appends a Problem for every bad entry.
 
@@ -80,30 +105,25 @@ def numeric_column(df, column, problems, *, allow_negative=False, allow_nan=Fals
     values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
     labels = df.index.to_numpy()
     kind = row_kind(df)
-    text = np.isnan(values) & raw.notna().to_numpy()
-    if text.any():
-        _listed(problems, column, labels[text], raw.to_numpy()[text], "not a number", kind)
-    missing = np.isnan(values) & ~text
-    if missing.any() and not allow_nan:
-        _listed(problems, column, labels[missing], values[missing], "missing value (NaN)", kind)
-    infinite = np.isinf(values)
-    if infinite.any():
-        _listed(problems, column, labels[infinite], values[infinite], "infinite value", kind)
-    with np.errstate(invalid="ignore"):
-        magnitude = np.abs(values)
-        huge = np.isfinite(values) & (magnitude > MAX_MAGNITUDE)
-        tiny = (magnitude > 0) & (magnitude < MIN_MAGNITUDE)
-    for wrong, what in ((huge, f"too large to fit (magnitude above {MAX_MAGNITUDE:g})"),
-                        (tiny, f"too small to fit (magnitude below {MIN_MAGNITUDE:g})")):
-        if wrong.any():
-            _listed(problems, column, labels[wrong], values[wrong],
-                    f"{what}; rescale the column, e.g. express it in another unit", kind)
-    if not allow_negative:
-        negative = values < 0
-        if negative.any():
-            _listed(problems, column, labels[negative], values[negative],
-                    "negative value; concentrations and rates must be ≥ 0", kind)
+    for message, wrong in _number_faults(raw, values):
+        if wrong.any() and _allowed(message, allow_negative, allow_nan):
+            shown = raw.to_numpy()[wrong] if message == "not a number" else values[wrong]
+            _listed(problems, column, labels[wrong], shown, message, kind)
     return values
+
+
+def numeric_rows(df, column, *, allow_negative=False, allow_nan=False):
+    """The column as a float array and, per row, whether :func:`numeric_column` would
+    report it: one pass over a whole table, so a batch checks every compound at once
+    and lists the problems (with :func:`numeric_column`) only for the compounds that
+    have some."""
+    raw = df[column]
+    values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
+    bad = np.zeros(len(values), dtype=bool)
+    for message, wrong in _number_faults(raw, values):
+        if _allowed(message, allow_negative, allow_nan):
+            bad |= wrong
+    return values, bad
 
 
 def check_grid(df, *, substrate, inhibitor, rate, sd=None, need_inhibition=True, context=None,

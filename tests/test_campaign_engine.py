@@ -290,3 +290,62 @@ def test_one_negative_well_does_not_fail_a_compound_on_either_path():
     for engine in ("batched", "lmfit"):
         ranking = fit_campaign(grid, quiet=True, engine=engine).ranking
         assert (ranking["status"] != "failed").all(), ranking["reason"].tolist()
+
+
+def _same_facts(a, b):
+    """Two GridFacts equal field by field, numbers as floats and NaN equal to NaN."""
+    import dataclasses
+
+    def plain(value):
+        if isinstance(value, dict):
+            return {k: plain(v) for k, v in value.items()}
+        if isinstance(value, tuple):
+            return tuple(plain(v) for v in value)
+        if isinstance(value, (bool, np.bool_)):
+            return bool(value)
+        if isinstance(value, (float, np.floating)):
+            return "nan" if np.isnan(value) else float(value)
+        return value
+
+    return all(plain(getattr(a, f.name)) == plain(getattr(b, f.name))
+               for f in dataclasses.fields(a))
+
+
+def test_rows_read_from_the_engine_arrays_are_those_of_its_fits():
+    """facts_from_batch reads from the arrays what facts_from_fit reads from the
+    MechanismFit the batch builds, so the rows need no per-compound objects."""
+    from inhibkin.engine import fit_mechanism_arrays, pad
+
+    grid, _ = _inputs(40, 0, 0, SEED + 3)
+    groups = [(g["substrate_uM"].to_numpy() * 1e-6, g["inhibitor_nM"].to_numpy() * 1e-9,
+               g["rate"].to_numpy()) for _, g in grid.groupby("compound", sort=False)]
+    batch = fit_mechanism_arrays(*pad(groups))
+    tried = batch.models_tried()
+    compared = 0
+    for c in range(len(batch)):
+        if batch.verdict[c] == "ambiguous":
+            continue  # the route builds the whole fit for these
+        assert _same_facts(grid_route.facts_from_batch(batch, c, tried[c]),
+                           grid_route.facts_from_fit(batch.mechanism_fit(c))), c
+        compared += 1
+    assert compared >= 30
+
+
+def test_engine_fits_are_built_on_access_and_equal_the_eager_ones():
+    import pickle
+
+    from inhibkin.campaign.lazy import BatchFit
+    from inhibkin.mechanism.fit import MechanismFit
+
+    grid, _ = _inputs(AUTO_ENGINE_MIN_COMPOUNDS, 0, 0, SEED + 4)
+    campaign = fit_campaign(grid, engine="batched", quiet=True)
+    assert any(isinstance(v, BatchFit) for v in campaign.fits._items.values())
+    again = pickle.loads(pickle.dumps(campaign))
+    for name, fit in campaign.fits.items():
+        assert isinstance(fit, MechanismFit)
+        assert campaign.fits[name] is fit  # built once
+        other = again.fits[name]
+        assert (other.verdict, other.best, other.reason) == (fit.verdict, fit.best, fit.reason)
+        pd.testing.assert_frame_equal(other.comparison, fit.comparison)
+    with pytest.raises(TypeError):
+        campaign.fits["x"] = None

@@ -545,3 +545,23 @@ def test_a_python_int_km_past_the_float_range_is_a_clear_error():
     with pytest.raises(DataError, match="km must be a positive number"):
         potency_table(plates, km=10**400, intervals="wald")
     potency_table(plates, km=2**64, intervals="wald")  # finite: no TypeError
+
+
+def test_whole_table_number_check_marks_exactly_the_rows_numeric_column_lists():
+    """validate.numeric_rows (one pass over a table) flags the rows whose values
+    numeric_column reports, for every combination of what is allowed."""
+    from inhibkin.errors import Problem
+    from inhibkin.validate import numeric_column, numeric_rows
+
+    frame = pd.DataFrame({"x": ["1.5", "abc", None, "inf", "1e200", "1e-200", "-2", "0",
+                                3.0, float("nan"), "-inf"]})
+    for allow_negative in (False, True):
+        for allow_nan in (False, True):
+            problems: list[Problem] = []
+            values = numeric_column(frame, "x", problems, allow_negative=allow_negative,
+                                    allow_nan=allow_nan)
+            same, bad = numeric_rows(frame, "x", allow_negative=allow_negative,
+                                     allow_nan=allow_nan)
+            np.testing.assert_array_equal(same, values)
+            listed = {p.row for p in problems}
+            assert set(np.flatnonzero(bad)) == listed, (allow_negative, allow_nan)

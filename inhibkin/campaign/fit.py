@@ -21,6 +21,7 @@ from . import grid as grid_route
 from .dose import DoseSettings, dose_chunks, dose_row, lost_dose_chunk, split_dose_chunk
 from .execute import grid_chunks, run
 from .grid import REFITS, GridSettings, grid_mechanism, lost_grid_chunk, split_grid_chunk
+from .lazy import LazyFits
 from .options import CampaignOptions
 from .prepare import DoseTable, GridTable, prepare_dose, prepare_grid, unique_index
 from .ranking import add_efficiencies, compound_properties, merge, rank, written_out
@@ -221,8 +222,8 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         "n_fallback_dose": dose_refits,
         "units": declared, "seconds": time.perf_counter() - started,
     }
-    return Campaign(written_out(ranking), grid_fits, run_options, potency_fits, plates,
-                    time_dependent)
+    return Campaign(written_out(ranking), LazyFits(grid_fits), run_options, potency_fits,
+                    plates, time_dependent)
 
 
 def _fit_grids(grid: GridTable, compound, rate, options: CampaignOptions):

@@ -22,14 +22,16 @@ from ..core.models import MODELS, ONE_CONSTANT_MODELS
 from ..core.weighting import SD_WEIGHTINGS
 from ..engine import fit_mechanism_arrays, pad
 from ..errors import InhibkinError
-from ..mechanism.fit import MechanismFit, with_time_dependence
+from ..mechanism.fit import MechanismFit
 from ..potency.conversion import CONVERSIONS
 from ..units import to_molar
-from ..validate import check_grid
+from ..validate import check_grid, grid_rule_problems, numeric_rows
+from .lazy import BatchFit
 from .ranking import empty_row, failed_row, unexpected_row
 
-__all__ = ["GridSettings", "RATE_FLAGS", "REFITS", "fit_grid_compound", "fit_grid_chunk",
-           "grid_row", "split_grid_chunk", "lost_grid_chunk", "grid_mechanism"]
+__all__ = ["GridSettings", "GridFacts", "RATE_FLAGS", "REFITS", "fit_grid_compound",
+           "fit_grid_chunk", "grid_row", "row_from_facts", "facts_from_fit", "facts_from_batch",
+           "split_grid_chunk", "lost_grid_chunk", "grid_mechanism"]
 
 #: The rates stage's column of well flags; a grid table that carries it is checked for
 #: wells flagged time_dependent (rule 6 of inhibkin.core.compare).
@@ -94,28 +96,106 @@ def fit_grid_compound(frame, settings: GridSettings, *, context=None) -> Mechani
                            context=context, **options)
 
 
-def _pick_constant(constants: pd.DataFrame, mechanism: str) -> str:
-    """The parameter whose value ranks the compound (see :mod:`inhibkin.campaign`)."""
-    names = [n for n in MODELS[mechanism].ranking if n in constants.index]
-    determined = [n for n in names if bool(constants.loc[n, "determined"])]
-    if determined:
-        return min(determined, key=lambda n: constants.loc[n, "estimate"])
-    # None set: the weakest claim ("Ki > smallest lower limit") holds for every one.
-    return min(names, key=lambda n: np.nan_to_num(constants.loc[n, "ci_low"], nan=np.inf))
+@dataclass(frozen=True)
+class GridFacts:
+    """What a ranking row reads from one compound's mechanism fit: built from a
+    :class:`~inhibkin.mechanism.fit.MechanismFit` (:func:`facts_from_fit`) or straight
+    from the engine's arrays (:func:`facts_from_batch`), so that :func:`row_from_facts`
+    is the one rule for both and the engine's rows need no per-compound objects."""
+
+    verdict: str
+    reason: str
+    best: str | None
+    candidates: tuple
+    #: Models of the fit that did not converge, in the fit's order.
+    not_converged: tuple
+    #: The verdict's model has a km that the data do not determine.
+    km_undetermined: bool
+    #: Highest inhibitor concentration of the grid (M).
+    i_max: float
+    #: Lower interval limit of each one-constant model's constant, None when one of
+    #: them did not converge.
+    inactive_limits: tuple | None
+    #: The verdict's constants (MechanismFit.constants()): name -> (estimate, ci_low,
+    #: ci_high, determined), in the model's order.
+    constants: dict
+    #: For an ambiguous verdict: what it still establishes (text) and the basis.
+    established: str = ""
+    basis: str = ""
 
 
-def _inactive_bound(fit: MechanismFit) -> Bound | None:
-    """The lower limit that every one-constant mechanism puts on Ki when no inhibition
-    was detected (the smallest of their lower interval limits), or None when one of them
-    sets none (a zero or missing limit, as log-scale Wald intervals of a constant far past
-    the tested range often give; profile intervals usually set one)."""
+def facts_from_fit(fit: MechanismFit) -> GridFacts:
+    """The facts of a ranking row from a MechanismFit."""
+    best = fit.best_fit
     limits = []
     for name in ONE_CONSTANT_MODELS:
         (constant,) = MODELS[name].ranking
         model = fit.models.get(name)
         if model is None or not model.converged:
-            return None
+            limits = None
+            break
         limits.append(float(model.params.loc[constant, "ci_low"]))
+    constants = fit.constants()
+    ambiguous = fit.verdict == "ambiguous"
+    return GridFacts(
+        fit.verdict, fit.reason, fit.best, tuple(fit.candidates),
+        tuple(name for name, m in fit.models.items() if not m.converged),
+        best is not None and "km" in best.params.index
+        and not best.params.loc["km", "determined"],
+        float(fit.data["inhibitor"].max()), None if limits is None else tuple(limits),
+        {n: tuple(constants.loc[n, ["estimate", "ci_low", "ci_high", "determined"]])
+         for n in constants.index},
+        fit.established.text(molar=True) if ambiguous else "",
+        fit.basis if ambiguous else "")
+
+
+def facts_from_batch(batch, c, tried) -> GridFacts:
+    """The facts of a ranking row for compound ``c`` of a MechanismBatch, read from its
+    arrays as :meth:`~inhibkin.engine.MechanismBatch.mechanism_fit` would put them in a
+    MechanismFit (``tried``: the compound's entry of ``batch.models_tried()``). Not for an
+    ambiguous verdict, whose established constants need the whole fit."""
+    shown = {name: batch.models[name] for name in batch.shown_models(c, tried)}
+    verdict, best = batch.verdict[c], batch.best[c]
+    model = shown.get(best) if best else None
+    limits = []
+    for name in ONE_CONSTANT_MODELS:
+        (constant,) = MODELS[name].ranking
+        m = shown.get(name)
+        if m is None or not m.converged[c]:
+            limits = None
+            break
+        limits.append(float(m.ci_low[c, m.names.index(constant)]))
+    constants = {}
+    if model is not None and best != "none" and verdict not in (TIME_DEPENDENT, "inadequate"):
+        constants = {n: (model.estimate[c, j], model.ci_low[c, j], model.ci_high[c, j],
+                         model.determined[c, j])
+                     for j, n in enumerate(model.names) if n not in ("vmax", "km")}
+    return GridFacts(
+        verdict, batch.reason[c], best, tuple(batch.candidates[c]),
+        tuple(name for name, m in shown.items() if not m.converged[c]),
+        model is not None and "km" in model.names
+        and not model.determined[c, model.names.index("km")],
+        float(batch.i[c][batch.mask[c]].max()), None if limits is None else tuple(limits),
+        constants)
+
+
+def _pick_constant(constants: dict, mechanism: str) -> str:
+    """The parameter whose value ranks the compound (see :mod:`inhibkin.campaign`)."""
+    names = [n for n in MODELS[mechanism].ranking if n in constants]
+    determined = [n for n in names if bool(constants[n][3])]
+    if determined:
+        return min(determined, key=lambda n: constants[n][0])
+    # None set: the weakest claim ("Ki > smallest lower limit") holds for every one.
+    return min(names, key=lambda n: np.nan_to_num(constants[n][1], nan=np.inf))
+
+
+def _inactive_bound(limits) -> Bound | None:
+    """The lower limit that every one-constant mechanism puts on Ki when no inhibition
+    was detected (the smallest of their lower interval limits), or None when one of them
+    sets none (a zero or missing limit, as log-scale Wald intervals of a constant far past
+    the tested range often give; profile intervals usually set one)."""
+    if limits is None:
+        return None
     limits = np.array(limits)
     if not (np.all(np.isfinite(limits)) and np.all(limits > 0)):
         return None
@@ -124,9 +204,13 @@ def _inactive_bound(fit: MechanismFit) -> Bound | None:
 
 def grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
     """One ranking row from one compound's mechanism fit (constants in M)."""
+    return row_from_facts(compound, facts_from_fit(fit), caught)
+
+
+def row_from_facts(compound, fit: GridFacts, caught: list[str]) -> dict:
+    """One ranking row from the facts of one compound's mechanism fit (constants in M)."""
     flags = list(caught)
-    flags += [f"{name} fit did not converge" for name, m in fit.models.items()
-              if not m.converged]
+    flags += [f"{name} fit did not converge" for name in fit.not_converged]
     row = empty_row(compound)
     row.update(verdict=fit.verdict, reason=fit.reason, ki_source="grid fit")
     if fit.verdict == "failed":
@@ -136,15 +220,12 @@ def grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
         row.update(status="time_dependent", ki_reported="not a steady-state Ki: fit kobs",
                    flags=(*flags, "time_dependent"))
         return row
-    best = fit.best_fit
-    if best is not None and "km" in best.params.index and not best.params.loc["km",
-                                                                              "determined"]:
+    if fit.km_undetermined:
         flags.append("km not determined within the tested substrate range")
     if fit.verdict == "none" or fit.best == "none":
-        i_max = float(fit.data["inhibitor"].max())
         row.update(status="inactive", mechanism="none",
-                   ki_reported=f"no inhibition detected up to {i_max:.3g} M")
-        bound = _inactive_bound(fit)
+                   ki_reported=f"no inhibition detected up to {fit.i_max:.3g} M")
+        bound = _inactive_bound(fit.inactive_limits)
         if bound is not None:
             row.update(ki_low_M=bound.low, ki_high_M=bound.high, ki_parameter="ki",
                        ki_reported=f"{row['ki_reported']}; Ki {bound.text('M')} whatever "
@@ -159,23 +240,22 @@ def grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
         return row
     if fit.verdict == "ambiguous":
         flags.append(f"mechanism ambiguous between {', '.join(fit.candidates)}; {fit.basis}")
-        row["established"] = fit.established.text(molar=True)
-    constants = fit.constants()
+        row["established"] = fit.established
+    constants = fit.constants
     mechanism = fit.best
     chosen = _pick_constant(constants, mechanism)
     # noncompetitive has one constant, ki = kic = kiu.
     for column, names in (("kic_M", ("kic", "ki")), ("kiu_M", ("kiu", "ki"))):
         for name in names:
-            if name not in constants.index:
+            if name not in constants:
                 continue
-            if bool(constants.loc[name, "determined"]):
-                row[column] = float(constants.loc[name, "estimate"])
+            if bool(constants[name][3]):
+                row[column] = float(constants[name][0])
             else:
                 flags.append(f"{name} not determined within the tested range")
-    if "alpha" in constants.index and bool(constants.loc["alpha", "determined"]):
-        row["alpha"] = float(constants.loc["alpha", "estimate"])
-    estimate, low, high, determined = constants.loc[
-        chosen, ["estimate", "ci_low", "ci_high", "determined"]]
+    if "alpha" in constants and bool(constants["alpha"][3]):
+        row["alpha"] = float(constants["alpha"][0])
+    estimate, low, high, determined = constants[chosen]
     row.update(mechanism=mechanism, ki_parameter=chosen)
     if bool(determined):
         row.update(status="determined", ki_M=float(estimate), ki_low_M=float(low),
@@ -223,8 +303,13 @@ def _fit_chunk_batched(chunk, settings: GridSettings, keep_fits: bool):
     valid ones go to :func:`inhibkin.engine.fit_mechanism_arrays` together.
     """
     out, ready, flags = {}, [], {}
-    for compound, frame in chunk:
+    for (compound, frame), arrays in zip(chunk, _checked_at_once(chunk, settings)):
         context = f"compound {compound!r}"
+        if arrays is not None:
+            ready.append((compound, frame.index, arrays))
+            if RATE_FLAGS in frame.columns:
+                flags[compound] = frame[RATE_FLAGS].to_numpy()
+            continue
         try:
             data, options = _molar_grid(frame, settings, context)
             # The check fit_mechanisms makes of the converted table.
@@ -241,6 +326,49 @@ def _fit_chunk_batched(chunk, settings: GridSettings, keep_fits: bool):
     for compound, row, fit in _engine_fits(ready, settings, flags):
         out[compound] = (compound, row, fit if keep_fits else None)
     return [out[compound] for compound, _ in chunk]
+
+
+def _checked_at_once(chunk, settings: GridSettings) -> list:
+    """Every compound of a chunk through the checks of :func:`_fit_chunk_batched` at
+    once: per compound (s, i, v, sd) in M, exactly as the per-compound checks give them,
+    or None when one of those checks has something to say (that compound is then
+    checked on its own, for the message naming its rows)."""
+    frames = [frame for _, frame in chunk]
+    names = [settings.substrate, settings.inhibitor, settings.rate]
+    names += [settings.sd] if settings.sd is not None else []
+    if not frames or any(len(f) == 0 or any(n not in f.columns for n in names)
+                         for f in frames):
+        return [None] * len(frames)
+    table = pd.concat([f[names] for f in frames])
+    s, bad = numeric_rows(table, settings.substrate)
+    i, bad_i = numeric_rows(table, settings.inhibitor)
+    v, bad_v = numeric_rows(table, settings.rate, allow_negative=True)
+    bad |= bad_i | bad_v
+    sigma = None
+    if settings.sd is not None:
+        sigma, bad_sd = numeric_rows(table, settings.sd)
+        # A zero sd fails the check of the converted table whatever the weighting.
+        bad |= bad_sd | (sigma == 0)
+    s_m, i_m = to_molar(s, settings.substrate_unit), to_molar(i, settings.inhibitor_unit)
+    converted = pd.DataFrame({"substrate": s_m, "inhibitor": i_m})
+    bad |= numeric_rows(converted, "substrate")[1] | numeric_rows(converted, "inhibitor")[1]
+    cuts = np.cumsum([len(f) for f in frames])[:-1]
+    pieces = [np.split(a, cuts) for a in (s, i, v, s_m, i_m)]
+    sds = np.split(sigma, cuts) if sigma is not None else [None] * len(frames)
+    # The grid rules of check_grid, before and after the conversion.
+    s_pad, i_pad, v_pad, mask = pad(list(zip(*pieces[:3])))
+    sm_pad, im_pad, _, _ = pad(list(zip(pieces[3], pieces[4], pieces[2])))
+    ruled = [bool(a or b) for a, b in zip(grid_rule_problems(s_pad, i_pad, v_pad, mask),
+                                          grid_rule_problems(sm_pad, im_pad, v_pad, mask))]
+    out = []
+    for k, rows_bad in enumerate(np.split(bad, cuts)):
+        if rows_bad.any() or ruled[k]:
+            out.append(None)
+            continue
+        v_k = pieces[2][k]
+        out.append((pieces[3][k], pieces[4][k], v_k,
+                    np.ones_like(v_k) if sds[k] is None else sds[k]))
+    return out
 
 
 def _engine_fits(ready, settings: GridSettings, flags):
@@ -261,7 +389,6 @@ def _engine_fits(ready, settings: GridSettings, flags):
             batch = fit_mechanism_arrays(
                 s, i, v, mask, sd=sd if options["weighting"] in SD_WEIGHTINGS else None,
                 **options)
-            fits = batch.to_mechanism_fits(data_index=[index for _, index, _ in ready])
             error = None
         except Exception as err:  # isolation: see below
             error = err
@@ -273,11 +400,22 @@ def _engine_fits(ready, settings: GridSettings, flags):
                else unexpected_row(compound, error))
         return [(compound, row, None)]
     messages = [str(w.message) for w in caught]
+    tried = batch.models_tried()
     out = []
-    for c, ((compound, _, _), fit) in enumerate(zip(ready, fits)):
-        if compound in flags:
-            fit = with_time_dependence(fit, flags[compound])
-        row = grid_row(compound, fit, messages)
+    for c, (compound, index, _) in enumerate(ready):
+        fit = BatchFit(batch, c, index, flags.get(compound))
+        try:
+            if compound in flags or batch.verdict[c] == "ambiguous":
+                # The time-dependence rule and what an ambiguous verdict establishes
+                # read the whole fit.
+                fit = fit.build()
+                row = grid_row(compound, fit, messages)
+            else:
+                row = row_from_facts(compound, facts_from_batch(batch, c, tried[c]),
+                                     messages)
+        except Exception as err:  # isolation: an unforeseen error fails one compound only
+            out.append((compound, unexpected_row(compound, err), None))
+            continue
         # Model fits the lmfit path redid, and a relative weighting it set.
         row[REFITS] = int(sum(bool(m.fallback[c]) for m in batch.models.values())
                           + bool(batch.weight_fallback[c]))

@@ -29,17 +29,21 @@ def logistic4(x, top, bottom, log_ic50, hill):
 def logistic4_jacobian(x, top, bottom, log_ic50, hill):
     """d response / d (top, bottom, log_ic50, hill), shape (..., 4)."""
     with np.errstate(over="ignore", invalid="ignore"):
-        u = 10.0 ** (hill * (x - log_ic50))
+        d = x - log_ic50
+        u = 10.0 ** (hill * d)
         g = 1.0 / (1.0 + u)
+        h = 1.0 - g
         # d g / d z for z = hill*(x - log_ic50) is -ln10 * u/(1+u)^2 = -ln10 * g*(1-g);
         # written with g alone it stays finite when u overflows.
-        dg = -_LN10 * g * (1.0 - g)
-    span = top - bottom
-    x = np.broadcast_to(x, np.shape(g))
-    return np.stack(
-        [g, 1.0 - g, span * dg * (-hill), span * dg * (x - log_ic50)],
-        axis=-1,
-    )
+        dg = -_LN10 * g * h
+    span_dg = (top - bottom) * dg
+    # Written into one array (the lmfit path calls this hundreds of times per curve).
+    out = np.empty(np.shape(g) + (4,))
+    out[..., 0] = g
+    out[..., 1] = h
+    out[..., 2] = span_dg * (-hill)
+    out[..., 3] = span_dg * d
+    return out
 
 
 def logistic4_start(x, y) -> dict[str, float]:

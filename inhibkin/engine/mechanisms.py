@@ -256,6 +256,23 @@ class MechanismBatch:
     def _repr_html_(self) -> str:
         return f"<pre>{self.summary()}</pre>"
 
+    def models_tried(self) -> list[set]:
+        """The extended laws each compound tried (those its lack-of-fit table names)."""
+        tried = [set() for _ in range(len(self))]
+        if self.lack_of_fit is not None:
+            for c, model in zip(self.lack_of_fit["compound"], self.lack_of_fit["model"]):
+                tried[c].add(model)
+        return tried
+
+    def shown_models(self, c, tried=None) -> list[str]:
+        """The models :meth:`mechanism_fit` of compound ``c`` holds: every classical law,
+        and the extended laws it tried or converged (``tried``: its entry of
+        :meth:`models_tried`)."""
+        if tried is None:
+            tried = self.models_tried()[c]
+        return [name for name, m in self.models.items()
+                if MODELS[name].family == "classical" or name in tried or m.converged[c]]
+
     def to_mechanism_fits(self, *, data_index=None) -> list[MechanismFit]:
         """One :class:`~inhibkin.mechanism.fit.MechanismFit` per compound.
 
@@ -264,18 +281,17 @@ class MechanismBatch:
         data_index : sequence of pandas.Index, optional
             Row labels of each compound's points (default 0..n−1).
         """
-        return [self._one(c, None if data_index is None else data_index[c])
+        return [self.mechanism_fit(c, None if data_index is None else data_index[c])
                 for c in range(len(self))]
 
-    def _one(self, c, labels) -> MechanismFit:
+    def mechanism_fit(self, c, labels=None) -> MechanismFit:
+        """The :class:`~inhibkin.mechanism.fit.MechanismFit` of compound ``c`` (row
+        labels of its points ``labels``, default 0..n−1), built from the arrays."""
         keep = self.mask[c]
         s, i, v, w = self.s[c][keep], self.i[c][keep], self.v[c][keep], self.weights[c][keep]
         lack = _LACK_COLUMNS if self.lack_of_fit is None else self.lack_of_fit
         lack = lack[lack["compound"] == c].drop(columns="compound").reset_index(drop=True)
-        tried = set(lack["model"])
-        models = {name: m for name, m in self.models.items()
-                  if MODELS[name].family == "classical" or name in tried
-                  or m.converged[c]}
+        models = {name: self.models[name] for name in self.shown_models(c, set(lack["model"]))}
         fits = {name: _model_fit(m, c, s, i, v, self.level) for name, m in models.items()}
         comparison = _comparison_frame(models, c)
         ftests = _ftest_frame(models, self.p_values, c)
@@ -1083,7 +1099,7 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
                                  chunk_size=chunk_size, lack_of_fit_alpha=lack_of_fit_alpha)
     fits = []
     for c, error in enumerate(errors):
-        fit = batch._one(c, labels[c])
+        fit = batch.mechanism_fit(c, labels[c])
         if error:
             fit = MechanismFit("failed", None, (), error, fit.models, fit.comparison,
                                fit.ftests, fit.data, fit.weighting, fit.options,

@@ -160,14 +160,21 @@ class DoseResponseFit:
         object.__setattr__(self, "params", readonly_frame(self.params))
         for name in ("conc", "response", "fitted", "covariance"):
             object.__setattr__(self, name, readonly_array(getattr(self, name)))
+        # The parameter table as numbers, read once: a screen reads every curve's
+        # properties, and each read of the table costs as much as this.
+        object.__setattr__(self, "_numbers", {
+            name: (float(estimate), bool(fixed) or bool(determined))
+            for name, estimate, fixed, determined in zip(
+                self.params.index, self.params["estimate"].to_numpy(),
+                self.params["fixed"].to_numpy(), self.params["determined"].to_numpy())})
 
     def _value(self, name):
-        return float(self.params.loc[name, "estimate"])
+        return self._numbers[name][0]
 
     def _result(self, name):
         """The estimate when the data set it (or it was fixed), else NaN."""
-        row = self.params.loc[name]
-        return float(row["estimate"]) if row["fixed"] or row["determined"] else np.nan
+        estimate, set_ = self._numbers[name]
+        return estimate if set_ else np.nan
 
     @property
     def estimates(self) -> dict[str, float]:
@@ -378,10 +385,13 @@ def _build_dose_response(curve: Curve, phi, ssr, converged, message, *, conc, co
     rows["ic50"] = ic50_row
     rows["pic50"] = [-theta[j], se[j], -high[j], -low[j], fixed[j], ic50_row[5]]
     order = ["top", "bottom", "ic50", "log_ic50", "pic50", "hill"]
-    params = pd.DataFrame([rows[r] for r in order], index=pd.Index(order, name="parameter"),
-                          columns=["estimate", "se", "ci_low", "ci_high", "fixed", "determined"])
-    params["fixed"] = params["fixed"].astype(bool)
-    params["determined"] = params["determined"].astype(bool)
+    # Built column by column from typed arrays (a screen builds one per curve).
+    table = list(zip(*(rows[r] for r in order)))
+    params = pd.DataFrame(
+        {name: np.array(values, dtype=bool if name in ("fixed", "determined") else float)
+         for name, values in zip(("estimate", "se", "ci_low", "ci_high", "fixed",
+                                  "determined"), table)},
+        index=pd.Index(order, name="parameter"))
     fitted = curve.model(curve.x, *theta)
     return DoseResponseFit(compound, params, tuple(flags), bound, n, k, dof, ssr,
                            float(np.sqrt(ssr / dof)) if dof > 0 else np.nan, converged,

@@ -11,6 +11,7 @@ points with :func:`check_curve`.
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -24,6 +25,7 @@ from ..errors import DataError, Problem
 from ..validate import numeric_column, row_kind
 
 __all__ = ["Curve", "lmfit_solve", "free_covariance", "curve_intervals", "check_curve",
+           "check_curve_points",
            "compound_context", "tidy_parameters"]
 
 # Convergence tolerances (relative) of the main fits: far below the 6 significant
@@ -74,8 +76,10 @@ def lmfit_solve(curve: Curve, phi0):
         params.add(f"p{m}", value=float(np.clip(value, lower[m], upper[m])), min=lower[m],
                    max=upper[m])
 
+    names = [f"p{m}" for m in range(len(phi0))]
+
     def phi_of(pars):
-        return np.array([pars[f"p{m}"].value for m in range(len(phi0))])
+        return np.array([pars[name].value for name in names])
 
     minimizer = lmfit.Minimizer(lambda p: curve.residual(phi_of(p)), params, nan_policy="raise")
     with np.errstate(all="ignore"):
@@ -139,13 +143,19 @@ def _profile_limit(curve: Curve, phi_hat, j, direction, target, step):
                             max_doublings=_PROFILE_MAX_DOUBLINGS)
 
 
+@functools.lru_cache(maxsize=256)
+def _t_quantile(q, dof):
+    # A screen asks for a handful of (level, dof) pairs thousands of times.
+    return stats.t.ppf(q, dof)
+
+
 def curve_intervals(curve, phi, ssr, se, method, level, dof):
     """(low, high) of every free parameter, on the fitted scale."""
     k = len(phi)
     if dof <= 0:
         return np.full(k, np.nan), np.full(k, np.nan)
     if method == "wald" or ssr == 0:
-        t = stats.t.ppf(0.5 + level / 2, dof)
+        t = _t_quantile(0.5 + level / 2, dof)
         return phi - t * se, phi + t * se
     target = ssr * (1 + stats.f.ppf(level, 1, dof) / dof)
     low, high = np.empty(k), np.empty(k)
@@ -190,6 +200,13 @@ def check_curve(conc, response, weights, *, context, columns=("conc", "response"
             problems.append(Problem(columns[2], row, 0.0, "weights must be > 0"))
     if problems:
         raise DataError(problems, context)
+    check_curve_points(c, y, context=context, columns=columns, n_free=n_free)
+    return c, y, (np.ones_like(y) if w is None else w)
+
+
+def check_curve_points(c, y, *, context, columns=("conc", "response"), n_free=4) -> None:
+    """The checks of :func:`check_curve` once every value is a valid number: enough
+    concentrations and points for ``n_free`` parameters, responses not all equal."""
     levels = np.unique(c)
     if levels.size == 0:
         raise DataError(Problem(columns[0], None, None,
@@ -209,7 +226,6 @@ def check_curve(conc, response, weights, *, context, columns=("conc", "response"
     if np.all(y == y[0]):
         raise DataError(Problem(columns[1], None, float(y[0]),
                                 "all responses are equal; there is no curve to fit"), context)
-    return c, y, (np.ones_like(y) if w is None else w)
 
 
 def compound_context(compound):

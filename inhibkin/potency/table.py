@@ -20,7 +20,7 @@ from ..core.readonly import readonly_frame, readonly_mapping
 from ..errors import DataError, FitError, InhibkinError, Problem
 from ..rates.plates import Z_PRIME_THRESHOLD, ZERO_SPREAD, PlateQC, percent_activity, plate_qc
 from ..units import from_molar, normalise_unit, parse_concentration, split_unit
-from ..validate import check_columns, normalise_roles, row_kind
+from ..validate import check_columns, normalise_roles, numeric_rows, row_kind
 from .conversion import CONVERSIONS, cheng_prusoff
 from .curve import HILL_MAX as _HILL_MAX
 from .curve import (
@@ -35,6 +35,7 @@ from .curve import fit_logistic as _fit_logistic
 from .curve import fixed_parameters as _fixed
 from .curve import from_estimates as _from_estimates
 from .least_squares import check_curve as _check_curve
+from .least_squares import check_curve_points as _check_curve_points
 from .least_squares import compound_context as _context
 from .morrison import fit_morrison
 
@@ -153,18 +154,36 @@ def check_potency_options(*, tight_binding="flag", default_mechanism="competitiv
                                 "a mixed default mechanism needs default_alpha = Kiu/Kic"))
 
 
-def _per_compound_value(spec, rows, name, frame):
-    """A number given directly, or the single value of column ``spec`` on ``rows``."""
+def _per_compound_value(spec, columns, at, name):
+    """A number given directly, or the single value of column ``spec`` on the rows at
+    positions ``at`` (``columns``: column name → its values as floats)."""
     if spec is None:
         return np.nan
     if isinstance(spec, str):
-        values = pd.to_numeric(frame.loc[rows, spec], errors="coerce").to_numpy(dtype=float)
+        values = columns[spec][at]
         distinct = np.unique(values[np.isfinite(values)])
         if distinct.size != 1 or not np.all(np.isfinite(values)):
             raise DataError(Problem(spec, None, distinct.tolist() or values[:1].tolist(),
                                     f"{name} must be one number per compound"))
         return float(distinct[0])
     return float(spec)
+
+
+def _conversion_factors(keys) -> dict:
+    """Ki/IC50 of every distinct (substrate, km, mechanism, alpha) in one conversion, or
+    {} when the conversion refuses one of them (each compound is then converted on its
+    own, so that only it fails, with its message)."""
+    keys = list(dict.fromkeys(keys))
+    if not keys:
+        return {}
+    s, km, mechanism, alpha = zip(*keys)
+    try:
+        factors = cheng_prusoff(np.ones(len(keys)), np.array(s, dtype=float),
+                                np.array(km, dtype=float), np.array(mechanism, dtype=object),
+                                np.array([np.nan if a is None else a for a in alpha]))
+    except InhibkinError:
+        return {}
+    return {key: float(f) for key, f in zip(keys, factors)}
 
 
 def _mechanism_of(name, mechanisms, default_mechanism, default_alpha):
@@ -418,22 +437,40 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
     low_plates = set(qc.flagged) - no_spread
 
     rows, curves, info = {}, {}, {}
-    for name in pd.unique(samples[compound]):
-        here = samples[samples[compound] == name]
-        on = [p for p in pd.unique(here[plate])]
-        info[name] = (here.index, on)
+    n_free = 4 - len(_fixed(fix_top, fix_bottom))
+    # One pass over the whole table: the compounds, their rows, and which rows hold a
+    # value the per-curve check would refuse; only a compound with such a row is
+    # checked on its own (for the message that names its rows).
+    codes, names = pd.factorize(samples[compound])
+    order = np.argsort(codes, kind="stable")
+    where = np.split(order, np.cumsum(np.bincount(codes, minlength=len(names)))[:-1])
+    conc_all, bad_conc = numeric_rows(samples, concentration, allow_negative=True)
+    with np.errstate(invalid="ignore"):
+        bad_conc |= np.isfinite(conc_all) & (conc_all <= 0)
+    response_all, bad_response = numeric_rows(pd.DataFrame({response: y_samples}), response,
+                                              allow_negative=True)
+    bad_any = bad_conc | bad_response
+    plate_all = samples[plate].to_numpy()
+    in_table = np.flatnonzero(is_sample)
+    for name, at in zip(names, where):
+        index = samples.index[at]
+        on = list(pd.unique(plate_all[at]))
+        info[name] = (in_table[at], on)
         rows[name] = {"compound": name, "status": "failed", "plate": ", ".join(map(str, on)),
-                      "n_points": len(here), "flags": ()}
+                      "n_points": len(at), "flags": ()}
         bad = [unusable[p] for p in on if p in unusable]
         try:
             if bad:
                 raise DataError(bad[0], _context(name))
-            conc, resp, _ = _check_curve(here[concentration].to_numpy(),
-                                         y_samples[here.index].to_numpy(), None,
-                                         context=_context(name),
-                                         columns=(concentration, response, "weights"),
-                                         rows=here.index,
-                                         n_free=4 - len(_fixed(fix_top, fix_bottom)))
+            if bad_any[at].any():
+                conc, resp, _ = _check_curve(samples[concentration].to_numpy()[at],
+                                             response_all[at], None, context=_context(name),
+                                             columns=(concentration, response, "weights"),
+                                             rows=index, n_free=n_free)
+            else:
+                conc, resp = conc_all[at], response_all[at]
+                _check_curve_points(conc, resp, context=_context(name),
+                                    columns=(concentration, response), n_free=n_free)
             curves[name] = (conc, resp)
         except InhibkinError as error:
             rows[name]["reason"] = str(error)
@@ -448,6 +485,24 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
                        level=level, class_options=class_options)) if curves else {}
 
     fits, morrison_fits = {}, {}
+    # The per-compound columns as numbers, once; conversion factors by their inputs (a
+    # screen has one substrate concentration and a handful of mechanisms).
+    columns = {c: pd.to_numeric(df[c], errors="coerce").to_numpy(dtype=float)
+               for c in (substrate, km, enzyme) if isinstance(c, str)}
+    keys = []
+    for name in curves:
+        if not isinstance(results.get(name), DoseResponseFit):
+            continue
+        try:
+            at = info[name][0]
+            key = (_per_compound_value(substrate, columns, at, "substrate"),
+                   _per_compound_value(km, columns, at, "km"))
+        except DataError:
+            continue  # the compound's row says why
+        mech, alpha, _ = _mechanism_of(name, mechanisms, default_mechanism, default_alpha)
+        if mech in CONVERSIONS:
+            keys.append((*key, mech, None if np.isnan(alpha) else alpha))
+    factors = _conversion_factors(keys)
     for name in curves:
         outcome = results.get(name)
         row = rows[name]
@@ -457,7 +512,8 @@ def potency_table(df, *, compound="compound", plate="plate", role="role",
             continue
         fits[name] = outcome
         try:
-            row.update(_potency_row(name, outcome, df, info[name], low_plates=low_plates,
+            row.update(_potency_row(name, outcome, columns, info[name], factors,
+                                    low_plates=low_plates,
                                     no_spread=no_spread,
                                     substrate=substrate, km=km, km_se=km_se, enzyme=enzyme,
                                     mechanisms=mechanisms, default_mechanism=default_mechanism,
@@ -490,14 +546,15 @@ def _written(row: dict) -> dict:
     return out
 
 
-def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, no_spread, substrate,
+def _potency_row(name, fit: DoseResponseFit, columns, where, factors, *, low_plates, no_spread,
+                 substrate,
                  km, km_se, enzyme, mechanisms, default_mechanism, default_alpha, level,
                  tight_binding, tight_binding_factor, morrison_fits, intervals) -> dict:
-    index, plates = where
+    at, plates = where
     flags = list(fit.flags)
-    s = _per_compound_value(substrate, index, "substrate", df)
-    km_value = _per_compound_value(km, index, "km", df)
-    e = _per_compound_value(enzyme, index, "enzyme", df)
+    s = _per_compound_value(substrate, columns, at, "substrate")
+    km_value = _per_compound_value(km, columns, at, "km")
+    e = _per_compound_value(enzyme, columns, at, "enzyme")
     ic50_row = fit.params.loc["ic50"]
     hill_row = fit.params.loc["hill"]
     hill_set = np.isfinite(fit.hill)
@@ -526,7 +583,10 @@ def _potency_row(name, fit: DoseResponseFit, df, where, *, low_plates, no_spread
         out["reason"] = "; ".join(filter(None, (
             why, f"mechanism {mech!r}: no IC50 to Ki conversion; Ki not reported")))
         return out
-    factor = cheng_prusoff(1.0, s, km_value, mech, None if np.isnan(alpha) else alpha)
+    key = (s, km_value, mech, None if np.isnan(alpha) else alpha)
+    if key not in factors:
+        factors[key] = cheng_prusoff(1.0, *key)
+    factor = factors[key]
     if fit.ic50_bound:
         out["ki_bound"] = fit.ic50_bound.scaled(factor)
         return out
