@@ -112,8 +112,9 @@ class VerdictOptions:
         confidently wrong calls on badly placed grids fell from 85.6 % to 3.8 %, with no
         change on the standard design.
     lack_of_fit_alpha : float
-        Level of the lack-of-fit test of the verdict's model (default
-        :data:`inhibkin.core.lack_of_fit.LACK_OF_FIT_ALPHA`, 0.01); 0 turns rule 5 off.
+        Level of the lack-of-fit test of the verdict's model and of the probes of the
+        extended families (default :data:`inhibkin.core.lack_of_fit.LACK_OF_FIT_ALPHA`,
+        0.01); 0 turns rule 5 off.
     """
 
     alpha: float = 0.05

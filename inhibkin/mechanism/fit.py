@@ -1,7 +1,8 @@
 """Which reversible mechanism, and how tight: every model fitted, compared, decided.
 
 :func:`fit_mechanisms` fits all five rate laws of :mod:`inhibkin.core.models` globally to one
-compound's substrate × inhibitor grid, compares them (:mod:`inhibkin.core.compare`) and
+compound's substrate × inhibitor grid (and the extended families' laws when rule 5 asks
+for them), compares them (:mod:`inhibkin.core.compare`) and
 returns a :class:`MechanismFit` holding the verdict and every table that justified it.
 """
 
@@ -577,9 +578,12 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         present: when an inhibited well carries ``time_dependent`` the verdict is
         ``time_dependent`` and no constant is reported (:func:`with_time_dependence`).
     lack_of_fit_alpha : float
-        Level of the lack-of-fit test of the verdict's model (default 0.01; 0 turns it
-        off). When the model fails it, the laws with substrate inhibition are fitted and
-        decided (rule 5 of :mod:`inhibkin.core.compare`): the verdict names one
+        Level of the lack-of-fit test of the verdict's model, and of the probes of the
+        extended families (default 0.01; 0 turns rule 5 off). When the model fails it, a
+        family's general law beats mixed at this level, or a given [E] is within 10× of
+        the constant, the extended laws (substrate inhibition, tight binding, partial
+        inhibition) are fitted and decided (rule 5 of :mod:`inhibkin.core.compare`):
+        the verdict names one
         ("competitive with substrate inhibition", "competitive, tight binding",
         "partial mixed") or is ``inadequate``.
     enzyme : float or str, optional
