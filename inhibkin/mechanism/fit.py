@@ -51,7 +51,7 @@ from ..display.text import text_table
 from ..errors import DataError
 from ..rates.time_dependence import flagged_inhibited
 from ..units import header_column, parse_concentration, to_molar
-from ..validate import check_grid
+from ..validate import check_grid, check_options
 from .one_model import ModelFit, fit_model, fixed_alpha_ssr
 
 __all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "DEFAULT_WEIGHTING",
@@ -460,8 +460,7 @@ def enzyme_concentration(df, enzyme, inhibitor_unit, context=None):
         value, molar = parse_concentration(enzyme), True
     else:
         value, molar = float(enzyme), inhibitor_unit is not None
-        if not (np.isfinite(value) and value > 0):
-            raise DataError(f"enzyme={enzyme!r}: give a positive concentration", context)
+    check_options({"enzyme": value})
     if molar and inhibitor_unit is None:
         raise DataError(f"enzyme {enzyme if column is None else column!r} has a unit but "
                         "the inhibitor column declares none: declare it (inhibitor_uM)",
