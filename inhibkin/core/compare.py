@@ -36,7 +36,7 @@ The verdict follows the nesting of the models (see :func:`decide`):
    concentration given, a classical constant within ``TIGHT_BINDING_FACTOR`` (10) × [E]
    sends the grid to its tight-binding laws ([E] held) whatever the lack-of-fit test
    says. The general law of every family (with [E] fitted when it is not given) is
-   fitted for every inhibited grid: one that beats mixed at ``lack_of_fit_alpha`` (or,
+   fitted for every inhibited grid: one that beats mixed at ``probe_alpha`` (0.001; or,
    without [E], a constant far below the lowest inhibitor level) sends the grid to that
    family too, and makes the verdict ``ambiguous`` when no law of it fits.
 6. *Were the rates steady-state rates at all?* When the rates stage flagged inhibited
@@ -112,15 +112,20 @@ class VerdictOptions:
         confidently wrong calls on badly placed grids fell from 85.6 % to 3.8 %, with no
         change on the standard design.
     lack_of_fit_alpha : float
-        Level of the lack-of-fit test of the verdict's model and of the probes of the
-        extended families (default :data:`inhibkin.core.lack_of_fit.LACK_OF_FIT_ALPHA`,
-        0.01); 0 turns rule 5 off.
+        Level of the lack-of-fit test of the verdict's model (default
+        :data:`inhibkin.core.lack_of_fit.LACK_OF_FIT_ALPHA`, 0.01); 0 turns rule 5 off.
+    probe_alpha : float
+        Level at which a family's general law must beat mixed, on a grid that passes the
+        lack-of-fit test, to send it to that family (default 0.001: three families are
+        probed on every inhibited grid, and a false alarm renames a classical compound;
+        the tight-binding and partial plates of docs/lack_of_fit.md give p below 1e-4).
     """
 
     alpha: float = 0.05
     min_delta_aicc: float = 2.0
     alpha_factor: float = 5.0
     lack_of_fit_alpha: float = LACK_OF_FIT_ALPHA
+    probe_alpha: float = 1e-3
 
     def alpha_edges(self, model: str) -> tuple[str, ...]:
         """The fixed-alpha fits (names in the F-test table) that ``model`` must reject."""
@@ -452,13 +457,12 @@ def extension_signs(gains, tight_constant, lowest_inhibitor, options, enzyme=Non
     Returns
     -------
     tuple of str
-        Families whose gain is significant at ``options.lack_of_fit_alpha``, and tight
+        Families whose gain is significant at ``options.probe_alpha``, and tight
         binding (without [E]) when the classical constant lies below the lowest non-zero
         inhibitor level / :data:`TIGHT_BINDING_LOWEST_FACTOR`.
     """
-    level = options.lack_of_fit_alpha
     out = [name for name, p in gains.items()
-           if p < level and not (name == "tight_binding" and enzyme is not None)]
+           if p < options.probe_alpha and not (name == "tight_binding" and enzyme is not None)]
     if (enzyme is None and "tight_binding" not in out
             and tight_constant * TIGHT_BINDING_LOWEST_FACTOR < lowest_inhibitor):
         out.append("tight_binding")
@@ -497,7 +501,7 @@ def decide_extended(classical: Verdict, *, lack_of_fit_p, pattern, p_value, conv
     The general law of each family of :data:`inhibkin.core.models.FAMILIES` (mixed's
     form) is fitted for every inhibited grid; the extended laws are decided when the
     classical law fails the lack-of-fit test, when a family's general law beats mixed at
-    the lack-of-fit level (:func:`extension_signs`), or when [E] is given and the
+    ``probe_alpha`` (:func:`extension_signs`), or when [E] is given and the
     classical constant is below 10 × [E]. Each family is decided by rules 1-4 on its own
     laws; it *passes* when its general law beats mixed by the nested F-test at
     ``alpha`` (tight binding with [E] given adds no constant: no test) and its verdict's

@@ -577,9 +577,9 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         present: when an inhibited well carries ``time_dependent`` the verdict is
         ``time_dependent`` and no constant is reported (:func:`with_time_dependence`).
     lack_of_fit_alpha : float
-        Level of the lack-of-fit test of the verdict's model, and of the probes of the
-        extended families (default 0.01; 0 turns rule 5 off). When the model fails it, a
-        family's general law beats mixed at this level, or a given [E] is within 10× of
+        Level of the lack-of-fit test of the verdict's model (default 0.01; 0 turns rule
+        5 off). When the model fails it, a family's general law beats mixed at
+        ``VerdictOptions.probe_alpha`` (0.001), or a given [E] is within 10× of
         the constant, the extended laws (substrate inhibition, tight binding, partial
         inhibition) are fitted and decided (rule 5 of :mod:`inhibkin.core.compare`):
         the verdict names one
