@@ -17,6 +17,7 @@ Two entry points:
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
@@ -64,6 +65,7 @@ from ..errors import DataError, Problem
 from ..mechanism.fit import (
     MechanismFit,
     enzyme_concentration,
+    extended_starts,
     mixed_starts,
     molar_grid,
     needs_tight_binding,
@@ -495,7 +497,7 @@ def _fill_from_engine(out, name, rows, result, s, i, mask, lower, upper, level,
 
 
 def _fill_from_lmfit(out, c, fit: ModelFit):
-    k = out["n_params"]
+    k = MODELS[out["model"]].n_params
     out["fallback"][c] = True
     out["reason"][c] = _MESSAGE_FALLBACK + fit.message
     out["converged"][c] = fit.converged
@@ -715,7 +717,7 @@ def _fit_chunk(s, i, v, mask, sd, enzyme=None, *, weighting, models, alpha, min_
                                                   options)
     lack = _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w,
                       rows, n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
-                      max_iterations, weighting == "relative", enzyme)
+                      max_iterations, weighting == "relative", enzyme, fallback)
     for c in np.flatnonzero(~valid):
         for res in out.values():
             res["reason"][c] = f"not fitted: {invalid_reason[c]}"
@@ -820,8 +822,23 @@ def _tight_binding_inputs(out, best, i, mask, rows):
     return tight, np.where(np.isfinite(lowest), lowest, np.nan)
 
 
+def _refit_extended(res, name, rows, s, i, v, mask, w, out, level, determination_factor,
+                    enzyme):
+    """Refit with the lmfit path, from :func:`inhibkin.mechanism.fit.extended_starts`, the
+    compounds of ``rows`` whose extended law ``name`` the engine did not converge."""
+    for c in rows[~res["converged"][rows]]:
+        keep = mask[c]
+        sc, ic, vc, wc = s[c, keep], i[c, keep], v[c, keep], w[c, keep]
+        given = None if enzyme is None else float(enzyme[c])
+        fits = {m: _model_fit(ModelBatch(**out[m]), c, sc, ic, vc, level) for m in out}
+        fit = fit_model(name, sc, ic, vc, wc, intervals="wald", level=level,
+                        determination_factor=determination_factor, enzyme=given,
+                        starts=extended_starts(name, fits, sc, ic, vc, wc, given))
+        _fill_from_lmfit(res, c, fit)
+
+
 def _extension_gains(out, best, s, i, v, mask, w, rows, n_obs, exact_ssr, options, level,
-                     determination_factor, max_iterations, enzyme):
+                     determination_factor, max_iterations, enzyme, fallback=False):
     """Per family, the p-values (shape (B,)) of the F-test of mixed against the family's
     general law, for the compounds ``rows`` whose verdict names inhibition (NaN elsewhere,
     and for tight binding with [E] given): :func:`inhibkin.mechanism.fit.extension_gains`."""
@@ -838,14 +855,23 @@ def _extension_gains(out, best, s, i, v, mask, w, rows, n_obs, exact_ssr, option
                                                max_iterations)
         _fill_from_engine(probe, name, probe_rows, result, s, i, mask, lower, upper, level,
                           determination_factor)
-        gains[family] = _f_tests({"mixed": out["mixed"], name: probe}, "mixed", name,
-                                 exact_ssr)[1]
+        if fallback:
+            _refit_extended(probe, name, probe_rows, s, i, v, mask, w, out, level,
+                            determination_factor, enzyme)
+        # As inhibkin.mechanism.fit.extension_gains: mixed's SSR is no larger than any
+        # nested law's, and a gain below the exact-fit scale is rounding.
+        lowest = functools.reduce(np.fmin, [np.where(out[n]["converged"], out[n]["ssr"], np.nan)
+                                            for n in MODEL_NAMES if n in out])
+        reference = {**out["mixed"], "ssr": lowest}
+        p_gain = _f_tests({"mixed": reference, name: probe}, "mixed", name, exact_ssr)[1]
+        ssr = [np.where(x > exact_ssr, x, 0.0) for x in (lowest, probe["ssr"])]
+        gains[family] = np.where(ssr[0] - ssr[1] > exact_ssr, p_gain, np.nan)
     return gains
 
 
 def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w, rows,
                n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
-               max_iterations, relative, enzyme=None):
+               max_iterations, relative, enzyme=None, fallback=False):
     """Rule 5 of :mod:`inhibkin.core.compare` for every compound, as
     :func:`inhibkin.mechanism.fit.extended_verdict` applies it to one: the lack-of-fit test
     of the verdict's model; the extended laws of every family fitted (by the engine) for
@@ -864,7 +890,8 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
     tight, lowest = _tight_binding_inputs(out, best, i, mask, compounds)
     given = (lambda c: None) if enzyme is None else (lambda c: float(enzyme[c]))
     gains = _extension_gains(out, best, s, i, v, mask, w, compounds, n_obs, exact_ssr,
-                             options, level, determination_factor, max_iterations, enzyme)
+                             options, level, determination_factor, max_iterations, enzyme,
+                             fallback)
     due = np.array([options.lack_of_fit_alpha > 0
                     and (p_tested[c] < options.lack_of_fit_alpha
                          or needs_tight_binding(tight[n], given(c))
@@ -896,6 +923,9 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
                                                    max_iterations, enzyme)
             _fill_from_engine(res, name, fail, result, s, i, mask, lower, upper, level,
                               determination_factor)
+            if fallback:
+                _refit_extended(res, name, fail, s, i, v, mask, w, out, level,
+                                determination_factor, enzyme)
             tables.append(_lack_rows(res, fail[res["converged"][fail]], s, i, v, mask, w,
                                      exact_ssr, relative))
         criteria = information_criteria(res["ssr"], n_obs, res["n_params"], sum_log_w)
