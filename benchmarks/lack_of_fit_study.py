@@ -1,10 +1,22 @@
-"""Rule 5 (lack of fit, substrate inhibition) over many seeds, before and after.
+"""Rule 5 (lack of fit, extended families) over many seeds, before and after, from plate reads.
 
-Plates come from a mass-action ODE (E + S <-> ES -> E + P, E + I <-> EI, and for the
-substrate-inhibited regime ES + S <-> SES, dead end; solve_ivp Radau, rtol 1e-10),
-an 8 x 6 grid in duplicate with 3 % noise on each well's rate, fitted by the batched
-engine with the lack-of-fit test off (before) and on (after, default level 0.01). The
-false-alarm rate of the test is measured on classical truths from ``simulate_grid``.
+Every plate comes from the mass-action ODE of ``tests/grid_ode.py`` (E, S, I, ES, EI,
+ESI, P, and SES, EP when asked; solve_ivp LSODA, rtol 1e-10; independent of inhibkin's
+rate laws), read as absorbance with 3 % read noise and 3 % pipetting scatter on an 8 x 6
+grid in duplicate, turned into initial rates by ``initial_rates`` (default linear
+windows) and fitted by the batched engine (default weighting: rate_se + variance model)
+with rule 5 off (``lack_of_fit_alpha=0``, before) and on (the default 0.01, after). For
+tight binding the "after" run is made twice: without [E] and with [E] given
+(``enzyme=``); for product inhibition once more from initial slopes
+(``initial_rates(method="curve")``), the rates-stage remedy.
+
+Classes, per plate (the issue's definitions): *correct*: the verdict names the true law
+and its inhibition constant (the one a ranking reads) is within 2x of the truth with an
+interval that contains it; *ambiguous*, *inadequate*: the verdict declines; *confidently
+wrong*: any other definite verdict (a wrong name, or the constant more than 2x off or
+outside its interval); *other*: no inhibition detected or a failed fit. Apart, the share
+of definite verdicts whose km interval misses the truth (a bias of the rates, not of
+the verdict: linear windows over a few % conversion read low rates at low S).
 
 Run: ``python -m benchmarks.lack_of_fit_study [n_seeds]``; writes docs/lack_of_fit.md.
 """
@@ -12,96 +24,149 @@ Run: ``python -m benchmarks.lack_of_fit_study [n_seeds]``; writes docs/lack_of_f
 from __future__ import annotations
 
 import sys
-from functools import cache
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from scipy.integrate import solve_ivp
 
 import inhibkin as ik
+from inhibkin.core.models import MODELS
 from inhibkin.engine import fit_mechanisms_batch
 
-S_LEVELS = np.array([10.0, 20.0, 50.0, 100.0, 200.0, 500.0, 1000.0, 2000.0])  # uM
-I_LEVELS = np.array([0.0, 1.0, 2.0, 5.0, 10.0, 20.0])  # uM
-K_ON, K_OFF, KCAT, KI_ON, KI_OFF, ENZYME = 10.0, 999.0, 1.0, 10.0, 30.0, 1e-3
-TIMES = np.linspace(0.0, 20.0, 11)
-NOISE = 0.03
-TRUTH = {"km": 100.0, "kic": 3.0}
-REGIMES = {"competitive (classical)": 0.0, "competitive, Ksi = 3 Km": 10.0}
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+from grid_ode import EPSILON_PATH, INHIBITOR, Mechanism, plate  # noqa: E402
+
+#: Km = 10 µM and vmax = 0.002 µM/s throughout (grid_ode defaults); for tight binding
+#: kcat is lowered so that vmax stays the same with [E] = 50 nM (k_1 keeps Km at 10 µM).
+KCAT_TIGHT = 0.04
+CLASSES = ("correct", "ambiguous", "inadequate", "confidently wrong", "other")
+SEED = 14
 
 
-@cache
-def _rate(s0, i0, ks_on):
-    def rhs(_, y):
-        e, s, i, es, ei, ses, p = y
-        bind, cat, inhibit = K_ON * e * s - K_OFF * es, KCAT * es, KI_ON * e * i - KI_OFF * ei
-        dead = ks_on * es * s - 3000.0 * ses
-        return [-bind + cat - inhibit, -bind - dead, -inhibit, bind - cat - dead, inhibit,
-                dead, cat]
+@dataclass(frozen=True)
+class Regime:
+    """One truth: the chemistry, the verdict that names it, its constants (µM)."""
 
-    sol = solve_ivp(rhs, (0.0, TIMES[-1]), [ENZYME, s0, i0, 0, 0, 0, 0], method="Radau",
-                    t_eval=TIMES, rtol=1e-10, atol=1e-15)
-    return float(np.polyfit(TIMES[1:], sol.y[6][1:], 1)[0]) * 1e3
+    mechanism: Mechanism
+    verdict: str
+    constants: dict
+    inhibitor: tuple = INHIBITOR
+    runs: tuple = ("before", "after")
+    classical: bool = field(default=False)
 
 
-def _plates(ks_on, seeds):
-    s, i = (np.repeat(x.ravel(), 2) for x in np.meshgrid(S_LEVELS, I_LEVELS))
-    v = np.array([_rate(a, b, ks_on) for a, b in zip(s, i)])
-    return [pd.DataFrame({"substrate": s, "inhibitor": i,
-                          "rate": v * (1 + NOISE * np.random.default_rng(seed)
-                                       .standard_normal(v.size))}) for seed in seeds]
+REGIMES = {
+    "competitive": Regime(Mechanism(kic=1.0), "competitive", {"ki": 1.0}, classical=True),
+    "uncompetitive": Regime(Mechanism(kiu=2.0), "uncompetitive", {"ki": 2.0}, classical=True),
+    "noncompetitive": Regime(Mechanism(kic=1.5, kiu=1.5), "noncompetitive", {"ki": 1.5},
+                             classical=True),
+    "mixed": Regime(Mechanism(kic=1.0, kiu=5.0), "mixed", {"ki": 1.0}, classical=True),
+    "tight binding, [E] = 5 Ki (competitive)": Regime(
+        Mechanism(kic=0.01, enzyme=0.05, kcat=KCAT_TIGHT, k_1=1000.0 - KCAT_TIGHT),
+        "competitive, tight binding", {"ki": 0.01},
+        inhibitor=(0.0, 0.025, 0.05, 0.1, 0.2, 0.4),
+        runs=("before", "after", "after, [E] given")),
+    "substrate inhibition, Ksi = 3 Km (competitive)": Regime(
+        Mechanism(kic=1.0, ksi=30.0), "competitive with substrate inhibition", {"ki": 1.0}),
+    "partial, beta = 0.3 (noncompetitive)": Regime(
+        Mechanism(kic=1.0, kiu=1.0, beta=0.3), "partial noncompetitive", {"ki": 1.0}),
+    "product inhibition, Kp = Km/10 (competitive)": Regime(
+        Mechanism(kic=1.0, kp=1.0), "competitive", {"ki": 1.0},
+        runs=("before", "after", "after, initial slopes")),
+}
+KM = 10.0
 
 
-def _classify(fit, right):
-    if fit.verdict == "inadequate":
-        return "inadequate"
-    if fit.verdict == "ambiguous":
-        return "ambiguous"
+def rates(regime: Regime, seed: int, method="linear") -> pd.DataFrame:
+    """One plate of ``regime`` read and turned into initial rates."""
+    reads, plate_map = plate(regime.mechanism, seed, inhibitor=regime.inhibitor)
+    return ik.initial_rates(reads, plate_map, substrate="substrate_uM",
+                            inhibitor="inhibitor_uM", method=method,
+                            conversion=ik.BeerLambert(EPSILON_PATH * 1e6)).table
+
+
+def _holds(params, name, truth) -> bool:
+    """Within 2x of ``truth`` with an interval that contains it."""
+    row = params.loc[name]
+    return bool(0.5 < row["estimate"] / truth < 2.0 and row["ci_low"] <= truth <= row["ci_high"])
+
+
+def definite(fit) -> bool:
+    """A verdict that names a law and reports its constants."""
+    return (fit.verdict not in ("ambiguous", "inadequate", "none", "failed", "time_dependent")
+            and fit.best_fit is not None)
+
+
+def classify(fit, regime: Regime) -> str:
+    """The class of one verdict (module docstring)."""
+    if fit.verdict in ("ambiguous", "inadequate"):
+        return fit.verdict
+    if not definite(fit):
+        return "other"
     params = fit.best_fit.params
-    off = any(not (0.5 < params.loc[k, "estimate"] / v < 2.0)
-              or not (params.loc[k, "ci_low"] <= v <= params.loc[k, "ci_high"])
-              for k, v in TRUTH.items())
-    return "correct" if fit.verdict == right and not off else "confidently wrong"
+    chosen = params.loc[list(MODELS[fit.best].ranking), "estimate"].idxmin()
+    right = fit.verdict == regime.verdict and _holds(params, chosen,
+                                                     regime.constants["ki"] * 1e-6)
+    return "correct" if right else "confidently wrong"
 
 
-def main(n_seeds=20) -> str:
-    seeds = range(n_seeds)
+def run(regime: Regime, run_name: str, seeds) -> pd.Series:
+    """Class fractions of one (regime, run) over ``seeds``."""
+    method = "curve" if run_name == "after, initial slopes" else "linear"
+    tables = [rates(regime, seed, method) for seed in seeds]
+    options = {"lack_of_fit_alpha": 0.0} if run_name == "before" else {}
+    if run_name == "after, [E] given":
+        options["enzyme"] = f"{regime.mechanism.enzyme * 1e3:g}nM"
+    fits = fit_mechanisms_batch(tables, substrate="substrate_uM", inhibitor="inhibitor_uM",
+                                **options)
+    classes = pd.Series([classify(f, regime) for f in fits])
+    named = np.mean([f.verdict == regime.verdict for f in fits])
+    extended = np.mean([f.best is not None and MODELS[f.best].family != "classical"
+                        for f in fits])
+    km_missed = [not _holds(f.best_fit.params, "km", KM * 1e-6) for f in fits if definite(f)]
+    return pd.Series({**{c: float(np.mean(classes == c)) for c in CLASSES},
+                      "right law named": float(named), "extended law called": float(extended),
+                      "km interval misses": float(np.mean(km_missed)) if km_missed else np.nan})
+
+
+def main(n_seeds=20) -> pd.DataFrame:
+    """The table of class fractions per regime and run."""
+    seeds = [SEED * 1000 + k for k in range(n_seeds)]
     rows = []
-    for regime, ks_on in REGIMES.items():
-        right = "competitive" if ks_on == 0 else "competitive with substrate inhibition"
-        plates = _plates(ks_on, seeds)
-        for when, level in (("before", 0.0), ("after", 0.01)):
-            fits = fit_mechanisms_batch(plates, lack_of_fit_alpha=level)
-            counts = pd.Series([_classify(f, right) for f in fits]).value_counts()
-            rows.append({"regime": regime, "when": when, **{
-                k: counts.get(k, 0) / n_seeds for k in
-                ("correct", "ambiguous", "inadequate", "confidently wrong")}})
-    table = pd.DataFrame(rows)
-    alarms = []
-    for truth, params in (("competitive", dict(kic=0.5)), ("uncompetitive", dict(kiu=0.5)),
-                          ("noncompetitive", dict(kic=0.5)),
-                          ("mixed", dict(kic=0.5, kiu=2.5))):
-        grids = [ik.simulate_grid(truth, vmax=10.0, km=2.0, cv=NOISE, seed=seed, **params)
-                 for seed in range(2 * n_seeds)]
-        fits = fit_mechanisms_batch(grids)
-        failed = np.mean([len(f.lack_of_fit) > 1 for f in fits])
-        alarms.append({"truth": truth, "seeds": len(grids), "lack of fit found": failed})
-    return table, pd.DataFrame(alarms)
+    for label, regime in REGIMES.items():
+        for run_name in regime.runs:
+            rows.append({"regime": label, "run": run_name, **run(regime, run_name, seeds)})
+    return pd.DataFrame(rows)
+
+
+def markdown(table: pd.DataFrame, n_seeds: int) -> str:
+    """docs/lack_of_fit.md from the table."""
+    return (
+        "# Lack of fit and the extended families: measured\n\n"
+        f"`python -m benchmarks.lack_of_fit_study {n_seeds}`: {n_seeds} plates per regime "
+        "from the mass-action ODE of tests/grid_ode.py read as absorbance (3 % read noise, "
+        "3 % pipetting scatter, 8 x 6 grid in duplicate), initial rates by "
+        "`initial_rates`, fitted by the batched engine (default weighting) with rule 5 "
+        "off (before) and on (after). Km = 10 uM; Ki = 1 uM (uncompetitive 2, "
+        "noncompetitive 1.5, mixed kic 1 / kiu 5), the standard inhibitor levels 0-8 uM; "
+        "tight binding: Ki = 10 nM, [E] = 50 nM, inhibitor 0-400 nM; substrate "
+        "inhibition Ksi = 30 uM; partial: ESI turns over at 0.3 kcat; product "
+        "inhibition: E + P <-> EP with Kp = 1 uM.\n\n"
+        "*correct*: the true law named, its Ki within 2x with an interval holding the "
+        "truth; *confidently wrong*: any other definite verdict (wrong name, or Ki more "
+        "than 2x off or outside its interval); *other*: no inhibition detected or failed; "
+        "*km interval misses*: among definite verdicts, km's interval excludes the truth "
+        "(the linear-window rates' own bias, present on classical truths too). The "
+        "issue's targets: confidently wrong <= 5 %, the right "
+        "family named in >= 80 % where the grid spans the effect; on classical truths "
+        "the extended laws called no more often than the tests' nominal level.\n\n"
+        "```\n" + table.to_string(index=False, float_format="%.2f") + "\n```\n")
 
 
 if __name__ == "__main__":
     n = int(sys.argv[1]) if len(sys.argv) > 1 else 20
-    table, alarms = main(n)
-    text = (f"# Lack of fit and substrate inhibition: measured\n\n"
-            f"`python -m benchmarks.lack_of_fit_study {n}` (batched engine, relative "
-            "weighting, 8 x 6 grid in duplicate, 3 % noise; ODE plates as in the module "
-            "docstring). A definite verdict counts as confidently wrong when it names the "
-            "wrong family or km or kic is more than 2x off or outside its interval.\n\n"
-            + "```\n" + table.to_string(index=False, float_format="%.2f") + "\n```"
-            + "\n\nFalse alarms of the lack-of-fit test (level 0.01) on classical truths "
-            "(simulate_grid: vmax 10, km 2, constants 0.5, alpha 5 for mixed, cv 3 %, "
-            "the standard grid in duplicate):\n\n"
-            + "```\n" + alarms.to_string(index=False, float_format="%.3f") + "\n```" + "\n")
+    result = main(n)
+    text = markdown(result, n)
     Path("docs/lack_of_fit.md").write_text(text)
     print(text)

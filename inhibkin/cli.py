@@ -163,6 +163,7 @@ def _check_fit_arguments(args) -> None:
         value = _km(getattr(args, option, None))
         if value is not None and not isinstance(value, str):
             check_options({f"--{option}": value})
+    _grid_enzyme(args)
 
 
 @contextmanager
@@ -669,8 +670,32 @@ def _mechanism_arguments(parser):
                                      "inhibitor_<unit>, rate")
     _fit_arguments(parser)
     _rate_column_argument(parser)
+    _enzyme_conc_argument(parser)
     parser.add_argument("--params", help="also write every model's parameters of every "
                                          "compound (tidy table)")
+
+
+def _enzyme_conc_argument(parser):
+    parser.add_argument("--enzyme-conc", metavar="CONC",
+                        help="active enzyme concentration of the grid fits, with its unit "
+                             "(e.g. 50nM): the tight-binding laws hold [E] there, and a Ki "
+                             "within 10 x [E] is fitted in its tight-binding form")
+
+
+def _grid_enzyme(args) -> dict:
+    """enzyme= for fit_campaign from --enzyme-conc (the grid fits' [E]), checked against a
+    dose stage's --enzyme: one campaign has one active enzyme concentration."""
+    from .units import parse_concentration
+
+    text = getattr(args, "enzyme_conc", None)
+    if text is None:
+        return {}
+    value = parse_concentration(text)
+    other = _km(getattr(args, "enzyme", None))
+    if other is not None and other != value:
+        raise DataError(Problem("--enzyme-conc", None, text,
+                                f"differs from --enzyme {args.enzyme}: give one of them"))
+    return {"enzyme": value}
 
 
 def _rate_column_argument(parser):
@@ -693,7 +718,8 @@ def _mechanism(args) -> int:
     _check_fit_arguments(args)
     table = _read(args.grid, args, required=_GRID_COLUMNS, context="grid")
     with _execution(args) as where:
-        campaign = fit_campaign(table, rate="rate", **_fit_options(args), **where)
+        campaign = fit_campaign(table, rate="rate", **_grid_enzyme(args), **_fit_options(args),
+                                **where)
     if params is not None:
         write_table(campaign.parameters(), params)
     return _finish(campaign, output, args)
@@ -746,6 +772,7 @@ def _rank_arguments(parser):
     _time_dependent_substrate_arguments(parser)
     _fit_arguments(parser)
     _rate_column_argument(parser)
+    _enzyme_conc_argument(parser)
     _dose_arguments(parser)
 
 
@@ -767,7 +794,7 @@ def _whole_campaign(args, time_dependent=None):
             if args.grid else None)
     dose = (_read(args.dose_response, _DoseColumns(args), required=_DOSE_COLUMNS,
                   context="dose-response table") if args.dose_response else None)
-    dose_options = _dose_options(args) if dose is not None else {}
+    dose_options = {**(_dose_options(args) if dose is not None else {}), **_grid_enzyme(args)}
     with _execution(args) as where:
         return fit_campaign(grid, dose_response=dose, rate="rate", **dose_options,
                             **_fit_options(args), **where, time_dependent=time_dependent)
@@ -835,6 +862,7 @@ def _report_arguments(parser):
                              "compound ID; repeatable, the union is drawn")
     _fit_arguments(parser, output="the HTML report (.html)")
     _rate_column_argument(parser)
+    _enzyme_conc_argument(parser)
     _dose_arguments(parser)
 
 

@@ -7,6 +7,14 @@ elementary steps
     E + S ⇌ ES (k1, k_1),  ES → E + P (kcat),
     E + I ⇌ EI (kon, kon·kic),  ES + I ⇌ ESI (kon, kon·kiu),
 
+and, when asked, the ways the chemistry leaves the textbook laws:
+
+    ES + S ⇌ SES (kon, kon·ksi), dead end (substrate inhibition),
+    ESI → EI + P (beta·kcat) (partial inhibition: ESI still turns over),
+    E + P ⇌ EP (kon, kon·kp) (product inhibition, competitive with S),
+
+with [E] free to be comparable to the inhibitor (tight binding: nothing assumes
+E0 ≪ I; every species is conserved by the equations themselves). Everything is
 integrated with scipy.integrate.solve_ivp (LSODA, stiff; rtol 1e-10). EI and ESI are
 dead ends, so under the quasi-steady state the rate is the mixed law with
 Km = (k_1 + kcat)/k1 and the two dissociation constants kic and kiu (textbook steady-state
@@ -53,6 +61,9 @@ class Mechanism:
     kcat: float = 100.0
     kon: float = 100.0
     enzyme: float = 2e-5
+    ksi: float = np.inf
+    beta: float = 0.0
+    kp: float = np.inf
 
     @property
     def km(self) -> float:
@@ -65,36 +76,41 @@ class Mechanism:
         return self.kcat * self.enzyme
 
 
-def _rhs(_t, y, p, on_c, on_u):
-    e, s, i, es, ei, esi, _ = y
+def _rhs(_t, y, p, on_c, on_u, on_s, on_p):
+    e, s, i, es, ei, esi, product, ses, ep = y
     bind_s = p.k1 * e * s - p.k_1 * es
     turn = p.kcat * es
     bind_c = on_c * (e * i - p.kic * ei)
     bind_u = on_u * (es * i - p.kiu * esi)
-    return [-bind_s + turn - bind_c, -bind_s, -bind_c - bind_u, bind_s - turn - bind_u,
-            bind_c, bind_u, turn]
+    dead = on_s * (es * s - p.ksi * ses)
+    leak = p.beta * p.kcat * esi
+    bind_p = on_p * (e * product - p.kp * ep)
+    return [-bind_s + turn - bind_c - bind_p, -bind_s - dead, -bind_c - bind_u,
+            bind_s - turn - bind_u - dead, bind_c + leak, bind_u - leak, turn + leak - bind_p,
+            dead, bind_p]
 
 
 @cache
 def product_curve(mechanism: Mechanism, substrate: float, inhibitor: float):
     """Dense solution P(t) (µM) of one well, solved once per argument set."""
     # A dissociation constant of inf is a step that does not happen.
-    on_c = 0.0 if np.isinf(mechanism.kic) else mechanism.kon
-    on_u = 0.0 if np.isinf(mechanism.kiu) else mechanism.kon
-    p = Mechanism(**{**mechanism.__dict__, "kic": 0.0 if np.isinf(mechanism.kic)
-                     else mechanism.kic, "kiu": 0.0 if np.isinf(mechanism.kiu)
-                     else mechanism.kiu})
-    y0 = [mechanism.enzyme, substrate, inhibitor, 0.0, 0.0, 0.0, 0.0]
+    steps = ("kic", "kiu", "ksi", "kp")
+    on = [0.0 if np.isinf(getattr(mechanism, k)) else mechanism.kon for k in steps]
+    p = Mechanism(**{**mechanism.__dict__, **{k: 0.0 if np.isinf(getattr(mechanism, k))
+                                              else getattr(mechanism, k) for k in steps}})
+    y0 = [mechanism.enzyme, substrate, inhibitor, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0]
     end = 1.5 * READ_INTERVAL * (N_READS - 1)
     sol = solve_ivp(_rhs, (0.0, end), y0, method="LSODA", dense_output=True, rtol=1e-10,
-                    atol=1e-16, args=(p, on_c, on_u))
+                    atol=1e-16, args=(p, *on))
     if not sol.success:
         raise RuntimeError(sol.message)
     return sol.sol
 
 
-def plate(mechanism: Mechanism, seed: int, *, compound="CPD"):
-    """Reads and plate map of one simulated plate.
+def plate(mechanism: Mechanism, seed: int, *, compound="CPD", substrate=SUBSTRATE,
+          inhibitor=INHIBITOR):
+    """Reads and plate map of one simulated plate (``substrate`` × ``inhibitor`` levels,
+    µM, in duplicate, at most 48 cells: one 96-well plate; the standard grid by default).
 
     Returns
     -------
@@ -110,8 +126,8 @@ def plate(mechanism: Mechanism, seed: int, *, compound="CPD"):
     reads, wells = [], []
     k = 0
     for _ in range(REPLICATES):
-        for s in SUBSTRATE:
-            for i in INHIBITOR:
+        for s in substrate:
+            for i in inhibitor:
                 well = f"{'ABCDEFGH'[k // 12]}{k % 12 + 1:02d}"
                 k += 1
                 scale = max(1.0 + PIPETTING_CV * rng.standard_normal(), 0.5)

@@ -20,7 +20,8 @@ F_RTOL = 1e-10
 
 S_LEVELS = np.array([10.0, 20.0, 50.0, 100.0, 200.0, 500.0, 1000.0, 2000.0])  # uM
 I_LEVELS = np.array([0.0, 1.0, 2.0, 5.0, 10.0, 20.0])  # uM
-TRUTH = {"vmax": 10.0, "km": 100.0, "kic": 3.0, "kiu": 8.0, "ki": 3.0, "ksi": 300.0}
+TRUTH = {"vmax": 10.0, "km": 100.0, "kic": 3.0, "kiu": 8.0, "ki": 3.0, "ksi": 300.0,
+         "enzyme": 4.0, "beta": 0.3}
 
 
 def _grid(replicates=2):

@@ -335,3 +335,19 @@ def test_summary_states_the_ki_unit_once_and_the_ranked_text_follows_it(campaign
                          for x in (r.ki_M, r.ki_low_M, r.ki_high_M))
         assert f"{ki} [{low}, {high}]" in text
         assert r.ki_reported == f"{ki} {unit} [{low}, {high}]"
+
+
+def test_report_names_the_family_of_an_extended_verdict(tmp_path):
+    # A substrate-inhibited grid (v = vmax*S/(km + S + S**2/ksi), the textbook law;
+    # common practice) is named by rule 5; the report says which family it used.
+    s, i = (x.ravel() for x in np.meshgrid([10.0, 20, 50, 100, 200, 500, 1000, 2000],
+                                           [0.0, 1, 2, 5, 10, 20]))
+    s, i = np.repeat(s, 2), np.repeat(i, 2)
+    v = 10 * s / (100 * (1 + i / 3) + s + s**2 / 300)
+    v = v * (1 + 0.02 * np.random.default_rng(SEED).standard_normal(v.size))
+    fit = fit_mechanisms(pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v}),
+                         intervals="wald")
+    assert fit.verdict == "competitive with substrate inhibition", fit.reason
+    text = report({"SI-1": fit}, tmp_path / "si.html").read_text(encoding="utf-8")
+    assert "Model family: <b>substrate inhibition</b>" in text
+    assert "S**2/ksi" in text

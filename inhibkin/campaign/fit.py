@@ -16,6 +16,8 @@ from functools import partial
 
 from ..errors import DataError
 from ..mechanism.fit import fit_mechanisms
+from ..units import parse_concentration
+from ..validate import check_options
 from . import dose as dose_route
 from . import grid as grid_route
 from .dose import DoseSettings, dose_chunks, dose_row, lost_dose_chunk, split_dose_chunk
@@ -66,8 +68,10 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         takes it for a table with declared units), or the base name of a column with a
         declared unit. Required with ``dose_response``.
     enzyme : float or str, optional
-        Active enzyme concentration (a number in M, or a column with a declared unit);
-        enables the tight-binding flag.
+        Active enzyme concentration (a number in M, text with its unit, or a column of the
+        dose-response table with a declared unit): enables the dose route's tight-binding
+        flag, and a number or text is the [E] of every grid fit (its tight-binding laws
+        hold it; see :func:`~inhibkin.mechanism.fit.fit_mechanisms`).
     units : dict, optional
         Units declared as an option, e.g. ``{"substrate": "uM", "inhibitor": "nM"}``.
     weighting : {None, "relative", "uniform", "sd", "rate_se"}
@@ -187,8 +191,8 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     if grid is not None:
         declared.update({f"grid {substrate}": grid.substrate_unit,
                          f"grid {inhibitor}": grid.inhibitor_unit})
-        grid_rows, grid_fits, grid_refits, grid_engine = _fit_grids(grid, compound, rate,
-                                                                    options)
+        grid_rows, grid_fits, grid_refits, grid_engine = _fit_grids(
+            grid, compound, rate, options, grid_enzyme(enzyme, grid.table))
     dose_rows, potency_fits, dose_refits, dose_engine = {}, {}, 0, ""
     plates = plates_frame(None)
     if dose is not None:
@@ -226,14 +230,27 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                     plates, time_dependent)
 
 
-def _fit_grids(grid: GridTable, compound, rate, options: CampaignOptions):
-    """Rows, fits, lmfit refits and the path taken, for every compound of the grid table."""
+def grid_enzyme(enzyme, table):
+    """The enzyme= option as the grid route takes it: one [E] in M for every compound
+    (a number in M or text with its unit), None when not given or when it names a
+    column (the dose-response route's; the grid route reads no per-compound column)."""
+    if enzyme is None or (isinstance(enzyme, str) and any(
+            str(c) == enzyme or str(c).startswith(f"{enzyme}_") for c in table.columns)):
+        return None
+    value = parse_concentration(enzyme) if isinstance(enzyme, str) else float(enzyme)
+    check_options({"enzyme": value})
+    return value
+
+
+def _fit_grids(grid: GridTable, compound, rate, options: CampaignOptions, enzyme=None):
+    """Rows, fits, lmfit refits and the path taken, for every compound of the grid table;
+    ``enzyme`` ([E] in M) goes to every grid fit (the tight-binding laws)."""
     groups = grid.table.groupby(compound, sort=False)
     batched = options.batched(groups.ngroups)
     fitter = options.engine if callable(options.engine) else fit_mechanisms
+    fit_options = options.grid_options() + ((("enzyme", enzyme),) if enzyme else ())
     settings = GridSettings(fitter, grid.substrate, grid.inhibitor, rate, options.sd,
-                            grid.substrate_unit, grid.inhibitor_unit, options.grid_options(),
-                            batched)
+                            grid.substrate_unit, grid.inhibitor_unit, fit_options, batched)
     chunks = list(grid_chunks(groups, options.chunk_size_for(batched)))
     rows, fits, refits = {}, {}, 0
     for name, row, fit in run(grid_route.fit_grid_chunk, chunks, (settings, options.keep_fits),

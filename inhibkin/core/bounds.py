@@ -10,14 +10,17 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["BOUND_FACTORS", "NESTED_FAR_FACTOR", "log_bounds_arrays"]
+__all__ = ["BOUND_FACTORS", "NESTED_FAR_FACTOR", "log_bounds_arrays", "classical_limit"]
 
 #: Per role: (factor below the smallest positive level, factor above the largest), of the
 #: largest |rate| for ``rate``, of the substrate levels for ``substrate``, of the inhibitor
-#: levels for ``inhibitor``. Wide on purpose (common practice: bounds far outside the data
-#: only keep the optimiser finite).
+#: levels for ``inhibitor`` and ``enzyme`` ([E] shares the inhibitor's unit), of 1 for
+#: ``partial`` (beta between 1e-6, where the law is the dead-end one to any precision, and
+#: 1, where ESI turns over as fast as ES). Wide on purpose (common practice: bounds far
+#: outside the data only keep the optimiser finite).
 BOUND_FACTORS = {"rate": (1e-3, 1e4), "substrate": (1e-4, 1e4), "inhibitor": (1e-4, 1e6),
-                 "substrate_inhibition": (1e-4, 1e6)}
+                 "substrate_inhibition": (1e-4, 1e6), "enzyme": (1e-6, 1e2),
+                 "partial": (1e-6, 1.0)}
 
 #: A constant that a nested model lacks starts the larger model at its upper bound
 #: divided by this (far out, where the nesting's limit lies, yet inside the bounds).
@@ -52,8 +55,10 @@ def log_bounds_arrays(law, s, i, v, mask):
     top = np.max(np.where(mask, np.abs(v), 0.0), axis=1, initial=0.0)
     top = np.where(top == 0, 1.0, top)
     substrate = _positive_range(s, mask)
-    ranges = {"rate": (top, top), "substrate": substrate,
-              "inhibitor": _positive_range(i, mask), "substrate_inhibition": substrate}
+    inhibitor = _positive_range(i, mask)
+    one = np.ones_like(top)
+    ranges = {"rate": (top, top), "substrate": substrate, "inhibitor": inhibitor,
+              "substrate_inhibition": substrate, "enzyme": inhibitor, "partial": (one, one)}
     lower, upper = [], []
     for role in law.roles:
         below, above = BOUND_FACTORS[role]
@@ -61,3 +66,13 @@ def log_bounds_arrays(law, s, i, v, mask):
         lower.append(low * below)
         upper.append(high * above)
     return np.log(np.stack(lower, axis=1)), np.log(np.stack(upper, axis=1))
+
+
+def classical_limit(role, lower, upper):
+    """Where a family constant of ``role`` gives the classical law back, inside its log
+    bounds ``lower``, ``upper`` (arrays or floats): the upper bound / NESTED_FAR_FACTOR for
+    ksi (ksi -> inf), the lower bound × NESTED_FAR_FACTOR for [E] and beta (-> 0).
+    Natural scale."""
+    if role == "substrate_inhibition":
+        return np.exp(upper) / NESTED_FAR_FACTOR
+    return np.exp(lower) * NESTED_FAR_FACTOR

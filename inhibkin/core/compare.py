@@ -27,10 +27,18 @@ The verdict follows the nesting of the models (see :func:`decide`):
 5. *Does the law describe the grid?* The verdict's model is tested for lack of fit
    (:mod:`inhibkin.core.lack_of_fit`: pure error with replicates, runs of residual
    signs without) at ``lack_of_fit_alpha``. Only when it fails are the extended laws
-   (substrate inhibition) fitted and rules 1-4 rerun on them (:func:`decide_extended`);
-   the extension is named when mixed's extension beats mixed by the nested F-test and
-   the extended verdict's model passes the lack-of-fit test. Otherwise the verdict is
-   ``inadequate``, naming the residuals' pattern, and no constant is a result.
+   (substrate inhibition, tight binding, partial inhibition: the families of
+   :data:`inhibkin.core.models.FAMILIES`) fitted and rules 1-4 rerun on each family
+   (:func:`decide_extended`); a family is named when mixed's form of it beats mixed by
+   the nested F-test and its verdict's model passes the lack-of-fit test (the lowest
+   AICc among those that do). Otherwise the verdict is ``inadequate``, naming the
+   residuals' pattern, and no constant is a result. With the active enzyme
+   concentration given, a classical constant within ``TIGHT_BINDING_FACTOR`` (10) × [E]
+   sends the grid to its tight-binding laws ([E] held) whatever the lack-of-fit test
+   says. The general law of every family (with [E] fitted when it is not given) is
+   fitted for every inhibited grid: one that beats mixed at ``probe_alpha`` (0.001; or,
+   without [E], a constant far below the lowest inhibitor level) sends the grid to that
+   family too, and makes the verdict ``ambiguous`` when no law of it fits.
 6. *Were the rates steady-state rates at all?* When the rates stage flagged inhibited
    wells ``time_dependent`` (their progress curves bend beyond substrate depletion:
    :mod:`inhibkin.rates.time_dependence`), every rate law above is the wrong model and
@@ -51,7 +59,7 @@ import pandas as pd
 from scipy import stats
 
 from .lack_of_fit import LACK_OF_FIT_ALPHA
-from .models import MODELS, ONE_CONSTANT_MODELS, extension_of, nested_pairs
+from .models import FAMILIES, MODELS, ONE_CONSTANT_MODELS, extension_of, nested_pairs
 
 #: An SSR below this fraction of the total weighted sum of squares of the rates is an
 #: exact fit (relative residuals of about 1e-9): noise-free data, where the F-tests
@@ -74,6 +82,9 @@ __all__ = [
     "TIME_DEPENDENT_REASON",
     "decide_extended",
     "EXACT_FIT_RTOL",
+    "TIGHT_BINDING_FACTOR",
+    "TIGHT_BINDING_LOWEST_FACTOR",
+    "extension_signs",
 ]
 
 #: The verdict of a grid whose inhibited wells the rates stage flagged ``time_dependent``.
@@ -103,12 +114,18 @@ class VerdictOptions:
     lack_of_fit_alpha : float
         Level of the lack-of-fit test of the verdict's model (default
         :data:`inhibkin.core.lack_of_fit.LACK_OF_FIT_ALPHA`, 0.01); 0 turns rule 5 off.
+    probe_alpha : float
+        Level at which a family's general law must beat mixed, on a grid that passes the
+        lack-of-fit test, to send it to that family (default 0.001: three families are
+        probed on every inhibited grid, and a false alarm renames a classical compound;
+        the tight-binding and partial plates of docs/lack_of_fit.md give p below 1e-4).
     """
 
     alpha: float = 0.05
     min_delta_aicc: float = 2.0
     alpha_factor: float = 5.0
     lack_of_fit_alpha: float = LACK_OF_FIT_ALPHA
+    probe_alpha: float = 1e-3
 
     def alpha_edges(self, model: str) -> tuple[str, ...]:
         """The fixed-alpha fits (names in the F-test table) that ``model`` must reject."""
@@ -393,8 +410,68 @@ def time_dependent_verdict(steady: Verdict, n_flagged: int, n_inhibited: int) ->
     )
 
 
+#: The tight-binding rule: with the active enzyme concentration given, a verdict whose
+#: ranking constant is below this multiple of [E] is refitted in its tight-binding form
+#: (inhibitor depletion; the free-inhibitor approximation is off by up to [E]/2 there).
+TIGHT_BINDING_FACTOR = 10.0
+#: Without [E], a classical constant below the lowest non-zero inhibitor level divided by
+#: this is a sign of tight binding (every inhibited well already far past half
+#: inhibition: the constant comes from the residual activity, where depletion rules).
+TIGHT_BINDING_LOWEST_FACTOR = 3.0
+
+
+def _family_verdict(family, *, p_value, converged, aicc, options):
+    """Rules 1-4 rerun on the laws of ``family``; the classical law stands in where the
+    family has no form of it (none for tight binding, competitive for partial).
+
+    Returns (Verdict on classical names, mapping classical name -> law fitted)."""
+    ext = {name: extension_of(name, family) or name
+           for name in ("none", "mixed", *ONE_CONSTANT_MODELS)}
+
+    def p_ext(reduced, full):
+        # The fixed-alpha tests (rule 4) are those of the classical mixed fit.
+        if reduced not in MODELS:
+            return p_value(reduced, full)
+        return p_value(ext[reduced], ext[full])
+
+    out = decide_from(p_value=p_ext, converged=lambda m: converged(ext[m]),
+                      aicc=lambda m: aicc(ext[m]), options=options)
+    return out, ext
+
+
+def extension_signs(gains, tight_constant, lowest_inhibitor, options, enzyme=None):
+    """The families whose general law the data ask for, without a lack-of-fit failure.
+
+    Parameters
+    ----------
+    gains : mapping of str to float
+        Per family, the p-value of the F-test of mixed against the family's general law
+        (mixed's form; [E] fitted for tight binding), NaN where not fitted.
+    tight_constant, lowest_inhibitor : float
+        The classical verdict's tightest constant and the lowest non-zero inhibitor level.
+    options : VerdictOptions
+    enzyme : float, optional
+        [E] when given (the tight-binding law then adds no constant, so it has no test;
+        :data:`TIGHT_BINDING_FACTOR` decides instead).
+
+    Returns
+    -------
+    tuple of str
+        Families whose gain is significant at ``options.probe_alpha``, and tight
+        binding (without [E]) when the classical constant lies below the lowest non-zero
+        inhibitor level / :data:`TIGHT_BINDING_LOWEST_FACTOR`.
+    """
+    out = [name for name, p in gains.items()
+           if p < options.probe_alpha and not (name == "tight_binding" and enzyme is not None)]
+    if (enzyme is None and "tight_binding" not in out
+            and tight_constant * TIGHT_BINDING_LOWEST_FACTOR < lowest_inhibitor):
+        out.append("tight_binding")
+    return tuple(out)
+
+
 def decide_extended(classical: Verdict, *, lack_of_fit_p, pattern, p_value, converged, aicc,
-                    extended_lack_of_fit_p, options: VerdictOptions) -> Verdict:
+                    extended_lack_of_fit_p, options: VerdictOptions, enzyme=None,
+                    tight_constant=np.nan, lowest_inhibitor=np.nan) -> Verdict:
     """Rule 5: keep the classical verdict, name an extended law, or say ``inadequate``.
 
     Parameters
@@ -411,37 +488,94 @@ def decide_extended(classical: Verdict, *, lack_of_fit_p, pattern, p_value, conv
     extended_lack_of_fit_p : callable
         ``extended_lack_of_fit_p(model) -> float`` for an extended law.
     options : VerdictOptions
+    enzyme : float, optional
+        The active enzyme concentration given (inhibitor's unit): the tight-binding laws
+        were fitted with [E] held there, and :data:`TIGHT_BINDING_FACTOR` applies.
+    tight_constant : float
+        The classical verdict's tightest inhibition constant (NaN for none).
+    lowest_inhibitor : float
+        The lowest non-zero inhibitor level.
+
+    Notes
+    -----
+    The general law of each family of :data:`inhibkin.core.models.FAMILIES` (mixed's
+    form) is fitted for every inhibited grid; the extended laws are decided when the
+    classical law fails the lack-of-fit test, when a family's general law beats mixed at
+    ``probe_alpha`` (:func:`extension_signs`), or when [E] is given and the
+    classical constant is below 10 × [E]. Each family is decided by rules 1-4 on its own
+    laws; it *passes* when its general law beats mixed by the nested F-test at
+    ``alpha`` (tight binding with [E] given adds no constant: no test) and its verdict's
+    law passes the lack-of-fit test. With [E] and the 10 × [E] rule, the tight-binding
+    family is named when it passes. After a lack-of-fit failure the passing family with
+    the lowest AICc is named, none passing gives ``inadequate``. After a sign alone, a
+    passing family among the signed ones is named, else the verdict is ``ambiguous``
+    (the classical constant is not trusted).
     """
     level = options.lack_of_fit_alpha
-    if classical.best is None or not lack_of_fit_p < level:
+    if classical.best is None or classical.best == "none" or level <= 0:
         return classical
-    lof = f"{classical.best} fails the lack-of-fit test (p = {lack_of_fit_p:.3g} < {level:g})"
-    general = extension_of("mixed")
-    p_general = p_value("mixed", general)
-    if converged(general) and p_general < options.alpha:
-        ext = {name: extension_of(name) for name in ("none", "mixed", *ONE_CONSTANT_MODELS)}
-        inner = {v: k for k, v in ext.items()}
-
-        def p_ext(reduced, full):
-            # The fixed-alpha tests (rule 4) are those of the classical mixed fit.
-            if reduced not in MODELS:
-                return p_value(reduced, full)
-            return p_value(ext[reduced], ext[full])
-
-        out = decide_from(p_value=p_ext, converged=lambda m: converged(ext[m]),
-                          aicc=lambda m: aicc(ext[m]), options=options)
-        if out.best is not None:
-            best = ext[out.best]
-            p_best = extended_lack_of_fit_p(best)
-            if not p_best < level:
-                why = (f"{lof}; ksi is needed (F-test of mixed against {general} "
-                       f"p = {p_general:.3g}) and {best} passes (p = {p_best:.3g})")
-                if out.verdict == "ambiguous":
-                    names = tuple(ext.get(m, m) for m in out.candidates)
-                    return Verdict("ambiguous", best, names,
-                                   f"{why}; {', '.join(inner.get(m, m) for m in names)} "
-                                   "with substrate inhibition cannot be told apart")
-                return Verdict(MODELS[best].label, best, (best,), why)
+    failing = lack_of_fit_p < level
+    tight = enzyme is not None and tight_constant < TIGHT_BINDING_FACTOR * enzyme
+    gains = {name: p_value("mixed", extension_of("mixed", name)) for name in FAMILIES}
+    signs = extension_signs(gains, tight_constant, lowest_inhibitor, options, enzyme)
+    if not (failing or tight or signs):
+        return classical
+    lof = (f"{classical.best} fails the lack-of-fit test (p = {lack_of_fit_p:.3g} < "
+           f"{level:g})" if failing else
+           f"{classical.best} passes the lack-of-fit test (p = {lack_of_fit_p:.3g})")
+    passing = []
+    for family in FAMILIES.values():
+        general = extension_of("mixed", family.name)
+        held = family.name == "tight_binding" and enzyme is not None
+        p_general = gains[family.name]
+        if not converged(general) or not (held or p_general < options.alpha):
+            continue
+        out, ext = _family_verdict(family.name, p_value=p_value, converged=converged,
+                                   aicc=aicc, options=options)
+        best = ext.get(out.best) if out.best is not None else None
+        if best is None or MODELS[best].family != family.name:
+            continue
+        p_best = extended_lack_of_fit_p(best)
+        if p_best < level:
+            continue
+        needed = (f"[E] = {enzyme:.3g} is given" if held else
+                  f"{family.parameter} is needed (F-test of mixed against {general} "
+                  f"p = {p_general:.3g})")
+        why = f"{lof}; {needed} and {best} passes (p = {p_best:.3g})"
+        if out.verdict == "ambiguous":
+            names = tuple(ext.get(m, m) for m in out.candidates)
+            found = Verdict("ambiguous", best, names,
+                            f"{why}; {', '.join(names)} cannot be told apart")
+        else:
+            found = Verdict(MODELS[best].label, best, (best,), why)
+        passing.append((family.name, found))
+    if tight:
+        rule = (f"tight-binding form used: {classical.best}'s constant {tight_constant:.3g} "
+                f"is within {TIGHT_BINDING_FACTOR:g} x [E] = {enzyme:.3g} (rule: Ki < "
+                f"{TIGHT_BINDING_FACTOR:g} [E])")
+        for name, found in passing:
+            if name == "tight_binding":
+                return Verdict(found.verdict, found.best, found.candidates,
+                               f"{rule}; {found.reason}")
+        if not failing:
+            return Verdict("inadequate", classical.best, (classical.best,),
+                           f"{rule}, but no tight-binding law fits; no constant is a result")
+    if not failing:
+        signed = [(name, found) for name, found in passing if name in signs]
+        if signed:
+            return min(signed, key=lambda item: aicc(item[1].best))[1]
+        generals = [extension_of("mixed", name) for name in signs]
+        shown = ", ".join(f"{g} p = {gains[n]:.3g}" for n, g in zip(signs, generals))
+        why = (f"{classical.reason}; but the data lean to {', '.join(generals)} (F-test "
+               f"against mixed: {shown}; constant {tight_constant:.3g}, lowest non-zero "
+               f"inhibitor level {lowest_inhibitor:.3g}) and no law of "
+               f"{'that family' if len(signs) == 1 else 'those families'} fits: the "
+               "constant is not trusted")
+        if "tight_binding" in signs and enzyme is None:
+            why += "; give the active enzyme concentration (enzyme=) to test tight binding"
+        return Verdict("ambiguous", classical.best, (classical.best, *generals), why)
+    if passing:
+        return min(passing, key=lambda item: aicc(item[1].best))[1]
     return Verdict("inadequate", classical.best, (classical.best,),
                    f"{lof}: {pattern}, and no extended law both is needed and fits; "
                    "no constant is a result")

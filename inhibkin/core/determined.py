@@ -13,6 +13,9 @@ parameter's role (:data:`inhibkin.core.models.ROLES`) adds what the tested level
   plateau) km is below resolution;
 - ``substrate_inhibition`` (ksi): an estimate above ``factor`` × the largest substrate
   level is past the tested range (reported as a lower bound);
+- ``enzyme`` ([E] of a tight-binding law, fitted when not given) and ``partial`` (beta):
+  only the general rule (at its lower bound: the law is the classical one to any
+  precision, and the value is an upper bound);
 - a derived quantity (alpha = kiu/kic) is determined when both its terms are.
 
 Written over (problems, parameters) arrays; the lmfit path calls it with one problem.

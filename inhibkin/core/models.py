@@ -30,13 +30,16 @@ from dataclasses import dataclass
 import numpy as np
 
 __all__ = ["RateLaw", "Derived", "MODELS", "MODEL_NAMES", "INHIBITION_MODELS",
-           "ONE_CONSTANT_MODELS", "EXTENDED_MODELS", "ROLES", "get_model", "nested_pairs",
-           "nested_start", "extension_of", "ratio_tie"]
+           "ONE_CONSTANT_MODELS", "EXTENDED_MODELS", "ROLES", "FAMILIES", "Family", "get_model",
+           "nested_pairs", "nested_start", "extension_of", "ratio_tie"]
 
 #: The roles a parameter can have: the data axis that sets its bounds, start and
 #: "determined" rule. ``substrate_inhibition`` (ksi) is set by the substrate levels like
 #: km, but a ksi past the tested range is reported as a lower bound and leaves vmax alone.
-ROLES = ("rate", "substrate", "inhibitor", "substrate_inhibition")
+#: ``enzyme`` ([E] of the tight-binding laws, in the inhibitor's unit) is set by the
+#: inhibitor levels; ``partial`` (beta, dimensionless, below 1) by how far inhibition
+#: levels off; both are reported as upper bounds when the data cannot place them.
+ROLES = ("rate", "substrate", "inhibitor", "substrate_inhibition", "enzyme", "partial")
 
 
 @dataclass(frozen=True)
@@ -88,11 +91,13 @@ class RateLaw:
         for alpha above ``alpha_factor`` (competitive), "low" for alpha below its
         inverse (uncompetitive), both for between them (noncompetitive).
     family : str
-        ``"classical"`` (the five reversible laws, fitted by default) or the extension
-        the law adds (``"substrate_inhibition"``); extended laws are fitted only when the
-        classical verdict fails the lack-of-fit test (:mod:`inhibkin.core.lack_of_fit`).
+        ``"classical"`` (the five reversible laws, fitted by default) or the
+        :data:`FAMILIES` entry the law belongs to (``"substrate_inhibition"``,
+        ``"tight_binding"``, ``"partial"``); extended laws are fitted only when rule 5
+        of :mod:`inhibkin.core.compare` asks for them.
     extends : str, optional
-        The classical law this one reduces to when its extra constant goes to infinity.
+        The classical law this one reduces to when its extra constant reaches its limit
+        (ksi -> inf, [E] -> 0, beta -> 0).
     label : str, optional
         How a verdict names the law ("competitive with substrate inhibition").
     """
@@ -196,7 +201,7 @@ def _noncompetitive_jac(s, i, vmax, km, ki):
     return np.stack([s / d, -g * a, g * (km + s) * i / ki**2], axis=-1)
 
 
-_RATE, _SUBSTRATE, _INHIBITOR, _SUBSTRATE_INHIBITION = ROLES
+_RATE, _SUBSTRATE, _INHIBITOR, _SUBSTRATE_INHIBITION, _ENZYME, _PARTIAL = ROLES
 
 
 def _with_substrate_inhibition(law: RateLaw):
@@ -225,20 +230,161 @@ def _with_substrate_inhibition(law: RateLaw):
     return rate, jacobian
 
 
-def _substrate_inhibition_entry(law: RateLaw) -> RateLaw:
-    """The substrate-inhibited extension of a classical entry."""
-    rate, jacobian = _with_substrate_inhibition(law)
-    name = "substrate_inhibition" if law.name == "none" else f"{law.name}_si"
-    label = ("substrate inhibition" if law.name == "none"
-             else f"{law.name} with substrate inhibition")
-    nests_in = tuple("substrate_inhibition" if n == "none" else f"{n}_si"
-                     for n in law.nests_in)
-    equation = law.equation.replace("vmax*S / (", "vmax*S / (S**2/ksi + ", 1)
-    return RateLaw(name, law.param_names + ("ksi",), rate, jacobian, nests_in=nests_in,
-                   equation=equation, roles=law.roles + (_SUBSTRATE_INHIBITION,),
+def _with_tight_binding(law: RateLaw):
+    """Rate and Jacobian of ``law`` with inhibitor depletion (active enzyme [E], last).
+
+    The classical law is v_c = v0/(1 + I/K_app), v0 = vmax*S/(km + S) and K_app the
+    mechanism's apparent constant (kic*(1 + S/km) for competitive). With the inhibitor
+    bound to enzyme taken out of the free inhibitor, the fraction of activity left is the
+    Morrison quadratic (Morrison 1969, BBA 185:269):
+
+        v/v0 = 1 - (E + I + K - sqrt((E + I + K)**2 - 4*E*I)) / (2*E),   K = K_app
+
+    written with u = I/K = v0/v_c - 1 (zero without inhibitor) and multiplied through
+    by u, so that it stays finite as E -> 0 (the classical law) and as K -> inf:
+    v/v0 = 1 - 2*I*u / (I + u*(E + I) + R), R**2 = u**2*(E - I)**2 + I**2 + 2*u*I*(E + I).
+    [E] shares the inhibitor's unit.
+    """
+    none = _none_rate, _none_jac
+
+    def parts(s, i, params):
+        *classical, enzyme = params
+        v0 = none[0](s, i, *classical[:2])
+        vc = law.rate(s, i, *classical)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            u = np.where(i > 0, v0 / vc - 1.0, 0.0)
+        u = np.maximum(u, 0.0)
+        root = np.sqrt(u**2 * (enzyme - i) ** 2 + i**2 + 2 * u * i * (enzyme + i))
+        den = i + u * (enzyme + i) + root
+        with np.errstate(divide="ignore", invalid="ignore"):
+            fraction = np.where(i > 0, 1.0 - 2 * i * u / den, 1.0)
+        return classical, enzyme, v0, vc, u, root, den, fraction
+
+    def rate(s, i, *params):
+        _, _, v0, _, _, _, _, fraction = parts(s, i, params)
+        return v0 * fraction
+
+    def jacobian(s, i, *params):
+        classical, enzyme, v0, vc, u, root, den, fraction = parts(s, i, params)
+        k = len(classical)
+        j0 = np.zeros(np.shape(v0) + (k,))
+        j0[..., :2] = none[1](s, i, *classical[:2])
+        jc = law.jacobian(s, i, *classical)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            positive = i > 0
+            # d fraction / du = -2*I**2/(R*den) (= -1 at u = 0, the classical slope).
+            d_u = np.where(positive, -2 * i**2 / (root * den), 0.0)
+            du = np.where(positive[..., None],
+                          (j0 * vc[..., None] - v0[..., None] * jc) / vc[..., None] ** 2, 0.0)
+            # d fraction / dE = 2*I*u*(d den / dE)/den**2.
+            d_den_e = u + (u**2 * (enzyme - i) + u * i) / root
+            d_e = np.where(positive, 2 * i * u * d_den_e / den**2, 0.0)
+        jac = j0 * fraction[..., None] + (v0 * d_u)[..., None] * du
+        return np.concatenate([jac, (v0 * d_e)[..., None]], axis=-1)
+
+    return rate, jacobian
+
+
+def _with_partial_turnover(law: RateLaw):
+    """Rate and Jacobian of ``law`` when ESI still turns over, at beta*kcat (beta last).
+
+    Rapid equilibrium with a productive ESI: v = vmax*S*(1 + beta*I/kiu)/D, D the
+    classical denominator, so v = v_c*(1 + beta*I/kiu); beta -> 0 gives the dead-end law
+    back (Segel, *Enzyme Kinetics*, 1975, hyperbolic mixed-type inhibition; `from
+    memory`). kiu is the constant of ``law`` that stands for mixed's kiu (ki for
+    noncompetitive).
+    """
+    where = next(j for j, p in enumerate(law.param_names) if "kiu" in law.stands_for(p))
+
+    def rate(s, i, *params):
+        *classical, beta = params
+        return law.rate(s, i, *classical) * (1 + beta * i / classical[where])
+
+    def jacobian(s, i, *params):
+        *classical, beta = params
+        kiu = classical[where]
+        vc = law.rate(s, i, *classical)
+        gain = 1 + beta * i / kiu
+        jac = law.jacobian(s, i, *classical) * gain[..., None]
+        jac[..., where] -= vc * beta * i / kiu**2
+        return np.concatenate([jac, (vc * i / kiu)[..., None]], axis=-1)
+
+    return rate, jacobian
+
+
+@dataclass(frozen=True)
+class Family:
+    """A way the chemistry leaves the classical laws: one constant added to each law.
+
+    Attributes
+    ----------
+    name : str
+        The family (``RateLaw.family`` of its laws).
+    parameter, role : str
+        The constant added (last) and its role in :data:`ROLES`.
+    suffix : str
+        Appended to the classical name (``competitive_tb``).
+    label : str
+        How a verdict names the law; ``{law}`` is the classical name.
+    wrap : callable
+        ``wrap(law) -> (rate, jacobian)``.
+    applies : callable
+        ``applies(law) -> bool``: which classical laws have this extension.
+    limit : str
+        Where the constant gives the classical law back, for the reason of a verdict.
+    """
+
+    name: str
+    parameter: str
+    role: str
+    suffix: str
+    label: str
+    wrap: Callable
+    applies: Callable
+    limit: str
+
+
+#: The extended families, in the order rule 5 tries them (:func:`inhibkin.core.compare.
+#: decide_extended` keeps the one with the lowest AICc among those that pass).
+FAMILIES: dict[str, Family] = {f.name: f for f in (
+    Family("substrate_inhibition", "ksi", _SUBSTRATE_INHIBITION, "_si",
+           "{law} with substrate inhibition", _with_substrate_inhibition,
+           lambda law: True, "ksi -> inf"),
+    Family("tight_binding", "enzyme", _ENZYME, "_tb", "{law}, tight binding",
+           _with_tight_binding, lambda law: bool(law.inhibition_constants), "[E] -> 0"),
+    Family("partial", "beta", _PARTIAL, "_partial", "partial {law}",
+           _with_partial_turnover,
+           lambda law: any("kiu" in law.stands_for(p) for p in law.inhibition_constants),
+           "beta -> 0"),
+)}
+
+
+def _family_name(law_name: str, family: Family) -> str:
+    if law_name == "none" and family.name == "substrate_inhibition":
+        return "substrate_inhibition"
+    return f"{law_name}{family.suffix}"
+
+
+def _extended_entry(law: RateLaw, family: Family, classical: dict) -> RateLaw:
+    """The ``family`` extension of a classical entry."""
+    rate, jacobian = family.wrap(law)
+    name = _family_name(law.name, family)
+    label = ("substrate inhibition" if name == "substrate_inhibition"
+             else family.label.format(law=law.name))
+    # Nested in the extension of every law the classical one nests in (when it has one).
+    nests_in = tuple(_family_name(n, family) for n in law.nests_in
+                     if n in classical and family.applies(classical[n]))
+    equation = {"substrate_inhibition":
+                law.equation.replace("vmax*S / (", "vmax*S / (S**2/ksi + ", 1),
+                "tight_binding": f"{law.equation}, with I the free inhibitor: Morrison "
+                                 "quadratic in [E] = enzyme",
+                "partial": f"{law.equation.replace('v = ', 'v = (1 + beta*I/kiu) * ', 1)}"
+                }[family.name]
+    return RateLaw(name, law.param_names + (family.parameter,), rate, jacobian,
+                   nests_in=nests_in, equation=equation, roles=law.roles + (family.role,),
                    ties=law.ties, derived=law.derived, ranking=law.ranking,
-                   alpha_edges=law.alpha_edges, family="substrate_inhibition",
-                   extends=law.name, label=label)
+                   alpha_edges=law.alpha_edges, family=family.name, extends=law.name,
+                   label=label)
 
 
 MODELS: dict[str, RateLaw] = {
@@ -281,13 +427,22 @@ MODELS: dict[str, RateLaw] = {
 
 #: The classical laws: fitted by default, the candidates of the classical verdict.
 MODEL_NAMES: tuple[str, ...] = tuple(MODELS)
-# Each classical law extended by substrate inhibition (ksi -> infinity gives it back);
-# the classical law nests in its extension.
+# Each classical law extended by each family (the family's constant at its limit gives
+# it back); the classical law nests in the extension of itself and of every law it nests
+# in (none nests in competitive_tb: kic -> inf, whatever [E]).
+_CLASSICAL = dict(MODELS)
+for _family in FAMILIES.values():
+    for _name in MODEL_NAMES:
+        if not _family.applies(_CLASSICAL[_name]):
+            continue
+        _extended = _extended_entry(_CLASSICAL[_name], _family, _CLASSICAL)
+        MODELS[_extended.name] = _extended
 for _name in MODEL_NAMES:
-    _extended = _substrate_inhibition_entry(MODELS[_name])
+    _inside = (_name, *_CLASSICAL[_name].nests_in)
+    _more = tuple(_family_name(n, f) for f in FAMILIES.values() for n in _inside
+                  if f.applies(_CLASSICAL[n]))
     MODELS[_name] = RateLaw(**{**MODELS[_name].__dict__,
-                               "nests_in": MODELS[_name].nests_in + (_extended.name,)})
-    MODELS[_extended.name] = _extended
+                               "nests_in": MODELS[_name].nests_in + _more})
 #: The extended laws, tried only when the classical verdict fails the lack-of-fit test.
 EXTENDED_MODELS: tuple[str, ...] = tuple(n for n in MODELS if n not in MODEL_NAMES)
 INHIBITION_MODELS: tuple[str, ...] = tuple(n for n in MODEL_NAMES
@@ -299,7 +454,8 @@ ONE_CONSTANT_MODELS: tuple[str, ...] = tuple(
 
 
 def extension_of(name: str, family: str = "substrate_inhibition") -> str | None:
-    """The name of the ``family`` extension of the classical law ``name`` (None if none)."""
+    """The name of the ``family`` extension of the classical law ``name`` (None if none:
+    ``none`` has no tight-binding or partial form, competitive no partial one)."""
     for law in MODELS.values():
         if law.extends == name and law.family == family:
             return law.name

@@ -20,7 +20,8 @@ import numpy as np
 from .bounds import log_bounds_arrays
 from .models import MODELS
 
-__all__ = ["michaelis_menten_start", "starting_values", "mechanism_starts", "log_bounds",
+__all__ = ["michaelis_menten_start", "starting_values", "extra_start", "ENZYME_START_FACTOR",
+           "BETA_START", "mechanism_starts", "log_bounds",
            "count_unique", "masked_median", "KI_GRID_POINTS", "KI_GRID_SPAN"]
 
 #: Points in the log-spaced search grid for each inhibition constant.
@@ -117,7 +118,27 @@ def _substrate_inhibition_start(s, v, use):
     return vmax, km, ksi
 
 
-def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
+#: Starts of the families' constants (other than ksi, started from the quadratic) and
+#: where each starts from a classical solution: [E] at the lowest non-zero inhibitor
+#: level times this (depletion just visible), beta at this.
+ENZYME_START_FACTOR = 0.3
+BETA_START = 0.1
+
+
+def extra_start(role, s, i, mask) -> np.ndarray:
+    """Start of a family's constant of ``role`` for every problem, shape (B,), natural
+    scale: ksi at the largest substrate level, [E] at :data:`ENZYME_START_FACTOR` × the
+    lowest non-zero inhibitor level, beta at :data:`BETA_START`."""
+    if role == "substrate_inhibition":
+        s_max = np.max(np.where(mask, s, 0.0), axis=1, initial=0.0)
+        return np.where(s_max > 0, s_max, 1.0)
+    if role == "enzyme":
+        low = np.min(np.where(mask & (i > 0), i, np.inf), axis=1, initial=np.inf)
+        return ENZYME_START_FACTOR * np.where(np.isfinite(low), low, 1.0)
+    return np.full(s.shape[0], BETA_START)
+
+
+def mechanism_starts(model, s, i, v, mask, weights=None, held=None) -> np.ndarray:
     """Starting parameters of ``model`` for every problem, shape (B, k), natural scale.
 
     Parameters
@@ -130,18 +151,25 @@ def mechanism_starts(model, s, i, v, mask, weights=None) -> np.ndarray:
         True for real points.
     weights : numpy.ndarray, shape (B, n), optional
         Residual multipliers used to score the grid search (default 1).
+    held : numpy.ndarray, shape (B,), optional
+        The active enzyme concentration of a tight-binding law, where it is given (it
+        then starts, and stays, there).
     """
     law = MODELS[model]
     uninhibited = mask & (i == 0)
     use_uninhibited = count_unique(s, uninhibited) >= 2
     use = np.where(use_uninhibited[:, None], uninhibited, mask)
     roles = np.array(law.roles)
-    extra = np.flatnonzero(roles == "substrate_inhibition")
+    extra = np.flatnonzero(~np.isin(roles, ("rate", "substrate", "inhibitor")))
     out = np.empty((s.shape[0], law.n_params))
-    if extra.size:
+    if "substrate_inhibition" in law.roles:
         vmax, km, out[:, extra[0]] = _substrate_inhibition_start(s, v, use)
     else:
         vmax, km = _michaelis_menten_start(s, v, use)
+        for j in extra:
+            out[:, j] = extra_start(law.roles[j], s, i, mask)
+    if held is not None and "enzyme" in law.roles:
+        out[:, law.roles.index("enzyme")] = held
     names = law.inhibition_constants
     out[:, 0], out[:, 1] = vmax, km
     if not names:

@@ -17,6 +17,7 @@ Two entry points:
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
@@ -24,7 +25,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..core.bounds import NESTED_FAR_FACTOR
+from ..core.bounds import NESTED_FAR_FACTOR, classical_limit
 from ..core.compare import (
     EXACT_FIT_RTOL,
     Verdict,
@@ -32,12 +33,15 @@ from ..core.compare import (
     akaike_weights,
     decide_extended,
     decide_from,
+    extension_signs,
     f_test_arrays,
     information_criteria,
 )
 from ..core.determined import DETERMINATION_FACTOR, determined_flags
 from ..core.lack_of_fit import LACK_OF_FIT_ALPHA, lack_of_fit, residual_pattern
 from ..core.models import (
+    EXTENDED_MODELS,
+    FAMILIES,
     MODEL_NAMES,
     MODELS,
     ONE_CONSTANT_MODELS,
@@ -46,6 +50,7 @@ from ..core.models import (
     nested_start,
 )
 from ..core.options import FitOptions
+from ..core.starts import extra_start
 from ..core.weighting import (
     DEFAULT_WEIGHTING,
     REWEIGHT_ITERATIONS,
@@ -57,7 +62,15 @@ from ..core.weighting import (
     weighting_label,
 )
 from ..errors import DataError, Problem
-from ..mechanism.fit import MechanismFit, mixed_starts, molar_grid, relative_weights
+from ..mechanism.fit import (
+    MechanismFit,
+    enzyme_concentration,
+    extended_starts,
+    mixed_starts,
+    molar_grid,
+    needs_tight_binding,
+    relative_weights,
+)
 from ..mechanism.one_model import ModelFit, fit_model, fixed_alpha_ssr
 from ..validate import check_grid, grid_rule_problems
 from . import lm
@@ -310,7 +323,7 @@ def _model_fit(m: ModelBatch, c, s, i, v, level) -> ModelFit:
     params = pd.DataFrame({"estimate": m.estimate[c], "se": m.se[c], "ci_low": m.ci_low[c],
                            "ci_high": m.ci_high[c], "determined": m.determined[c]},
                           index=pd.Index(m.names, name="parameter"))
-    k = m.n_params
+    k = MODELS[m.model].n_params
     n = len(v)
     if m.converged[c]:
         fitted = MODELS[m.model].rate(s, i, *m.estimate[c, :k])
@@ -320,7 +333,7 @@ def _model_fit(m: ModelBatch, c, s, i, v, level) -> ModelFit:
     else:
         fitted = residuals = np.full(n, np.nan)
         cov = None
-    return ModelFit(m.model, params, n, k, float(m.ssr[c]), float(m.loglik[c]),
+    return ModelFit(m.model, params, n, m.n_params, float(m.ssr[c]), float(m.loglik[c]),
                     float(m.aic[c]), float(m.aicc[c]), float(m.bic[c]), bool(m.converged[c]),
                     str(m.reason[c]), fitted, residuals, level, "wald", cov)
 
@@ -419,14 +432,20 @@ def _check_arrays(s, i, v, mask, sd, need_inhibition, allow_zero_sd=False):
     return reason
 
 
-def _solve_model(name, s, i, v, mask, w, rows, theta0, lower, upper, max_iterations):
-    """Solve model ``name`` for the compounds ``rows`` from ``theta0`` (log scale)."""
+def _solve_model(name, s, i, v, mask, w, rows, theta0, lower, upper, max_iterations,
+                 free=None):
+    """Solve model ``name`` for the compounds ``rows`` from ``theta0`` (log scale); a
+    parameter not ``free`` stays at its start (a given [E])."""
     theta0 = np.clip(theta0, lower + _START_MARGIN, upper - _START_MARGIN)
+    if free is not None:
+        theta0 = np.where(free, theta0, lower)
     return lm.solve(_LogRateLaw(name), theta0, (s[rows], i[rows]), v[rows], mask=mask[rows],
-                    weights=w[rows], lower=lower, upper=upper, max_iterations=max_iterations)
+                    weights=w[rows], lower=lower, upper=upper, max_iterations=max_iterations,
+                    free=free)
 
 
-def _empty_model(name, b, n_obs):
+def _empty_model(name, b, n_obs, enzyme=None):
+    """Empty result arrays of ``name``; a given [E] is not counted among its parameters."""
     law = MODELS[name]
     names = law.column_names
     k, m = law.n_params, len(names)
@@ -436,7 +455,8 @@ def _empty_model(name, b, n_obs):
                 theta=np.full((b, k), np.nan), log_covariance=np.full((b, k, k), np.nan),
                 ssr=np.full(b, np.nan), loglik=np.full(b, np.nan), aic=np.full(b, np.nan),
                 aicc=np.full(b, np.nan), bic=np.full(b, np.nan), n_obs=n_obs.copy(),
-                n_params=k, converged=np.zeros(b, bool),
+                n_params=k - (enzyme is not None and "enzyme" in law.roles),
+                converged=np.zeros(b, bool),
                 status=np.zeros(b, np.int8), reason=np.full(b, "not fitted", dtype=object),
                 iterations=np.zeros(b, np.int64), fallback=np.zeros(b, bool))
 
@@ -451,7 +471,7 @@ def _fill_from_engine(out, name, rows, result, s, i, mask, lower, upper, level,
     theta = result.theta[ok]
     cov = result.covariance[ok]
     se_log = result.std_err[ok]
-    dof = result.n_obs[ok] - k
+    dof = result.n_obs[ok] - out["n_params"]
     t = stats.t.ppf(0.5 + level / 2, np.maximum(dof, 1))[:, None]
     estimate = np.exp(theta)
     with np.errstate(over="ignore", invalid="ignore"):
@@ -493,7 +513,7 @@ def _fill_from_engine(out, name, rows, result, s, i, mask, lower, upper, level,
 
 
 def _fill_from_lmfit(out, c, fit: ModelFit):
-    k = out["n_params"]
+    k = MODELS[out["model"]].n_params
     out["fallback"][c] = True
     out["reason"][c] = _MESSAGE_FALLBACK + fit.message
     out["converged"][c] = fit.converged
@@ -651,8 +671,8 @@ def _nested_start(out, name, rows, far):
     return np.log(np.stack([start[n] for n in MODELS["mixed"].param_names], axis=1))
 
 
-def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, alpha_factor,
-               level, determination_factor, fallback, max_iterations,
+def _fit_chunk(s, i, v, mask, sd, enzyme=None, *, weighting, models, alpha, min_delta_aicc,
+               alpha_factor, level, determination_factor, fallback, max_iterations,
                lack_of_fit_alpha=LACK_OF_FIT_ALPHA) -> MechanismBatch:
     """Fit one chunk of compounds (the unit of work sent to a worker)."""
     b = s.shape[0]
@@ -678,11 +698,12 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
         sum_log_w = np.sum(np.where(mask, np.log(np.where(mask, w, 1.0)), 0.0), axis=1)
     out: dict[str, dict] = {}
     for name in models:
-        res = _empty_model(name, b, n_obs)
-        lower, upper = mechanism_log_bounds(name, s[rows], i[rows], v[rows], mask[rows])
-        start = np.log(mechanism_starts(name, s[rows], i[rows], v[rows], mask[rows], w[rows]))
+        res = _empty_model(name, b, n_obs, enzyme)
+        lower, upper, free, held = _bounds(name, s, i, v, mask, rows, enzyme)
+        start = np.log(mechanism_starts(name, s[rows], i[rows], v[rows], mask[rows], w[rows],
+                                        held))
         result = _solve_model(name, s, i, v, mask, w, rows, start, lower, upper,
-                              max_iterations)
+                              max_iterations, free)
         if name == "mixed":
             far = np.zeros(b)
             far[rows] = np.exp(upper[:, 2]) / NESTED_FAR_FACTOR
@@ -712,7 +733,7 @@ def _fit_chunk(s, i, v, mask, sd, *, weighting, models, alpha, min_delta_aicc, a
                                                   options)
     lack = _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w,
                       rows, n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
-                      max_iterations, weighting == "relative")
+                      max_iterations, weighting == "relative", enzyme, fallback)
     for c in np.flatnonzero(~valid):
         for res in out.values():
             res["reason"][c] = f"not fitted: {invalid_reason[c]}"
@@ -745,18 +766,40 @@ def _lack_rows(res, rows, s, i, v, mask, w, exact_ssr, relative):
                          "statistic": statistic, "p_value": p_value})
 
 
-def _solve_extended(name, out, s, i, v, mask, w, rows, max_iterations):
-    """Extended law ``name`` for the compounds ``rows`` from the starts of
-    :func:`inhibkin.mechanism.fit.extended_starts` (automatic; the classical solution with
-    ksi at the largest S; each nested extension's solution), the best SSR winning."""
+def _bounds(name, s, i, v, mask, rows, enzyme=None):
+    """Log bounds of ``name`` for the compounds ``rows``, the free mask (None: all free)
+    and the held [E] (None): with ``enzyme`` given, a tight-binding law's [E] is held
+    there, as :func:`inhibkin.mechanism.one_model.fit_model` holds it."""
     law = MODELS[name]
     lower, upper = mechanism_log_bounds(name, s[rows], i[rows], v[rows], mask[rows])
-    starts = [np.log(mechanism_starts(name, s[rows], i[rows], v[rows], mask[rows], w[rows]))]
-    s_max = np.max(np.where(mask[rows], s[rows], 0.0), axis=1)
+    if enzyme is None or "enzyme" not in law.roles:
+        return lower, upper, None, None
+    j = law.roles.index("enzyme")
+    held = enzyme[rows]
+    lower[:, j] = upper[:, j] = np.log(held)
+    free = np.ones(lower.shape, bool)
+    free[:, j] = False
+    return lower, upper, free, held
+
+
+def _solve_extended(name, out, s, i, v, mask, w, rows, max_iterations, enzyme=None):
+    """Extended law ``name`` for the compounds ``rows`` from the starts of
+    :func:`inhibkin.mechanism.fit.extended_starts` (automatic; the classical solution with
+    the family's constant at its start and at its classical limit; each nested law of
+    the family's solution), the best SSR winning. With ``enzyme`` (shape (B,)), a
+    tight-binding law's [E] is held at it."""
+    law = MODELS[name]
+    lower, upper, free, held = _bounds(name, s, i, v, mask, rows, enzyme)
+    starts = [np.log(mechanism_starts(name, s[rows], i[rows], v[rows], mask[rows], w[rows],
+                                      held))]
     classical = out[law.extends]
-    starts.append(np.column_stack([classical["theta"][rows], np.log(s_max)]))
+    role = law.roles[-1]
+    for value in (extra_start(role, s[rows], i[rows], mask[rows]),
+                  classical_limit(role, lower[:, -1], upper[:, -1])):
+        starts.append(np.column_stack([classical["theta"][rows], np.log(value)]))
+    s_max = np.max(np.where(mask[rows], s[rows], 0.0), axis=1)
     for small, res in out.items():
-        if name in MODELS[small].nests_in and MODELS[small].extends:
+        if name in MODELS[small].nests_in and MODELS[small].family == law.family:
             far = np.exp(upper[:, law.param_names.index("kic")]) / NESTED_FAR_FACTOR \
                 if "kic" in law.param_names else s_max
             p = np.exp(res["theta"][rows])
@@ -768,7 +811,7 @@ def _solve_extended(name, out, s, i, v, mask, w, rows, max_iterations):
         usable = np.all(np.isfinite(theta0), axis=1)
         theta0 = np.where(usable[:, None], theta0, starts[0])
         result = _solve_model(name, s, i, v, mask, w, rows, theta0, lower, upper,
-                              max_iterations)
+                              max_iterations, free)
         if best is None:
             best = _Combined(result.theta.copy(), result.ssr.copy(), result.status.copy(),
                              result.iterations.copy(), result.n_obs, result.covariance.copy())
@@ -781,34 +824,124 @@ def _solve_extended(name, out, s, i, v, mask, w, rows, max_iterations):
     return best, lower, upper
 
 
+def _tight_binding_inputs(out, best, i, mask, rows):
+    """Per compound of ``rows``: the classical verdict's tightest ranking constant (NaN
+    without one) and the lowest non-zero inhibitor level, as
+    :func:`inhibkin.mechanism.fit.tight_binding_inputs` reads them from one fit."""
+    tight = np.full(rows.size, np.nan)
+    for n, c in enumerate(rows):
+        name = best[c]
+        if name in out and MODELS[name].ranking and out[name]["converged"][c]:
+            columns = [out[name]["names"].index(p) for p in MODELS[name].ranking]
+            tight[n] = np.min(out[name]["estimate"][c, columns])
+    lowest = np.min(np.where(mask[rows] & (i[rows] > 0), i[rows], np.inf), axis=1)
+    return tight, np.where(np.isfinite(lowest), lowest, np.nan)
+
+
+def _refit_extended(res, name, rows, s, i, v, mask, w, out, level, determination_factor,
+                    enzyme):
+    """Refit with the lmfit path, from :func:`inhibkin.mechanism.fit.extended_starts`, the
+    compounds of ``rows`` whose extended law ``name`` the engine did not converge."""
+    for c in rows[~res["converged"][rows]]:
+        keep = mask[c]
+        sc, ic, vc, wc = s[c, keep], i[c, keep], v[c, keep], w[c, keep]
+        given = None if enzyme is None else float(enzyme[c])
+        fits = {m: _model_fit(ModelBatch(**out[m]), c, sc, ic, vc, level) for m in out}
+        fit = fit_model(name, sc, ic, vc, wc, intervals="wald", level=level,
+                        determination_factor=determination_factor, enzyme=given,
+                        starts=extended_starts(name, fits, sc, ic, vc, wc, given))
+        _fill_from_lmfit(res, c, fit)
+
+
+def _extension_gains(out, best, s, i, v, mask, w, rows, n_obs, exact_ssr, options, level,
+                     determination_factor, max_iterations, enzyme, fallback=False):
+    """Per family, the p-values (shape (B,)) of the F-test of mixed against the family's
+    general law, for the compounds ``rows`` whose verdict names inhibition (NaN elsewhere,
+    and for tight binding with [E] given): :func:`inhibkin.mechanism.fit.extension_gains`."""
+    gains = {family: np.full(s.shape[0], np.nan) for family in FAMILIES}
+    if options.lack_of_fit_alpha <= 0 or "mixed" not in out:
+        return gains
+    probe_rows = rows[(best[rows] != "none") & out["mixed"]["converged"][rows]]
+    for family in FAMILIES:
+        if not probe_rows.size or (family == "tight_binding" and enzyme is not None):
+            continue
+        name = extension_of("mixed", family)
+        probe = _empty_model(name, s.shape[0], n_obs)
+        result, lower, upper = _solve_extended(name, out, s, i, v, mask, w, probe_rows,
+                                               max_iterations)
+        _fill_from_engine(probe, name, probe_rows, result, s, i, mask, lower, upper, level,
+                          determination_factor)
+        if fallback:
+            _refit_extended(probe, name, probe_rows, s, i, v, mask, w, out, level,
+                            determination_factor, enzyme)
+        # As inhibkin.mechanism.fit.extension_gains: mixed's SSR is no larger than any
+        # nested law's, and a gain below the exact-fit scale is rounding.
+        lowest = functools.reduce(np.fmin, [np.where(out[n]["converged"], out[n]["ssr"], np.nan)
+                                            for n in MODEL_NAMES if n in out])
+        reference = {**out["mixed"], "ssr": lowest}
+        p_gain = _f_tests({"mixed": reference, name: probe}, "mixed", name, exact_ssr)[1]
+        ssr = [np.where(x > exact_ssr, x, 0.0) for x in (lowest, probe["ssr"])]
+        gains[family] = np.where(ssr[0] - ssr[1] > exact_ssr, p_gain, np.nan)
+    return gains
+
+
 def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w, rows,
                n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
-               max_iterations, relative):
+               max_iterations, relative, enzyme=None, fallback=False):
     """Rule 5 of :mod:`inhibkin.core.compare` for every compound, as
     :func:`inhibkin.mechanism.fit.extended_verdict` applies it to one: the lack-of-fit test
-    of the verdict's model; the extended laws fitted (by the engine) for the compounds
-    that fail it, and :func:`~inhibkin.core.compare.decide_extended` on each. Updates the
-    verdict arrays, ``out`` and ``p_values`` in place; returns the lack-of-fit rows."""
+    of the verdict's model; the extended laws of every family fitted (by the engine) for
+    the compounds that fail it or meet the tight-binding rule, and
+    :func:`~inhibkin.core.compare.decide_extended` on each. Updates the verdict arrays,
+    ``out`` and ``p_values`` in place; returns the lack-of-fit rows."""
     tables = []
     for name in (n for n in MODEL_NAMES if n in out):
         at = rows[(best[rows] == name) & out[name]["converged"][rows]]
         if at.size:
             tables.append(_lack_rows(out[name], at, s, i, v, mask, w, exact_ssr, relative))
     tested = pd.concat(tables, ignore_index=True) if tables else _LACK_COLUMNS.copy()
-    failing = tested["p_value"].to_numpy(dtype=float) < options.lack_of_fit_alpha
-    fail = np.sort(tested["compound"].to_numpy(dtype=int)[failing])
+    tested = tested.sort_values("compound", ignore_index=True)
+    compounds = tested["compound"].to_numpy(dtype=int)
+    p_tested = dict(zip(compounds, tested["p_value"].to_numpy(dtype=float)))
+    tight, lowest = _tight_binding_inputs(out, best, i, mask, compounds)
+    given = (lambda c: None) if enzyme is None else (lambda c: float(enzyme[c]))
+    gains = _extension_gains(out, best, s, i, v, mask, w, compounds, n_obs, exact_ssr,
+                             options, level, determination_factor, max_iterations, enzyme,
+                             fallback)
+    due = np.array([options.lack_of_fit_alpha > 0
+                    and (p_tested[c] < options.lack_of_fit_alpha
+                         or needs_tight_binding(tight[n], given(c))
+                         or (best[c] != "none" and bool(extension_signs(
+                             {f: p[c] for f, p in gains.items()}, tight[n], lowest[n],
+                             options, given(c)))))
+                    for n, c in enumerate(compounds)], bool)
+    fail = compounds[due]
+    for n, c in enumerate(compounds):
+        if due[n]:
+            continue
+        # The tight-binding signs that need no extended fit (rule 5 of compare).
+        decided = decide_extended(
+            Verdict(verdict[c], best[c], candidates[c], reason[c]),
+            lack_of_fit_p=p_tested[c], pattern="", p_value=lambda a, b: np.nan,
+            converged=lambda m: False, aicc=lambda m: np.inf,
+            extended_lack_of_fit_p=lambda m: np.nan, options=options, enzyme=given(c),
+            tight_constant=tight[n], lowest_inhibitor=lowest[n])
+        verdict[c], best[c], candidates[c], reason[c] = \
+            decided.verdict, decided.best, decided.candidates, decided.reason
     b = s.shape[0]
-    classical = [n for n in MODEL_NAMES if n in out]
-    order = [extension_of(n) for n in classical if extension_of(n) not in out]
+    order = [n for n in EXTENDED_MODELS if MODELS[n].extends in out and n not in out]
     # Every chunk carries every extended law (empty where no compound tried it), so the
     # chunks join key by key.
-    for name in sorted(order, key=lambda n: n == extension_of("mixed")):
-        res = _empty_model(name, b, n_obs)
+    for name in order:
+        res = _empty_model(name, b, n_obs, enzyme)
         if fail.size:
             result, lower, upper = _solve_extended(name, out, s, i, v, mask, w, fail,
-                                                   max_iterations)
+                                                   max_iterations, enzyme)
             _fill_from_engine(res, name, fail, result, s, i, mask, lower, upper, level,
                               determination_factor)
+            if fallback:
+                _refit_extended(res, name, fail, s, i, v, mask, w, out, level,
+                                determination_factor, enzyme)
             tables.append(_lack_rows(res, fail[res["converged"][fail]], s, i, v, mask, w,
                                      exact_ssr, relative))
         criteria = information_criteria(res["ssr"], n_obs, res["n_params"], sum_log_w)
@@ -824,13 +957,14 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
     p_values.clear()
     p_values.update({**nested, **fixed})
     if not fail.size:
-        return tested.sort_values("compound", ignore_index=True)
+        return tested
     lack = pd.concat(tables, ignore_index=True)
     p_lof = {(c, m): p for c, m, p in zip(lack["compound"], lack["model"], lack["p_value"])}
     patterns = dict(zip(fail, residual_pattern(
         np.stack([_weighted_residuals(out[best[c]], np.array([c]), s, i, v, mask, w,
                                       relative)[0]
                   for c in fail]), s[fail], mask[fail])))
+    position = {c: n for n, c in enumerate(compounds)}
 
     def p_of(small, large, c):
         pair = p_values.get((small, large))
@@ -844,7 +978,8 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
             converged=lambda name, c=c: name in out and bool(out[name]["converged"][c]),
             aicc=lambda name, c=c: float(out[name]["aicc"][c]),
             extended_lack_of_fit_p=lambda name, c=c: p_lof.get((c, name), np.nan),
-            options=options)
+            options=options, enzyme=given(c), tight_constant=tight[position[c]],
+            lowest_inhibitor=lowest[position[c]])
         verdict[c], best[c], candidates[c], reason[c] = \
             decided.verdict, decided.best, decided.candidates, decided.reason
     return lack.sort_values(["compound"], kind="stable", ignore_index=True)
@@ -916,7 +1051,8 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
                          models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0,
                          level=0.95, determination_factor=DETERMINATION_FACTOR, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None,
-                         chunk_size=None, lack_of_fit_alpha=LACK_OF_FIT_ALPHA) -> MechanismBatch:
+                         chunk_size=None, lack_of_fit_alpha=LACK_OF_FIT_ALPHA,
+                         enzyme=None) -> MechanismBatch:
     """Fit every mechanism to every compound of padded arrays and decide between them.
 
     Parameters
@@ -954,6 +1090,9 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
         :data:`inhibkin.engine.chunks.DEFAULT_CHUNK_SIZE` on a client).
     lack_of_fit_alpha : float
         Level of the lack-of-fit test (rule 5 of :mod:`inhibkin.core.compare`; 0 turns it off).
+    enzyme : array_like, shape (B,), optional
+        The active enzyme concentration of every compound, in the inhibitor's unit
+        (all given, or None): the tight-binding laws hold [E] there.
 
     Returns
     -------
@@ -975,11 +1114,15 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     v = np.asarray(v, dtype=float).reshape(s.shape)
     mask = np.ones(s.shape, bool) if mask is None else np.asarray(mask, bool).reshape(s.shape)
     sd = None if sd is None else np.asarray(sd, dtype=float).reshape(s.shape)
+    if enzyme is not None:
+        enzyme = np.broadcast_to(np.asarray(enzyme, dtype=float), s.shape[:1]).copy()
+        if not (np.all(np.isfinite(enzyme)) and np.all(enzyme > 0)):
+            raise DataError("enzyme: give one positive concentration per compound (or none)")
     options = dict(weighting=weighting, models=tuple(models), alpha=alpha,
                    min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor, level=level,
                    determination_factor=determination_factor, fallback=fallback,
                    max_iterations=max_iterations, lack_of_fit_alpha=lack_of_fit_alpha)
-    arrays = (s, i, v, mask, sd)
+    arrays = (s, i, v, mask, sd, enzyme)
     parts = run_chunks(_fit_chunk, arrays, options, client=client, chunk_size=chunk_size)
     return concat_batches(parts)
 
@@ -1002,18 +1145,22 @@ def _array_table(arrays, key) -> pd.DataFrame:
     return pd.DataFrame(dict(zip(_ARRAY_COLUMNS, columns)))
 
 
-def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition):
-    """Validated per-compound arrays, or the DataError text for each bad compound."""
-    groups, labels, errors = [], [], []
+def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition,
+               enzyme=None):
+    """Validated per-compound arrays, each compound's active enzyme concentration (NaN
+    when not given), or the DataError text for each bad compound."""
+    groups, labels, errors, enzymes = [], [], [], []
     for key, item in items:
+        given = None
         try:
             if isinstance(item, pd.DataFrame):
-                sc, ic, vc, sdc, _ = molar_grid(item, substrate=substrate,
-                                                inhibitor=inhibitor, rate=rate,
-                                                sd=sd if weighting in SD_WEIGHTINGS else None,
-                                                need_inhibition=need_inhibition,
-                                                context=f"compound {key!r}",
-                                                allow_zero_sd=weighting == "rate_se")
+                sc, ic, vc, sdc, units = molar_grid(
+                    item, substrate=substrate, inhibitor=inhibitor, rate=rate,
+                    sd=sd if weighting in SD_WEIGHTINGS else None,
+                    need_inhibition=need_inhibition, context=f"compound {key!r}",
+                    allow_zero_sd=weighting == "rate_se")
+                given = enzyme_concentration(item, enzyme, units["inhibitor"],
+                                             f"compound {key!r}")
                 index = item.index
             else:
                 sc, ic, vc, sdc = check_grid(_array_table(item, key), substrate="substrate",
@@ -1023,16 +1170,20 @@ def _as_groups(items, substrate, inhibitor, rate, sd, weighting, need_inhibition
                                              context=f"compound {key!r}",
                                              allow_zero_sd=weighting == "rate_se")
                 index = pd.RangeIndex(len(vc))
+                given = None if enzyme is None else enzyme_concentration(
+                    pd.DataFrame(), enzyme, None, f"compound {key!r}")
         except DataError as exc:
             groups.append((np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0)))
             labels.append(pd.RangeIndex(0))
             errors.append(str(exc))
+            enzymes.append(np.nan)
             continue
         sdc = np.ones_like(vc) if sdc is None else sdc
         groups.append((sc, ic, vc, sdc))
         labels.append(index)
         errors.append("")
-    return groups, labels, errors
+        enzymes.append(np.nan if given is None else given)
+    return groups, labels, errors, np.array(enzymes, dtype=float)
 
 
 def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="inhibitor",
@@ -1041,7 +1192,7 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
                          alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0, level=0.95,
                          determination_factor=DETERMINATION_FACTOR, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None, chunk_size=None,
-                         lack_of_fit_alpha=LACK_OF_FIT_ALPHA):
+                         lack_of_fit_alpha=LACK_OF_FIT_ALPHA, enzyme=None):
     """:func:`inhibkin.mechanism.fit.fit_mechanisms` (Wald intervals) for many compounds at once.
 
     Parameters
@@ -1059,6 +1210,9 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
         :func:`fit_mechanism_arrays`.
     fallback, max_iterations, client, chunk_size, lack_of_fit_alpha : see
         :func:`fit_mechanism_arrays`.
+    enzyme : float or str, optional
+        As :func:`~inhibkin.mechanism.fit.fit_mechanisms` (a number, text with its unit, or
+        a column; a table's ``enzyme_<unit>`` column is read when it is None).
 
     Returns
     -------
@@ -1081,30 +1235,38 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
                min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
                determination_factor=determination_factor, lack_of_fit_alpha=lack_of_fit_alpha)
     need_inhibition = any(m != "none" for m in models)
-    groups, labels, errors = _as_groups(items, substrate, inhibitor, rate, sd, weighting,
-                                        need_inhibition)
+    groups, labels, errors, enzymes = _as_groups(items, substrate, inhibitor, rate, sd,
+                                                 weighting, need_inhibition, enzyme)
     if not groups:
         return {} if is_mapping else []
     s, i, v, sdv, mask = pad(groups)
     if s.shape[1] == 0:
         s, i, v, sdv = (np.zeros((len(groups), 1)) for _ in range(4))
         mask = np.zeros((len(groups), 1), bool)
-    batch = fit_mechanism_arrays(s, i, v, mask,
-                                 sd=sdv if weighting in SD_WEIGHTINGS else None,
-                                 weighting=weighting, models=models, alpha=alpha,
-                                 min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
-                                 level=level,
-                                 determination_factor=determination_factor, fallback=fallback,
-                                 max_iterations=max_iterations, client=client,
-                                 chunk_size=chunk_size, lack_of_fit_alpha=lack_of_fit_alpha)
-    fits = []
+    fits = [None] * len(groups)
+    # Compounds with [E] given and without it are two batches: a given [E] is held, so
+    # their tight-binding laws have one fitted parameter fewer.
+    given = np.isfinite(enzymes)
+    for part in (np.flatnonzero(~given), np.flatnonzero(given)):
+        if not part.size:
+            continue
+        batch = fit_mechanism_arrays(
+            s[part], i[part], v[part], mask[part],
+            sd=sdv[part] if weighting in SD_WEIGHTINGS else None, weighting=weighting,
+            models=models, alpha=alpha, min_delta_aicc=min_delta_aicc,
+            alpha_factor=alpha_factor, level=level, determination_factor=determination_factor,
+            fallback=fallback, max_iterations=max_iterations, client=client,
+            chunk_size=chunk_size, lack_of_fit_alpha=lack_of_fit_alpha,
+            enzyme=enzymes[part] if given[part[0]] else None)
+        for n, c in enumerate(part):
+            fits[c] = batch.mechanism_fit(n, labels[c])
     for c, error in enumerate(errors):
-        fit = batch.mechanism_fit(c, labels[c])
+        fit = fits[c]
         if error:
             fit = MechanismFit("failed", None, (), error, fit.models, fit.comparison,
                                fit.ftests, fit.data, fit.weighting, fit.options,
                                fit.lack_of_fit)
-        fits.append(fit)
+        fits[c] = fit
     if is_mapping:
         return {key: fit for (key, _), fit in zip(items, fits)}
     return fits

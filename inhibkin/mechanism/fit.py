@@ -1,7 +1,8 @@
 """Which reversible mechanism, and how tight: every model fitted, compared, decided.
 
 :func:`fit_mechanisms` fits all five rate laws of :mod:`inhibkin.core.models` globally to one
-compound's substrate × inhibitor grid, compares them (:mod:`inhibkin.core.compare`) and
+compound's substrate × inhibitor grid (and the extended families' laws when rule 5 asks
+for them), compares them (:mod:`inhibkin.core.compare`) and
 returns a :class:`MechanismFit` holding the verdict and every table that justified it.
 """
 
@@ -9,29 +10,32 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass, field
+from functools import partial
 
 import numpy as np
 import pandas as pd
 
-from ..core.bounds import NESTED_FAR_FACTOR
+from ..core.bounds import NESTED_FAR_FACTOR, classical_limit
 from ..core.compare import (
     EXACT_FIT_RTOL,
+    TIGHT_BINDING_FACTOR,
     TIME_DEPENDENT,
     Verdict,
     VerdictOptions,
     comparison_table,
     decide,
     decide_extended,
+    extension_signs,
     f_test,
     f_test_table,
     time_dependent_verdict,
 )
 from ..core.determined import DETERMINATION_FACTOR
 from ..core.lack_of_fit import LACK_OF_FIT_ALPHA, lack_of_fit, residual_pattern
-from ..core.models import MODEL_NAMES, MODELS, extension_of, nested_start
+from ..core.models import EXTENDED_MODELS, FAMILIES, MODEL_NAMES, MODELS, extension_of, nested_start
 from ..core.options import FitOptions
 from ..core.readonly import readonly_frame, readonly_mapping
-from ..core.starts import log_bounds, starting_values
+from ..core.starts import extra_start, log_bounds, mechanism_starts, starting_values
 from ..core.weighting import (
     DEFAULT_WEIGHTING,
     REWEIGHT_ITERATIONS,
@@ -46,12 +50,15 @@ from ..core.weighting import (
 from ..display.text import text_table
 from ..errors import DataError
 from ..rates.time_dependence import flagged_inhibited
-from ..units import header_column, to_molar
-from ..validate import check_grid
+from ..units import header_column, parse_concentration, to_molar
+from ..validate import check_grid, check_options
 from .one_model import ModelFit, fit_model, fixed_alpha_ssr
 
 __all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "DEFAULT_WEIGHTING",
-           "relative_weights", "mixed_starts", "molar_grid", "with_time_dependence"]
+           "relative_weights", "enzyme_concentration", "extended_starts",
+           "needs_tight_binding", "tight_binding_inputs", "extension_gains", "mixed_starts",
+           "molar_grid",
+           "with_time_dependence"]
 
 
 
@@ -224,47 +231,76 @@ def lack_of_fit_rows(fits, names, s, i, w, exact_ssr=0.0, relative=False) -> pd.
     return pd.DataFrame(rows, columns=_LACK_OF_FIT_FRAME.columns)
 
 
-def extended_starts(name, fits, s, i, v, w) -> list[dict]:
-    """Starts of the extended law ``name``: its automatic start, the classical law's
-    solution with ksi at the largest substrate level, and (for mixed's extension) each
-    nested extension's solution, so that its SSR is no larger than theirs."""
+def extended_starts(name, fits, s, i, v, w, enzyme=None) -> list[dict]:
+    """Starts of the extended law ``name``: its automatic start; the classical law's
+    solution with the family's constant at its start (:func:`inhibkin.core.starts.
+    extra_start`) and at its classical limit (:func:`inhibkin.core.bounds.classical_limit`),
+    so that its SSR is no
+    larger than the classical one; and each nested law of its family's solution."""
     law = MODELS[name]
-    starts = [starting_values(name, s, i, v, w)]
+    rows = [x[None] for x in (s, i, v)]
+    everywhere = np.ones((1, len(s)), bool)
+    held = None if enzyme is None else np.array([enzyme])
+    starts = [dict(zip(law.param_names, mechanism_starts(name, *rows, everywhere, w[None],
+                                                         held)[0]))]
+    extra = law.param_names[-1]
     classical = fits.get(law.extends)
     if classical is not None and classical.converged:
-        starts.append({**classical.best_values, "ksi": float(np.max(s))})
+        low, high = log_bounds(name, s, i, v)[extra]
+        for value in (extra_start(law.roles[-1], *rows[:2], everywhere)[0],
+                      classical_limit(law.roles[-1], low, high)):
+            starts.append({**classical.best_values, extra: float(value)})
     for small, fit in fits.items():
-        if fit.converged and name in MODELS[small].nests_in and MODELS[small].extends:
+        if (fit.converged and name in MODELS[small].nests_in
+                and MODELS[small].family == law.family):
             far = float(np.exp(log_bounds(name, s, i, v)["kic"][1])) / NESTED_FAR_FACTOR \
                 if "kic" in law.param_names else float(np.max(s))
             starts.append(nested_start(small, fit.best_values, name, far))
     return starts
 
 
+def tight_binding_inputs(fits, best, i):
+    """(tight_constant, lowest_inhibitor) of rule 5: the tightest ranking constant of the
+    classical verdict's model ``best`` (NaN without one) and the lowest non-zero
+    inhibitor level."""
+    positive = i[i > 0]
+    lowest = float(positive.min()) if positive.size else np.nan
+    fit = fits.get(best) if best else None
+    if fit is None or not fit.converged or not MODELS[best].ranking:
+        return np.nan, lowest
+    return float(fit.params.loc[list(MODELS[best].ranking), "estimate"].min()), lowest
+
+
 def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_ssr,
-                     relative=False):
+                     relative=False, enzyme=None):
     """Rule 5 of :mod:`inhibkin.core.compare` on one compound: the lack-of-fit test of the
-    verdict's model and, when it fails, the extended laws fitted and decided.
+    verdict's model and, when it fails (or the tight-binding rule applies), the extended
+    laws of every family fitted and decided.
 
     Returns the verdict, every fit, the F-tests of the new pairs and the lack-of-fit rows.
     """
     tested = lack_of_fit_rows(fits, [verdict.best] if verdict.best else [], s, i, w,
                               exact_ssr, relative)
     none = (verdict, fits, None, tested)
-    if not len(tested) or not tested["p_value"].iloc[0] < options.lack_of_fit_alpha:
+    if not len(tested) or options.lack_of_fit_alpha <= 0:
         return none
+    p_lof = float(tested["p_value"].iloc[0])
+    tight, lowest = tight_binding_inputs(fits, verdict.best, i)
+    decide = partial(decide_extended, verdict, lack_of_fit_p=p_lof, options=options,
+                     enzyme=enzyme, tight_constant=tight, lowest_inhibitor=lowest)
+    signs = verdict.best != "none" and extension_signs(
+        extension_gains(fits, s, i, v, w, exact_ssr, enzyme), tight, lowest, options, enzyme)
+    if not (p_lof < options.lack_of_fit_alpha or needs_tight_binding(tight, enzyme) or signs):
+        out = decide(pattern="", p_value=lambda a, b: np.nan, converged=lambda m: False,
+                     aicc=lambda m: np.inf, extended_lack_of_fit_p=lambda m: np.nan)
+        return (out, fits, None, tested) if out is not verdict else none
     extended = {}
-    for name in fits:
-        ext = extension_of(name)
-        if ext is not None and ext != extension_of("mixed"):
-            extended[ext] = fit_model(ext, s, i, v, w,
-                                      starts=extended_starts(ext, {**fits, **extended},
-                                                             s, i, v, w), **common)
-    general = extension_of("mixed")
-    if "mixed" in fits:
-        extended[general] = fit_model(general, s, i, v, w,
-                                      starts=extended_starts(general, {**fits, **extended},
-                                                             s, i, v, w), **common)
+    for name in EXTENDED_MODELS:
+        law = MODELS[name]
+        if law.extends in fits and name not in extended:
+            extended[name] = fit_model(name, s, i, v, w, enzyme=enzyme,
+                                       starts=extended_starts(name, {**fits, **extended},
+                                                              s, i, v, w, enzyme), **common)
     every = {**fits, **extended}
     every = {name: every[name] for name in MODELS if name in every}
     # Every nested pair, then the classical fixed-alpha tests (rule 4), as before.
@@ -276,17 +312,46 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
                                     relative).set_index("model")
     pattern = residual_pattern((w * fits[verdict.best].residuals)[None], s[None],
                                np.ones((1, len(s)), bool))[0]
-    out = decide_extended(
-        verdict, lack_of_fit_p=float(tested["p_value"].iloc[0]), pattern=pattern,
-        p_value=lambda reduced, full: _p_of(tests, reduced, full),
+    out = decide(
+        pattern=pattern, p_value=lambda reduced, full: _p_of(tests, reduced, full),
         converged=lambda name: name in converged,
         aicc=lambda name: float(comparison.loc[name, "aicc"]) if name in converged
         else np.inf,
         extended_lack_of_fit_p=lambda name: float(extended_lof.loc[name, "p_value"])
-        if name in extended_lof.index else np.nan,
-        options=options)
+        if name in extended_lof.index else np.nan)
     rows = pd.concat([tested, extended_lof.reset_index()], ignore_index=True)
     return out, every, tests, rows
+
+
+def extension_gains(fits, s, i, v, w, exact_ssr, enzyme=None) -> dict:
+    """Per family, the p-value of the F-test of mixed against the family's general law (a
+    quick probe with Wald intervals; [E] fitted; NaN when mixed did not converge, and for
+    tight binding with [E] given, which adds no constant)."""
+    mixed = fits.get("mixed")
+    gains = {}
+    for family in FAMILIES:
+        name = extension_of("mixed", family)
+        if mixed is None or not mixed.converged or (family == "tight_binding"
+                                                    and enzyme is not None):
+            gains[family] = np.nan
+            continue
+        probe = fit_model(name, s, i, v, w, intervals="wald",
+                          starts=extended_starts(name, fits, s, i, v, w))
+        # Mixed's SSR is no larger than that of any law nested in it (an optimiser that
+        # stopped short on a ridge can leave it above); a gain below the exact-fit scale
+        # is rounding (noise-free data), not a gain.
+        ssr = [min(x.ssr for x in fits.values() if x.converged and x.model in MODEL_NAMES),
+               probe.ssr]
+        ssr = [x if x > exact_ssr else 0.0 for x in ssr]
+        real = probe.converged and ssr[0] - ssr[1] > exact_ssr
+        gains[family] = f_test(ssr[0], mixed.dof, ssr[1], probe.dof)[1] if real else np.nan
+    return gains
+
+
+def needs_tight_binding(tight_constant, enzyme) -> bool:
+    """The tight-binding rule: [E] given and the classical constant below
+    TIGHT_BINDING_FACTOR × [E]."""
+    return enzyme is not None and tight_constant < TIGHT_BINDING_FACTOR * enzyme
 
 
 def _p_of(tests, reduced, full):
@@ -367,6 +432,47 @@ def with_time_dependence(fit: MechanismFit, flags) -> MechanismFit:
     return dataclasses.replace(fit, verdict=verdict.verdict, reason=verdict.reason)
 
 
+def enzyme_concentration(df, enzyme, inhibitor_unit, context=None):
+    """The active enzyme concentration of one compound's grid, in the fitted inhibitor's
+    unit (M when the inhibitor's header declares a unit), or None.
+
+    Parameters
+    ----------
+    df : pandas.DataFrame
+        The grid; a column ``enzyme_<unit>`` (or ``enzyme (unit)``) is read when
+        ``enzyme`` is None, and must hold one positive value.
+    enzyme : float, str or None
+        A number (in the inhibitor's unit as fitted), text with its unit (``"20nM"``,
+        converted to M: the inhibitor's header must then declare a unit), or the name of
+        a column.
+    inhibitor_unit : str or None
+        The unit the inhibitor's header declares.
+    """
+    columns = getattr(df, "columns", ())
+    column = None
+    if enzyme is None or (isinstance(enzyme, str) and enzyme in columns):
+        column, unit = header_column(columns, "enzyme" if enzyme is None else enzyme)
+        if column not in columns:
+            return None
+        values = pd.to_numeric(df[column], errors="coerce").to_numpy(dtype=float)
+        if not (np.all(np.isfinite(values)) and np.all(values > 0)
+                and np.all(values == values[0])):
+            raise DataError(f"column {column!r}: the active enzyme concentration must be "
+                            "one positive number per compound", context)
+        value = to_molar(values[0], unit) if unit else values[0]
+        molar = unit is not None
+    elif isinstance(enzyme, str):
+        value, molar = parse_concentration(enzyme), True
+    else:
+        value, molar = float(enzyme), inhibitor_unit is not None
+    check_options({"enzyme": value})
+    if molar and inhibitor_unit is None:
+        raise DataError(f"enzyme {enzyme if column is None else column!r} has a unit but "
+                        "the inhibitor column declares none: declare it (inhibitor_uM)",
+                        context)
+    return float(value)
+
+
 def relative_weights(s, i, v) -> np.ndarray:
     """Residual multipliers 1/v̂ for constant-CV noise, v̂ from the mixed model.
 
@@ -426,7 +532,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                    weighting=None, models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
                    alpha_factor=5.0, intervals="profile", level=0.95,
                    determination_factor=DETERMINATION_FACTOR, flags="flags",
-                   lack_of_fit_alpha=LACK_OF_FIT_ALPHA, context=None) -> MechanismFit:
+                   lack_of_fit_alpha=LACK_OF_FIT_ALPHA, enzyme=None,
+                   context=None) -> MechanismFit:
     """Fit every reversible mechanism to one compound's grid and decide between them.
 
     Parameters
@@ -475,10 +582,22 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         present: when an inhibited well carries ``time_dependent`` the verdict is
         ``time_dependent`` and no constant is reported (:func:`with_time_dependence`).
     lack_of_fit_alpha : float
-        Level of the lack-of-fit test of the verdict's model (default 0.01; 0 turns it
-        off). When the model fails it, the laws with substrate inhibition are fitted and
-        decided (rule 5 of :mod:`inhibkin.core.compare`): the verdict names one
-        ("competitive with substrate inhibition") or is ``inadequate``.
+        Level of the lack-of-fit test of the verdict's model (default 0.01; 0 turns rule
+        5 off). When the model fails it, a family's general law beats mixed at
+        ``VerdictOptions.probe_alpha`` (0.001), or a given [E] is within 10× of
+        the constant, the extended laws (substrate inhibition, tight binding, partial
+        inhibition) are fitted and decided (rule 5 of :mod:`inhibkin.core.compare`):
+        the verdict names one
+        ("competitive with substrate inhibition", "competitive, tight binding",
+        "partial mixed") or is ``inadequate``.
+    enzyme : float or str, optional
+        The active enzyme concentration [E]: a number in the inhibitor's unit as fitted
+        (M when its header declares a unit), text with its unit (``"20nM"``), or a
+        column; without it a column ``enzyme_<unit>`` is read when present. The
+        tight-binding laws then hold [E] there, and a classical constant below
+        :data:`~inhibkin.core.compare.TIGHT_BINDING_FACTOR` (10) × [E] sends the verdict
+        to them (Morrison 1969, BBA 185:269). Without [E] they fit it, and a constant
+        below the lowest non-zero inhibitor level makes the verdict ``ambiguous``.
     context : str, optional
         Name of the compound, used in error messages.
 
@@ -514,10 +633,11 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     if unknown:
         raise DataError(f"unknown models {unknown}; known: {', '.join(MODELS)}", context)
     need_inhibition = any(m != "none" for m in models)
-    s, i, v, sigma, _ = molar_grid(df, substrate=substrate, inhibitor=inhibitor, rate=rate,
-                                   sd=sd if weighting in SD_WEIGHTINGS else None,
-                                   need_inhibition=need_inhibition, context=context,
-                                   allow_zero_sd=weighting == "rate_se")
+    s, i, v, sigma, units = molar_grid(df, substrate=substrate, inhibitor=inhibitor,
+                                       rate=rate, sd=sd if weighting in SD_WEIGHTINGS else None,
+                                       need_inhibition=need_inhibition, context=context,
+                                       allow_zero_sd=weighting == "rate_se")
+    enzyme = enzyme_concentration(df, enzyme, units["inhibitor"], context)
     if weighting == "rate_se":
         everywhere = np.ones((1, len(v)), bool)
         w = rate_se_weights(s[None], i[None], v[None], sigma[None], everywhere)[0]
@@ -535,7 +655,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                   determination_factor=fit_options.determination_factor)
     for name in models:
         starts = mixed_starts(fits, s, i, v, w) if name == "mixed" else None
-        fits[name] = fit_model(name, s, i, v, w, starts=starts, **common)
+        fits[name] = fit_model(name, s, i, v, w, starts=starts, enzyme=enzyme, **common)
     # The table order is the models' own order, whatever order they were fitted in.
     fits = {name: fits[name] for name in MODELS if name in fits}
     comparison = comparison_table(fits)
@@ -547,7 +667,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     verdict: Verdict = decide(comparison, ftests, options)
     verdict, every, tests, lack = extended_verdict(verdict, fits, ftests, s, i, v, w, options,
                                                    common, exact_ssr,
-                                                   relative=weighting == "relative")
+                                                   relative=weighting == "relative",
+                                                   enzyme=enzyme)
     if tests is not None:
         fits, comparison, ftests = every, comparison_table(every), tests
     data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},

@@ -157,6 +157,7 @@ class _Problem:
     w: np.ndarray
     lower: np.ndarray
     upper: np.ndarray
+    held: tuple = ()
 
     def residual(self, theta):
         law = MODELS[self.model]
@@ -169,12 +170,19 @@ class _Problem:
         return -self.w[:, None] * law.jacobian(self.s, self.i, *p) * p[None, :]
 
 
-def _make_problem(model, s, i, v, w) -> _Problem:
+def _make_problem(model, s, i, v, w, enzyme=None) -> _Problem:
+    """The problem of ``model``; with ``enzyme`` given, a tight-binding law's [E] is held
+    there (its log is the only value between its bounds)."""
     bounds = log_bounds(model, s, i, v)
-    names = MODELS[model].param_names
-    lower = np.array([bounds[n][0] for n in names])
-    upper = np.array([bounds[n][1] for n in names])
-    return _Problem(model, s, i, v, w, lower, upper)
+    law = MODELS[model]
+    lower = np.array([bounds[n][0] for n in law.param_names])
+    upper = np.array([bounds[n][1] for n in law.param_names])
+    held = ()
+    if enzyme is not None and "enzyme" in law.roles:
+        j = law.roles.index("enzyme")
+        lower[j] = upper[j] = np.log(enzyme)
+        held = (j,)
+    return _Problem(model, s, i, v, w, lower, upper, held)
 
 
 def _solve(problem: _Problem, theta0, tie_matrix=None, offset=None, *, tol=_TOL,
@@ -187,8 +195,14 @@ def _solve(problem: _Problem, theta0, tie_matrix=None, offset=None, *, tol=_TOL,
     theta or None, success, message).
     """
     k = len(theta0)
-    A = np.eye(k) if tie_matrix is None else tie_matrix
-    b = np.zeros(k) if offset is None else offset
+    A = np.eye(k) if tie_matrix is None else tie_matrix.copy()
+    b = np.zeros(k) if offset is None else offset.copy()
+    for j in problem.held:
+        # A held constant moves with no free variable: its row goes, and any column
+        # left empty by that.
+        A[j] = 0.0
+        b[j] = problem.lower[j]
+        A = A[:, np.any(A != 0, axis=0)]
     # Bounds of a free variable: those of the first parameter it sets.
     owner = [int(np.flatnonzero(A[:, m])[0]) for m in range(A.shape[1])]
     phi0 = np.linalg.lstsq(A, np.asarray(theta0) - b, rcond=None)[0]
@@ -220,7 +234,7 @@ def _solve(problem: _Problem, theta0, tie_matrix=None, offset=None, *, tol=_TOL,
     theta = A @ phi + b
     ssr = float(np.sum(problem.residual(theta) ** 2))
     covariance = None
-    if result.covar is not None and A.shape[1] == k:
+    if result.covar is not None and A.shape[1] == k - len(problem.held):
         covariance = A @ np.asarray(result.covar) @ A.T
     success = bool(result.success) and np.isfinite(ssr)
     return theta, ssr, covariance, success, str(result.message)
@@ -265,6 +279,9 @@ def _intervals(problem, theta_hat, ssr, se_log, method, level, dof):
     target = ssr * (1 + stats.f.ppf(level, 1, dof) / dof)
     low, high = np.empty(k), np.empty(k)
     for j in range(k):
+        if j in problem.held:
+            low[j] = high[j] = np.nan
+            continue
         step = se_log[j] if np.isfinite(se_log[j]) and se_log[j] > 0 else _PROFILE_FIRST_STEP
         low[j] = _profile_limit(problem, theta_hat, target, j, -1, step)
         high[j] = _profile_limit(problem, theta_hat, target, j, +1, step)
@@ -296,7 +313,7 @@ def _failed_fit(model, n_obs, message, level, method) -> ModelFit:
 
 
 def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile", level=0.95,
-              determination_factor=DETERMINATION_FACTOR) -> ModelFit:
+              determination_factor=DETERMINATION_FACTOR, enzyme=None) -> ModelFit:
     """Fit one rate law to one compound's points (inputs already validated).
 
     Parameters
@@ -318,6 +335,11 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
         concentration (or km above this multiple of the largest substrate
         concentration) is reported as a bound, not determined; the whole rule is
         :func:`inhibkin.core.determined.determined_flags`.
+    enzyme : float, optional
+        The active enzyme concentration (inhibitor's unit): a tight-binding law's [E]
+        is held there (not counted among the fitted parameters; reported with no
+        standard error or interval, and as not determined, being given). Ignored by the
+        other laws.
 
     Returns
     -------
@@ -329,13 +351,17 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
     law = MODELS[model]
     n = len(v)
     w = np.ones(n) if weights is None else np.asarray(weights, dtype=float)
+    problem = _make_problem(model, s, i, v, w, enzyme)
     k = law.n_params
-    if n < k:
-        return _failed_fit(model, n, f"{n} points cannot determine {k} parameters", level,
-                           intervals)
-    problem = _make_problem(model, s, i, v, w)
+    n_free = k - len(problem.held)
+    if n < n_free:
+        return _failed_fit(model, n, f"{n} points cannot determine {n_free} parameters",
+                           level, intervals)
     if starts is None:
         starts = [starting_values(model, s, i, v, w)]
+    if problem.held:
+        starts = [{**start, **{law.param_names[j]: enzyme for j in problem.held}}
+                  for start in starts]
     best = None
     for start in starts:
         theta0 = np.log([start[p] for p in law.param_names])
@@ -346,7 +372,7 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
     theta, ssr, covariance, success, message = best
     if not success:
         return _failed_fit(model, n, f"optimiser did not converge: {message}", level, intervals)
-    dof = n - k
+    dof = n - n_free
     with np.errstate(invalid="ignore"):
         se_log = np.sqrt(np.diag(covariance)) if covariance is not None else np.full(k, np.nan)
     estimate = np.exp(theta)
@@ -360,6 +386,9 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
          "determined": determined},
         index=pd.Index(law.param_names, name="parameter"),
     )
+    for j in problem.held:
+        # Given, not estimated: no standard error and no interval.
+        table.iloc[j, table.columns.get_indexer(["se", "ci_low", "ci_high"])] = np.nan
     for d, both in zip(law.derived, flags[k:]):
         a, b = law.param_names.index(d.denominator), law.param_names.index(d.numerator)
         se_ratio = np.nan
@@ -373,8 +402,8 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
         ratio = float(np.exp(theta[b] - theta[a]))
         table.loc[d.name] = [ratio, ratio * se_ratio, lo, hi, bool(both)]
     fitted = law.rate(s, i, *estimate)
-    criteria = information_criteria(ssr, n, k, float(np.sum(np.log(w))))
-    return ModelFit(model, table, n, k, ssr, criteria["loglik"], criteria["aic"],
+    criteria = information_criteria(ssr, n, n_free, float(np.sum(np.log(w))))
+    return ModelFit(model, table, n, n_free, ssr, criteria["loglik"], criteria["aic"],
                     criteria["aicc"], criteria["bic"], True, message, fitted, v - fitted,
                     level, intervals, covariance)
 

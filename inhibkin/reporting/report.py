@@ -26,6 +26,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..core.models import MODELS
 from ..display import figures, sketch
 from ..display.html import (
     ENVIRONMENT,
@@ -102,6 +103,9 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
     comparison["converged"] = ["yes" if c else "no" for c in comparison["converged"]]
     section["fit"] = {
         "verdict": fit.verdict, "reason": fit.reason, "best": fit.best,
+        # Which family of laws the verdict's model belongs to, and its equation.
+        "family": MODELS[fit.best].family.replace("_", " ") if fit.best in MODELS else "",
+        "equation": MODELS[fit.best].equation if fit.best in MODELS else "",
         "candidates": ", ".join(fit.candidates), "basis": fit.basis,
         "weighting": fit.weighting,
         "alpha": fit.options.alpha, "min_delta_aicc": fit.options.min_delta_aicc,
