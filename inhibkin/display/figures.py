@@ -72,8 +72,11 @@ __all__ = [
 #: Markers and line styles by inhibitor level (cycled when there are more levels).
 LEVEL_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "h")
 LEVEL_LINES = ("-", "--", "-.", ":", (0, (5, 1, 1, 1)), (0, (1, 2)), (0, (8, 2)), (0, (3, 3)))
-#: Hatch patterns, handed to the models in their registry order (cycled).
-HATCH_PATTERNS = ("", "//", "\\\\", "xx", "..", "++", "oo", "--", "||", "**")
+#: Hatch patterns, handed to the models in their registry order (distinct while there
+#: are no more models than patterns; tests/test_figures.py checks it).
+HATCH_PATTERNS = ("", "//", "\\\\", "xx", "..", "++", "oo", "--", "||", "**",
+                  "/o", "\\o", "x.", "+o", "-.", "|*", "/.", "\\*", "x-", "+|",
+                  "O", "O.", "o-", "*-")
 #: Hatch pattern per model (bar charts stay readable in grey).
 MODEL_HATCHES = {name: HATCH_PATTERNS[k % len(HATCH_PATTERNS)]
                  for k, name in enumerate(MODELS)}
