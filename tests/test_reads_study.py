@@ -2,15 +2,18 @@
 
 The many-plate study runs under ``make validate``; here two plates of one truth go
 through the whole flow, and the simulator's early rate is checked against the
-steady-state law of dead-end inhibition (textbook; `from memory`).
+steady-state law of dead-end inhibition (textbook; `from memory`). Three rapid-equilibrium
+plates of the study keep their grids free of the rates stage's ``time_dependent`` flag.
 """
 
 import numpy as np
 import pandas as pd
 import pytest
-from grid_ode import READ_INTERVAL, Mechanism, product_curve
+from grid_ode import READ_INTERVAL, Mechanism, plate, product_curve
 
+import inhibkin as ik
 from benchmarks import reads_study
+from inhibkin.core.compare import TIME_DEPENDENT
 
 # Over the first read interval the substrate falls by < 0.1 % and the pre-steady state
 # lasts ~1/(k1·S + k_1 + kcat) < 1 ms, so the mean rate matches the law to this.
@@ -37,3 +40,31 @@ def test_two_plates_run_through_every_route():
     assert set(table["truth"]) == {"competitive", "all"}
     assert len(table) == 2 * len(reads_study.ROUTES)
     assert np.all(table["plates"] == 2)
+
+
+# Reads-study plates (rapid-equilibrium mass action, 3 % read noise), each of which an
+# inhibited well or two of flagged `time_dependent` before the flag tested the slopes
+# themselves (inhibkin/rates/time_dependence.py); the competitive one had two flagged
+# wells, and its grid was called time_dependent.
+RAPID_PLATES = [("competitive", 20261230), ("noncompetitive", 20263218), ("mixed", 20264215)]
+
+
+@pytest.fixture(scope="session")
+def rapid_rates():
+    """The default route's rates tables (linear method) of RAPID_PLATES, read once."""
+    tables = {}
+    for truth, seed in RAPID_PLATES:
+        reads, plate_map = plate(reads_study.TRUTHS[truth], seed)
+        tables[truth] = ik.initial_rates(reads, plate_map,
+                                         conversion=ik.BeerLambert(reads_study.EPSILON),
+                                         **reads_study.COLUMNS).table
+    return tables
+
+
+@pytest.mark.parametrize("truth", [t for t, _ in RAPID_PLATES])
+def test_rapid_equilibrium_reads_are_not_time_dependent(rapid_rates, truth):
+    table = rapid_rates[truth]
+    flagged = table["flags"].fillna("").str.contains("time_dependent")
+    assert not flagged.any()
+    fit = ik.fit_mechanisms(table, **reads_study.COLUMNS)
+    assert fit.verdict != TIME_DEPENDENT
