@@ -260,9 +260,10 @@ class EngineFitter:
     here over the whole batch at once) is complete or incomplete and whose IC50 lies
     within the tested range. Every other curve is fitted again by the engine as the lmfit
     path fits it (within its bounds, from its first start) and kept when that converges
-    or finds the curve inactive: an inactive curve reports only its IC50 bound and the
-    efficacy read off its data (:func:`~inhibkin.core.curve_class.observed_efficacy`),
-    the same whichever minimum either optimiser found. What remains is refitted by the
+    or finds the curve inactive with finite estimates: an inactive curve reports only its
+    IC50 bound and the efficacy read off its data
+    (:func:`~inhibkin.core.curve_class.observed_efficacy`), the same whichever minimum
+    either optimiser found. What remains is refitted by the
     lmfit path, and its compound is recorded in :attr:`refitted`.
 
     With ``intervals="profile"`` every curve takes the lmfit path (the engine gives
