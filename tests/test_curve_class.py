@@ -7,13 +7,18 @@ import pandas as pd
 import pytest
 
 from inhibkin.campaign import fit_campaign
-from inhibkin.core.curve_class import CURVE_CLASSES, CurveClassRules, classify_curves
+from inhibkin.core.curve_class import (
+    CURVE_CLASSES,
+    CurveClassRules,
+    classify_curves,
+    observed_efficacy,
+)
 from inhibkin.core.logistic import logistic4
 from inhibkin.demo import DEMO_DATA
 from inhibkin.display.text import ranking_ki_unit
 from inhibkin.engine import fit_logistic_batch
 from inhibkin.errors import DataError
-from inhibkin.potency.curve import fit_dose_response
+from inhibkin.potency.curve import dose_response_from_estimates, fit_dose_response
 from inhibkin.rates.plates import percent_activity, plate_qc
 from inhibkin.units import from_molar, significant_text
 
@@ -114,6 +119,41 @@ def test_engine_and_lmfit_path_share_the_rule():
     assert classes.curve_class[2] == "inactive"
     assert set(classes.curve_class) <= set(CURVE_CLASSES)
     assert "4 curves" in classes.summary() and len(classes.to_frame()) == 4
+
+
+def test_inactive_efficacy_is_the_mean_at_the_top_concentration():
+    # Hand-checked: the two wells at 10 read 90 and 86 % activity, mean 88, so 12 % of
+    # the 0–100 control window is removed; their standard deviation is sqrt(8) and the
+    # standard error of the mean sqrt(8) / sqrt(2) = 2 %.
+    conc = np.repeat([0.01, 0.1, 1.0, 10.0], 2)
+    y = np.array([101.0, 99.0, 98.0, 102.0, 100.0, 97.0, 90.0, 86.0])
+    efficacy, std_err, rise, n_points = observed_efficacy(
+        np.log10(conc)[None, :], y[None, :], np.ones((1, 8), bool), full_activity=100.0,
+        falling_only=True)
+    assert efficacy[0] == pytest.approx(0.12, abs=1e-12)
+    assert std_err[0] == pytest.approx(0.02, abs=1e-12)
+    assert rise[0] == pytest.approx(-0.12, abs=1e-12) and n_points[0] == 2
+    # Without a full-activity level the mean at the lowest concentration (100) stands in,
+    # its standard error (sqrt(2) / sqrt(2) = 1 %) added in quadrature: sqrt(5) %.
+    _, std_err, _, _ = observed_efficacy(np.log10(conc), y, np.ones(8, bool))
+    assert std_err[0] == pytest.approx(np.sqrt(5) / 100, abs=1e-12)
+    fit = fit_dose_response(conc, y, direction="falling", full_activity=100.0,
+                            intervals="wald")
+    assert fit.curve_class == "inactive"
+    assert fit.class_reason.startswith(
+        "inactive: 12 ± 2 % of the control window removed at the highest concentration "
+        "(mean of 2 points), below 25 %"), fit.class_reason
+    # Two minima of a flat curve (a step at 20 past the top, a shallow slope reaching
+    # the top dose) report the same, being read off the data.
+    for estimates in ({"top": 100.0, "bottom": 88.0, "log_ic50": 0.5, "hill": 20.0},
+                      {"top": 100.5, "bottom": 60.0, "log_ic50": 1.6, "hill": 0.4}):
+        other = dose_response_from_estimates(conc, y, estimates, direction="falling",
+                                             full_activity=100.0, converged=False)
+        assert other.curve_class == "inactive"
+        assert other.class_reason == fit.class_reason
+        # No estimate of an inactive curve is reported: where the optimiser stopped is
+        # no flag of it.
+        assert "not_converged" not in other.flags
 
 
 def test_rules_are_checked():

@@ -45,6 +45,13 @@ at the limit
     |hill| within :data:`AT_LIMIT_RTOL` of the bound the fit imposed (20 on the lmfit
     path): the slope was stopped by the bound, not set by the data.
 
+The class is decided on the fitted curve; what an *inactive* curve reports is read off
+the data instead (:func:`observed_efficacy`): the mean response at the highest tested
+concentration against the control window, with its standard error. A flat curve's 4PL
+fit has several minima of nearly equal SSR, so its value at the highest concentration
+depends on which optimiser ran and from where; the mean of the points there does not,
+and the lmfit path and the batched engine report the same numbers.
+
 The rule is written once, vectorised over (curves, points) with a mask; the lmfit path
 (:mod:`inhibkin.potency.curve`) classifies a batch of one, the batched engine
 (:mod:`inhibkin.engine.dose_response`) a batch of many.
@@ -62,7 +69,7 @@ from ..errors import DataError, Problem
 from .logistic import logistic4
 
 __all__ = ["CURVE_CLASSES", "CurveClassRules", "CurveClasses", "classify_curves",
-           "AT_LIMIT_RTOL"]
+           "observed_efficacy", "AT_LIMIT_RTOL"]
 
 #: The classes, from the most to the least informative curve.
 CURVE_CLASSES = ("complete", "incomplete", "single_point", "inactive")
@@ -132,7 +139,10 @@ class CurveClasses:
     x_min, x_next, x_max : numpy.ndarray, shape (B,)
         Lowest, second-highest and highest tested log10 concentration.
     reason : numpy.ndarray of str, shape (B,)
-        The class in words.
+        The class in words (an inactive curve's from the data, :func:`observed_efficacy`).
+    observed_efficacy, observed_efficacy_se : numpy.ndarray, shape (B,)
+        The fraction of the control window removed by the highest concentration read
+        off the data, and its standard error (:func:`observed_efficacy`).
     """
 
     curve_class: np.ndarray
@@ -148,6 +158,8 @@ class CurveClasses:
     x_next: np.ndarray = field(repr=False)
     x_max: np.ndarray = field(repr=False)
     reason: np.ndarray = field(repr=False)
+    observed_efficacy: np.ndarray = field(repr=False)
+    observed_efficacy_se: np.ndarray = field(repr=False)
 
     def __len__(self) -> int:
         return len(self.curve_class)
@@ -156,7 +168,8 @@ class CurveClasses:
         """One row per curve."""
         return pd.DataFrame({name: getattr(self, name) for name in (
             "curve_class", "efficacy", "efficacy_next", "efficacy_lowest", "p_flat",
-            "top_seen", "bottom_seen", "hill_at_limit", "below_range", "reason")})
+            "top_seen", "bottom_seen", "hill_at_limit", "below_range", "observed_efficacy",
+            "observed_efficacy_se", "reason")})
 
     def summary(self) -> str:
         counts = pd.Series(self.curve_class).value_counts()
@@ -171,6 +184,76 @@ def _per_curve(value, n_batch, default):
     if value is None:
         return np.full(n_batch, default, dtype=float)
     return np.broadcast_to(np.asarray(value, dtype=float), (n_batch,)).astype(float)
+
+
+def _mean_at(x, y, mask, at):
+    """Mean, standard error of the mean and count of the points of each curve at ``at``."""
+    here = mask & (x == at[:, None])
+    n = here.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.sum(np.where(here, y, 0.0), axis=1) / n
+        spread = np.sum(np.where(here, (y - mean[:, None]) ** 2, 0.0), axis=1)
+        se = np.sqrt(spread / (n - 1) / n)
+    return mean, np.where(n > 1, se, np.nan), n
+
+
+def observed_efficacy(x, y, mask, *, full_activity=None, zero_activity=0.0,
+                      falling_only=False):
+    """The efficacy of every curve of a batch read off the data, not off a fit.
+
+    The mean response at the highest tested concentration (its replicates) against the
+    control window: (full − mean) / (full − zero), floored at 0 with ``falling_only``
+    (only a move towards zero activity counts) and taken as a magnitude otherwise, the
+    same reading as the fitted curve's efficacy of :func:`classify_curves`. Without a
+    full-activity level the mean at the lowest concentration stands in for it, and its
+    standard error enters the efficacy's.
+
+    Parameters
+    ----------
+    x, y, mask : array_like, shape (B, n)
+        log10 concentrations, responses and real points, as for :func:`classify_curves`.
+    full_activity, zero_activity : float or array_like of shape (B,), optional
+        Response at full and at zero activity (100 and 0 for percent activity).
+    falling_only : bool
+        The responses are activity, which an inhibitor can only lower.
+
+    Returns
+    -------
+    efficacy : numpy.ndarray, shape (B,)
+        Fraction of the control window removed (0 without a usable window).
+    std_err : numpy.ndarray, shape (B,)
+        Its standard error from the replicates' spread (NaN with one point there).
+    rise : numpy.ndarray, shape (B,)
+        (mean at the highest − mean at the lowest concentration) / window: how far the
+        activity climbs across the range (0 without a usable window).
+    n_points : numpy.ndarray of int, shape (B,)
+        Points at the highest concentration.
+    """
+    x = np.atleast_2d(np.asarray(x, dtype=float))
+    y = np.asarray(y, dtype=float).reshape(x.shape)
+    mask = np.asarray(mask, bool).reshape(x.shape) & np.isfinite(x) & np.isfinite(y)
+    n_batch = x.shape[0]
+    x_min = np.where(mask, x, np.inf).min(axis=1)
+    x_max = np.where(mask, x, -np.inf).max(axis=1)
+    high, high_se, n_high = _mean_at(x, y, mask, x_max)
+    low, low_se, _ = _mean_at(x, y, mask, x_min)
+    zero = _per_curve(zero_activity, n_batch, 0.0)
+    if full_activity is None:
+        full, full_se = low, low_se
+    else:
+        full, full_se = _per_curve(full_activity, n_batch, np.nan), np.zeros(n_batch)
+    window = full - zero
+    valid = np.isfinite(window) & (window > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        moved = full - high
+        efficacy = np.clip(moved, 0.0, None) if falling_only else np.abs(moved)
+        efficacy = efficacy / window
+        std_err = np.sqrt(high_se ** 2 + full_se ** 2) / window
+        rise = (high - low) / window
+    efficacy = np.where(valid & np.isfinite(efficacy), efficacy, 0.0)
+    std_err = np.where(valid, std_err, np.nan)
+    rise = np.where(valid & np.isfinite(rise), rise, 0.0)
+    return efficacy, std_err, rise, n_high
 
 
 def classify_curves(x, y, mask, estimate, *, weights=None, n_free=4, full_activity=None,
@@ -238,7 +321,6 @@ def classify_curves(x, y, mask, estimate, *, weights=None, n_free=4, full_activi
         efficacy_next = moved(full - y_next) / window
         efficacy_lowest = (moved(full - y_low) / window if have_full
                            else np.zeros(n_batch))
-        rise = np.where(np.isfinite(window) & (window > 0), (y_high - y_low) / window, 0.0)
     # No usable window, or a failed fit (NaN estimates): nothing seen.
     valid = np.isfinite(window) & (window > 0)
     efficacy, efficacy_next, efficacy_lowest = (
@@ -285,8 +367,12 @@ def classify_curves(x, y, mask, estimate, *, weights=None, n_free=4, full_activi
     curve_class = np.select([complete, incomplete, single], CURVE_CLASSES[:3],
                             default="inactive").astype(object)
     below_range = below_range & active
-    # Activity that rises across the range by at least what would count as efficacy.
-    rising = falling_only & (np.nan_to_num(rise) >= rules.min_efficacy) & trend
+    observed, observed_se, observed_rise, n_top = observed_efficacy(
+        x, y, mask, full_activity=full_activity, zero_activity=zero_activity,
+        falling_only=falling_only)
+    # An inactive curve is described by its data (module docstring); the rise that
+    # makes it activation is that of the means, by at least what would count as efficacy.
+    rising = falling_only & (observed_rise >= rules.min_efficacy)
     percent = np.round(100 * efficacy).astype(int)
     reason = np.empty(n_batch, dtype=object)
     for b in range(n_batch):
@@ -306,15 +392,26 @@ def classify_curves(x, y, mask, estimate, *, weights=None, n_free=4, full_activi
             reason[b] = (f"activity at the highest concentration only ({percent[b]} % "
                          f"removed there, {round(100 * efficacy_next[b])} % at the next)")
         elif rising[b]:
-            reason[b] = (f"inactive: activity rises with concentration (by "
-                         f"{round(100 * rise[b])} % of the control window across the tested "
-                         f"range): activation, no inhibition")
-        elif efficacy[b] < rules.min_efficacy:
-            reason[b] = (f"inactive: {percent[b]} % of the control window removed by the "
-                         f"highest concentration (below {100 * rules.min_efficacy:g} %)")
+            reason[b] = (f"inactive: activity rises with concentration (the mean at the "
+                         f"highest concentration {round(100 * observed_rise[b])} % of the "
+                         f"control window above that at the lowest): activation, no "
+                         f"inhibition")
         else:
-            reason[b] = (f"inactive: the curve is not distinguishable from a flat line "
-                         f"(p = {p_flat[b]:.2g} ≥ {rules.flat_alpha:g})")
+            removed = _percent_with_se(observed[b], observed_se[b])
+            reason[b] = (f"inactive: {removed} % of the control window removed at the "
+                         f"highest concentration ("
+                         + (f"mean of {n_top[b]} points)" if n_top[b] > 1 else "one point)")
+                         + (f", below {100 * rules.min_efficacy:g} %"
+                            if observed[b] < rules.min_efficacy else
+                            f"; the curve is not distinguishable from a flat line "
+                            f"(F-test p ≥ {rules.flat_alpha:g})"))
     return CurveClasses(curve_class, efficacy, efficacy_next, efficacy_lowest, p_flat,
                         top_seen, bottom_seen, np.broadcast_to(hill_at_limit, (n_batch,)),
-                        below_range, x_min, x_next, x_max, reason)
+                        below_range, x_min, x_next, x_max, reason, observed, observed_se)
+
+
+def _percent_with_se(fraction, std_err) -> str:
+    """``12 ± 3`` (percent, whole numbers; the value alone without a standard error)."""
+    if not np.isfinite(std_err):
+        return f"{round(100 * fraction)}"
+    return f"{round(100 * fraction)} ± {round(100 * std_err)}"

@@ -183,9 +183,12 @@ def _fixed(value, n_batch):
     return values, np.isfinite(values)
 
 
-def _fit_chunk(x, y, mask, weights, top, bottom, *, level, max_iterations, ftol, xtol, gtol):
+def _fit_chunk(x, y, mask, weights, top, bottom, lower, upper, start, *, level,
+               max_iterations, ftol, xtol, gtol):
     n_batch = x.shape[0]
-    start = logistic_starts(x, y, mask) if n_batch else np.zeros((0, 4))
+    if start is None:
+        start = logistic_starts(x, y, mask) if n_batch else np.zeros((0, 4))
+    start = start.copy()
     free = np.ones((n_batch, 4), bool)
     hold_top, hold_bottom = np.isfinite(top), np.isfinite(bottom)
     start[hold_top, 0] = top[hold_top]
@@ -194,8 +197,8 @@ def _fit_chunk(x, y, mask, weights, top, bottom, *, level, max_iterations, ftol,
     few_levels = count_unique(x, mask & np.isfinite(x)) < 2
     theta0 = np.where(np.isfinite(start), start, 0.0)
     result = lm.solve(_Logistic(), theta0, (x,), y, mask=mask & ~few_levels[:, None],
-                      weights=weights, free=free, max_iterations=max_iterations, ftol=ftol,
-                      xtol=xtol, gtol=gtol)
+                      weights=weights, lower=lower, upper=upper, free=free,
+                      max_iterations=max_iterations, ftol=ftol, xtol=xtol, gtol=gtol)
     status = result.status.copy()
     reason = result.reason
     status[few_levels] = lm.FAILED_DATA
@@ -214,6 +217,7 @@ def _fit_chunk(x, y, mask, weights, top, bottom, *, level, max_iterations, ftol,
 
 
 def fit_logistic_batch(x, y, mask=None, *, fix_top=None, fix_bottom=None, weights=None,
+                       lower=None, upper=None, start=None,
                        level=0.95, max_iterations=lm.MAX_ITERATIONS, ftol=lm.FTOL,
                        xtol=lm.XTOL, gtol=lm.GTOL, client=None,
                        chunk_size=None) -> LogisticBatch:
@@ -231,6 +235,14 @@ def fit_logistic_batch(x, y, mask=None, *, fix_top=None, fix_bottom=None, weight
         Hold top and/or bottom at these values (NaN entries leave that curve free).
     weights : array_like, shape (B, n), optional
         Residual multipliers 1/σ (default 1).
+    lower, upper : array_like, shape (B, 4), optional
+        Bounds on top, bottom, log_ic50 and hill (default none; ±inf leaves one open),
+        kept by projection (:func:`inhibkin.engine.lm.solve`). The Wald intervals of a
+        parameter at a bound are those of the unbounded problem there.
+    start : array_like, shape (B, 4), optional
+        Starting values (default the automatic starts of
+        :func:`inhibkin.engine.starts.logistic_starts`); a held top or bottom starts at
+        its value.
     level : float
         Confidence level of the Wald intervals.
     max_iterations : int
@@ -267,10 +279,14 @@ def fit_logistic_batch(x, y, mask=None, *, fix_top=None, fix_bottom=None, weight
         np.asarray(weights, dtype=float).reshape(x.shape)
     top, _ = _fixed(fix_top, x.shape[0])
     bottom, _ = _fixed(fix_bottom, x.shape[0])
+    lower, upper = (None if b is None else
+                    np.broadcast_to(np.asarray(b, dtype=float), (x.shape[0], 4)).copy()
+                    for b in (lower, upper))
+    start = None if start is None else np.asarray(start, dtype=float).reshape(x.shape[0], 4)
     if x.shape[1] == 0:
         x, y, weights = (np.zeros((x.shape[0], 1)) for _ in range(3))
         mask = np.zeros(x.shape, bool)
-    parts = run_chunks(_fit_chunk, (x, y, mask, weights, top, bottom),
+    parts = run_chunks(_fit_chunk, (x, y, mask, weights, top, bottom, lower, upper, start),
                        dict(level=level, max_iterations=max_iterations, ftol=ftol, xtol=xtol,
                             gtol=gtol), client=client,
                        chunk_size=chunk_size)

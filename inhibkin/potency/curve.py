@@ -368,7 +368,9 @@ def _build_dose_response(curve: Curve, phi, ssr, converged, message, *, conc, co
         curve, est, n_free=k, direction=direction, hill_range=hill_range,
         min_points_each_side=min_points_each_side, partial_efficacy=partial_efficacy,
         full_activity=full_activity, zero_activity=zero_activity, curve_rules=curve_rules)
-    if not converged:
+    # An inactive curve reports no estimate (its IC50 is a bound, its efficacy read off
+    # the data): where its flat SSR surface stopped the optimiser changes nothing reported.
+    if not converged and kind != "inactive":
         flags.insert(0, "not_converged")
     fixed = ~curve.free
     missing = {n: why for n, why in missing.items() if curve.free[PARAM_NAMES.index(n)]}

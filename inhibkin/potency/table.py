@@ -258,8 +258,13 @@ class EngineFitter:
     converged strictly inside the bounds to a falling curve whose class
     (:func:`~inhibkin.core.curve_class.classify_curves`, the rule the lmfit path applies,
     here over the whole batch at once) is complete or incomplete and whose IC50 lies
-    within the tested range; every other curve is refitted by the lmfit path, and its
-    compound is recorded in :attr:`refitted`.
+    within the tested range. Every other curve is fitted again by the engine as the lmfit
+    path fits it (within its bounds, from its first start) and kept when that converges
+    or finds the curve inactive with finite estimates: an inactive curve reports only its
+    IC50 bound and the efficacy read off its data
+    (:func:`~inhibkin.core.curve_class.observed_efficacy`), the same whichever minimum
+    either optimiser found. What remains is refitted by the
+    lmfit path, and its compound is recorded in :attr:`refitted`.
 
     With ``intervals="profile"`` every curve takes the lmfit path (the engine gives
     Wald intervals only), and none is counted as refitted.
@@ -299,28 +304,70 @@ class EngineFitter:
             zero_activity=class_options.get("zero_activity", 0.0),
             hill_limit=_HILL_MAX, falling_only=True,
             rules=class_options.get("curve_rules", DEFAULT_RULES))
-        out = {}
+        out, unsettled = {}, []
         for k, name in enumerate(names):
-            conc, response = curves[name]
             estimates = dict(zip(batch.names, batch.estimate[k]))
             x_min, x_max = x[k, mask[k]].min(), x[k, mask[k]].max()
             inside = (bool(batch.converged[k]) and 0.0 < estimates["hill"] < _HILL_MAX
                       and x_min - _LOG_IC50_MARGIN < estimates["log_ic50"]
                       < x_max + _LOG_IC50_MARGIN
                       and classes.curve_class[k] in CURVE_CLASSES[:2])
-            if inside:
-                # potency_table checked the curves; the flags follow _default_fitter's.
-                fit = _from_estimates(
-                    conc, response, np.ones_like(response), _fixed(fix_top, fix_bottom),
-                    estimates, level=level, compound=name, converged=True,
-                    message=f"batched engine: {batch.reason[k]}", direction="falling",
-                    hill_range=HILL_RANGE, min_points_each_side=MIN_POINTS_EACH_SIDE,
-                    partial_efficacy=PARTIAL_EFFICACY_FRACTION, **class_options)
-                if fit.ic50_bound is None and "rising" not in fit.flags:
-                    out[name] = fit
-                    continue
-            self.refitted.append(name)
-            out.update(_default_fitter({name: curves[name]}, **options))
+            fit = (self._fit(curves[name], estimates, batch.reason[k], name, fix_top,
+                             fix_bottom, level, class_options) if inside else None)
+            if fit is not None and fit.ic50_bound is None and "rising" not in fit.flags:
+                out[name] = fit
+            else:
+                unsettled.append(k)
+        out.update(self._bounded(curves, names, unsettled, x, y, mask, options))
+        return {name: out[name] for name in names}
+
+    @staticmethod
+    def _fit(curve, estimates, reason, name, fix_top, fix_bottom, level, class_options,
+             converged=True):
+        """The DoseResponseFit of an engine solution (the flags follow _default_fitter's;
+        potency_table checked the curves)."""
+        conc, response = curve
+        return _from_estimates(
+            conc, response, np.ones_like(response), _fixed(fix_top, fix_bottom), estimates,
+            level=level, compound=name, converged=bool(converged),
+            message=f"batched engine: {reason}", direction="falling", hill_range=HILL_RANGE,
+            min_points_each_side=MIN_POINTS_EACH_SIDE,
+            partial_efficacy=PARTIAL_EFFICACY_FRACTION, **class_options)
+
+    def _bounded(self, curves, names, rows, x, y, mask, options) -> dict:
+        """The curves ``rows`` fitted again as the lmfit path fits them: within its bounds
+        and from its first start; those this neither converges nor finds inactive go to
+        the lmfit path."""
+        from ..engine import fit_logistic_batch
+        from ..engine.starts import logistic_starts
+
+        if not rows:
+            return {}
+        x, y, mask = x[rows], y[rows], mask[rows]
+        x_min = np.where(mask, x, np.inf).min(axis=1)
+        x_max = np.where(mask, x, -np.inf).max(axis=1)
+        lower = np.stack([np.full(len(rows), -np.inf), np.full(len(rows), -np.inf),
+                          x_min - _LOG_IC50_MARGIN, np.zeros(len(rows))], axis=1)
+        upper = np.stack([np.full(len(rows), np.inf), np.full(len(rows), np.inf),
+                          x_max + _LOG_IC50_MARGIN, np.full(len(rows), _HILL_MAX)], axis=1)
+        start = logistic_starts(x, y, mask)
+        start[:, 3] = 1.0  # the lmfit path's start of a falling curve
+        batch = fit_logistic_batch(x, y, mask, fix_top=options["fix_top"],
+                                   fix_bottom=options["fix_bottom"], lower=lower,
+                                   upper=upper, start=start, level=options["level"])
+        out = {}
+        for k, row in enumerate(rows):
+            name = names[row]
+            fit = self._fit(curves[name], dict(zip(batch.names, batch.estimate[k])),
+                            batch.reason[k], name, options["fix_top"], options["fix_bottom"],
+                            options["level"], options["class_options"], batch.converged[k])
+            # An inactive curve reports nothing its minimum sets (its efficacy is read
+            # off the data), so any finite solution settles it, converged or not.
+            if batch.converged[k] or (fit.curve_class == "inactive" and np.isfinite(fit.ssr)):
+                out[name] = fit
+            else:
+                self.refitted.append(name)
+                out.update(_default_fitter({name: curves[name]}, **options))
         return out
 
 
