@@ -1,4 +1,4 @@
-"""A grid fit on time-dependent wells says so (rule 5 of inhibkin.core.compare).
+"""A grid fit on time-dependent wells says so (rule 6 of inhibkin.core.compare).
 
 Reads from the mass-action ODE of tests/td_ode.py (solve_ivp, LSODA, rtol 1e-10, each
 curve solved once per session), through the rates stage (``initial_rates``, which flags

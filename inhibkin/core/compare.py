@@ -151,7 +151,7 @@ class Verdict:
     Attributes
     ----------
     verdict : str
-        A mechanism name, ``"ambiguous"``, ``"failed"`` or ``"time_dependent"`` (rule 5).
+        A mechanism name, ``"ambiguous"``, ``"failed"`` or ``"time_dependent"`` (rule 6).
     best : str or None
         The model whose parameters the verdict reports (for ``ambiguous``, the best by
         AICc among the candidates; None for ``failed``; for ``time_dependent`` the

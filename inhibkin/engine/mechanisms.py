@@ -517,10 +517,13 @@ def _fill_from_lmfit(out, c, fit: ModelFit):
     out["fallback"][c] = True
     out["reason"][c] = _MESSAGE_FALLBACK + fit.message
     out["converged"][c] = fit.converged
-    table = fit.params
+    # The lmfit path leaves out a derived quantity (alpha) it could not compute, e.g. for
+    # a fit that did not converge: its row is missing (NaN, not determined) here too.
+    table = fit.params.reindex(list(out["names"]))
     for key, col in (("estimate", "estimate"), ("se", "se"), ("ci_low", "ci_low"),
-                     ("ci_high", "ci_high"), ("determined", "determined")):
-        out[key][c] = table[col].to_numpy()
+                     ("ci_high", "ci_high")):
+        out[key][c] = table[col].to_numpy(float)
+    out["determined"][c] = table["determined"].eq(True).to_numpy()
     out["ssr"][c] = fit.ssr
     with np.errstate(divide="ignore", invalid="ignore"):
         out["theta"][c] = np.log(table["estimate"].to_numpy()[:k])
