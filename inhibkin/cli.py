@@ -760,23 +760,25 @@ class _DoseColumns:
 def _rank_arguments(parser):
     parser.add_argument("--grid", help="substrate × inhibitor rate table")
     parser.add_argument("--dose-response", help="dose-response well table")
-    parser.add_argument("--time-dependent", metavar="READS",
-                        help="kinetic reads of time-dependent compounds (compound, well, "
-                             "time, signal, inhibitor), ranked in their own table")
+    _time_dependent_arguments(parser, "ranked in their own table")
     parser.add_argument("--time-dependent-output", metavar="PATH",
                         help="the time-dependent ranking (needed with --time-dependent): "
                              "covalent by log10(kinact/KI), or with --reversible slow "
                              "binding by Ki* with residence time")
-    parser.add_argument("--reversible", action="store_true",
-                        help="the --time-dependent compounds bind slowly and reversibly")
-    _time_dependent_substrate_arguments(parser)
     _fit_arguments(parser)
     _rate_column_argument(parser)
     _enzyme_conc_argument(parser)
     _dose_arguments(parser)
 
 
-def _time_dependent_substrate_arguments(parser):
+def _time_dependent_arguments(parser, where):
+    """--time-dependent READS (ranked apart, ``where`` says how), --reversible and the
+    assay's S and Km: the same options on rank and report."""
+    parser.add_argument("--time-dependent", metavar="READS",
+                        help="kinetic reads of time-dependent compounds (compound, well, "
+                             f"time, signal, inhibitor), {where}")
+    parser.add_argument("--reversible", action="store_true",
+                        help="the --time-dependent compounds bind slowly and reversibly")
     parser.add_argument("--time-dependent-substrate", metavar="CONC",
                         help="substrate concentration of the --time-dependent assay with its "
                              "unit (e.g. 100uM), for KI = KI,app/(1 + S/Km); with "
@@ -806,7 +808,7 @@ def _time_dependent_ranking(args):
     from .inputs.io import read_table
     from .time_dependent import fit_time_dependent_ranking
 
-    substrate, km = _substrate_and_km(args.time_dependent_substrate, args.time_dependent_km)
+    substrate, km, _ = _assay_concentrations(args.time_dependent_substrate, args.time_dependent_km)
     if (substrate is None) != (km is None):
         raise DataError(Problem("--time-dependent-km", None, km,
                                 "give --time-dependent-substrate and --time-dependent-km "
@@ -848,12 +850,7 @@ def _report_arguments(parser):
     parser.add_argument("--grid", help="substrate × inhibitor rate table")
     parser.add_argument("--dose-response", help="dose-response well table")
     parser.add_argument("--ranking", help="also write the ranked table (.csv or .parquet)")
-    parser.add_argument("--time-dependent", metavar="READS",
-                        help="kinetic reads of time-dependent compounds (compound, well, "
-                             "time, signal, inhibitor): their own ranked section")
-    parser.add_argument("--reversible", action="store_true",
-                        help="the --time-dependent compounds bind slowly and reversibly")
-    _time_dependent_substrate_arguments(parser)
+    _time_dependent_arguments(parser, "their own ranked section")
     parser.add_argument("--rate-unit", default="", help="label of the rates, e.g. uM/min")
     parser.add_argument("--detail", action="append", metavar="WHICH",
                         help="compounds drawn with the full figures (about a second each; "
@@ -1014,10 +1011,10 @@ def _inactivation_arguments(parser):
     parser.add_argument("--level", type=float, default=0.95)
 
 
-def _substrate_and_km(substrate, km, product_per_signal=None):
+def _assay_concentrations(substrate, km, product_per_signal=None):
     """--substrate-conc, --km (and --product-per-signal) as numbers of one unit: all with
     their units (read in M, as every other stage reads concentrations) or all bare numbers
-    of one unit. Returns (substrate, km) or, with product_per_signal given, all three."""
+    of one unit. Returns (substrate, km, product_per_signal), None where not given."""
     from .units import parse_concentration
     from .validate import check_options
 
@@ -1041,8 +1038,7 @@ def _substrate_and_km(substrate, km, product_per_signal=None):
         values = {option: parse_concentration(text) for option, text in given.items()}
     if "--km" in values:
         check_options({"--km": values["--km"]})
-    pair = values.get("--substrate-conc"), values.get("--km")
-    return pair if product_per_signal is None else (*pair, values["--product-per-signal"])
+    return tuple(values.get(option) for option, _ in options)
 
 
 def _inactivation(args) -> int:
@@ -1056,9 +1052,8 @@ def _inactivation(args) -> int:
     kobs_path = _check_output(args.kobs, "--kobs") if args.kobs else None
     _check_paths({"reads": args.reads}, {"--output": output, "--kobs": kobs_path})
     check_options({"--level": args.level})
-    substrate, km, *depletion = _substrate_and_km(args.substrate_conc, args.km,
-                                                  args.product_per_signal)
-    product_per_signal = depletion[0] if depletion else None
+    substrate, km, product_per_signal = _assay_concentrations(args.substrate_conc, args.km,
+                                                          args.product_per_signal)
     reads = read_table(args.reads, text_columns=[args.compound])
     if args.compound in reads.columns:
         groups = list(reads.groupby(args.compound, sort=False))
