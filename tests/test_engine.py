@@ -366,6 +366,19 @@ def test_4pl_agrees_with_curve_fit(capsys):
     assert compared >= 0.9 * N_CURVES
 
 
+def test_4pl_started_at_its_solution_stops_within_a_few_steps():
+    """At its minimum a problem's steps are at the SSR's rounding: the solver stops there
+    instead of damping them until xtol holds (before: up to ten rejected steps)."""
+    x, y, _ = _simulated_curves(N_CURVES, SEED)
+    fit = fit_logistic_batch(x, y)
+    again = fit_logistic_batch(x, y, start=fit.estimate)
+    assert again.converged.all(), again.summary()
+    assert again.iterations.max() <= 3, np.bincount(again.iterations)
+    for c in range(N_CURVES):
+        _assert_4pl_close(again.estimate[c], fit.estimate[c],
+                          fit.estimate[c, 0] - fit.estimate[c, 1])
+
+
 @pytest.mark.parametrize("fix", ["top", "bottom", "both"])
 def test_4pl_fixed_plateaus(fix):
     x, y, _ = _simulated_curves(20, SEED + 3)
