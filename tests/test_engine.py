@@ -1,5 +1,7 @@
 """The batched engine against certified values, scipy, and the lmfit path it stands in for."""
 
+import warnings
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -22,6 +24,7 @@ from inhibkin.engine.mechanisms import (
 from inhibkin.engine.starts import logistic_starts, mechanism_log_bounds, mechanism_starts
 from inhibkin.mechanism.fit import relative_weights
 from inhibkin.mechanism.one_model import fit_model
+from inhibkin.potency.curve import dose_response_from_estimates
 
 # NIST's yardstick for the certified values: 6 significant digits in the estimates,
 # 4 in the standard errors, and the residual sum of squares to 1e-8.
@@ -364,6 +367,35 @@ def test_4pl_agrees_with_curve_fit(capsys):
     with capsys.disabled():
         print(f"\n4PL: {compared}/{N_CURVES} curves compared with curve_fit")
     assert compared >= 0.9 * N_CURVES
+
+
+# A flat curve (duplicate wells, ten concentrations) of the 2,000-compound benchmark
+# campaign (benchmarks/bench_campaign.py, seed 20261216): fitted without bounds, its
+# midpoint runs about 30 decades below the data, where JᵀJ's top entry is subnormal.
+FLAT_LOG_CONC = [-9.678640308758, -9.350391141042, -9.022141973327, -8.693892805611,
+                 -8.365643637896, -8.03739447018, -7.709145302465, -7.380896134749,
+                 -7.052646967034, -6.724397799318]
+FLAT_RESPONSE = [97.3357635686, 99.5788151632, 87.7959877873, 88.9798311467, 97.4194297595,
+                 89.6717101164, 94.5330052462, 90.4712293628, 97.7059217076, 102.1997942282,
+                 97.0246371069, 103.5982481369, 95.1476952592, 90.5811009023,
+                 101.2105405393, 95.3307926187, 96.7510900526, 93.6355539058,
+                 98.8000741525, 96.2105736125]
+
+
+def test_singular_covariance_is_nan_without_a_warning():
+    """A singular covariance is NaN, as the lmfit path's rule finds it, and computing it
+    raises no RuntimeWarning (before: "overflow encountered in divide", which a campaign
+    wrote into the compound's flags)."""
+    x = np.repeat(FLAT_LOG_CONC, 2)[None]
+    y = np.array(FLAT_RESPONSE)[None]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        fit = fit_logistic_batch(x, y)
+    assert fit.converged[0] and fit.estimate[0, 2] < x.min() - 20, fit.estimate
+    assert np.isnan(fit.se).all() and np.isnan(fit.covariance).all()
+    reference = dose_response_from_estimates(10 ** x[0], y[0],
+                                             dict(zip(PARAM_NAMES, fit.estimate[0])))
+    assert reference.covariance is None
 
 
 def test_4pl_started_at_its_solution_stops_within_a_few_steps():

@@ -242,9 +242,14 @@ def _covariance(a, ssr, n_obs, n_free, free):
         inverse[:, col] = _substitute(low, unit)
     # A near-zero pivot of the unit-diagonal matrix: singular to working precision.
     ok &= np.all(np.stack([inverse[j, j] for j in range(k)]) < 1.0 / _SINGULAR_PIVOT, axis=0)
+    # Undo the scaling only where the matrix is regular: a singular problem's diagonal
+    # can be subnormal (a flat curve whose midpoint went 30 decades past the data:
+    # 1e-320), and dividing its inverse by that overflowed, a RuntimeWarning for a
+    # covariance that is NaN anyway.
+    inverse = np.where(ok, inverse, np.nan)
+    scale = np.where(ok, scale, 1.0)
     variance = ssr / np.maximum(n_obs - n_free, 1)
     cov = inverse / (scale[:, None, :] * scale[None, :, :]) * variance
-    cov = np.where(ok, cov, np.nan)
     return np.where(held[:, None, :] | held[None, :, :], np.nan, cov)
 
 
