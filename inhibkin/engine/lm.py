@@ -49,14 +49,6 @@ MAX_ITERATIONS = 200
 # Starting damping, relative to the diagonal of JᵀJ; small because the automatic starts
 # are usually close enough for near-Gauss–Newton steps.
 _LAMBDA_START = 1e-3
-# A model with a curvature term takes Newton steps only after an accepted step whose gain
-# ratio was within this of 1 (its quadratic model held); from the start, and after a
-# rejected step, Gauss–Newton's. Far from the solution the full Hessian of the 4PL often
-# points the first step the wrong way (a Hill slope of the wrong sign, rejected three or
-# four times); with this rule 100,000 benchmark curves took 5.9 iterations on average
-# instead of 6.7 (0.25: the same mean, seven more curves at the iteration limit; 0.1:
-# 6.6, measured).
-_TRUST_RHO = 0.5
 # Damping beyond which no step can reduce the SSR at double precision.
 _LAMBDA_MAX = 1e16
 # A stalled problem whose gradient cosine is below this counts as converged at machine
@@ -389,11 +381,11 @@ class _Working:
     lam: np.ndarray = None
     nu: np.ndarray = None
     d: np.ndarray = None
-    trust: np.ndarray = None
+    moved: np.ndarray = None
     running: np.ndarray = None
 
     _PER_PROBLEM = ("theta", "y", "w", "lower", "upper", "free", "g", "d", "gram", "curv",
-                    "ssr", "lam", "nu", "trust", "running")
+                    "ssr", "lam", "nu", "moved", "running")
 
     @classmethod
     def merge(cls, parts):
@@ -420,7 +412,7 @@ class _Working:
         self.gram = np.ascontiguousarray(self.gram[:, :, which])
         if self.curv is not None:
             self.curv = np.ascontiguousarray(self.curv[:, :, which])
-        for name in ("ssr", "lam", "nu", "trust", "running"):
+        for name in ("ssr", "lam", "nu", "moved", "running"):
             setattr(self, name, getattr(self, name)[which])
 
 
@@ -490,7 +482,7 @@ def _start(model, st: _Working, status):
     st.running = ~bad
     st.lam = np.full(st.idx.size, _LAMBDA_START)
     st.nu = np.full(st.idx.size, 2.0)
-    st.trust = np.zeros(st.idx.size, dtype=bool)
+    st.moved = np.zeros(st.idx.size, dtype=bool)
     st.d = _diag(st.gram).copy()
     exact = st.running & (st.ssr == 0)
     status[st.idx[exact]] = CONVERGED_EXACT
@@ -525,17 +517,20 @@ def _iterate(model, st: _Working, status, iterations, ssr_out, theta_out, gram_o
         if st.curv is None:
             step, solved = _damped_step(a, g, st.lam, d, held if any_held else None)
         else:
-            # The full Hessian of the SSR/2, JᵀJ − Σ r·∇²f, where the last step trusted it
-            # (_TRUST_RHO) and the damped matrix is positive definite: Newton's quadratic
-            # convergence where Gauss–Newton's is only linear (residuals not small).
-            # Elsewhere the Gauss–Newton step. One factorisation for both kinds; only the
-            # trusted columns whose damped Hessian is not positive definite are solved
-            # again (the arithmetic is element-wise, so a column's step does not depend
-            # on which others are solved with it).
-            hess = np.where(st.trust, a - st.curv, a)
+            # The full Hessian of the SSR/2, JᵀJ − Σ r·∇²f, where the damped matrix is
+            # positive definite: Newton's quadratic convergence where Gauss–Newton's is
+            # only linear (residuals not small). Elsewhere, and until a problem's first
+            # step is accepted, the Gauss–Newton step: at the automatic starts the full
+            # Hessian of the 4PL often points the first step the wrong way (a Hill slope
+            # of the wrong sign, rejected three or four times); 100,000 benchmark curves
+            # took 5.9 iterations on average instead of 6.7 (measured). One factorisation
+            # for both kinds; only the Newton columns whose damped Hessian is not positive
+            # definite are solved again (the arithmetic is element-wise, so a column's
+            # step does not depend on which others are solved with it).
+            hess = np.where(st.moved, a - st.curv, a)
             step, solved = _damped_step(hess, g, st.lam, d, held if any_held else None)
-            newton = solved & st.trust
-            redo = np.flatnonzero(st.trust & ~solved)
+            newton = solved & st.moved
+            redo = np.flatnonzero(st.moved & ~solved)
             if redo.size:
                 step[:, redo], solved[redo] = _damped_step(
                     a[:, :, redo], g[:, redo], st.lam[redo], d[:, redo],
@@ -593,8 +588,7 @@ def _iterate(model, st: _Working, status, iterations, ssr_out, theta_out, gram_o
         with np.errstate(all="ignore"):
             shrink = np.maximum(1.0 / 3.0, 1.0 - (2.0 * rho - 1.0) ** 3)
         rejected = run & ~accept
-        if st.curv is not None:
-            st.trust = np.where(accept, np.abs(rho - 1.0) <= _TRUST_RHO, st.trust & ~rejected)
+        st.moved |= accept
         st.lam = np.where(accept, st.lam * shrink, np.where(rejected, st.lam * st.nu, st.lam))
         st.nu = np.where(accept, 2.0, np.where(rejected, st.nu * 2.0, st.nu))
 
