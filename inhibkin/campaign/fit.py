@@ -125,8 +125,9 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     quiet : bool
         No progress bar (it is also silent when stderr is not a terminal).
     chunk_size : int, optional
-        Compounds per task; by default 32 on the lmfit path and 256 with the batched
-        engine. The answers do not depend on it.
+        Compounds per task; by default 32 on the lmfit path, and with the batched
+        engine 1,024 in this process or 256 on workers or a cluster. The answers do
+        not depend on it.
     keep_fits : bool
         Keep every fit in :attr:`Campaign.fits` and :attr:`Campaign.potency_fits` (turn
         off at very large scale to save memory; the ranking is the same).

@@ -59,7 +59,7 @@ The rule is written once, vectorised over (curves, points) with a mask; the lmfi
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 
 import numpy as np
 import pandas as pd
@@ -163,6 +163,10 @@ class CurveClasses:
 
     def __len__(self) -> int:
         return len(self.curve_class)
+
+    def subset(self, rows) -> CurveClasses:
+        """The classes of the curves ``rows`` (an index array or slice), in that order."""
+        return CurveClasses(**{f.name: getattr(self, f.name)[rows] for f in fields(self)})
 
     def to_frame(self) -> pd.DataFrame:
         """One row per curve."""

@@ -264,16 +264,20 @@ def _logistic_curve(x, y, w, fixed: dict, direction="any") -> Curve:
 
 def _curve_flags(curve: Curve, est, *, n_free, direction, hill_range, min_points_each_side,
                 partial_efficacy, full_activity=None, zero_activity=0.0,
-                curve_rules: CurveClassRules = DEFAULT_RULES):
-    """Flags, the IC50 bound, the curve's class and what the data do not set."""
+                curve_rules: CurveClassRules = DEFAULT_RULES, classes=None):
+    """Flags, the IC50 bound, the curve's class and what the data do not set.
+
+    ``classes`` is the curve's class when a batch already classified it with these
+    options (a one-curve :class:`~inhibkin.core.curve_class.CurveClasses`)."""
     x = curve.x
-    theta = np.array([est[n] for n in PARAM_NAMES])
     hill_limit = max(abs(curve.lower[3]), abs(curve.upper[3]))
-    classes = classify_curves(x[None, :], curve.y[None, :], np.ones((1, x.size), bool),
-                              theta[None, :], weights=curve.w[None, :], n_free=n_free,
-                              full_activity=full_activity, zero_activity=zero_activity,
-                              hill_limit=hill_limit, falling_only=direction == "falling",
-                              rules=curve_rules)
+    if classes is None:
+        theta = np.array([est[n] for n in PARAM_NAMES])
+        classes = classify_curves(x[None, :], curve.y[None, :], np.ones((1, x.size), bool),
+                                  theta[None, :], weights=curve.w[None, :], n_free=n_free,
+                                  full_activity=full_activity, zero_activity=zero_activity,
+                                  hill_limit=hill_limit, falling_only=direction == "falling",
+                                  rules=curve_rules)
     kind = str(classes.curve_class[0])
     flags = []
     bound = None
@@ -344,7 +348,7 @@ def _curve_flags(curve: Curve, est, *, n_free, direction, hill_range, min_points
 def _build_dose_response(curve: Curve, phi, ssr, converged, message, *, conc, compound,
                          method, level, hill_range, min_points_each_side, partial_efficacy,
                          full_activity=None, zero_activity=0.0,
-                         curve_rules: CurveClassRules = DEFAULT_RULES):
+                         curve_rules: CurveClassRules = DEFAULT_RULES, classes=None):
     n, k = len(curve.y), int(curve.free.sum())
     dof = n - k
     covariance = free_covariance(curve, phi, ssr, dof)
@@ -367,7 +371,8 @@ def _build_dose_response(curve: Curve, phi, ssr, converged, message, *, conc, co
     flags, bound, kind, class_reason, missing = _curve_flags(
         curve, est, n_free=k, direction=direction, hill_range=hill_range,
         min_points_each_side=min_points_each_side, partial_efficacy=partial_efficacy,
-        full_activity=full_activity, zero_activity=zero_activity, curve_rules=curve_rules)
+        full_activity=full_activity, zero_activity=zero_activity, curve_rules=curve_rules,
+        classes=classes)
     # An inactive curve reports no estimate (its IC50 is a bound, its efficacy read off
     # the data): where its flat SSR surface stopped the optimiser changes nothing reported.
     if not converged and kind != "inactive":
@@ -564,7 +569,9 @@ def dose_response_from_estimates(conc, response, estimates, *, weights=None, fix
 
 def from_estimates(c, y, w, fixed, estimates, *, level, compound, converged, message,
                     direction, **flag_options) -> DoseResponseFit:
-    """dose_response_from_estimates on arrays already checked."""
+    """dose_response_from_estimates on arrays already checked; ``classes=`` (in
+    ``flag_options``) takes the curve's class from a batch that classified it with the
+    same options (:func:`~inhibkin.core.curve_class.classify_curves`)."""
     curve = _logistic_curve(np.log10(c), y, w, fixed, direction)
     phi = np.array([float(estimates[n]) for n, f in zip(PARAM_NAMES, curve.free) if f])
     return _build_dose_response(curve, phi, curve.ssr(phi), converged, message, conc=c,

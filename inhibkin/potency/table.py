@@ -313,7 +313,8 @@ class EngineFitter:
                       < x_max + _LOG_IC50_MARGIN
                       and classes.curve_class[k] in CURVE_CLASSES[:2])
             fit = (self._fit(curves[name], estimates, batch.reason[k], name, fix_top,
-                             fix_bottom, level, class_options) if inside else None)
+                             fix_bottom, level, class_options, classes=classes.subset([k]))
+                   if inside else None)
             if fit is not None and fit.ic50_bound is None and "rising" not in fit.flags:
                 out[name] = fit
             else:
@@ -323,16 +324,16 @@ class EngineFitter:
 
     @staticmethod
     def _fit(curve, estimates, reason, name, fix_top, fix_bottom, level, class_options,
-             converged=True):
+             converged=True, classes=None):
         """The DoseResponseFit of an engine solution (the flags follow _default_fitter's;
-        potency_table checked the curves)."""
+        potency_table checked the curves); ``classes``: its class from the batch's."""
         conc, response = curve
         return _from_estimates(
             conc, response, np.ones_like(response), _fixed(fix_top, fix_bottom), estimates,
             level=level, compound=name, converged=bool(converged),
             message=f"batched engine: {reason}", direction="falling", hill_range=HILL_RANGE,
             min_points_each_side=MIN_POINTS_EACH_SIDE,
-            partial_efficacy=PARTIAL_EFFICACY_FRACTION, **class_options)
+            partial_efficacy=PARTIAL_EFFICACY_FRACTION, classes=classes, **class_options)
 
     def _bounded(self, curves, names, rows, x, y, mask, options) -> dict:
         """The curves ``rows`` fitted again as the lmfit path fits them: within its bounds
