@@ -28,6 +28,7 @@ import time
 import numpy as np
 
 from inhibkin.campaign import fit_campaign
+from inhibkin.campaign.options import SERIAL_BATCHED_CHUNK_SIZE
 from inhibkin.engine import fit_logistic_batch, fit_mechanism_arrays, pad
 from inhibkin.simulate import simulate_campaign, simulate_dose_campaign
 
@@ -40,8 +41,8 @@ _SMOKE = 12
 _END_TO_END_SIZES = (500, 10_000)
 _END_TO_END_SMOKE = (20,)
 _END_TO_END_GOAL = 2.0
-# fit_campaign's chunk size with the batched engine.
-_CAMPAIGN_CHUNK = 256
+# fit_campaign's chunk size with the batched engine in one process.
+_CAMPAIGN_CHUNK = SERIAL_BATCHED_CHUNK_SIZE
 # Agreement asked of the engine (issue 7).
 _AGREEMENT_RTOL = 1e-6
 _VERDICT_AGREEMENT = 0.995
@@ -170,7 +171,7 @@ def _comparison(smoke: bool) -> str:
         f"python {sys.version.split()[0]}: {n:,} compounds, each a 60-point grid and a "
         f"20-well curve, {_CV:.0%} CV; serial, one process",
         f"  {'lmfit path':<32} {t_lmfit:8.2f} s {n / t_lmfit:9.1f} compounds/s",
-        f"  {'batched engine (chunks of 256)':<32} {t_engine:8.2f} s "
+        f"  {f'batched engine (chunks of {_CAMPAIGN_CHUNK})':<32} {t_engine:8.2f} s "
         f"{n / t_engine:9.1f} compounds/s",
         f"  {'batched engine (chunks of 32)':<32} {t_small:8.2f} s "
         f"{n / t_small:9.1f} compounds/s",

@@ -116,6 +116,8 @@ def test_engine_and_lmfit_path_share_the_rule():
         one = classify_curves(x[k:k + 1], y[k:k + 1], np.ones((1, x.shape[1]), bool),
                               batch.estimate[k:k + 1], full_activity=100.0)
         assert one.curve_class[0] == classes.curve_class[k]
+        # The batch's row, as the engine's potency fits take it (not reclassified).
+        pd.testing.assert_frame_equal(classes.subset([k]).to_frame(), one.to_frame())
     assert classes.curve_class[2] == "inactive"
     assert set(classes.curve_class) <= set(CURVE_CLASSES)
     assert "4 curves" in classes.summary() and len(classes.to_frame()) == 4
