@@ -135,6 +135,9 @@ def _agreement(n, rng):
     worst, over, total = 0.0, 0, 0
     for c in range(n):
         for name, model in batch.models.items():
+            # An extended law is fitted only where a compound's verdict asks for it.
+            if name not in reference[c].models:
+                continue
             ref = reference[c].models[name]
             if not (model.converged[c] and ref.converged):
                 continue
