@@ -70,6 +70,7 @@ from ..mechanism.fit import (
     molar_grid,
     needs_tight_binding,
     relative_weights,
+    with_rate_flags,
 )
 from ..mechanism.one_model import ModelFit, fit_model, fixed_alpha_ssr
 from ..validate import check_grid, grid_rule_problems
@@ -83,6 +84,8 @@ __all__ = ["ModelBatch", "MechanismBatch", "fit_mechanism_arrays", "fit_mechanis
 # Starts are clipped this far inside the bounds (log units), as fit_model clips them.
 _START_MARGIN = 1e-6
 _MESSAGE_FALLBACK = "refitted by the lmfit path after the engine failed: "
+# The rates stage's column of well flags, read as fit_mechanisms reads it.
+RATE_FLAGS = "flags"
 
 
 class _LogRateLaw:
@@ -1269,6 +1272,15 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
             fit = MechanismFit("failed", None, (), error, fit.models, fit.comparison,
                                fit.ftests, fit.data, fit.weighting, fit.options,
                                fit.lack_of_fit)
+        else:
+            # The rates stage's well flags, as fit_mechanisms reads them (rule 6, the
+            # product-inhibition warning).
+            table = items[c][1]
+            if isinstance(table, pd.DataFrame) and RATE_FLAGS in table.columns:
+                flags = table[RATE_FLAGS]
+                if len(flags) != len(fit.data):
+                    flags = flags.reindex(fit.data.index)
+                fit = with_rate_flags(fit, flags.to_numpy())
         fits[c] = fit
     if is_mapping:
         return {key: fit for (key, _), fit in zip(items, fits)}
