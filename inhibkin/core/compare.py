@@ -139,9 +139,10 @@ class VerdictOptions:
         return (1 / self.alpha_factor, self.alpha_factor)
 
     @staticmethod
-    def alpha_row(value: float) -> str:
-        """Name of the mixed fit with alpha held at ``value``."""
-        return f"mixed, alpha = {value:.4g}"
+    def alpha_row(value: float, law: str = "mixed") -> str:
+        """Name of the fit of ``law`` (mixed, or a family's general law) with alpha held
+        at ``value``."""
+        return f"{law}, alpha = {value:.4g}"
 
 
 @dataclass(frozen=True)
@@ -424,14 +425,20 @@ def _family_verdict(family, *, p_value, converged, aicc, options):
     """Rules 1-4 rerun on the laws of ``family``; the classical law stands in where the
     family has no form of it (none for tight binding, competitive for partial).
 
+    Rule 4's fixed-alpha tests are those of the family's general law (``mixed_tb`` with
+    alpha held, against ``mixed_tb``): the data place alpha within the family's own
+    laws. A test that was not run gives NaN, which rejects nothing (the verdict then
+    stays ambiguous between the candidate and the general law).
+
     Returns (Verdict on classical names, mapping classical name -> law fitted)."""
     ext = {name: extension_of(name, family) or name
            for name in ("none", "mixed", *ONE_CONSTANT_MODELS)}
+    general = ext["mixed"]
 
     def p_ext(reduced, full):
-        # The fixed-alpha tests (rule 4) are those of the classical mixed fit.
         if reduced not in MODELS:
-            return p_value(reduced, full)
+            # "mixed, alpha = 5" -> "mixed_tb, alpha = 5" against mixed_tb.
+            return p_value(general + reduced.removeprefix("mixed"), general)
         return p_value(ext[reduced], ext[full])
 
     out = decide_from(p_value=p_ext, converged=lambda m: converged(ext[m]),

@@ -312,9 +312,15 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
                                                               s, i, v, w, enzyme), **common)
     every = {**fits, **extended}
     every = {name: every[name] for name in MODELS if name in every}
-    # Every nested pair, then the classical fixed-alpha tests (rule 4), as before.
+    # Every nested pair, then the classical fixed-alpha tests (rule 4), then each
+    # family's own (rule 4 within the family, for its verdict).
+    family_alpha = [_fixed_alpha_tests(every, s, i, v, w, options, exact_ssr, general,
+                                       enzyme)
+                    for general in (extension_of("mixed", f) for f in FAMILIES)
+                    if general in every]
     tests = pd.concat([f_test_table(every, exact_ssr=exact_ssr),
-                       ftests[~ftests["reduced"].isin(MODELS)]], ignore_index=True)
+                       ftests[~ftests["reduced"].isin(MODELS)], *family_alpha],
+                      ignore_index=True)
     comparison = comparison_table(every)
     converged = set(comparison.index[comparison["converged"]])
     extended_lof = lack_of_fit_rows(every, list(extended), s, i, w, exact_ssr,
@@ -522,26 +528,40 @@ def mixed_starts(fits, s, i, v, w) -> list[dict]:
     return starts
 
 
-def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr) -> pd.DataFrame:
-    """F-tests of mixed with alpha held at each edge of :meth:`VerdictOptions.alpha_values`
-    against mixed (1 numerator df): rule 4 of the verdict."""
-    mixed = fits["mixed"]
-    law = MODELS["mixed"]
+def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr, model="mixed",
+                       enzyme=None) -> pd.DataFrame:
+    """F-tests of mixed (or a family's general law, ``model``) with alpha held at each
+    edge of :meth:`VerdictOptions.alpha_values` against the same law free (1 numerator
+    df): rule 4 of the verdict, within the family's own laws for an extended one.
+
+    Starts: the law's solution and each converged law nested in it of the same family
+    (as mixed's own starts)."""
+    general = fits[model]
+    if not general.converged:
+        return pd.DataFrame([{"reduced": options.alpha_row(value, model), "full": model,
+                              "f_value": np.nan, "df_num": 1, "df_den": general.dof,
+                              "p_value": np.nan} for value in options.alpha_values])
+    law = MODELS[model]
     (ratio,) = law.derived  # alpha = kiu/kic
-    p = mixed.best_values
-    starts = [{name: p[name] for name in law.param_names}, *mixed_starts(fits, s, i, v, w)[1:]]
-    ssr_full = mixed.ssr if mixed.ssr > exact_ssr else 0.0
+    p = general.best_values
+    far = float(np.exp(log_bounds(model, s, i, v)["kic"][1])) / NESTED_FAR_FACTOR
+    starts = [{name: p[name] for name in law.param_names}]
+    starts += [nested_start(name, fit.best_values, model, far) for name, fit in fits.items()
+               if fit.converged and MODELS[name].inhibition_constants
+               and model in MODELS[name].nests_in and MODELS[name].family == law.family]
+    ssr_full = general.ssr if general.ssr > exact_ssr else 0.0
     rows = []
     for value in options.alpha_values:
         held = [{**x, ratio.numerator: value * x[ratio.denominator]} for x in starts]
-        ssr = fixed_alpha_ssr(s, i, v, w, value, held)
+        ssr = fixed_alpha_ssr(s, i, v, w, value, held, model, enzyme)
         if np.isfinite(ssr):
             f_value, p_value, df_num, df_den = f_test(ssr if ssr > exact_ssr else 0.0,
-                                                      mixed.dof + 1, ssr_full, mixed.dof)
+                                                      general.dof + 1, ssr_full, general.dof)
         else:
-            f_value, p_value, df_num, df_den = np.nan, np.nan, 1, mixed.dof
-        rows.append({"reduced": options.alpha_row(value), "full": "mixed", "f_value": f_value,
-                     "df_num": df_num, "df_den": df_den, "p_value": p_value})
+            f_value, p_value, df_num, df_den = np.nan, np.nan, 1, general.dof
+        rows.append({"reduced": options.alpha_row(value, model), "full": model,
+                     "f_value": f_value, "df_num": df_num, "df_den": df_den,
+                     "p_value": p_value})
     return pd.DataFrame(rows)
 
 

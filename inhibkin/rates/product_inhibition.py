@@ -73,9 +73,10 @@ def _quadratic(t, y, mask):
     (n − 3 degrees of freedom)."""
     n = mask.sum(axis=1)
     # Shift and scale time per row for a well-conditioned fit.
-    tz = np.where(mask, t, np.nan)
-    t0 = np.nanmin(tz, axis=1, keepdims=True)
-    span = np.nanmax(tz, axis=1, keepdims=True) - t0
+    any_read = mask.any(axis=1, keepdims=True)
+    t0 = np.where(any_read, np.min(np.where(mask, t, np.inf), axis=1, keepdims=True), 0.0)
+    span = np.where(any_read, np.max(np.where(mask, t, -np.inf), axis=1, keepdims=True) - t0,
+                    0.0)
     u = np.where(mask, (t - t0) / np.where(span > 0, span, 1.0), 0.0)
     design = np.stack([mask * 1.0, u, u * u], axis=-1)
     yz = np.where(mask, y, 0.0)
@@ -129,7 +130,7 @@ def product_inhibition(t, y, valid, *, s0_signal, inhibitor, group, level=LEVEL,
     s0 = np.asarray(s0_signal, dtype=float)
     uninhibited = np.asarray(inhibitor, dtype=float) == 0
     y_first = np.where(valid, y, np.nan)[np.arange(len(y)), np.argmax(valid, axis=1)] \
-        if len(y) else np.array([])
+        if y.size else np.full(len(y), np.nan)
     with np.errstate(invalid="ignore"):
         # Product formed by each read, against the first read (the noise of that one read
         # only shifts where the cut falls).
