@@ -915,7 +915,9 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
                                     inhibitor=i_map[wells_rated], group=plate_of)
             _add_flag(rows, onset["time_dependent"].to_numpy() & (rows["status"] != "failed"),
                       "time_dependent")
-            bending = product_inhibition(t_grid, y_grid, valid, s0_signal=s0_signal,
+            # Reads from the detector's ceiling on bend for another reason.
+            below = valid & (np.arange(n_reads)[None, :] < ceiling_at[:, None])
+            bending = product_inhibition(t_grid, y_grid, below, s0_signal=s0_signal,
                                          inhibitor=i_map[wells_rated], group=plate_of,
                                          usable=rows["status"] != "failed")
             _add_flag(rows, bending[PRODUCT_INHIBITION].to_numpy() & (rows["status"] != "failed"),
