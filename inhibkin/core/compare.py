@@ -28,11 +28,12 @@ The verdict follows the nesting of the models (see :func:`decide`):
    (:mod:`inhibkin.core.lack_of_fit`: pure error with replicates, runs of residual
    signs without) at ``lack_of_fit_alpha``. Only when it fails are the extended laws
    (substrate inhibition, tight binding, partial inhibition: the families of
-   :data:`inhibkin.core.models.FAMILIES`) fitted and rules 1-4 rerun on each family
-   (:func:`decide_extended`); a family is named when mixed's form of it beats mixed by
-   the nested F-test and its verdict's model passes the lack-of-fit test (the lowest
-   AICc among those that do). Otherwise the verdict is ``inadequate``, naming the
-   residuals' pattern, and no constant is a result. With the active enzyme
+   :data:`inhibkin.core.models.FAMILIES`) fitted and rules 1-4 rerun on each family,
+   rule 4 on the family's general law with alpha held (:func:`decide_extended`); a
+   family is named when mixed's form of it beats mixed by the nested F-test and its
+   verdict's model passes the lack-of-fit test (the lowest AICc among those that do).
+   Otherwise the verdict is ``inadequate``, naming the residuals' pattern, and no
+   constant is a result. With the active enzyme
    concentration given, a classical constant within ``TIGHT_BINDING_FACTOR`` (10) × [E]
    sends the grid to its tight-binding laws ([E] held) whatever the lack-of-fit test
    says. The general law of every family (with [E] fitted when it is not given) is

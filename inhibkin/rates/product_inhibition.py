@@ -23,7 +23,8 @@ variance). The wells without inhibitor of one plate are pooled by Stouffer's sum
 T/se (Stouffer et al. 1949; `common practice` for independent one-sided tests); the
 plate is flagged when the sum exceeds the one-sided normal quantile of ``LEVEL``. Every
 well of a flagged plate carries the flag: its rates were all read at product levels
-that slow the enzyme.
+that slow the enzyme. An enzyme that loses activity during the reads bends the curves
+the same way and is flagged too (the reason names both); the test cannot tell them apart.
 
 The bound is conservative (under plain depletion the expected z is negative, and more
 so at high S), so the test has little power when the curvature of a well is poorly
@@ -59,8 +60,9 @@ MAX_CONVERSION = 0.30
 # z centred on zero: it dilutes the sum, it does not bias it.
 #: What a grid verdict built on flagged wells says first in its reason.
 REASON = ("product inhibition: the uninhibited wells' rates fall faster than substrate "
-          "depletion explains, so the rates were read at product levels that slow the "
-          "enzyme and km and the inhibition constants read high — use initial slopes "
+          "depletion explains (product binding the enzyme, or the enzyme losing activity "
+          "during the reads), so the rates were not read at the initial conditions and km "
+          "and the inhibition constants read high — use initial slopes "
           "(method=\"curve\") or fit the progress curves with the product's constant")
 
 # Fewest usable reads for a quadratic with a residual variance worth the name.
