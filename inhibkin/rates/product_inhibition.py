@@ -27,7 +27,9 @@ that slow the enzyme. An enzyme that loses activity during the reads bends the c
 the same way and is flagged too (the reason names both); the test cannot tell them apart.
 
 The bound is conservative (under plain depletion the expected z is negative, and more
-so at high S), so the test has little power when the curvature of a well is poorly
+so at high S): on 60 classical plates of tests/grid_ode.py the plate's sum had mean
+−0.23 and standard deviation 1.03 at 3 % read noise, −1.01 and 1.03 at 0.5 %
+(measured), so the level holds. The test has little power when the curvature of a well is poorly
 determined: on the mass-action plates of docs/lack_of_fit.md (3 % read noise, ≤ 10 %
 conversion) a product inhibitor with Kp = Km/10 is seldom flagged; with Kp = Km/100 it
 is flagged on most plates. What the flag cannot see it cannot warn about; the remedy for
