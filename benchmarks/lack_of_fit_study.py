@@ -5,16 +5,20 @@ ESI, P, and SES, EP when asked; solve_ivp LSODA, rtol 1e-10; independent of inhi
 rate laws), read as absorbance with 3 % read noise and 3 % pipetting scatter on an 8 x 6
 grid in duplicate, turned into initial rates by ``initial_rates`` (default linear
 windows) and fitted by the batched engine (default weighting: rate_se + variance model)
-with rule 5 off (``lack_of_fit_alpha=0``, before) and on (the default 0.01, after). For
+with rule 5 off (``lack_of_fit_alpha=0``) and the rates stage's flags dropped (before),
+and with both (the default 0.01 and the flags as ``initial_rates`` sets them, after). For
 tight binding the "after" run is made twice: without [E] and with [E] given
 (``enzyme=``); for product inhibition once more from initial slopes
 (``initial_rates(method="curve")``), the rates-stage remedy.
 
 Classes, per plate (the issue's definitions): *correct*: the verdict names the true law
 and its inhibition constant (the one a ranking reads) is within 2x of the truth with an
-interval that contains it; *ambiguous*, *inadequate*: the verdict declines; *confidently
+interval that contains it; *ambiguous*, *inadequate*: the verdict declines; *flagged*: any
+other definite verdict that carries a warning on its rates (``MechanismFit.warnings``:
+the product_inhibition flag of :mod:`inhibkin.rates.product_inhibition`); *confidently
 wrong*: any other definite verdict (a wrong name, or the constant more than 2x off or
-outside its interval); *other*: no inhibition detected or a failed fit. Apart, the share
+outside its interval, and no warning); *other*: no inhibition detected or a failed fit.
+Apart, the share
 of definite verdicts whose km interval misses the truth (a bias of the rates, not of
 the verdict: linear windows over a few % conversion read low rates at low S).
 
@@ -35,12 +39,19 @@ from inhibkin.core.models import MODELS
 from inhibkin.engine import fit_mechanisms_batch
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
-from grid_ode import EPSILON_PATH, INHIBITOR, Mechanism, plate  # noqa: E402
+from grid_ode import EPSILON_PATH, INHIBITOR, READ_CV, Mechanism, plate  # noqa: E402
 
 #: Km = 10 µM and vmax = 0.002 µM/s throughout (grid_ode defaults); for tight binding
 #: kcat is lowered so that vmax stays the same with [E] = 50 nM (k_1 keeps Km at 10 µM).
 KCAT_TIGHT = 0.04
-CLASSES = ("correct", "ambiguous", "inadequate", "confidently wrong", "other")
+#: The partial law is the rapid-equilibrium one (v = v_c·(1 + beta·I/kiu)); with kcat =
+#: 100/s, ESI turns over (30/s) about as fast as it dissociates (100/s), so the steady-
+#: state rates follow it only approximately: noise-free ODE rates of the standard grid
+#: fitted by noncompetitive_partial give ki 1.07, beta 0.20 and 1.5 % relative residuals
+#: (measured). With kcat = 1/s (and [E] = 2 nM, vmax the same) binding is at equilibrium
+#: with turnover and the law's constants are the chemistry's.
+KCAT_EQUILIBRIUM = 1.0
+CLASSES = ("correct", "ambiguous", "inadequate", "flagged", "confidently wrong", "other")
 SEED = 14
 
 
@@ -54,6 +65,7 @@ class Regime:
     inhibitor: tuple = INHIBITOR
     runs: tuple = ("before", "after")
     classical: bool = field(default=False)
+    read_cv: float = READ_CV
 
 
 REGIMES = {
@@ -71,16 +83,23 @@ REGIMES = {
         Mechanism(kic=1.0, ksi=30.0), "competitive with substrate inhibition", {"ki": 1.0}),
     "partial, beta = 0.3 (noncompetitive)": Regime(
         Mechanism(kic=1.0, kiu=1.0, beta=0.3), "partial noncompetitive", {"ki": 1.0}),
+    "partial, beta = 0.3 (noncompetitive), rapid equilibrium": Regime(
+        Mechanism(kic=1.0, kiu=1.0, beta=0.3, kcat=KCAT_EQUILIBRIUM,
+                  k_1=1000.0 - KCAT_EQUILIBRIUM, enzyme=2e-3),
+        "partial noncompetitive", {"ki": 1.0}),
     "product inhibition, Kp = Km/10 (competitive)": Regime(
         Mechanism(kic=1.0, kp=1.0), "competitive", {"ki": 1.0},
         runs=("before", "after", "after, initial slopes")),
+    "product inhibition, Kp = Km/10 (competitive), 0.5 % read noise": Regime(
+        Mechanism(kic=1.0, kp=1.0), "competitive", {"ki": 1.0}, read_cv=0.005),
 }
 KM = 10.0
 
 
 def rates(regime: Regime, seed: int, method="linear") -> pd.DataFrame:
     """One plate of ``regime`` read and turned into initial rates."""
-    reads, plate_map = plate(regime.mechanism, seed, inhibitor=regime.inhibitor)
+    reads, plate_map = plate(regime.mechanism, seed, inhibitor=regime.inhibitor,
+                             read_cv=regime.read_cv)
     return ik.initial_rates(reads, plate_map, substrate="substrate_uM",
                             inhibitor="inhibitor_uM", method=method,
                             conversion=ik.BeerLambert(EPSILON_PATH * 1e6)).table
@@ -108,7 +127,21 @@ def classify(fit, regime: Regime) -> str:
     chosen = params.loc[list(MODELS[fit.best].ranking), "estimate"].idxmin()
     right = fit.verdict == regime.verdict and _holds(params, chosen,
                                                      regime.constants["ki"] * 1e-6)
-    return "correct" if right else "confidently wrong"
+    if right:
+        return "correct"
+    return "flagged" if fit.warnings else "confidently wrong"
+
+
+def constant_wrong(fit, regime: Regime) -> bool:
+    """The issue's "confidently wrong": a definite verdict whose constant is more than 2x
+    off or whose interval excludes the truth, with no warning on its rates (a less
+    specific name with the right constants, e.g. "partial mixed" on a partial
+    noncompetitive truth, is not counted here but is in the confidently-wrong class)."""
+    if not definite(fit) or fit.warnings:
+        return False
+    params = fit.best_fit.params
+    chosen = params.loc[list(MODELS[fit.best].ranking), "estimate"].idxmin()
+    return not _holds(params, chosen, regime.constants["ki"] * 1e-6)
 
 
 def run(regime: Regime, run_name: str, seeds) -> pd.Series:
@@ -116,17 +149,33 @@ def run(regime: Regime, run_name: str, seeds) -> pd.Series:
     method = "curve" if run_name == "after, initial slopes" else "linear"
     tables = [rates(regime, seed, method) for seed in seeds]
     options = {"lack_of_fit_alpha": 0.0} if run_name == "before" else {}
+    if run_name == "before":
+        tables = [table.drop(columns="flags") for table in tables]
     if run_name == "after, [E] given":
         options["enzyme"] = f"{regime.mechanism.enzyme * 1e3:g}nM"
     fits = fit_mechanisms_batch(tables, substrate="substrate_uM", inhibitor="inhibitor_uM",
                                 **options)
     classes = pd.Series([classify(f, regime) for f in fits])
     named = np.mean([f.verdict == regime.verdict for f in fits])
+    family = next(law.family for law in MODELS.values()
+                  if regime.verdict in (law.name, law.label))
+    # The family named: a definite verdict of it, or an ambiguous one whose candidates
+    # are all of it (e.g. "competitive_si, mixed_si").
+    in_family = np.mean([f.verdict not in ("inadequate", "none", "failed")
+                         and bool(f.candidates)
+                         and all(MODELS[m].family == family for m in f.candidates
+                                 if m in MODELS)
+                         for f in fits])
     extended = np.mean([f.best is not None and MODELS[f.best].family != "classical"
                         for f in fits])
+    warned = np.mean([bool(f.warnings) for f in fits])
     km_missed = [not _holds(f.best_fit.params, "km", KM * 1e-6) for f in fits if definite(f)]
+    wrong_constant = np.mean([constant_wrong(f, regime) for f in fits])
     return pd.Series({**{c: float(np.mean(classes == c)) for c in CLASSES},
-                      "right law named": float(named), "extended law called": float(extended),
+                      "constant wrong": float(wrong_constant),
+                      "right law named": float(named), "right family named": float(in_family),
+                      "extended law called": float(extended),
+                      "rates flagged": float(warned),
                       "km interval misses": float(np.mean(km_missed)) if km_missed else np.nan})
 
 
@@ -140,28 +189,100 @@ def main(n_seeds=20) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+#: The most often the extended laws may be called on a classical truth by design: they are
+#: fitted only when the lack-of-fit test fails (level 0.01) or one of the three families'
+#: probes fires (level 0.001 each).
+NOMINAL_OVER_CALLING = 0.01 + 3 * 0.001
+
+
+def over_calling(table: pd.DataFrame) -> tuple[float, float]:
+    """Share of plates of the classical regimes whose verdict's law is extended, and the
+    share whose rates carry a warning, in the "after" run."""
+    classical = [label for label, regime in REGIMES.items() if regime.classical]
+    after = table[table["regime"].isin(classical) & (table["run"] == "after")]
+    return float(after["extended law called"].mean()), float(after["rates flagged"].mean())
+
+
 def markdown(table: pd.DataFrame, n_seeds: int) -> str:
     """docs/lack_of_fit.md from the table."""
+    extended, flagged = over_calling(table)
     return (
         "# Lack of fit and the extended families: measured\n\n"
         f"`python -m benchmarks.lack_of_fit_study {n_seeds}`: {n_seeds} plates per regime "
-        "from the mass-action ODE of tests/grid_ode.py read as absorbance (3 % read noise, "
-        "3 % pipetting scatter, 8 x 6 grid in duplicate), initial rates by "
-        "`initial_rates`, fitted by the batched engine (default weighting) with rule 5 "
-        "off (before) and on (after). Km = 10 uM; Ki = 1 uM (uncompetitive 2, "
-        "noncompetitive 1.5, mixed kic 1 / kiu 5), the standard inhibitor levels 0-8 uM; "
-        "tight binding: Ki = 10 nM, [E] = 50 nM, inhibitor 0-400 nM; substrate "
-        "inhibition Ksi = 30 uM; partial: ESI turns over at 0.3 kcat; product "
+        "from the mass-action ODE of tests/grid_ode.py read as absorbance (3 % read noise "
+        "unless the regime says otherwise, 3 % pipetting scatter, 8 x 6 grid in "
+        "duplicate), initial rates by `initial_rates` (linear windows), fitted by the "
+        "batched engine (default weighting). *before*: rule 5 off and the rates stage's "
+        "flags dropped; *after*: both on (the defaults). Km = 10 uM; Ki = 1 uM "
+        "(uncompetitive 2, noncompetitive 1.5, mixed kic 1 / kiu 5), the standard "
+        "inhibitor levels 0-8 uM; tight binding: Ki = 10 nM, [E] = 50 nM, inhibitor "
+        "0-400 nM; substrate inhibition Ksi = 30 uM; partial: ESI turns over at 0.3 kcat "
+        "(kcat = 100/s, or 1/s with [E] = 2 nM for rapid equilibrium); product "
         "inhibition: E + P <-> EP with Kp = 1 uM.\n\n"
         "*correct*: the true law named, its Ki within 2x with an interval holding the "
-        "truth; *confidently wrong*: any other definite verdict (wrong name, or Ki more "
-        "than 2x off or outside its interval); *other*: no inhibition detected or failed; "
-        "*km interval misses*: among definite verdicts, km's interval excludes the truth "
-        "(the linear-window rates' own bias, present on classical truths too). The "
-        "issue's targets: confidently wrong <= 5 %, the right "
-        "family named in >= 80 % where the grid spans the effect; on classical truths "
-        "the extended laws called no more often than the tests' nominal level.\n\n"
-        "```\n" + table.to_string(index=False, float_format="%.2f") + "\n```\n")
+        "truth; *flagged*: any other definite verdict whose rates carry a warning "
+        "(the product_inhibition flag); *confidently wrong*: any other definite verdict "
+        "(wrong name, or Ki more than 2x off or outside its interval, and no warning); "
+        "*constant wrong*: the issue's own definition, a definite verdict whose Ki is "
+        "more than 2x off or outside its interval, with no warning (a wrong name with "
+        "the right constants is not counted; a 95 % interval alone misses the truth "
+        "on 5 % of plates); "
+        "*other*: no inhibition detected or failed; *right family named*: the verdict, or "
+        "every candidate of an ambiguous one, is of the true law's family; *rates "
+        "flagged*: plates whose fit "
+        "carries the warning, whatever its class; *km interval misses*: among definite "
+        "verdicts, km's interval excludes the truth (the linear-window rates' own bias, "
+        "present on classical truths too). The issue's targets: confidently wrong <= "
+        "5 %, the right family named in >= 80 % where the grid spans the effect; on "
+        "classical truths the extended laws called no more often than the tests' "
+        "nominal level.\n\n"
+        f"**Over-calling on classical truths** (the four classical regimes, after): an "
+        f"extended law named on {extended:.1%} of plates (nominal at most "
+        f"{NOMINAL_OVER_CALLING:.1%}: the lack-of-fit test at 0.01 plus three probes at "
+        f"0.001), the rates flagged on {flagged:.1%}.\n\n"
+        "```\n" + table.to_string(index=False, float_format="%.2f") + "\n```\n\n"
+        + READING_NOTES)
+
+
+READING_NOTES = """## Reading notes
+
+- **Product inhibition** cannot be told from a classical grid by the rates alone when
+  the product formed in the window is about the same in every well: linear-window
+  rates then fit the classical law exactly with km and Ki both scaled by (1 + P/Kp),
+  P the product in the window. What the reads do show is that the uninhibited wells
+  bend faster than substrate depletion allows (rates/product_inhibition.py). At 3 %
+  read noise that curvature is undetermined in a well and the flag has little power
+  (Kp = Km/10 plates: the *rates flagged* column); at 0.5 % it is flagged on
+  practically every plate. A flagged grid keeps its verdict with the warning first in
+  its reason, in `MechanismFit.warnings` and in the ranking row's flags. Initial
+  slopes (`method="curve"`) remove the bias but leave most grids ambiguous.
+- **Partial inhibition** with kcat = 100/s: ESI turns over (30/s) nearly as fast as it
+  dissociates (100/s), so the steady-state rates follow the rapid-equilibrium partial
+  law only approximately (noise-free ODE rates of the standard grid fitted by
+  noncompetitive_partial: ki 1.07 uM, beta 0.20 instead of 0.3, 1.5 % relative
+  residuals; mixed_partial fits them better with alpha 1.18). The rapid-equilibrium
+  regime (kcat = 1/s) is the law's own chemistry.
+- **Rule 4 within each family**: an extended verdict's alpha is placed by the family's
+  general law with alpha held at the edges (mixed_tb with alpha = 5 against mixed_tb),
+  not by the classical mixed fit, which the data have already rejected. Where a
+  family's own fits place alpha (tight binding) the ambiguity between the competitive
+  and the mixed form goes; where they do not (substrate inhibition: on one plate
+  examined mixed_si's alpha spanned 0.5-580, and the classical mixed fit did not reject
+  alpha = 5 there either) the verdict stays ambiguous and names the competitive form as
+  the lead: the right family, not yet the right law.
+- **The floor of the confidently-wrong class.** A 95 % interval misses the truth on 5 %
+  of plates by construction, and rule 2 rejects a true one-constant law against the
+  general one on 5 % (its level): the remaining confidently wrong plates of the extended
+  regimes are mostly of these two kinds (kic 1.2-1.4x off with an interval that just
+  misses, "partial mixed" or "mixed, tight binding" on a truth with alpha = 1 or
+  infinite), and the classical regimes show the same (0.05-0.11). The *constant wrong*
+  column, the issue's own definition, leaves out the less specific names.
+- **Tight binding without [E]**: most of the remaining confidently wrong plates are
+  "mixed" with kic 1.7-2.6x the truth and a spurious kiu of 20-40 Ki (40 plates
+  examined); kic lies near the lowest inhibitor level (25 nM), above the third of it
+  that rule 5 reads as a sign (`TIGHT_BINDING_LOWEST_FACTOR`), and the probe with [E]
+  fitted does not reach p < 0.001. Giving [E] is the remedy.
+"""
 
 
 if __name__ == "__main__":

@@ -108,9 +108,10 @@ def product_curve(mechanism: Mechanism, substrate: float, inhibitor: float):
 
 
 def plate(mechanism: Mechanism, seed: int, *, compound="CPD", substrate=SUBSTRATE,
-          inhibitor=INHIBITOR):
+          inhibitor=INHIBITOR, read_cv=READ_CV):
     """Reads and plate map of one simulated plate (``substrate`` × ``inhibitor`` levels,
-    µM, in duplicate, at most 48 cells: one 96-well plate; the standard grid by default).
+    µM, in duplicate, at most 48 cells: one 96-well plate; the standard grid by default;
+    ``read_cv`` the read noise, default ``READ_CV``).
 
     Returns
     -------
@@ -133,7 +134,7 @@ def plate(mechanism: Mechanism, seed: int, *, compound="CPD", substrate=SUBSTRAT
                 scale = max(1.0 + PIPETTING_CV * rng.standard_normal(), 0.5)
                 product = product_curve(mechanism, s, i)(scale * times)[6]
                 signal = BASELINE + EPSILON_PATH * product
-                signal = signal + READ_CV * signal * rng.standard_normal(N_READS)
+                signal = signal + read_cv * signal * rng.standard_normal(N_READS)
                 reads.append(pd.DataFrame({"plate": "P1", "well": well, "time": times,
                                            "signal": signal}))
                 wells.append({"plate": "P1", "well": well, "compound": compound,

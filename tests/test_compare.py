@@ -8,9 +8,11 @@ from scipy import stats
 from statsmodels.tools import eval_measures
 
 from inhibkin.core.compare import (
+    Verdict,
     VerdictOptions,
     akaike_weights,
     decide,
+    decide_extended,
     f_test,
     information_criteria,
 )
@@ -121,3 +123,34 @@ def test_decide_fails_without_the_general_model():
                               index=["none", "mixed"])
     v = decide(comparison, pd.DataFrame(columns=["reduced", "full", "p_value"]))
     assert v.verdict == "failed" and "mixed" in v.reason
+
+
+@pytest.mark.parametrize("family_p, classical_p, named", [
+    (1e-4, 0.3, True),     # the family's own fit places alpha above 5: named
+    (0.3, 1e-4, False),    # only the classical mixed fit does: not enough
+])
+def test_rule_four_within_a_family_reads_the_familys_own_fixed_alpha_fits(
+        family_p, classical_p, named):
+    # Rule 4 of an extended verdict: mixed_tb with alpha held at 5 against mixed_tb, not
+    # the classical mixed fit (which the data may already have rejected). [E] is given
+    # and the constant is within 10 x [E], so the tight-binding family is decided.
+    options = VerdictOptions()
+    edge = options.alpha_row(options.alpha_factor)
+    p = {("none", "mixed_tb"): 1e-20, ("competitive_tb", "mixed_tb"): 0.5,
+         ("uncompetitive_tb", "mixed_tb"): 1e-10, ("noncompetitive_tb", "mixed_tb"): 1e-6,
+         (options.alpha_row(options.alpha_factor, "mixed_tb"), "mixed_tb"): family_p,
+         (edge, "mixed"): classical_p}
+    fitted = {"none", "mixed", "competitive_tb", "uncompetitive_tb", "noncompetitive_tb",
+              "mixed_tb"}
+    aicc = {"competitive_tb": 10.0, "uncompetitive_tb": 40.0, "noncompetitive_tb": 30.0,
+            "mixed_tb": 11.0, "mixed": 20.0, "none": 90.0}
+    classical = Verdict("mixed", "mixed", ("mixed",), "every one-constant law rejected")
+    out = decide_extended(classical, lack_of_fit_p=0.5, pattern="",
+                          p_value=lambda a, b: p.get((a, b), np.nan),
+                          converged=lambda m: m in fitted, aicc=lambda m: aicc.get(m, np.inf),
+                          extended_lack_of_fit_p=lambda m: 0.5, options=options,
+                          enzyme=5e-8, tight_constant=2e-8, lowest_inhibitor=2.5e-8)
+    if named:
+        assert out.verdict == "competitive, tight binding", out.reason
+    else:
+        assert out.verdict == "ambiguous" and out.candidates == ("competitive_tb", "mixed_tb")

@@ -11,7 +11,7 @@ from scipy import optimize
 import inhibkin as ik
 from inhibkin.core import compare
 from inhibkin.core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian, logistic4_start
-from inhibkin.core.models import MODEL_NAMES, MODELS
+from inhibkin.core.models import FAMILIES, MODEL_NAMES, MODELS, extension_of
 from inhibkin.core.starts import log_bounds, starting_values
 from inhibkin.engine import lm
 from inhibkin.engine.dose_response import _Logistic, fit_logistic_batch
@@ -284,9 +284,12 @@ def test_vectorised_verdicts_equal_compare_rules(grid_set):
         pd.testing.assert_frame_equal(fit.comparison, compare.comparison_table(fit.models))
         nested = compare.f_test_table(fit.models)
         pd.testing.assert_frame_equal(fit.ftests.iloc[:len(nested)], nested)
-        # The rest are the fixed-alpha rows of the verdict's rule 4.
+        # The rest are the fixed-alpha rows of the verdict's rule 4: mixed's, then those
+        # of each family's general law the compound tried (rule 4 within the family).
+        generals = [g for g in (extension_of("mixed", f) for f in FAMILIES) if g in fit.models]
         assert list(fit.ftests["reduced"].iloc[len(nested):]) == [
-            fit.options.alpha_row(a) for a in fit.options.alpha_values]
+            fit.options.alpha_row(a, law) for law in ("mixed", *generals)
+            for a in fit.options.alpha_values]
         decided = compare.decide(fit.comparison, fit.ftests, fit.options)
         if len(fit.lack_of_fit) > 1:
             # Rule 5 tried the extended laws: the verdict is theirs or "inadequate".

@@ -8,7 +8,7 @@ from grid_ode import EPSILON_PATH, Mechanism, plate
 
 import inhibkin as ik
 from inhibkin.cli import main
-from inhibkin.core.compare import TIGHT_BINDING_FACTOR
+from inhibkin.core.compare import TIGHT_BINDING_FACTOR, VerdictOptions
 from inhibkin.core.models import FAMILIES, MODELS, extension_of
 from inhibkin.engine import fit_mechanisms_batch
 from inhibkin.errors import DataError
@@ -185,3 +185,15 @@ def test_enzyme_conc_on_the_command_line_and_in_a_campaign(ode_plates, tmp_path)
     assert main(["mechanism", str(grid_file), "-o", str(tmp_path / "x.csv"), "--enzyme-conc",
                  "fifty"]) == 2
     assert not (tmp_path / "x.csv").exists()
+
+
+def test_rule_four_within_the_family_on_both_solvers(ode_plates):
+    # The tight-binding verdict's alpha is placed by mixed_tb with alpha held at the edges
+    # (rule 4 within the family), the same on both solvers; on these plates the
+    # competitive edge (alpha = 5) is rejected, so competitive_tb is named, not ambiguous.
+    options = VerdictOptions()
+    rows = [options.alpha_row(a, "mixed_tb") for a in options.alpha_values]
+    p = [fit.ftests.set_index("reduced").loc[rows, "p_value"].to_numpy(dtype=float)
+         for fit in _both(ode_plates["tight"][1], enzyme="50nM")]
+    np.testing.assert_allclose(p[0], p[1], rtol=1e-3)
+    assert p[0][1] < options.alpha

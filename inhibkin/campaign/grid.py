@@ -122,6 +122,9 @@ class GridFacts:
     #: For an ambiguous verdict: what it still establishes (text) and the basis.
     established: str = ""
     basis: str = ""
+    #: Warnings on the fit's rates (MechanismFit.warnings: product_inhibition), carried
+    #: into the row's flags whatever the verdict.
+    warnings: tuple = ()
 
 
 def facts_from_fit(fit: MechanismFit) -> GridFacts:
@@ -146,7 +149,7 @@ def facts_from_fit(fit: MechanismFit) -> GridFacts:
         {n: tuple(constants.loc[n, ["estimate", "ci_low", "ci_high", "determined"]])
          for n in constants.index},
         fit.established.text(molar=True) if ambiguous else "",
-        fit.basis if ambiguous else "")
+        fit.basis if ambiguous else "", tuple(fit.warnings))
 
 
 def facts_from_batch(batch, c, tried) -> GridFacts:
@@ -209,7 +212,7 @@ def grid_row(compound, fit: MechanismFit, caught: list[str]) -> dict:
 
 def row_from_facts(compound, fit: GridFacts, caught: list[str]) -> dict:
     """One ranking row from the facts of one compound's mechanism fit (constants in M)."""
-    flags = list(caught)
+    flags = list(caught) + list(fit.warnings)
     flags += [f"{name} fit did not converge" for name in fit.not_converged]
     row = empty_row(compound)
     row.update(verdict=fit.verdict, reason=fit.reason, ki_source="grid fit")

@@ -11,7 +11,7 @@ first access (and keeps the result).
 from __future__ import annotations
 
 from ..core.readonly import ReadOnlyMapping
-from ..mechanism.fit import with_time_dependence
+from ..mechanism.fit import with_rate_flags
 
 __all__ = ["BatchFit", "LazyFits"]
 
@@ -27,7 +27,7 @@ class BatchFit:
 
     def build(self):
         fit = self.batch.mechanism_fit(self.c, self.labels)
-        return fit if self.flags is None else with_time_dependence(fit, self.flags)
+        return fit if self.flags is None else with_rate_flags(fit, self.flags)
 
 
 class LazyFits(ReadOnlyMapping):

@@ -28,11 +28,12 @@ The verdict follows the nesting of the models (see :func:`decide`):
    (:mod:`inhibkin.core.lack_of_fit`: pure error with replicates, runs of residual
    signs without) at ``lack_of_fit_alpha``. Only when it fails are the extended laws
    (substrate inhibition, tight binding, partial inhibition: the families of
-   :data:`inhibkin.core.models.FAMILIES`) fitted and rules 1-4 rerun on each family
-   (:func:`decide_extended`); a family is named when mixed's form of it beats mixed by
-   the nested F-test and its verdict's model passes the lack-of-fit test (the lowest
-   AICc among those that do). Otherwise the verdict is ``inadequate``, naming the
-   residuals' pattern, and no constant is a result. With the active enzyme
+   :data:`inhibkin.core.models.FAMILIES`) fitted and rules 1-4 rerun on each family,
+   rule 4 on the family's general law with alpha held (:func:`decide_extended`); a
+   family is named when mixed's form of it beats mixed by the nested F-test and its
+   verdict's model passes the lack-of-fit test (the lowest AICc among those that do).
+   Otherwise the verdict is ``inadequate``, naming the residuals' pattern, and no
+   constant is a result. With the active enzyme
    concentration given, a classical constant within ``TIGHT_BINDING_FACTOR`` (10) × [E]
    sends the grid to its tight-binding laws ([E] held) whatever the lack-of-fit test
    says. The general law of every family (with [E] fitted when it is not given) is
@@ -139,9 +140,10 @@ class VerdictOptions:
         return (1 / self.alpha_factor, self.alpha_factor)
 
     @staticmethod
-    def alpha_row(value: float) -> str:
-        """Name of the mixed fit with alpha held at ``value``."""
-        return f"mixed, alpha = {value:.4g}"
+    def alpha_row(value: float, law: str = "mixed") -> str:
+        """Name of the fit of ``law`` (mixed, or a family's general law) with alpha held
+        at ``value``."""
+        return f"{law}, alpha = {value:.4g}"
 
 
 @dataclass(frozen=True)
@@ -424,14 +426,20 @@ def _family_verdict(family, *, p_value, converged, aicc, options):
     """Rules 1-4 rerun on the laws of ``family``; the classical law stands in where the
     family has no form of it (none for tight binding, competitive for partial).
 
+    Rule 4's fixed-alpha tests are those of the family's general law (``mixed_tb`` with
+    alpha held, against ``mixed_tb``): the data place alpha within the family's own
+    laws. A test that was not run gives NaN, which rejects nothing (the verdict then
+    stays ambiguous between the candidate and the general law).
+
     Returns (Verdict on classical names, mapping classical name -> law fitted)."""
     ext = {name: extension_of(name, family) or name
            for name in ("none", "mixed", *ONE_CONSTANT_MODELS)}
+    general = ext["mixed"]
 
     def p_ext(reduced, full):
-        # The fixed-alpha tests (rule 4) are those of the classical mixed fit.
         if reduced not in MODELS:
-            return p_value(reduced, full)
+            # "mixed, alpha = 5" -> "mixed_tb, alpha = 5" against mixed_tb.
+            return p_value(general + reduced.removeprefix("mixed"), general)
         return p_value(ext[reduced], ext[full])
 
     out = decide_from(p_value=p_ext, converged=lambda m: converged(ext[m]),

@@ -70,6 +70,7 @@ from ..mechanism.fit import (
     molar_grid,
     needs_tight_binding,
     relative_weights,
+    with_rate_flags,
 )
 from ..mechanism.one_model import ModelFit, fit_model, fixed_alpha_ssr
 from ..validate import check_grid, grid_rule_problems
@@ -83,6 +84,8 @@ __all__ = ["ModelBatch", "MechanismBatch", "fit_mechanism_arrays", "fit_mechanis
 # Starts are clipped this far inside the bounds (log units), as fit_model clips them.
 _START_MARGIN = 1e-6
 _MESSAGE_FALLBACK = "refitted by the lmfit path after the engine failed: "
+# The rates stage's column of well flags, read as fit_mechanisms reads it.
+RATE_FLAGS = "flags"
 
 
 class _LogRateLaw:
@@ -103,18 +106,24 @@ class _LogRateLaw:
 
 
 class _FixedAlphaLaw:
-    """Mixed with alpha = kiu/kic held at ``value``: log (vmax, km, kic) free, and
-    log kiu = log kic + log value (the constrained fit of the verdict's rule 4)."""
+    """Mixed (or a family's general law, ``name``) with alpha = kiu/kic held at ``value``:
+    every log-parameter but kiu free, and log kiu = log kic + log value (the constrained
+    fit of the verdict's rule 4)."""
 
-    def __init__(self, value):
-        self.law = MODELS["mixed"]
+    def __init__(self, value, name="mixed"):
+        self.law = MODELS[name]
+        self.kic = self.law.param_names.index("kic")
+        self.kiu = self.law.param_names.index("kiu")
         self.log_value = np.log(value)
 
     def __call__(self, theta, s, i):
-        p = np.exp(np.concatenate([theta, theta[2:3] + self.log_value]))
+        full = np.insert(theta, self.kiu, theta[self.kic] + self.log_value, axis=0)
+        p = np.exp(full)
         jac = np.moveaxis(self.law.jacobian(s, i, *p), -1, 0) * p[:, None, :]
         # d/d log kic moves kiu with it.
-        return jac[0], np.concatenate([jac[:2], jac[2:3] + jac[3:4]])
+        reduced = np.delete(jac, self.kiu, axis=0)
+        reduced[self.kic] += jac[self.kiu]
+        return jac[0], reduced
 
 
 @dataclass(frozen=True)
@@ -610,49 +619,56 @@ def _verdicts(models, p_values, valid, invalid_reason, options):
 
 
 def _fixed_alpha_tests(out, s, i, v, mask, w, rows, far, exact_ssr, options,
-                       max_iterations, fallback):
-    """F-tests of mixed with alpha held at each edge against mixed, for every compound:
-    the lmfit path's fixed-alpha tests (:func:`inhibkin.mechanism.one_model.fixed_alpha_ssr`) over
-    the same starts (the mixed solution, then each nested model's), the best successful
-    SSR winning. With ``fallback``, a compound none of whose starts converged is refitted
-    by the lmfit path
-    (:func:`inhibkin.mechanism.one_model.fixed_alpha_ssr`) from the same starts."""
-    mixed = out["mixed"]
+                       max_iterations, fallback, model="mixed", enzyme=None):
+    """F-tests of mixed (or a family's general law, ``model``) with alpha held at each
+    edge against the same law free, for every compound of ``rows``: the lmfit path's
+    fixed-alpha tests (:func:`inhibkin.mechanism.one_model.fixed_alpha_ssr`) over the
+    same starts (the law's solution, then each nested law's of its family), the best
+    successful SSR winning. With ``fallback``, a compound none of whose starts converged
+    is refitted by the lmfit path from the same starts. With ``enzyme`` (shape (B,)), a
+    tight-binding law's [E] is held at it. NaN for compounds outside ``rows``."""
+    general = out[model]
+    law = MODELS[model]
+    kiu = law.param_names.index("kiu")
+    names = tuple(n for n in law.param_names if n != "kiu")
     b = s.shape[0]
-    sub = rows[mixed["converged"][rows]]
-    starts = [mixed["theta"][sub][:, :3]]
-    for name in ONE_CONSTANT_MODELS:
-        if name in out:
+    sub = rows[general["converged"][rows]]
+    starts = [np.delete(general["theta"][sub], kiu, axis=1)]
+    for name in out:
+        if (MODELS[name].inhibition_constants and model in MODELS[name].nests_in
+                and MODELS[name].family == law.family):
             ok = out[name]["converged"][sub]
-            start = _nested_start(out[name], name, sub, far)[:, :3]
+            start = np.delete(_nested_start(out[name], name, sub, far, model), kiu, axis=1)
             starts.append((start, ok))
     tests = {}
     for value in options.alpha_values:
-        law = _FixedAlphaLaw(value)
         best_ssr = np.full(b, np.nan)
-        for k, start in enumerate(starts):
+        for k, start in enumerate(starts if sub.size else ()):
             start, ok = (start, np.ones(sub.size, bool)) if k == 0 else start
             if not ok.any():
                 continue
             use = sub[ok]
-            lower, upper = mechanism_log_bounds("mixed", s[use], i[use], v[use], mask[use])
-            lower, upper = lower[:, :3], upper[:, :3]
+            lower, upper, free, _ = _bounds(model, s, i, v, mask, use, enzyme)
+            lower, upper = np.delete(lower, kiu, axis=1), np.delete(upper, kiu, axis=1)
+            free = None if free is None else np.delete(free, kiu, axis=1)
             theta0 = np.clip(start[ok], lower + _START_MARGIN, upper - _START_MARGIN)
-            result = lm.solve(law, theta0, (s[use], i[use]), v[use], mask=mask[use],
-                              weights=w[use], lower=lower, upper=upper,
-                              max_iterations=max_iterations)
+            if free is not None:
+                theta0 = np.where(free, theta0, lower)
+            result = lm.solve(_FixedAlphaLaw(value, model), theta0, (s[use], i[use]), v[use],
+                              mask=mask[use], weights=w[use], lower=lower, upper=upper,
+                              free=free, max_iterations=max_iterations)
             better = result.converged & ~(result.ssr >= best_ssr[use])
             best_ssr[use[better]] = result.ssr[better]
         if fallback:
             for c in sub[~np.isfinite(best_ssr[sub])]:
                 keep = mask[c]
-                held = [dict(zip(("vmax", "km", "kic"), np.exp(theta)))
-                        for theta in _start_rows(starts, sub, c)]
+                held = [dict(zip(names, np.exp(theta))) for theta in _start_rows(starts, sub, c)]
                 held = [{**x, "kiu": value * x["kic"]} for x in held]
+                given = None if enzyme is None else float(enzyme[c])
                 best_ssr[c] = fixed_alpha_ssr(s[c, keep], i[c, keep], v[c, keep], w[c, keep],
-                                              value, held)
-        tests[(options.alpha_row(value), "mixed")] = _f_test_arrays(
-            best_ssr, np.isfinite(best_ssr), mixed["n_params"] - 1, mixed, exact_ssr)
+                                              value, held, model, given)
+        tests[(options.alpha_row(value, model), model)] = _f_test_arrays(
+            best_ssr, np.isfinite(best_ssr), general["n_params"] - 1, general, exact_ssr)
     return tests
 
 
@@ -665,13 +681,13 @@ def _start_rows(starts, sub, c):
     return rows
 
 
-def _nested_start(out, name, rows, far):
-    """Mixed's start from the solution of the nested model ``name`` (log scale), by
-    :func:`inhibkin.core.models.nested_start`."""
+def _nested_start(out, name, rows, far, large="mixed"):
+    """The start of ``large`` (mixed by default) from the solution of the nested model
+    ``name`` (log scale), by :func:`inhibkin.core.models.nested_start`."""
     p = np.exp(out["theta"][rows])
     values = {n: p[:, j] for j, n in enumerate(MODELS[name].param_names)}
-    start = nested_start(name, values, "mixed", far[rows])
-    return np.log(np.stack([start[n] for n in MODELS["mixed"].param_names], axis=1))
+    start = nested_start(name, values, large, far[rows])
+    return np.log(np.stack([start[n] for n in MODELS[large].param_names], axis=1))
 
 
 def _fit_chunk(s, i, v, mask, sd, enzyme=None, *, weighting, models, alpha, min_delta_aicc,
@@ -959,6 +975,18 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
               for pair in nested_pairs(tuple(out))}
     p_values.clear()
     p_values.update({**nested, **fixed})
+    # Rule 4 within each family: its general law's own fixed-alpha tests, for the
+    # compounds whose extended laws were fitted (NaN elsewhere; every chunk has the keys).
+    for general in (extension_of("mixed", family) for family in FAMILIES):
+        if general in out:
+            far = np.zeros(b)
+            if fail.size:
+                far[fail] = np.exp(mechanism_log_bounds(
+                    general, s[fail], i[fail], v[fail], mask[fail])[1][
+                        :, MODELS[general].param_names.index("kic")]) / NESTED_FAR_FACTOR
+            p_values.update(_fixed_alpha_tests(out, s, i, v, mask, w, fail, far, exact_ssr,
+                                               options, max_iterations, fallback, general,
+                                               enzyme))
     if not fail.size:
         return tested
     lack = pd.concat(tables, ignore_index=True)
@@ -1269,6 +1297,15 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
             fit = MechanismFit("failed", None, (), error, fit.models, fit.comparison,
                                fit.ftests, fit.data, fit.weighting, fit.options,
                                fit.lack_of_fit)
+        else:
+            # The rates stage's well flags, as fit_mechanisms reads them (rule 6, the
+            # product-inhibition warning).
+            table = items[c][1]
+            if isinstance(table, pd.DataFrame) and RATE_FLAGS in table.columns:
+                flags = table[RATE_FLAGS]
+                if len(flags) != len(fit.data):
+                    flags = flags.reindex(fit.data.index)
+                fit = with_rate_flags(fit, flags.to_numpy())
         fits[c] = fit
     if is_mapping:
         return {key: fit for (key, _), fit in zip(items, fits)}

@@ -49,6 +49,9 @@ from ..core.weighting import (
 )
 from ..display.text import text_table
 from ..errors import DataError
+from ..rates.product_inhibition import FLAG as PRODUCT_INHIBITION
+from ..rates.product_inhibition import REASON as PRODUCT_INHIBITION_REASON
+from ..rates.product_inhibition import product_inhibited_grid
 from ..rates.time_dependence import flagged_inhibited
 from ..units import header_column, parse_concentration, to_molar
 from ..validate import check_grid, check_options
@@ -58,7 +61,7 @@ __all__ = ["MechanismFit", "fit_mechanisms", "WEIGHTINGS", "DEFAULT_WEIGHTING",
            "relative_weights", "enzyme_concentration", "extended_starts",
            "needs_tight_binding", "tight_binding_inputs", "extension_gains", "mixed_starts",
            "molar_grid",
-           "with_time_dependence"]
+           "with_rate_flags"]
 
 
 
@@ -96,6 +99,11 @@ class MechanismFit:
     lack_of_fit : pandas.DataFrame
         The lack-of-fit test of the verdict's classical model, and of the extended laws
         when they were tried: method (pure error / runs), statistic, p_value per model.
+    warnings : tuple of str
+        Warnings on the rates the fit was built on, whatever the verdict: ``product_
+        inhibition`` when the rates stage flagged the grid's wells
+        (:mod:`inhibkin.rates.product_inhibition`; the reason then starts with why, and
+        a ranking row carries the flag).
     """
 
     verdict: str
@@ -109,6 +117,7 @@ class MechanismFit:
     weighting: str = DEFAULT_WEIGHTING
     options: VerdictOptions = VerdictOptions()
     lack_of_fit: pd.DataFrame = field(default=None, repr=False)
+    warnings: tuple[str, ...] = ()
 
     def __post_init__(self):
         # Frozen all the way down: fit.models["mixed"] = ... and table edits are refused.
@@ -303,9 +312,15 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
                                                               s, i, v, w, enzyme), **common)
     every = {**fits, **extended}
     every = {name: every[name] for name in MODELS if name in every}
-    # Every nested pair, then the classical fixed-alpha tests (rule 4), as before.
+    # Every nested pair, then the classical fixed-alpha tests (rule 4), then each
+    # family's own (rule 4 within the family, for its verdict).
+    family_alpha = [_fixed_alpha_tests(every, s, i, v, w, options, exact_ssr, general,
+                                       enzyme)
+                    for general in (extension_of("mixed", f) for f in FAMILIES)
+                    if general in every]
     tests = pd.concat([f_test_table(every, exact_ssr=exact_ssr),
-                       ftests[~ftests["reduced"].isin(MODELS)]], ignore_index=True)
+                       ftests[~ftests["reduced"].isin(MODELS)], *family_alpha],
+                      ignore_index=True)
     comparison = comparison_table(every)
     converged = set(comparison.index[comparison["converged"]])
     extended_lof = lack_of_fit_rows(every, list(extended), s, i, w, exact_ssr,
@@ -408,11 +423,15 @@ def molar_grid(df, *, substrate="substrate", inhibitor="inhibitor", rate="rate",
     return s, i, v, sigma, {"substrate": s_unit, "inhibitor": i_unit}
 
 
-def with_time_dependence(fit: MechanismFit, flags) -> MechanismFit:
-    """``fit`` with the verdict ``time_dependent`` when inhibited wells carry that flag.
+def with_rate_flags(fit: MechanismFit, flags) -> MechanismFit:
+    """``fit`` with what the rates stage's well flags say about its rates.
 
-    Both solvers' fits pass through here (rule 5 of :mod:`inhibkin.core.compare`), so the rule
-    is applied once.
+    Both solvers' fits pass through here, so each rule is applied once: rule 6 of
+    :mod:`inhibkin.core.compare` (inhibited wells flagged ``time_dependent``: the verdict
+    becomes ``time_dependent``) and the product-inhibition warning (wells flagged
+    ``product_inhibition`` by :mod:`inhibkin.rates.product_inhibition`: the verdict keeps
+    its name, its reason starts with the warning and :attr:`MechanismFit.warnings`
+    names it, so no constant read from such rates is shown without it).
 
     Parameters
     ----------
@@ -423,13 +442,17 @@ def with_time_dependence(fit: MechanismFit, flags) -> MechanismFit:
     Returns
     -------
     MechanismFit
-        ``fit`` itself when no inhibited well is flagged.
+        ``fit`` itself when no rule applies.
     """
     steady = Verdict(fit.verdict, fit.best, fit.candidates, fit.reason)
     verdict = time_dependent_verdict(steady, *flagged_inhibited(flags, fit.data["inhibitor"]))
-    if verdict is steady:
-        return fit
-    return dataclasses.replace(fit, verdict=verdict.verdict, reason=verdict.reason)
+    changes = {}
+    if verdict is not steady:
+        changes.update(verdict=verdict.verdict, reason=verdict.reason)
+    if product_inhibited_grid(flags) and PRODUCT_INHIBITION not in fit.warnings:
+        changes.update(reason=f"{PRODUCT_INHIBITION_REASON}; {changes.get('reason', fit.reason)}",
+                       warnings=(*fit.warnings, PRODUCT_INHIBITION))
+    return dataclasses.replace(fit, **changes) if changes else fit
 
 
 def enzyme_concentration(df, enzyme, inhibitor_unit, context=None):
@@ -505,26 +528,40 @@ def mixed_starts(fits, s, i, v, w) -> list[dict]:
     return starts
 
 
-def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr) -> pd.DataFrame:
-    """F-tests of mixed with alpha held at each edge of :meth:`VerdictOptions.alpha_values`
-    against mixed (1 numerator df): rule 4 of the verdict."""
-    mixed = fits["mixed"]
-    law = MODELS["mixed"]
+def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr, model="mixed",
+                       enzyme=None) -> pd.DataFrame:
+    """F-tests of mixed (or a family's general law, ``model``) with alpha held at each
+    edge of :meth:`VerdictOptions.alpha_values` against the same law free (1 numerator
+    df): rule 4 of the verdict, within the family's own laws for an extended one.
+
+    Starts: the law's solution and each converged law nested in it of the same family
+    (as mixed's own starts)."""
+    general = fits[model]
+    if not general.converged:
+        return pd.DataFrame([{"reduced": options.alpha_row(value, model), "full": model,
+                              "f_value": np.nan, "df_num": 1, "df_den": general.dof,
+                              "p_value": np.nan} for value in options.alpha_values])
+    law = MODELS[model]
     (ratio,) = law.derived  # alpha = kiu/kic
-    p = mixed.best_values
-    starts = [{name: p[name] for name in law.param_names}, *mixed_starts(fits, s, i, v, w)[1:]]
-    ssr_full = mixed.ssr if mixed.ssr > exact_ssr else 0.0
+    p = general.best_values
+    far = float(np.exp(log_bounds(model, s, i, v)["kic"][1])) / NESTED_FAR_FACTOR
+    starts = [{name: p[name] for name in law.param_names}]
+    starts += [nested_start(name, fit.best_values, model, far) for name, fit in fits.items()
+               if fit.converged and MODELS[name].inhibition_constants
+               and model in MODELS[name].nests_in and MODELS[name].family == law.family]
+    ssr_full = general.ssr if general.ssr > exact_ssr else 0.0
     rows = []
     for value in options.alpha_values:
         held = [{**x, ratio.numerator: value * x[ratio.denominator]} for x in starts]
-        ssr = fixed_alpha_ssr(s, i, v, w, value, held)
+        ssr = fixed_alpha_ssr(s, i, v, w, value, held, model, enzyme)
         if np.isfinite(ssr):
             f_value, p_value, df_num, df_den = f_test(ssr if ssr > exact_ssr else 0.0,
-                                                      mixed.dof + 1, ssr_full, mixed.dof)
+                                                      general.dof + 1, ssr_full, general.dof)
         else:
-            f_value, p_value, df_num, df_den = np.nan, np.nan, 1, mixed.dof
-        rows.append({"reduced": options.alpha_row(value), "full": "mixed", "f_value": f_value,
-                     "df_num": df_num, "df_den": df_den, "p_value": p_value})
+            f_value, p_value, df_num, df_den = np.nan, np.nan, 1, general.dof
+        rows.append({"reduced": options.alpha_row(value, model), "full": model,
+                     "f_value": f_value, "df_num": df_num, "df_den": df_den,
+                     "p_value": p_value})
     return pd.DataFrame(rows)
 
 
@@ -580,7 +617,9 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     flags : str
         Column of the rates stage's well flags (``InitialRates.table["flags"]``), if
         present: when an inhibited well carries ``time_dependent`` the verdict is
-        ``time_dependent`` and no constant is reported (:func:`with_time_dependence`).
+        ``time_dependent`` and no constant is reported; when wells carry
+        ``product_inhibition`` the reason and :attr:`MechanismFit.warnings` say so
+        (:func:`with_rate_flags`).
     lack_of_fit_alpha : float
         Level of the lack-of-fit test of the verdict's model (default 0.01; 0 turns rule
         5 off). When the model fails it, a family's general law beats mixed at
@@ -675,4 +714,4 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                         index=df.index)
     fit = MechanismFit(verdict.verdict, verdict.best, verdict.candidates, verdict.reason,
                        fits, comparison, ftests, data, weighting_label(weighting), options, lack)
-    return with_time_dependence(fit, df[flags]) if flags in df.columns else fit
+    return with_rate_flags(fit, df[flags]) if flags in df.columns else fit

@@ -408,17 +408,20 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
                     level, intervals, covariance)
 
 
-def fixed_alpha_ssr(s, i, v, weights, alpha, starts) -> float:
-    """Weighted SSR of the mixed model with alpha = kiu/kic held at ``alpha``.
+def fixed_alpha_ssr(s, i, v, weights, alpha, starts, model="mixed", enzyme=None) -> float:
+    """Weighted SSR of the mixed model (or a family's general law, ``model``) with
+    alpha = kiu/kic held at ``alpha``.
 
-    vmax, km and kic are re-optimised (kiu = alpha·kic) from each of ``starts`` (dicts of
-    the mixed model's parameters); the best successful SSR is returned, NaN when none
+    Every other parameter is re-optimised (kiu = alpha·kic) from each of ``starts``
+    (dicts of the model's parameters); the best successful SSR is returned, NaN when none
     converged. This is the constrained fit behind the verdict's check that the data
     place alpha where a mechanism's name claims (:mod:`inhibkin.core.compare`, rule 4).
+    With ``enzyme``, a tight-binding law's [E] is held there, as :func:`fit_model`
+    holds it.
     """
-    problem = _make_problem("mixed", s, i, v, np.asarray(weights, dtype=float))
-    names = MODELS["mixed"].param_names
-    tie, offset = ratio_tie(MODELS["mixed"], alpha)  # alpha = kiu/kic
+    problem = _make_problem(model, s, i, v, np.asarray(weights, dtype=float), enzyme)
+    names = MODELS[model].param_names
+    tie, offset = ratio_tie(MODELS[model], alpha)  # alpha = kiu/kic
     best = np.nan
     for start in starts:
         theta0 = np.log([start[p] for p in names])

@@ -73,6 +73,8 @@ from ..errors import DataError, Problem, UnitsError
 from ..inputs.columns import find_column
 from ..units import from_molar, normalise_unit, to_molar, to_seconds
 from ..validate import check_columns, normalise_roles, numeric_column, row_kind
+from .product_inhibition import FLAG as PRODUCT_INHIBITION
+from .product_inhibition import product_inhibition
 from .signal import BeerLambert, StandardCurve, blank_signal
 from .time_dependence import time_dependence
 
@@ -102,6 +104,8 @@ FLAGS = {
                       "depletion explains from the wells without inhibitor at the same "
                       "plate and substrate (slow binding or inactivation; see "
                       "inhibkin.rates.time_dependence)",
+    PRODUCT_INHIBITION: "the uninhibited wells of the plate bend faster than substrate "
+                        "depletion explains (see inhibkin.rates.product_inhibition)",
 }
 
 # A well label: row letters and a column number; "A01", "a1" and " A1" are one well.
@@ -911,6 +915,13 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
                                     inhibitor=i_map[wells_rated], group=plate_of)
             _add_flag(rows, onset["time_dependent"].to_numpy() & (rows["status"] != "failed"),
                       "time_dependent")
+            # Reads from the detector's ceiling on bend for another reason.
+            below = valid & (np.arange(n_reads)[None, :] < ceiling_at[:, None])
+            bending = product_inhibition(t_grid, y_grid, below, s0_signal=s0_signal,
+                                         inhibitor=i_map[wells_rated], group=plate_of,
+                                         usable=rows["status"] != "failed")
+            _add_flag(rows, bending[PRODUCT_INHIBITION].to_numpy() & (rows["status"] != "failed"),
+                      PRODUCT_INHIBITION)
 
     factor = to_seconds(1.0, rate_time_unit) / to_seconds(1.0, time_unit)
     to_rate_unit = factor / sensitivity / stoichiometry
