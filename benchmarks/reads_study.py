@@ -7,8 +7,9 @@ every plate draws new read noise and pipetting scatter from
 ``np.random.default_rng(seed)``. Each plate is read as absorbance (3 % read noise, 8 × 6
 grid in duplicate) and taken through each route of :data:`ROUTES`:
 
-* ``linear rates, relative`` / ``linear rates, default`` / ``curve rates, default``:
-  ``initial_rates`` (linear or curve method), then ``fit_mechanisms`` with constant-CV
+* ``linear rates, relative`` / ``linear rates, default`` / ``curve rates, default`` /
+  ``integrated rates, default``: ``initial_rates`` (linear, curve or integrated
+  method), then ``fit_mechanisms`` with constant-CV
   weights or with no weighting named, which for a table carrying ``rate_se`` is
   ``rate_se + variance model`` (:mod:`inhibkin.core.weighting`);
 * ``progress curves``: ``fit_progress_curves`` on every read of every well.
@@ -57,6 +58,7 @@ ROUTES = {
     "linear rates, relative": ("linear", "relative"),
     "linear rates, default": ("linear", None),
     "curve rates, default": ("curve", None),
+    "integrated rates, default": ("integrated", None),
     "progress curves": ("progress", None),
 }
 START = "<!-- reads-study -->"
@@ -198,11 +200,12 @@ def section(records: pd.DataFrame, n: int, seconds: float, routes=tuple(ROUTES))
     ])
 
 
-def write_section(text: str, path: Path) -> None:
-    """Replace the marked section of ``path`` (appended when the markers are missing)."""
+def write_section(text: str, path: Path, start: str = START, end: str = END) -> None:
+    """Replace the section of ``path`` between ``start`` and ``end`` (appended when the
+    markers are missing)."""
     old = path.read_text() if path.exists() else ""
-    if START in old and END in old:
-        new = old[:old.index(START)] + text + old[old.index(END) + len(END):]
+    if start in old and end in old:
+        new = old[:old.index(start)] + text + old[old.index(end) + len(end):]
     else:
         new = old.rstrip("\n") + "\n\n" + text + "\n"
     path.write_text(new)

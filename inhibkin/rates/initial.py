@@ -73,13 +73,14 @@ from ..errors import DataError, Problem, UnitsError
 from ..inputs.columns import find_column
 from ..units import from_molar, normalise_unit, to_molar, to_seconds
 from ..validate import check_columns, normalise_roles, numeric_column, row_kind
+from .integrated import integrated_rates, row_apparent_km
 from .signal import BeerLambert, StandardCurve, blank_signal
 from .time_dependence import time_dependence
 
 __all__ = ["InitialRates", "RateOptions", "initial_rates", "product_curves", "FLAGS",
            "METHODS", "ROLES"]
 
-METHODS = ("linear", "curve")
+METHODS = ("linear", "curve", "integrated")
 DIRECTIONS = ("increase", "decrease")
 ROLES = ("sample", "blank", "control")
 
@@ -98,6 +99,9 @@ FLAGS = {
     "flat": "the slope cannot be told from zero (|rate| ≤ 2 standard errors)",
     "negative_slope": "the signal moves against the product (rate < −2 standard errors)",
     "noisy": "the rate's standard error exceeds max_rate_cv of the rate",
+    "linear_rate": "method='integrated' could not fit this well's curve (its row has too "
+                   "few substrate levels with a rate, or the substrate is not known as "
+                   "signal): the rate is the linear method's",
     "time_dependent": "an inhibited well's rate falls with time beyond what substrate "
                       "depletion explains from the wells without inhibitor at the same "
                       "plate and substrate (slow binding or inactivation; see "
@@ -900,9 +904,16 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     # inf/NaN; the finiteness checks of the assembly turn those into flagged or failed
     # wells, so the floating-point warnings would only repeat that.
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-        core = _rates_core(t_grid, y_grid, valid, ceiling_at, s0_signal, method=method,
+        core = _rates_core(t_grid, y_grid, valid, ceiling_at, s0_signal,
+                           method="linear" if method == "integrated" else method,
                            alpha=alpha, max_bias=max_bias, max_conversion=max_conversion,
                            min_points=min_points) if n_wells else None
+        if method == "integrated" and n_wells:
+            row_of = pd.factorize(pd.MultiIndex.from_arrays(
+                [plate_map[compound].astype(str).to_numpy()[wells_rated],
+                 i_map[wells_rated]]))[0]
+            core = _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal,
+                                    row_of, min_points)
         rows = _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells,
                          options=options)
         if n_wells:
@@ -946,6 +957,39 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     return InitialRates(table, controls, unmatched, units, options)
 
 
+def _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal, row_of,
+                     min_points):
+    """The second pass of ``method="integrated"`` (:mod:`inhibkin.rates.integrated`) over
+    the linear pass's ``core``: its wells' rates from their whole curves."""
+    kapp_row, log_var_row = row_apparent_km(s0, core["rate"], core["rate_se"], row_of)
+    kapp = kapp_row[row_of] if len(kapp_row) else np.full(len(s0), np.nan)
+    log_var = log_var_row[row_of] if len(log_var_row) else np.full(len(s0), np.nan)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        kapp_signal = kapp * s0_signal / s0
+    usable = valid & (np.arange(t_grid.shape[1])[None, :] < ceiling_at[:, None])
+    fitted = (~core["failed"] & np.isfinite(kapp_signal) & np.isfinite(s0_signal)
+              & (usable.sum(axis=1) >= min_points))
+    out = dict(core)
+    if fitted.any():
+        second = integrated_rates(t_grid[fitted], y_grid[fitted], usable[fitted],
+                                  s0_signal[fitted], kapp_signal[fitted], log_var[fitted],
+                                  core["rate"][fitted])
+        good = np.isfinite(second["rate"]) & np.isfinite(second["rate_se"])
+        where = np.flatnonzero(fitted)[good]
+        for name, values in second.items():
+            column = np.array(out[name], dtype=float, copy=True)
+            column[where] = values[good]
+            out[name] = column if name != "position_end" else column.astype(int)
+        fitted = np.zeros(len(s0), dtype=bool)
+        fitted[where] = True
+    # The curve carries depletion: the linear window's tests and the conversion cap do
+    # not apply to a well rated from its whole curve.
+    out["nonlinear"] = core["nonlinear"] & ~fitted
+    out["curve_fitted"] = fitted
+    out["linear_rate"] = ~fitted & ~core["failed"]
+    return out
+
+
 def _add_flag(rows, mask, name):
     """Append flag ``name`` to the wells in ``mask`` (status ok becomes flagged)."""
     flags = rows["flags"]
@@ -965,7 +1009,8 @@ def _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells, 
         flat = np.abs(rate) <= _FLAT_T * se
         negative = rate < -_FLAT_T * se
         imprecise = ~flat & ~negative & (se > options.max_rate_cv * np.abs(rate))
-        high_conversion = core["conversion"] > options.max_conversion
+        high_conversion = (core["conversion"] > options.max_conversion) & ~core.get(
+            "curve_fitted", False)
     in_window = np.arange(t_grid.shape[1])[None, :] <= core["position_end"][:, None]
     if isinstance(conversion, StandardCurve):
         outside = conversion.outside(raw_grid) & np.isfinite(raw_grid) & in_window
@@ -986,6 +1031,7 @@ def _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells, 
         "flat": flat & ~failed,
         "negative_slope": negative & ~failed,
         "noisy": imprecise & ~failed,
+        "linear_rate": core.get("linear_rate", np.zeros(n_wells, dtype=bool)),
     }
     flags = np.full(n_wells, "", dtype=object)
     for name, mask in named.items():
