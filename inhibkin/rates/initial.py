@@ -73,7 +73,7 @@ from ..errors import DataError, Problem, UnitsError
 from ..inputs.columns import find_column
 from ..units import from_molar, normalise_unit, to_molar, to_seconds
 from ..validate import check_columns, normalise_roles, numeric_column, row_kind
-from .integrated import integrated_rates, row_apparent_km
+from .integrated import ROW_PASSES, integrated_rates, row_apparent_km
 from .signal import BeerLambert, StandardCurve, blank_signal
 from .time_dependence import time_dependence
 
@@ -960,24 +960,30 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
 def _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal, row_of,
                      min_points):
     """The second pass of ``method="integrated"`` (:mod:`inhibkin.rates.integrated`) over
-    the linear pass's ``core``: its wells' rates from their whole curves."""
-    kapp_row, log_var_row = row_apparent_km(s0, core["rate"], core["rate_se"], row_of)
-    kapp = kapp_row[row_of] if len(kapp_row) else np.full(len(s0), np.nan)
-    log_var = log_var_row[row_of] if len(log_var_row) else np.full(len(s0), np.nan)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        kapp_signal = kapp * s0_signal / s0
+    the linear pass's ``core``: its wells' rates from their whole curves. The rows' Kapp
+    is estimated again from the integrated rates (the linear rates it first came from
+    carry the depletion bias), :data:`ROW_PASSES` times in all."""
     usable = valid & (np.arange(t_grid.shape[1])[None, :] < ceiling_at[:, None])
-    fitted = (~core["failed"] & np.isfinite(kapp_signal) & np.isfinite(s0_signal)
-              & (usable.sum(axis=1) >= min_points))
+    enough = ~core["failed"] & np.isfinite(s0_signal) & (usable.sum(axis=1) >= min_points)
     out = dict(core)
-    if fitted.any():
-        second = integrated_rates(t_grid[fitted], y_grid[fitted], usable[fitted],
-                                  s0_signal[fitted], kapp_signal[fitted], log_var[fitted],
-                                  core["rate"][fitted])
+    fitted = np.zeros(len(s0), dtype=bool)
+    for _ in range(ROW_PASSES):
+        kapp_row, log_var_row = row_apparent_km(s0, out["rate"], out["rate_se"], row_of)
+        if not len(kapp_row):
+            break
+        with np.errstate(divide="ignore", invalid="ignore"):
+            kapp_signal = kapp_row[row_of] * s0_signal / s0
+        fitting = enough & np.isfinite(kapp_signal)
+        if not fitting.any():
+            break
+        second = integrated_rates(t_grid[fitting], y_grid[fitting], usable[fitting],
+                                  s0_signal[fitting], kapp_signal[fitting],
+                                  log_var_row[row_of][fitting], core["rate"][fitting])
         good = np.isfinite(second["rate"]) & np.isfinite(second["rate_se"])
-        where = np.flatnonzero(fitted)[good]
+        where = np.flatnonzero(fitting)[good]
+        out = dict(core)
         for name, values in second.items():
-            column = np.array(out[name], dtype=float, copy=True)
+            column = np.array(core[name], dtype=float, copy=True)
             column[where] = values[good]
             out[name] = column if name != "position_end" else column.astype(int)
         fitted = np.zeros(len(s0), dtype=bool)

@@ -10,7 +10,8 @@
 2. **Each well's v0.** The well's reads (every read before the detector's ceiling, not
    only the early window) are fitted with the integrated Michaelis–Menten equation
    (:mod:`inhibkin.core.integrated_rate_law`, Lambert W) with Kapp held at the row's
-   value and two free constants: the well's offset and its apparent vmax. The well's
+   value and two free constants: the well's offset and its apparent vmax (then the
+   rows' Kapp is fitted again to these rates and the wells refitted once). The well's
    initial rate is v0 = Vapp·S0/(Kapp + S0). Because the curve carries the depletion,
    the late reads inform v0 instead of biasing it, and a well at low substrate is no
    longer cut short by the conversion cap.
@@ -33,8 +34,12 @@ from scipy import optimize
 
 from ..core.integrated_rate_law import closed_form_product, closed_form_sensitivities
 
-__all__ = ["ROW_MIN_LEVELS", "row_apparent_km", "integrated_rates"]
+__all__ = ["ROW_MIN_LEVELS", "ROW_PASSES", "row_apparent_km", "integrated_rates"]
 
+#: Passes of the row fit: the first from the linear rates, the next from the integrated
+#: rates of the pass before (the linear rates of low-substrate wells are biased low by
+#: depletion, which biases the row's Kapp high).
+ROW_PASSES = 2
 #: Fewest distinct substrate levels with a finite rate that give a row its own Kapp.
 ROW_MIN_LEVELS = 3
 # Gauss–Newton steps of the one-constant well fits (the product is nearly linear in
