@@ -156,6 +156,19 @@ def summary_table(records: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame(out)
 
 
+def constant_table(records: pd.DataFrame) -> pd.DataFrame:
+    """Per truth and route: the coverage of each true constant's 95 % interval."""
+    names = [c.removesuffix("_covered") for c in records.columns if c.endswith("_covered")]
+    out = []
+    for (truth, route), group in records.groupby(["truth", "route"], sort=False):
+        row = {"truth": truth, "route": route}
+        for name in names:
+            hits = group[f"{name}_covered"].dropna().astype(bool)
+            row[name] = _band(int(hits.sum()), len(hits)) if len(hits) else "-"
+        out.append(row)
+    return pd.DataFrame(out)
+
+
 def markdown(frame: pd.DataFrame) -> str:
     """A DataFrame as a Markdown table (no optional dependency)."""
     head = "| " + " | ".join(frame.columns) + " |"
@@ -196,6 +209,11 @@ def section(records: pd.DataFrame, n: int, seconds: float, routes=tuple(ROUTES))
            f"{int(np.median(flagged))} of 96." if len(flagged) else ""),
         "",
         markdown(summary_table(records)),
+        "",
+        "Coverage of each constant's 95 % interval (the true model's fit; Clopper–Pearson "
+        "bands):",
+        "",
+        markdown(constant_table(records)),
         END,
     ])
 
@@ -215,6 +233,8 @@ def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--n", type=int, default=100, help="plates per truth")
     parser.add_argument("--out", type=Path, help="Markdown file whose section is replaced")
+    parser.add_argument("--records", type=Path,
+                        help="CSV file for the per-plate records (one row per plate and route)")
     parser.add_argument("--routes", default=";".join(ROUTES),
                         help=f"routes separated by ; (default all: {'; '.join(ROUTES)})")
     args = parser.parse_args(argv)
@@ -224,6 +244,8 @@ def main(argv=None) -> int:
         parser.error(f"unknown routes {unknown}; known: {', '.join(ROUTES)}")
     started = time.perf_counter()
     records = run(args.n, routes)
+    if args.records:
+        records.to_csv(args.records, index=False)
     text = section(records, args.n, time.perf_counter() - started, routes)
     print(text)
     if args.out:

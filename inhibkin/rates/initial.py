@@ -36,6 +36,17 @@ spaced reads, above ``max_bias``). The quadratic absorbs the first-order loss of
 substrate is depleted, so its bias grows only with the square of the conversion; its
 standard error is about four times that of a straight line over the same reads.
 
+``method="integrated"`` runs the linear method, then rates each well from its whole
+curve: the integrated Michaelis–Menten equation with the apparent km of the well's row
+(one compound at one inhibitor level, fitted to the first rates) held and the well's
+offset and apparent vmax free; see :mod:`inhibkin.rates.integrated`. The late reads then
+inform v0 instead of biasing it, and no conversion cap shortens a low-substrate well. It
+needs the substrate as signal (``conversion`` or ``signal_unit`` and the substrate's
+unit); wells it cannot rate keep the linear rate, flagged ``linear_rate``. It assumes the
+curve follows Michaelis–Menten to its last read (no product inhibition, no loss of
+enzyme): the whole-curve fit of :func:`inhibkin.fit_progress_curves` makes the same
+assumption, and the linear method does not.
+
 Accuracy. Under Michaelis–Menten kinetics the rate falls by at most the fraction of
 substrate converted (d ln v / d conversion = −km/(km + S) ≥ −1), so a straight line over a
 window with conversion f underestimates the initial rate by at most about f/2 (first-order
@@ -799,9 +810,10 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
         (``time_min``), else s. A unit that contradicts the header is refused.
     rate_time_unit : str, optional
         Time unit of the reported rates; default ``time_unit``.
-    method : {"linear", "curve"}
-        Straight line over the longest linear early window, or slope at t = 0 of a
-        quadratic over the early curve (see the module notes).
+    method : {"linear", "curve", "integrated"}
+        Straight line over the longest linear early window, slope at t = 0 of a
+        quadratic over the early curve, or v0 of the integrated rate law fitted to the
+        whole curve with the row's apparent km (see the module notes).
     conversion : BeerLambert or StandardCurve, optional
         Signal to concentration. Without it the signal is taken as a concentration in
         ``signal_unit`` (or, if that is None too, rates stay in signal units).
