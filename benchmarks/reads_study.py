@@ -191,7 +191,7 @@ def section(records: pd.DataFrame, n: int, seconds: float, routes=tuple(ROUTES))
         "Km = 10 µM; I = 0–8 µM), progress curves from the mass-action ODE of "
         "E, S, I, ES, EI, ESI, P (`tests/grid_ode.py`, LSODA, rtol 1e-10), read as "
         "absorbance every 20 s for 600 s with 3 % read noise and 3 % pipetting scatter "
-        "of the enzyme. Routes: `initial_rates` (linear or curve method), then "
+        "of the enzyme. Routes: `initial_rates` (linear, curve or integrated method), then "
         "`fit_mechanisms` (profile intervals) with `weighting=\"relative\"` or with no "
         "weighting named (the default for a table carrying `rate_se`: `rate_se + "
         "variance model`); or `fit_progress_curves` (every read of every well, the "
