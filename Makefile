@@ -33,6 +33,7 @@ bench: $(STAMP_TEST)
 
 validate: $(STAMP_TEST)
 	$(BIN)/python -m benchmarks.validation
+	$(BIN)/python -m benchmarks.initial_rate_study --out docs/validation.md
 	$(BIN)/python -m benchmarks.reads_study --out docs/validation.md
 
 validate-time-dependent: $(STAMP_TEST)

@@ -7,8 +7,9 @@ every plate draws new read noise and pipetting scatter from
 ``np.random.default_rng(seed)``. Each plate is read as absorbance (3 % read noise, 8 × 6
 grid in duplicate) and taken through each route of :data:`ROUTES`:
 
-* ``linear rates, relative`` / ``linear rates, default`` / ``curve rates, default``:
-  ``initial_rates`` (linear or curve method), then ``fit_mechanisms`` with constant-CV
+* ``linear rates, relative`` / ``linear rates, default`` / ``curve rates, default`` /
+  ``integrated rates, default``: ``initial_rates`` (linear, curve or integrated
+  method), then ``fit_mechanisms`` with constant-CV
   weights or with no weighting named, which for a table carrying ``rate_se`` is
   ``rate_se + variance model`` (:mod:`inhibkin.core.weighting`);
 * ``progress curves``: ``fit_progress_curves`` on every read of every well.
@@ -57,6 +58,7 @@ ROUTES = {
     "linear rates, relative": ("linear", "relative"),
     "linear rates, default": ("linear", None),
     "curve rates, default": ("curve", None),
+    "integrated rates, default": ("integrated", None),
     "progress curves": ("progress", None),
 }
 START = "<!-- reads-study -->"
@@ -154,6 +156,19 @@ def summary_table(records: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame(out)
 
 
+def constant_table(records: pd.DataFrame) -> pd.DataFrame:
+    """Per truth and route: the coverage of each true constant's 95 % interval."""
+    names = [c.removesuffix("_covered") for c in records.columns if c.endswith("_covered")]
+    out = []
+    for (truth, route), group in records.groupby(["truth", "route"], sort=False):
+        row = {"truth": truth, "route": route}
+        for name in names:
+            hits = group[f"{name}_covered"].dropna().astype(bool)
+            row[name] = _band(int(hits.sum()), len(hits)) if len(hits) else "-"
+        out.append(row)
+    return pd.DataFrame(out)
+
+
 def markdown(frame: pd.DataFrame) -> str:
     """A DataFrame as a Markdown table (no optional dependency)."""
     head = "| " + " | ".join(frame.columns) + " |"
@@ -176,7 +191,7 @@ def section(records: pd.DataFrame, n: int, seconds: float, routes=tuple(ROUTES))
         "Km = 10 µM; I = 0–8 µM), progress curves from the mass-action ODE of "
         "E, S, I, ES, EI, ESI, P (`tests/grid_ode.py`, LSODA, rtol 1e-10), read as "
         "absorbance every 20 s for 600 s with 3 % read noise and 3 % pipetting scatter "
-        "of the enzyme. Routes: `initial_rates` (linear or curve method), then "
+        "of the enzyme. Routes: `initial_rates` (linear, curve or integrated method), then "
         "`fit_mechanisms` (profile intervals) with `weighting=\"relative\"` or with no "
         "weighting named (the default for a table carrying `rate_se`: `rate_se + "
         "variance model`); or `fit_progress_curves` (every read of every well, the "
@@ -194,15 +209,21 @@ def section(records: pd.DataFrame, n: int, seconds: float, routes=tuple(ROUTES))
            f"{int(np.median(flagged))} of 96." if len(flagged) else ""),
         "",
         markdown(summary_table(records)),
+        "",
+        "Coverage of each constant's 95 % interval (the true model's fit; Clopper–Pearson "
+        "bands):",
+        "",
+        markdown(constant_table(records)),
         END,
     ])
 
 
-def write_section(text: str, path: Path) -> None:
-    """Replace the marked section of ``path`` (appended when the markers are missing)."""
+def write_section(text: str, path: Path, start: str = START, end: str = END) -> None:
+    """Replace the section of ``path`` between ``start`` and ``end`` (appended when the
+    markers are missing)."""
     old = path.read_text() if path.exists() else ""
-    if START in old and END in old:
-        new = old[:old.index(START)] + text + old[old.index(END) + len(END):]
+    if start in old and end in old:
+        new = old[:old.index(start)] + text + old[old.index(end) + len(end):]
     else:
         new = old.rstrip("\n") + "\n\n" + text + "\n"
     path.write_text(new)
@@ -212,6 +233,8 @@ def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--n", type=int, default=100, help="plates per truth")
     parser.add_argument("--out", type=Path, help="Markdown file whose section is replaced")
+    parser.add_argument("--records", type=Path,
+                        help="CSV file for the per-plate records (one row per plate and route)")
     parser.add_argument("--routes", default=";".join(ROUTES),
                         help=f"routes separated by ; (default all: {'; '.join(ROUTES)})")
     args = parser.parse_args(argv)
@@ -221,6 +244,8 @@ def main(argv=None) -> int:
         parser.error(f"unknown routes {unknown}; known: {', '.join(ROUTES)}")
     started = time.perf_counter()
     records = run(args.n, routes)
+    if args.records:
+        records.to_csv(args.records, index=False)
     text = section(records, args.n, time.perf_counter() - started, routes)
     print(text)
     if args.out:

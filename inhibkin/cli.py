@@ -383,9 +383,13 @@ def _rates_arguments(parser):
     parser.add_argument("--rate-time-unit", choices=("s", "ms", "min", "h"),
                         help="time unit of the rates written, e.g. min for µM/min "
                              "(default: --time-unit)")
-    parser.add_argument("--method", choices=("linear", "curve"), default="linear",
+    parser.add_argument("--method", choices=("linear", "curve", "integrated"),
+                        default="linear",
                         help="linear: slope of the longest linear early window (default); "
-                             "curve: slope at t = 0 of a quadratic over the early curve")
+                             "curve: slope at t = 0 of a quadratic over the early curve; "
+                             "integrated: v0 from each well's whole curve (integrated "
+                             "Michaelis-Menten, the km of the well's inhibitor row; needs "
+                             "the signal as a concentration)")
 
 
 def _reads_arguments(parser, output):

@@ -108,10 +108,16 @@ def product_curve(mechanism: Mechanism, substrate: float, inhibitor: float):
 
 
 def plate(mechanism: Mechanism, seed: int, *, compound="CPD", substrate=SUBSTRATE,
-          inhibitor=INHIBITOR, read_cv=READ_CV):
+          inhibitor=INHIBITOR, read_cv=READ_CV, curve=None, with_scale=False):
     """Reads and plate map of one simulated plate (``substrate`` × ``inhibitor`` levels,
     µM, in duplicate, at most 48 cells: one 96-well plate; the standard grid by default;
     ``read_cv`` the read noise, default ``READ_CV``).
+
+    ``curve(s, i)`` gives a well's product P(t) (µM) in place of the mass-action ODE's
+    (a benchmark reads the closed form through it); with ``with_scale`` the plate map
+    carries each well's pipetting scale of the enzyme (``enzyme_scale``: the well's
+    rates are that multiple of the unscaled curve's), for studies that need the true
+    initial rate of each well.
 
     Returns
     -------
@@ -132,11 +138,13 @@ def plate(mechanism: Mechanism, seed: int, *, compound="CPD", substrate=SUBSTRAT
                 well = f"{'ABCDEFGH'[k // 12]}{k % 12 + 1:02d}"
                 k += 1
                 scale = max(1.0 + PIPETTING_CV * rng.standard_normal(), 0.5)
-                product = product_curve(mechanism, s, i)(scale * times)[6]
+                product = (product_curve(mechanism, s, i)(scale * times)[6]
+                           if curve is None else curve(s, i)(scale * times))
                 signal = BASELINE + EPSILON_PATH * product
                 signal = signal + read_cv * signal * rng.standard_normal(N_READS)
                 reads.append(pd.DataFrame({"plate": "P1", "well": well, "time": times,
                                            "signal": signal}))
                 wells.append({"plate": "P1", "well": well, "compound": compound,
-                              "substrate_uM": s, "inhibitor_uM": i, "role": "sample"})
+                              "substrate_uM": s, "inhibitor_uM": i, "role": "sample",
+                              **({"enzyme_scale": scale} if with_scale else {})})
     return pd.concat(reads, ignore_index=True), pd.DataFrame(wells)

@@ -239,7 +239,7 @@ def test_help_is_written_for_users(capsys):
     assert "grid fit weights" not in potency
     assert "dose-response curves are fitted unweighted" in potency
     rates = _help(capsys, "rates")
-    for option in ("--method {linear,curve}", "--direction {increase,decrease}",
+    for option in ("--method {linear,curve,integrated}", "--direction {increase,decrease}",
                    "--time-unit {s,ms,min,h}", "--rate-time-unit {s,ms,min,h}",
                    "--time COLUMN", "--signal COLUMN", "--rate COLUMN"):
         described = rates.split(option, 1)[-1].split(" --", 1)[0].strip()

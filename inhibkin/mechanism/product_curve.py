@@ -8,9 +8,8 @@ models is kept here. Integrating −dS/dt = Vapp·S/(Kapp + S) gives the closed 
     S(t) = Kapp · W( (S0/Kapp) · exp((S0 − Vapp·t)/Kapp) ),   P(t) = S0 − S(t)
 
 with W the Lambert W function (Schnell & Mendoza 1997, J. Theor. Biol. 187:207; Goudar,
-Sonnad & Duggleby 1999, BBA 1429:377). It is evaluated as Kapp·ω(ln(S0/Kapp) + (S0 −
-Vapp·t)/Kapp), ω the Wright omega function (``scipy.special.wrightomega``, ω(x) =
-W(eˣ)), which does not overflow when S0 ≫ Kapp.
+Sonnad & Duggleby 1999, BBA 1429:377), written once in
+:mod:`inhibkin.core.integrated_rate_law` (the integrated initial rates read it too).
 
 Where the closed form does not hold the rate law is integrated numerically
 (``scipy.integrate.solve_ivp``, LSODA) and the result says so (``integration``):
@@ -26,9 +25,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import special
 from scipy.integrate import solve_ivp
 
+from ..core.integrated_rate_law import closed_form_product, closed_form_sensitivities
 from ..core.models import MODELS
 from ..errors import DataError
 
@@ -69,36 +68,6 @@ def apparent_constants(law, inhibitor, params, scale, *, check=True):
             if not np.allclose(q3, intercept + slope * s3, rtol=_HYPERBOLIC_RTOL, atol=0):
                 return None
         return 1.0 / slope, intercept / slope
-
-
-def closed_form_sensitivities(t, s0, vapp, kapp):
-    """dP/dVapp and dP/dKapp of :func:`closed_form_product`, per read.
-
-    From the implicit form S + Kapp·ln S = S0 + Kapp·ln S0 − Vapp·t: dS/dVapp =
-    −t·S/(S + Kapp) and dS/dKapp = S·ln(S0/S)/(S + Kapp); P = S0 − S.
-    """
-    s = s0 - closed_form_product(t, s0, vapp, kapp)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        share = np.where(s > 0, s / (s + kapp), 0.0)
-        log_ratio = np.where(s > 0, np.log(s0 / s), 0.0)
-    return t * share, -share * log_ratio
-
-
-def closed_form_product(t, s0, vapp, kapp):
-    """Product formed by time ``t`` under Michaelis–Menten kinetics (Lambert W form).
-
-    Parameters
-    ----------
-    t : numpy.ndarray
-        Times (s).
-    s0, vapp, kapp : numpy.ndarray
-        Initial substrate, apparent vmax (per s) and apparent km, broadcast with ``t``;
-        concentrations in one unit.
-    """
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        x = np.log(s0 / kapp) + (s0 - vapp * t) / kapp
-        s = kapp * np.real(special.wrightomega(x))
-    return np.where(s0 > 0, s0 - s, 0.0)
 
 
 def ode_product(law, params, times, s0, inhibitor, product_ki=None):

@@ -36,6 +36,17 @@ spaced reads, above ``max_bias``). The quadratic absorbs the first-order loss of
 substrate is depleted, so its bias grows only with the square of the conversion; its
 standard error is about four times that of a straight line over the same reads.
 
+``method="integrated"`` runs the linear method, then rates each well from its whole
+curve: the integrated Michaelis–Menten equation with the apparent km of the well's row
+(one compound at one inhibitor level, fitted to the first rates) held and the well's
+offset and apparent vmax free; see :mod:`inhibkin.rates.integrated`. The late reads then
+inform v0 instead of biasing it, and no conversion cap shortens a low-substrate well. It
+needs the substrate as signal (``conversion`` or ``signal_unit`` and the substrate's
+unit); wells it cannot rate keep the linear rate, flagged ``linear_rate``. It assumes the
+curve follows Michaelis–Menten to its last read (no product inhibition, no loss of
+enzyme): the whole-curve fit of :func:`inhibkin.fit_progress_curves` makes the same
+assumption, and the linear method does not.
+
 Accuracy. Under Michaelis–Menten kinetics the rate falls by at most the fraction of
 substrate converted (d ln v / d conversion = −km/(km + S) ≥ −1), so a straight line over a
 window with conversion f underestimates the initial rate by at most about f/2 (first-order
@@ -73,6 +84,7 @@ from ..errors import DataError, Problem, UnitsError
 from ..inputs.columns import find_column
 from ..units import from_molar, normalise_unit, to_molar, to_seconds
 from ..validate import check_columns, normalise_roles, numeric_column, row_kind
+from .integrated import ROW_PASSES, integrated_rates, row_apparent_km
 from .product_inhibition import FLAG as PRODUCT_INHIBITION
 from .product_inhibition import product_inhibition
 from .signal import BeerLambert, StandardCurve, blank_signal
@@ -81,7 +93,7 @@ from .time_dependence import time_dependence
 __all__ = ["InitialRates", "RateOptions", "initial_rates", "product_curves", "FLAGS",
            "METHODS", "ROLES"]
 
-METHODS = ("linear", "curve")
+METHODS = ("linear", "curve", "integrated")
 DIRECTIONS = ("increase", "decrease")
 ROLES = ("sample", "blank", "control")
 
@@ -100,6 +112,9 @@ FLAGS = {
     "flat": "the slope cannot be told from zero (|rate| ≤ 2 standard errors)",
     "negative_slope": "the signal moves against the product (rate < −2 standard errors)",
     "noisy": "the rate's standard error exceeds max_rate_cv of the rate",
+    "linear_rate": "method='integrated' could not fit this well's curve (its row has too "
+                   "few substrate levels with a rate, or the substrate is not known as "
+                   "signal): the rate is the linear method's",
     "time_dependent": "an inhibited well's rate falls with time beyond what substrate "
                       "depletion explains from the wells without inhibitor at the same "
                       "plate and substrate (slow binding or inactivation; see "
@@ -799,9 +814,10 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
         (``time_min``), else s. A unit that contradicts the header is refused.
     rate_time_unit : str, optional
         Time unit of the reported rates; default ``time_unit``.
-    method : {"linear", "curve"}
-        Straight line over the longest linear early window, or slope at t = 0 of a
-        quadratic over the early curve (see the module notes).
+    method : {"linear", "curve", "integrated"}
+        Straight line over the longest linear early window, slope at t = 0 of a
+        quadratic over the early curve, or v0 of the integrated rate law fitted to the
+        whole curve with the row's apparent km (see the module notes).
     conversion : BeerLambert or StandardCurve, optional
         Signal to concentration. Without it the signal is taken as a concentration in
         ``signal_unit`` (or, if that is None too, rates stay in signal units).
@@ -904,9 +920,16 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     # inf/NaN; the finiteness checks of the assembly turn those into flagged or failed
     # wells, so the floating-point warnings would only repeat that.
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-        core = _rates_core(t_grid, y_grid, valid, ceiling_at, s0_signal, method=method,
+        core = _rates_core(t_grid, y_grid, valid, ceiling_at, s0_signal,
+                           method="linear" if method == "integrated" else method,
                            alpha=alpha, max_bias=max_bias, max_conversion=max_conversion,
                            min_points=min_points) if n_wells else None
+        if method == "integrated" and n_wells:
+            row_of = pd.factorize(pd.MultiIndex.from_arrays(
+                [plate_map[compound].astype(str).to_numpy()[wells_rated],
+                 i_map[wells_rated]]))[0]
+            core = _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal,
+                                    row_of, min_points)
         rows = _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells,
                          options=options)
         if n_wells:
@@ -957,6 +980,45 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     return InitialRates(table, controls, unmatched, units, options)
 
 
+def _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal, row_of,
+                     min_points):
+    """The second pass of ``method="integrated"`` (:mod:`inhibkin.rates.integrated`) over
+    the linear pass's ``core``: its wells' rates from their whole curves. The rows' Kapp
+    is estimated again from the integrated rates (the linear rates it first came from
+    carry the depletion bias), :data:`ROW_PASSES` times in all."""
+    usable = valid & (np.arange(t_grid.shape[1])[None, :] < ceiling_at[:, None])
+    enough = ~core["failed"] & np.isfinite(s0_signal) & (usable.sum(axis=1) >= min_points)
+    out = dict(core)
+    fitted = np.zeros(len(s0), dtype=bool)
+    for _ in range(ROW_PASSES):
+        kapp_row, log_var_row = row_apparent_km(s0, out["rate"], out["rate_se"], row_of)
+        if not len(kapp_row):
+            break
+        with np.errstate(divide="ignore", invalid="ignore"):
+            kapp_signal = kapp_row[row_of] * s0_signal / s0
+        fitting = enough & np.isfinite(kapp_signal)
+        if not fitting.any():
+            break
+        second = integrated_rates(t_grid[fitting], y_grid[fitting], usable[fitting],
+                                  s0_signal[fitting], kapp_signal[fitting],
+                                  log_var_row[row_of][fitting], core["rate"][fitting])
+        good = np.isfinite(second["rate"]) & np.isfinite(second["rate_se"])
+        where = np.flatnonzero(fitting)[good]
+        out = dict(core)
+        for name, values in second.items():
+            column = np.array(core[name], dtype=float, copy=True)
+            column[where] = values[good]
+            out[name] = column if name != "position_end" else column.astype(int)
+        fitted = np.zeros(len(s0), dtype=bool)
+        fitted[where] = True
+    # The curve carries depletion: the linear window's tests and the conversion cap do
+    # not apply to a well rated from its whole curve.
+    out["nonlinear"] = core["nonlinear"] & ~fitted
+    out["curve_fitted"] = fitted
+    out["linear_rate"] = ~fitted & ~core["failed"]
+    return out
+
+
 def _add_flag(rows, mask, name):
     """Append flag ``name`` to the wells in ``mask`` (status ok becomes flagged)."""
     flags = rows["flags"]
@@ -976,7 +1038,8 @@ def _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells, 
         flat = np.abs(rate) <= _FLAT_T * se
         negative = rate < -_FLAT_T * se
         imprecise = ~flat & ~negative & (se > options.max_rate_cv * np.abs(rate))
-        high_conversion = core["conversion"] > options.max_conversion
+        high_conversion = (core["conversion"] > options.max_conversion) & ~core.get(
+            "curve_fitted", False)
     in_window = np.arange(t_grid.shape[1])[None, :] <= core["position_end"][:, None]
     if isinstance(conversion, StandardCurve):
         outside = conversion.outside(raw_grid) & np.isfinite(raw_grid) & in_window
@@ -997,6 +1060,7 @@ def _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells, 
         "flat": flat & ~failed,
         "negative_slope": negative & ~failed,
         "noisy": imprecise & ~failed,
+        "linear_rate": core.get("linear_rate", np.zeros(n_wells, dtype=bool)),
     }
     flags = np.full(n_wells, "", dtype=object)
     for name, mask in named.items():
