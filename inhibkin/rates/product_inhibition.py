@@ -43,6 +43,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .well_flags import carries_flag
+
 __all__ = ["product_inhibition", "product_inhibited_grid", "FLAG", "LEVEL",
            "MAX_CONVERSION", "REASON"]
 
@@ -180,5 +182,4 @@ def product_inhibited_grid(table, *, flags="flags") -> bool:
         if flags not in table.columns:
             return False
         table = table[flags]
-    names = pd.Series(np.asarray(table, dtype=object)).fillna("").astype(str).str.split(";")
-    return bool(names.apply(lambda listed: FLAG in (n.strip() for n in listed)).any())
+    return bool(carries_flag(table, FLAG).any())

@@ -35,6 +35,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .well_flags import carries_flag
+
 __all__ = ["time_dependence", "time_dependent_grid", "flagged_inhibited", "min_flagged",
            "FLAG", "LEVEL", "COMPOUND_LEVEL"]
 
@@ -179,8 +181,7 @@ def flagged_inhibited(flags, inhibitor) -> tuple[int, int]:
         Flagged inhibited wells, inhibited wells.
     """
     inhibited = pd.to_numeric(pd.Series(np.asarray(inhibitor)), errors="coerce").to_numpy() > 0
-    names = pd.Series(np.asarray(flags, dtype=object)).fillna("").astype(str).str.split(";")
-    marked = names.apply(lambda listed: FLAG in (n.strip() for n in listed)).to_numpy(bool)
+    marked = carries_flag(flags, FLAG)
     n_flagged, n_inhibited = int((inhibited & marked).sum()), int(inhibited.sum())
     return (n_flagged if n_flagged >= min_flagged(n_inhibited) else 0), n_inhibited
 
