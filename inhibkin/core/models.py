@@ -462,6 +462,14 @@ def extension_of(name: str, family: str = "substrate_inhibition") -> str | None:
     return None
 
 
+def general_law(law: RateLaw) -> RateLaw:
+    """The most general law of ``law``'s family (mixed, or mixed's extension by the
+    family), in which every law of the family nests; :func:`nested_start` with ``far``
+    = inf gives a law's parameters as that law's."""
+    name = "mixed" if law.family == "classical" else extension_of("mixed", law.family)
+    return MODELS[name]
+
+
 def get_model(name: str) -> RateLaw:
     """Return the rate law called ``name``.
 

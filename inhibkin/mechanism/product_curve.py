@@ -14,8 +14,9 @@ Sonnad & Duggleby 1999, BBA 1429:377), written once in
 Where the closed form does not hold the rate law is integrated numerically
 (``scipy.integrate.solve_ivp``, LSODA) and the result says so (``integration``):
 
-* product inhibition (``product_ki``: the product competes with the substrate, km
-  becomes km·(1 + P/Kp), Kp known and in the substrate's unit);
+* product inhibition (``product_ki``: the product binds the free enzyme, competing with
+  the substrate and with the inhibitor's free-enzyme binding, so the free-enzyme term
+  km·(1 + I/kic) becomes km·(1 + I/kic + P/Kp); Kp known and in the substrate's unit);
 * laws that are not hyperbolic in S (the substrate-inhibited extensions).
 """
 
@@ -28,7 +29,7 @@ import pandas as pd
 from scipy.integrate import solve_ivp
 
 from ..core.integrated_rate_law import closed_form_product, closed_form_sensitivities
-from ..core.models import MODELS
+from ..core.models import MODELS, general_law, nested_start
 from ..errors import DataError
 
 __all__ = ["INTEGRATIONS", "CLOSED_FORM", "ODE", "WellCurves", "apparent_constants",
@@ -73,9 +74,14 @@ def apparent_constants(law, inhibitor, params, scale, *, check=True):
 def ode_product(law, params, times, s0, inhibitor, product_ki=None):
     """Product formed at ``times`` (per well, one row each) by integrating the law.
 
-    dP/dt = rate(S0 − P, I) with the law's own rate function; with ``product_ki`` the
-    product competes with the substrate (km → km·(1 + P/product_ki)). All wells are
-    one system of independent equations, solved once.
+    dP/dt = rate(S0 − P, I) with the law's own rate function. With ``product_ki`` the
+    product binds the free enzyme (E + P ⇌ EP, exclusive with ES and EI), which adds
+    P/Kp to the free-enzyme term: km·(1 + I/kic) → km·(1 + I/kic + P/Kp) =
+    km·(1 + x)·(1 + I/(kic·(1 + x))), x = P/Kp. The law is therefore evaluated in its
+    family's general form (mixed, or its extension) with km and kic both scaled by
+    (1 + x), which holds for every family (the tight-binding apparent constant and the
+    substrate-inhibition term included); kiu and the partial turnover are untouched.
+    All wells are one system of independent equations, solved once.
 
     Parameters
     ----------
@@ -87,15 +93,18 @@ def ode_product(law, params, times, s0, inhibitor, product_ki=None):
     s0, inhibitor : numpy.ndarray, shape (wells,)
     product_ki : float, optional
     """
-    params = list(params)
-    km_index = law.param_names.index(law.with_role("substrate")[0])
-    km = params[km_index]
+    general = general_law(law)
+    values = nested_start(law.name, dict(zip(law.param_names, params)), general.name,
+                          np.inf)
+    base = np.array([values[p] for p in general.param_names], dtype=float)
+    free_enzyme = [general.param_names.index(p) for p in ("km", "kic")]
 
     def rhs(_t, p):
-        values = list(params)
+        values = list(base)
         if product_ki is not None:
-            values[km_index] = km * (1.0 + p / product_ki)
-        return law.rate(np.maximum(s0 - p, 0.0), inhibitor, *values)
+            for j in free_enzyme:
+                values[j] = base[j] * (1.0 + p / product_ki)
+        return general.rate(np.maximum(s0 - p, 0.0), inhibitor, *values)
 
     grid = np.unique(times[np.isfinite(times)])
     end = float(grid[-1]) if len(grid) else 0.0
