@@ -120,7 +120,10 @@ class VerdictOptions:
         Level at which a family's general law must beat mixed, on a grid that passes the
         lack-of-fit test, to send it to that family (default 0.001: three families are
         probed on every inhibited grid, and a false alarm renames a classical compound;
-        the tight-binding and partial plates of docs/lack_of_fit.md give p below 1e-4).
+        most tight-binding and partial plates of docs/lack_of_fit.md give p below 1e-4).
+        Without [E], the tight-binding probe counts at ``alpha`` instead when the
+        classical constant is below the lowest non-zero inhibitor level
+        (:data:`TIGHT_BINDING_LOWEST_FACTOR`).
     """
 
     alpha: float = 0.05
