@@ -8,7 +8,12 @@ from grid_ode import EPSILON_PATH, Mechanism, plate
 
 import inhibkin as ik
 from inhibkin.cli import main
-from inhibkin.core.compare import TIGHT_BINDING_FACTOR, VerdictOptions
+from inhibkin.core.compare import (
+    TIGHT_BINDING_FACTOR,
+    TIGHT_BINDING_LOWEST_FACTOR,
+    VerdictOptions,
+    extension_signs,
+)
 from inhibkin.core.models import FAMILIES, MODELS, extension_of
 from inhibkin.engine import fit_mechanisms_batch
 from inhibkin.errors import DataError
@@ -105,6 +110,9 @@ TIGHT = Mechanism(kic=0.01, enzyme=0.05, kcat=0.04, k_1=1000.0 - 0.04)  # uM; Ki
 TIGHT_INHIBITOR = (0.0, 0.025, 0.05, 0.1, 0.2, 0.4)
 PARTIAL = Mechanism(kic=1.0, kiu=1.0, beta=0.3)
 CLASSICAL = Mechanism(kic=1.0)
+# A classical inhibitor as potent as TIGHT's (Ki a fifth of the lowest level, 25 nM) with
+# [E] = 20 pM, far below it: no depletion, so its classical Ki is the chemistry's.
+CLASSICAL_POTENT = Mechanism(kic=0.005)
 
 
 def _rates(mechanism, seed, **levels):
@@ -116,7 +124,12 @@ def _rates(mechanism, seed, **levels):
 
 @pytest.fixture(scope="session")
 def ode_plates():
-    return {"tight": [_rates(TIGHT, seed, inhibitor=TIGHT_INHIBITOR) for seed in (0, 1)],
+    # Seed 5 of TIGHT: the probe with [E] fitted gives p = 0.034 (between probe_alpha and
+    # alpha), a case the tight-binding sign at alpha is for. (Each well's ODE is solved
+    # once per session whatever the seed: the seeds only change the noise.)
+    return {"tight": [_rates(TIGHT, seed, inhibitor=TIGHT_INHIBITOR) for seed in (0, 1, 5)],
+            "potent": [_rates(CLASSICAL_POTENT, seed, inhibitor=TIGHT_INHIBITOR)
+                       for seed in (0, 1)],
             "partial": [_rates(PARTIAL, seed) for seed in (1, 2)],
             "classical": [_rates(CLASSICAL, seed) for seed in (0, 1)]}
 
@@ -150,6 +163,46 @@ def test_tight_binding_plate_without_enzyme_is_not_a_confident_classical_ki(ode_
         if fit.verdict == "competitive, tight binding":
             np.testing.assert_allclose(fit.best_fit.params.loc["kic", "estimate"], 1e-8,
                                        rtol=ODE_RTOL)
+
+
+def test_tight_binding_sign_at_alpha_below_the_lowest_inhibitor_level(ode_plates):
+    # Seed 5: the classical constant (mixed's kic, ~20 nM) is below the lowest level
+    # (25 nM) and mixed_tb with [E] fitted beats mixed at p = 0.034, short of probe_alpha:
+    # before, the verdict was a classical law with kic about 2x the chemistry's 10 nM.
+    for fit in _both(ode_plates["tight"][2]):
+        assert fit.verdict == "competitive, tight binding", fit.reason
+        assert "p = 0.0337" in fit.reason
+        np.testing.assert_allclose(fit.best_fit.params.loc["kic", "estimate"], 1e-8,
+                                   rtol=ODE_RTOL)
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_potent_classical_inhibitor_keeps_its_ki(ode_plates, seed):
+    # Ki = 5 nM, a fifth of the lowest inhibitor level, with [E] 250x below it: the
+    # position of the constant alone is no sign of tight binding (before, these plates
+    # were "ambiguous", the constant not trusted; 38 of 40 such plates in the study).
+    for fit in _both(ode_plates["potent"][seed]):
+        assert fit.verdict == "competitive", fit.reason
+        np.testing.assert_allclose(fit.best_fit.params.loc["kic", "estimate"], 5e-9,
+                                   rtol=ODE_RTOL)
+
+
+def test_tight_binding_sign_needs_both_the_position_and_the_gain():
+    # Rule 5 without [E] (inhibkin.core.compare.extension_signs): a constant below the
+    # lowest level sends the grid to tight binding only with a gain at alpha; a gain at
+    # alpha alone does not (probe_alpha holds there).
+    options = VerdictOptions()
+    lowest = 25.0
+    below, above = 0.8 * TIGHT_BINDING_LOWEST_FACTOR * lowest, 1.2 * lowest
+    gain = {"tight_binding": 0.02, "partial": np.nan, "substrate_inhibition": np.nan}
+    no_gain = {**gain, "tight_binding": np.nan}
+    assert extension_signs(gain, below, lowest, options) == ("tight_binding",)
+    assert extension_signs(gain, above, lowest, options) == ()
+    assert extension_signs(no_gain, 0.01 * lowest, lowest, options) == ()
+    assert extension_signs({**gain, "tight_binding": 5e-4}, above, lowest,
+                           options) == ("tight_binding",)
+    # With [E] given the tight-binding law adds no constant: the 10 x [E] rule decides.
+    assert extension_signs(gain, below, lowest, options, enzyme=50.0) == ()
 
 
 @pytest.mark.parametrize("seed", [0, 1])

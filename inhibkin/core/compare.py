@@ -37,9 +37,10 @@ The verdict follows the nesting of the models (see :func:`decide`):
    concentration given, a classical constant within ``TIGHT_BINDING_FACTOR`` (10) × [E]
    sends the grid to its tight-binding laws ([E] held) whatever the lack-of-fit test
    says. The general law of every family (with [E] fitted when it is not given) is
-   fitted for every inhibited grid: one that beats mixed at ``probe_alpha`` (0.001; or,
-   without [E], a constant far below the lowest inhibitor level) sends the grid to that
-   family too, and makes the verdict ``ambiguous`` when no law of it fits.
+   fitted for every inhibited grid: one that beats mixed at ``probe_alpha`` (0.001; the
+   tight-binding law with [E] fitted at ``alpha`` when the classical constant is below
+   the lowest non-zero inhibitor level) sends the grid to that family too, and makes the
+   verdict ``ambiguous`` when no law of it fits.
 6. *Were the rates steady-state rates at all?* When the rates stage flagged inhibited
    wells ``time_dependent`` (their progress curves bend beyond substrate depletion:
    :mod:`inhibkin.rates.time_dependence`), every rate law above is the wrong model and
@@ -119,7 +120,10 @@ class VerdictOptions:
         Level at which a family's general law must beat mixed, on a grid that passes the
         lack-of-fit test, to send it to that family (default 0.001: three families are
         probed on every inhibited grid, and a false alarm renames a classical compound;
-        the tight-binding and partial plates of docs/lack_of_fit.md give p below 1e-4).
+        most tight-binding and partial plates of docs/lack_of_fit.md give p below 1e-4).
+        Without [E], the tight-binding probe counts at ``alpha`` instead when the
+        classical constant is below the lowest non-zero inhibitor level
+        (:data:`TIGHT_BINDING_LOWEST_FACTOR`).
     """
 
     alpha: float = 0.05
@@ -416,10 +420,13 @@ def time_dependent_verdict(steady: Verdict, n_flagged: int, n_inhibited: int) ->
 #: ranking constant is below this multiple of [E] is refitted in its tight-binding form
 #: (inhibitor depletion; the free-inhibitor approximation is off by up to [E]/2 there).
 TIGHT_BINDING_FACTOR = 10.0
-#: Without [E], a classical constant below the lowest non-zero inhibitor level divided by
-#: this is a sign of tight binding (every inhibited well already far past half
-#: inhibition: the constant comes from the residual activity, where depletion rules).
-TIGHT_BINDING_LOWEST_FACTOR = 3.0
+#: Without [E], a classical constant below this multiple of the lowest non-zero inhibitor
+#: level (every inhibited well past half inhibition: the constant comes from the residual
+#: activity, where depletion would rule) makes the tight-binding probe count at the
+#: verdict's own level ``alpha`` instead of ``probe_alpha``. The position alone is no
+#: sign: classical ODE plates with Ki a fifth of the lowest level ([E] far below Ki) were
+#: all flagged by it when it sufficed (docs/lack_of_fit.md).
+TIGHT_BINDING_LOWEST_FACTOR = 1.0
 
 
 def _family_verdict(family, *, p_value, converged, aicc, options):
@@ -466,13 +473,15 @@ def extension_signs(gains, tight_constant, lowest_inhibitor, options, enzyme=Non
     -------
     tuple of str
         Families whose gain is significant at ``options.probe_alpha``, and tight
-        binding (without [E]) when the classical constant lies below the lowest non-zero
-        inhibitor level / :data:`TIGHT_BINDING_LOWEST_FACTOR`.
+        binding (without [E]) when its gain is significant at ``options.alpha`` and the
+        classical constant lies below :data:`TIGHT_BINDING_LOWEST_FACTOR` × the lowest
+        non-zero inhibitor level.
     """
     out = [name for name, p in gains.items()
            if p < options.probe_alpha and not (name == "tight_binding" and enzyme is not None)]
     if (enzyme is None and "tight_binding" not in out
-            and tight_constant * TIGHT_BINDING_LOWEST_FACTOR < lowest_inhibitor):
+            and tight_constant < TIGHT_BINDING_LOWEST_FACTOR * lowest_inhibitor
+            and gains.get("tight_binding", np.nan) < options.alpha):
         out.append("tight_binding")
     return tuple(out)
 
