@@ -26,6 +26,7 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -33,6 +34,7 @@ import pandas as pd
 
 import inhibkin as ik
 from benchmarks.validation import clopper_pearson, outcome
+from inhibkin.core.compare import decide
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 from grid_ode import EPSILON_PATH, Mechanism, plate  # noqa: E402
@@ -78,6 +80,16 @@ def _scored(record, params, truth_values):
     return record
 
 
+def two_sided_verdict(fit) -> str:
+    """The verdict under rule 4's two-sided edge test (``edge_sides=2``, the rule before
+    the one-sided test) on the same fits: ``fit.verdict`` where rules 1–4 agree under
+    both tests, else the two-sided verdict of rules 1–4 (rule 5 and the wells' flags,
+    which follow rule 4, are not rerun for those plates)."""
+    one = decide(fit.comparison, fit.ftests, fit.options)
+    two = decide(fit.comparison, fit.ftests, replace(fit.options, edge_sides=2))
+    return fit.verdict if one.verdict == two.verdict else two.verdict
+
+
 def fit_plate(truth: str, seed: int, routes=tuple(ROUTES)) -> list[dict]:
     """One plate read, then every route of ``routes``: one record each."""
     mechanism = TRUTHS[truth]
@@ -93,7 +105,7 @@ def fit_plate(truth: str, seed: int, routes=tuple(ROUTES)) -> list[dict]:
         if method == "progress":
             fit = ik.fit_progress_curves(reads, plate_map, conversion=conversion, **COLUMNS)
             record.update(verdict=fit.verdict, used=fit.integration.split(" (")[0],
-                          noisy_or_flat=0)
+                          noisy_or_flat=0, verdict_two_sided=two_sided_verdict(fit))
             records.append(_scored(record, fit.models[truth].params, truth_values))
             continue
         if method not in tables:
@@ -106,7 +118,8 @@ def fit_plate(truth: str, seed: int, routes=tuple(ROUTES)) -> list[dict]:
         except ik.DataError:
             records.append({**record, "verdict": "rejected", "used": ""})
             continue
-        record.update(verdict=fit.verdict, used=fit.weighting)
+        record.update(verdict=fit.verdict, used=fit.weighting,
+                      verdict_two_sided=two_sided_verdict(fit))
         records.append(_scored(record, fit.models[truth].params, truth_values))
     return records
 
