@@ -26,15 +26,13 @@ from __future__ import annotations
 import argparse
 import sys
 import time
-from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 import inhibkin as ik
-from benchmarks.validation import clopper_pearson, outcome
-from inhibkin.core.compare import decide
+from benchmarks.validation import clopper_pearson, outcome, two_sided_verdict
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 from grid_ode import EPSILON_PATH, Mechanism, plate  # noqa: E402
@@ -78,16 +76,6 @@ def _scored(record, params, truth_values):
         with np.errstate(divide="ignore", invalid="ignore"):
             record[f"{name}_width"] = float(np.log10(row["ci_high"] / row["ci_low"]))
     return record
-
-
-def two_sided_verdict(fit) -> str:
-    """The verdict under rule 4's two-sided edge test (``edge_sides=2``, the rule before
-    the one-sided test) on the same fits: ``fit.verdict`` where rules 1–4 agree under
-    both tests, else the two-sided verdict of rules 1–4 (rule 5 and the wells' flags,
-    which follow rule 4, are not rerun for those plates)."""
-    one = decide(fit.comparison, fit.ftests, fit.options)
-    two = decide(fit.comparison, fit.ftests, replace(fit.options, edge_sides=2))
-    return fit.verdict if one.verdict == two.verdict else two.verdict
 
 
 def fit_plate(truth: str, seed: int, routes=tuple(ROUTES)) -> list[dict]:

@@ -197,11 +197,24 @@ def test_one_sided_edge_level_is_the_signed_root_t_test():
         p_two = float(stats.f.sf(f_value, 1, d))
         p_t = float(stats.t.sf(np.sqrt(f_value), d))
         assert p_two / 2 == pytest.approx(p_t, rel=1e-10)
-        for free, side in ((0.05, "low"), (20.0, "high")):
-            assert edge_rejected(p_two, free, 5.0 if side == "high" else 0.2, side,
-                                 VerdictOptions()) == (p_t < 0.05)
-        # Beyond the edge on the other side, never rejected in the claimed direction.
-        assert not edge_rejected(p_two, 1.0, 0.2, "low", VerdictOptions())
+        for free, held, side in ((0.05, 0.2, "below"), (20.0, 5.0, "above"),
+                                 (1.0, 0.2, "above"), (1.0, 5.0, "below")):
+            assert edge_rejected(p_two, free, held, side, VerdictOptions()) == (p_t < 0.05)
+        # The free alpha on the other side: never rejected in the claimed direction.
+        assert not edge_rejected(p_two, 1.0, 0.2, "below", VerdictOptions())
+        assert not edge_rejected(p_two, 1.0, 5.0, "above", VerdictOptions())
+
+
+def test_noncompetitive_needs_alpha_between_the_edges():
+    # Both edges, each one-sided towards the inside: alpha above 1/5 and below 5.
+    aicc = {"none": 50.0, "competitive": 30.0, "uncompetitive": 30.0, "noncompetitive": 0.0,
+            "mixed": 1.5}
+    p = {("none", "mixed"): 1e-9, ("competitive", "mixed"): 1e-6,
+         ("uncompetitive", "mixed"): 1e-6, ("noncompetitive", "mixed"): 0.4,
+         ("mixed, alpha = 0.2", "mixed"): 0.01, ("mixed, alpha = 5", "mixed"): 0.01}
+    assert decide(*_tables(aicc, p, free=1.0)).verdict == "noncompetitive"
+    for free in (0.1, 10.0):  # outside one edge: that edge's test points the wrong way
+        assert decide(*_tables(aicc, p, free=free)).verdict == "ambiguous"
 
 
 def test_edge_sides_is_checked():

@@ -152,14 +152,16 @@ class VerdictOptions:
         return tuple(row for row, _, _ in self.alpha_edge_tests(model))
 
     def alpha_edge_tests(self, model: str) -> tuple[tuple[str, float, str], ...]:
-        """Rule 4's tests for ``model``: (fixed-alpha row, the value held, the side
-        ``"low"``/``"high"`` of the region the name claims, beyond which the free alpha
-        must lie)."""
+        """Rule 4's tests for ``model``: (fixed-alpha row, the value held, the side of
+        the edge where the name puts alpha: ``"below"`` or ``"above"``)."""
         at = {"low": 1 / self.alpha_factor, "high": self.alpha_factor}
         law = MODELS.get(model)
         edges = law.alpha_edges if law else ()
-        # "high" (competitive) claims alpha above alpha_factor; "low" below its inverse.
-        return tuple((self.alpha_row(at[edge]), at[edge], edge) for edge in edges)
+        # One edge: competitive ("high") claims alpha above alpha_factor, uncompetitive
+        # ("low") below its inverse; both edges (noncompetitive): between them.
+        side = {"high": "below" if "low" in edges else "above",
+                "low": "above" if "high" in edges else "below"}
+        return tuple((self.alpha_row(at[edge]), at[edge], side[edge]) for edge in edges)
 
     @property
     def alpha_values(self) -> tuple[float, float]:
@@ -373,9 +375,9 @@ def edge_rejected(p_two_sided, free, held, side, options) -> bool:
         The free fit's alpha = kiu/kic.
     held : float
         The edge.
-    side : {"low", "high"}
-        Where the name puts alpha: below ``held`` (uncompetitive) or above it
-        (competitive).
+    side : {"below", "above"}
+        Where the name puts alpha: below ``held`` (uncompetitive; noncompetitive at
+        alpha_factor) or above it (competitive; noncompetitive at 1/alpha_factor).
     options : VerdictOptions
         ``alpha`` is the level; ``edge_sides`` 2 keeps the two-sided test.
 
@@ -390,7 +392,7 @@ def edge_rejected(p_two_sided, free, held, side, options) -> bool:
     """
     if options.edge_sides == 2:
         return bool(p_two_sided < options.alpha)
-    beyond = free < held if side == "low" else free > held
+    beyond = free < held if side == "below" else free > held
     return bool(beyond and p_two_sided / 2 < options.alpha)
 
 
