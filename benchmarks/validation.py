@@ -227,14 +227,14 @@ def _rejected(reason: str) -> dict:
             "true_model_converged": False}
 
 
-def two_sided_verdict(fit) -> str:
-    """The verdict under rule 4's two-sided edge test (``edge_sides=2``, the rule before
-    the one-sided test) on the same fits: ``fit.verdict`` where rules 1–4 agree under
-    both tests, else the two-sided verdict of rules 1–4 (rule 5 and the wells' flags,
-    which follow rule 4, are not rerun for those plates)."""
-    one = decide(fit.comparison, fit.ftests, fit.options)
-    two = decide(fit.comparison, fit.ftests, replace(fit.options, edge_sides=2))
-    return fit.verdict if one.verdict == two.verdict else two.verdict
+def edge_verdict(fit, sides: int) -> str:
+    """The verdict under rule 4's edge test with ``edge_sides=sides`` on the same fits:
+    ``fit.verdict`` where rules 1–4 agree under the fit's own test and this one, else
+    the verdict of rules 1–4 under this one (rule 5 and the wells' flags, which follow
+    rule 4, are not rerun for those data sets)."""
+    own = decide(fit.comparison, fit.ftests, fit.options)
+    other = decide(fit.comparison, fit.ftests, replace(fit.options, edge_sides=sides))
+    return fit.verdict if own.verdict == other.verdict else other.verdict
 
 
 def record_of(case: Case, fit) -> dict:
@@ -244,11 +244,11 @@ def record_of(case: Case, fit) -> dict:
     true model, the estimate, its interval from the fit of the true model, whether the
     interval covers the truth and whether the constant was determined.
     """
-    two_sided = two_sided_verdict(fit)
+    one_sided = edge_verdict(fit, 1)
     record = {"verdict": fit.verdict, "outcome": outcome(case.model, fit.verdict),
               "candidates": "+".join(fit.candidates), "reason": fit.reason,
-              "verdict_two_sided": two_sided,
-              "outcome_two_sided": outcome(case.model, two_sided)}
+              "verdict_one_sided": one_sided,
+              "outcome_one_sided": outcome(case.model, one_sided)}
     true_fit = fit.models.get(case.model)
     record["true_model_converged"] = bool(true_fit is not None and true_fit.converged)
     if not record["true_model_converged"]:
@@ -393,15 +393,15 @@ def outcome_table(records: pd.DataFrame) -> pd.DataFrame:
 
 
 def edge_rule_table(records: pd.DataFrame) -> pd.DataFrame:
-    """Correct and confidently wrong per (noise, design, truth) under rule 4's one-sided
-    edge test (the default) and the two-sided one (``edge_sides=2``), on the same fits."""
-    keyed = records.dropna(subset=["outcome_two_sided"])
+    """Correct and confidently wrong per (noise, design, truth) under rule 4's two-sided
+    edge test (the default) and the one-sided one (``edge_sides=1``), on the same fits."""
+    keyed = records.dropna(subset=["outcome_one_sided"])
     by = [keyed["noise"], keyed["design"], keyed["truth"]]
     out = pd.DataFrame({
         "correct": keyed["outcome"].eq("correct").groupby(by).mean(),
-        "correct, two-sided": keyed["outcome_two_sided"].eq("correct").groupby(by).mean(),
+        "correct, one-sided": keyed["outcome_one_sided"].eq("correct").groupby(by).mean(),
         "wrong": keyed["outcome"].eq("wrong").groupby(by).mean(),
-        "wrong, two-sided": keyed["outcome_two_sided"].eq("wrong").groupby(by).mean(),
+        "wrong, one-sided": keyed["outcome_one_sided"].eq("wrong").groupby(by).mean(),
     })
     out["n"] = keyed.groupby(["noise", "design", "truth"]).size()
     return out
@@ -527,7 +527,7 @@ def render(tables, intervals="log-scale Wald") -> str:
         "\nlarger = a model nesting the truth / missed = 'none' for an inhibitor / failed /"
         "\nrejected = refused by the input checks, e.g. rates with no signal)",
         _pct(out.drop(columns="n")),
-        "Rule 4's edge test, one-sided (default) against two-sided on the same fits, %",
+        "Rule 4's edge test, two-sided (default) against one-sided on the same fits, %",
         _pct(tables["edge_rule"].drop(columns="n")),
         "Verdicts, % of data sets (confusion matrix)",
         _pct(tables["confusion"]),

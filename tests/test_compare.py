@@ -163,8 +163,8 @@ def test_rule_four_within_a_family_reads_the_familys_own_fixed_alpha_fits(
         assert out.verdict == "ambiguous" and out.candidates == ("competitive_tb", "mixed_tb")
 
 
-# Rule 4's edge test is one-sided: the claim "alpha below 1/5" (uncompetitive) is
-# supported by data that put alpha there, at the F-test's p-value halved.
+# Rule 4's edge test one-sided (edge_sides=1): the claim "alpha below 1/5"
+# (uncompetitive) is supported by data that put alpha there, at the F-test's p halved.
 _UNCOMPETITIVE_AICC = {"none": 50.0, "competitive": 30.0, "uncompetitive": 0.0,
                        "noncompetitive": 9.0, "mixed": 1.5}
 
@@ -182,10 +182,10 @@ def _uncompetitive_p(p_edge):
     (0.12, 0.05, "ambiguous", "ambiguous"),       # p/2 = 0.06: not significant
     (0.01, np.nan, "ambiguous", "uncompetitive"),  # no free alpha: nothing rejected
 ])
-def test_the_edge_test_is_one_sided(p_edge, free, one_sided, two_sided):
+def test_the_edge_test_one_sided_on_request(p_edge, free, one_sided, two_sided):
     tables = _tables(_UNCOMPETITIVE_AICC, _uncompetitive_p(p_edge), free=free)
-    assert decide(*tables).verdict == one_sided
-    assert decide(*tables, VerdictOptions(edge_sides=2)).verdict == two_sided
+    assert decide(*tables, VerdictOptions(edge_sides=1)).verdict == one_sided
+    assert decide(*tables).verdict == two_sided  # the default stays two-sided
 
 
 def test_one_sided_edge_level_is_the_signed_root_t_test():
@@ -197,12 +197,14 @@ def test_one_sided_edge_level_is_the_signed_root_t_test():
         p_two = float(stats.f.sf(f_value, 1, d))
         p_t = float(stats.t.sf(np.sqrt(f_value), d))
         assert p_two / 2 == pytest.approx(p_t, rel=1e-10)
+        one = VerdictOptions(edge_sides=1)
         for free, held, side in ((0.05, 0.2, "below"), (20.0, 5.0, "above"),
                                  (1.0, 0.2, "above"), (1.0, 5.0, "below")):
-            assert edge_rejected(p_two, free, held, side, VerdictOptions()) == (p_t < 0.05)
+            assert edge_rejected(p_two, free, held, side, one) == (p_t < 0.05)
+            assert edge_rejected(p_two, free, held, side, VerdictOptions()) == (p_two < 0.05)
         # The free alpha on the other side: never rejected in the claimed direction.
-        assert not edge_rejected(p_two, 1.0, 0.2, "below", VerdictOptions())
-        assert not edge_rejected(p_two, 1.0, 5.0, "above", VerdictOptions())
+        assert not edge_rejected(p_two, 1.0, 0.2, "below", one)
+        assert not edge_rejected(p_two, 1.0, 5.0, "above", one)
 
 
 def test_noncompetitive_needs_alpha_between_the_edges():
@@ -212,9 +214,10 @@ def test_noncompetitive_needs_alpha_between_the_edges():
     p = {("none", "mixed"): 1e-9, ("competitive", "mixed"): 1e-6,
          ("uncompetitive", "mixed"): 1e-6, ("noncompetitive", "mixed"): 0.4,
          ("mixed, alpha = 0.2", "mixed"): 0.01, ("mixed, alpha = 5", "mixed"): 0.01}
-    assert decide(*_tables(aicc, p, free=1.0)).verdict == "noncompetitive"
+    one = VerdictOptions(edge_sides=1)
+    assert decide(*_tables(aicc, p, free=1.0), one).verdict == "noncompetitive"
     for free in (0.1, 10.0):  # outside one edge: that edge's test points the wrong way
-        assert decide(*_tables(aicc, p, free=free)).verdict == "ambiguous"
+        assert decide(*_tables(aicc, p, free=free), one).verdict == "ambiguous"
 
 
 def test_edge_sides_is_checked():

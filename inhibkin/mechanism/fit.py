@@ -609,9 +609,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     alpha_factor : float
         A one-constant mechanism is called only when the data also reject mixed with
         alpha = kiu/kic held at the edge of the region its name claims (alpha_factor for
-        competitive, 1/alpha_factor for uncompetitive, both for noncompetitive), one-sided
-        at level ``alpha``: the free fit must put alpha beyond the edge
-        (:func:`inhibkin.core.compare.edge_rejected`).
+        competitive, 1/alpha_factor for uncompetitive, both for noncompetitive); see
+        :func:`inhibkin.core.compare.edge_rejected`.
     intervals : {"profile", "wald"}
         Interval method (see :mod:`inhibkin.mechanism.one_model`).
     level : float
