@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 
 import inhibkin as ik
-from benchmarks.validation import clopper_pearson, outcome
+from benchmarks.validation import clopper_pearson, edge_verdict, outcome
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 from grid_ode import EPSILON_PATH, Mechanism, plate  # noqa: E402
@@ -93,7 +93,7 @@ def fit_plate(truth: str, seed: int, routes=tuple(ROUTES)) -> list[dict]:
         if method == "progress":
             fit = ik.fit_progress_curves(reads, plate_map, conversion=conversion, **COLUMNS)
             record.update(verdict=fit.verdict, used=fit.integration.split(" (")[0],
-                          noisy_or_flat=0)
+                          noisy_or_flat=0, verdict_one_sided=edge_verdict(fit, 1))
             records.append(_scored(record, fit.models[truth].params, truth_values))
             continue
         if method not in tables:
@@ -106,7 +106,8 @@ def fit_plate(truth: str, seed: int, routes=tuple(ROUTES)) -> list[dict]:
         except ik.DataError:
             records.append({**record, "verdict": "rejected", "used": ""})
             continue
-        record.update(verdict=fit.verdict, used=fit.weighting)
+        record.update(verdict=fit.verdict, used=fit.weighting,
+                      verdict_one_sided=edge_verdict(fit, 1))
         records.append(_scored(record, fit.models[truth].params, truth_values))
     return records
 

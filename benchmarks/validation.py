@@ -29,13 +29,14 @@ import multiprocessing
 import sys
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 from scipy import stats
 
+from inhibkin.core.compare import decide
 from inhibkin.core.models import MODELS
 from inhibkin.design import CALL_OUTCOMES, call_outcome
 from inhibkin.errors import DataError
@@ -226,6 +227,16 @@ def _rejected(reason: str) -> dict:
             "true_model_converged": False}
 
 
+def edge_verdict(fit, sides: int) -> str:
+    """The verdict under rule 4's edge test with ``edge_sides=sides`` on the same fits:
+    ``fit.verdict`` where rules 1–4 agree under the fit's own test and this one, else
+    the verdict of rules 1–4 under this one (rule 5 and the wells' flags, which follow
+    rule 4, are not rerun for those data sets)."""
+    own = decide(fit.comparison, fit.ftests, fit.options)
+    other = decide(fit.comparison, fit.ftests, replace(fit.options, edge_sides=sides))
+    return fit.verdict if own.verdict == other.verdict else other.verdict
+
+
 def record_of(case: Case, fit) -> dict:
     """One record from a :class:`~inhibkin.mechanism.fit.MechanismFit` of a ``case`` data set.
 
@@ -233,8 +244,11 @@ def record_of(case: Case, fit) -> dict:
     true model, the estimate, its interval from the fit of the true model, whether the
     interval covers the truth and whether the constant was determined.
     """
+    one_sided = edge_verdict(fit, 1)
     record = {"verdict": fit.verdict, "outcome": outcome(case.model, fit.verdict),
-              "candidates": "+".join(fit.candidates), "reason": fit.reason}
+              "candidates": "+".join(fit.candidates), "reason": fit.reason,
+              "verdict_one_sided": one_sided,
+              "outcome_one_sided": outcome(case.model, one_sided)}
     true_fit = fit.models.get(case.model)
     record["true_model_converged"] = bool(true_fit is not None and true_fit.converged)
     if not record["true_model_converged"]:
@@ -378,6 +392,21 @@ def outcome_table(records: pd.DataFrame) -> pd.DataFrame:
     return table
 
 
+def edge_rule_table(records: pd.DataFrame) -> pd.DataFrame:
+    """Correct and confidently wrong per (noise, design, truth) under rule 4's two-sided
+    edge test (the default) and the one-sided one (``edge_sides=1``), on the same fits."""
+    keyed = records.dropna(subset=["outcome_one_sided"])
+    by = [keyed["noise"], keyed["design"], keyed["truth"]]
+    out = pd.DataFrame({
+        "correct": keyed["outcome"].eq("correct").groupby(by).mean(),
+        "correct, one-sided": keyed["outcome_one_sided"].eq("correct").groupby(by).mean(),
+        "wrong": keyed["outcome"].eq("wrong").groupby(by).mean(),
+        "wrong, one-sided": keyed["outcome_one_sided"].eq("wrong").groupby(by).mean(),
+    })
+    out["n"] = keyed.groupby(["noise", "design", "truth"]).size()
+    return out
+
+
 def coverage_table(records: pd.DataFrame) -> pd.DataFrame:
     """Coverage of the 95 % intervals of km, kic, kiu and ki, fits of the true model."""
     parts = []
@@ -446,6 +475,7 @@ def run_study(cases, *, seed=SEED, workers=2, fitter="engine") -> dict[str, pd.D
         "records": records,
         "confusion": confusion_matrix(records),
         "outcomes": outcome_table(records),
+        "edge_rule": edge_rule_table(records),
         "coverage": coverage_table(records),
         "pki": pki_table(records),
     }
@@ -497,6 +527,8 @@ def render(tables, intervals="log-scale Wald") -> str:
         "\nlarger = a model nesting the truth / missed = 'none' for an inhibitor / failed /"
         "\nrejected = refused by the input checks, e.g. rates with no signal)",
         _pct(out.drop(columns="n")),
+        "Rule 4's edge test, two-sided (default) against one-sided on the same fits, %",
+        _pct(tables["edge_rule"].drop(columns="n")),
         "Verdicts, % of data sets (confusion matrix)",
         _pct(tables["confusion"]),
         f"Coverage of 95 % intervals ({intervals}, fit of the true model), %",

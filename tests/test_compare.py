@@ -13,9 +13,11 @@ from inhibkin.core.compare import (
     akaike_weights,
     decide,
     decide_extended,
+    edge_rejected,
     f_test,
     information_criteria,
 )
+from inhibkin.errors import OptionError
 
 CRITERIA_RTOL = 1e-10
 
@@ -78,9 +80,13 @@ def test_akaike_weights_by_hand():
     assert w[2] == 0.0
 
 
-def _tables(aicc, p):
+def _tables(aicc, p, free=50.0):
+    """Comparison and F-test tables; ``free`` is the free mixed fit's alpha, written in
+    the fixed-alpha rows (rule 4 reads on which side of each edge it lies)."""
     comparison = pd.DataFrame({"aicc": aicc, "converged": True})
-    rows = [{"reduced": a, "full": b, "p_value": v} for (a, b), v in p.items()]
+    rows = [{"reduced": a, "full": b, "p_value": v,
+             "free_alpha": free if a.startswith("mixed, alpha") else np.nan}
+            for (a, b), v in p.items()]
     return comparison, pd.DataFrame(rows)
 
 
@@ -149,8 +155,71 @@ def test_rule_four_within_a_family_reads_the_familys_own_fixed_alpha_fits(
                           p_value=lambda a, b: p.get((a, b), np.nan),
                           converged=lambda m: m in fitted, aicc=lambda m: aicc.get(m, np.inf),
                           extended_lack_of_fit_p=lambda m: 0.5, options=options,
-                          enzyme=5e-8, tight_constant=2e-8, lowest_inhibitor=2.5e-8)
+                          enzyme=5e-8, tight_constant=2e-8, lowest_inhibitor=2.5e-8,
+                          free_alpha=lambda law: 50.0)
     if named:
         assert out.verdict == "competitive, tight binding", out.reason
     else:
         assert out.verdict == "ambiguous" and out.candidates == ("competitive_tb", "mixed_tb")
+
+
+# Rule 4's edge test one-sided (edge_sides=1): the claim "alpha below 1/5"
+# (uncompetitive) is supported by data that put alpha there, at the F-test's p halved.
+_UNCOMPETITIVE_AICC = {"none": 50.0, "competitive": 30.0, "uncompetitive": 0.0,
+                       "noncompetitive": 9.0, "mixed": 1.5}
+
+
+def _uncompetitive_p(p_edge):
+    return {("none", "mixed"): 1e-9, ("competitive", "mixed"): 1e-6,
+            ("uncompetitive", "mixed"): 0.4, ("noncompetitive", "mixed"): 1e-4,
+            ("mixed, alpha = 0.2", "mixed"): p_edge, ("mixed, alpha = 5", "mixed"): 1e-8}
+
+
+@pytest.mark.parametrize("p_edge, free, one_sided, two_sided", [
+    (0.08, 0.05, "uncompetitive", "ambiguous"),   # beyond the edge, p/2 = 0.04 < 0.05
+    (0.08, 0.5, "ambiguous", "ambiguous"),        # the free alpha on the wrong side
+    (0.01, 0.5, "ambiguous", "uncompetitive"),    # significant, but the wrong way
+    (0.12, 0.05, "ambiguous", "ambiguous"),       # p/2 = 0.06: not significant
+    (0.01, np.nan, "ambiguous", "uncompetitive"),  # no free alpha: nothing rejected
+])
+def test_the_edge_test_one_sided_on_request(p_edge, free, one_sided, two_sided):
+    tables = _tables(_UNCOMPETITIVE_AICC, _uncompetitive_p(p_edge), free=free)
+    assert decide(*tables, VerdictOptions(edge_sides=1)).verdict == one_sided
+    assert decide(*tables).verdict == two_sided  # the default stays two-sided
+
+
+def test_one_sided_edge_level_is_the_signed_root_t_test():
+    # Under the edge, sign(free - held) * sqrt(F(1, d)) is Student's t with d df, so the
+    # one-sided p is stats.t.sf(sqrt(F), d) (scipy), half of stats.f.sf(F, 1, d). The
+    # edge is rejected exactly when that one-sided t p-value is below alpha.
+    d = 90
+    for f_value in (1.5, 2.9, 3.0, 3.9, 4.1, 8.0):
+        p_two = float(stats.f.sf(f_value, 1, d))
+        p_t = float(stats.t.sf(np.sqrt(f_value), d))
+        assert p_two / 2 == pytest.approx(p_t, rel=1e-10)
+        one = VerdictOptions(edge_sides=1)
+        for free, held, side in ((0.05, 0.2, "below"), (20.0, 5.0, "above"),
+                                 (1.0, 0.2, "above"), (1.0, 5.0, "below")):
+            assert edge_rejected(p_two, free, held, side, one) == (p_t < 0.05)
+            assert edge_rejected(p_two, free, held, side, VerdictOptions()) == (p_two < 0.05)
+        # The free alpha on the other side: never rejected in the claimed direction.
+        assert not edge_rejected(p_two, 1.0, 0.2, "below", one)
+        assert not edge_rejected(p_two, 1.0, 5.0, "above", one)
+
+
+def test_noncompetitive_needs_alpha_between_the_edges():
+    # Both edges, each one-sided towards the inside: alpha above 1/5 and below 5.
+    aicc = {"none": 50.0, "competitive": 30.0, "uncompetitive": 30.0, "noncompetitive": 0.0,
+            "mixed": 1.5}
+    p = {("none", "mixed"): 1e-9, ("competitive", "mixed"): 1e-6,
+         ("uncompetitive", "mixed"): 1e-6, ("noncompetitive", "mixed"): 0.4,
+         ("mixed, alpha = 0.2", "mixed"): 0.01, ("mixed, alpha = 5", "mixed"): 0.01}
+    one = VerdictOptions(edge_sides=1)
+    assert decide(*_tables(aicc, p, free=1.0), one).verdict == "noncompetitive"
+    for free in (0.1, 10.0):  # outside one edge: that edge's test points the wrong way
+        assert decide(*_tables(aicc, p, free=free), one).verdict == "ambiguous"
+
+
+def test_edge_sides_is_checked():
+    with pytest.raises(OptionError, match="edge_sides"):
+        VerdictOptions(edge_sides=3)

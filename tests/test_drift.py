@@ -7,11 +7,15 @@ and every determined flag (the engine is a second solver of one set of rules, no
 second set of rules; STYLE.md rule 2).
 """
 
+from dataclasses import replace
+
 import numpy as np
 import pandas as pd
 import pytest
+from scipy import stats
 
 import inhibkin as ik
+from inhibkin.core.compare import decide
 from inhibkin.engine import fit_mechanism_arrays, fit_mechanisms_batch
 from inhibkin.errors import DataError
 from inhibkin.validate import ALL_EQUAL
@@ -119,3 +123,27 @@ def test_rate_se_weighting_is_one_rule_in_both_solvers(cases):
     best = lmfit.best_fit.params
     np.testing.assert_allclose(engine.best_fit.params["estimate"], best["estimate"],
                                rtol=ESTIMATE_RTOL)
+
+
+def test_the_one_sided_edge_test_is_one_rule_in_both_solvers():
+    # Rule 4 on uncompetitive grids with the inhibitor only up to kiu: the free alpha
+    # lies below 1/5, and mixed with alpha held at 1/5 is rejected one-sided (its
+    # F-test p between 0.05 and 0.10). With edge_sides=1 both solvers' tables give
+    # uncompetitive; the default two-sided test leaves both ambiguous.
+    grids = {f"seed {seed}": ik.simulate_grid(
+        "uncompetitive", vmax=10.0, km=2.0, kiu=2.0, cv=0.10, seed=seed,
+        i=np.array([0.0, 0.4, 0.8, 1.2, 1.6, 2.0])) for seed in (4, 12)}
+    batch = fit_mechanisms_batch(grids, weighting="relative", lack_of_fit_alpha=0)
+    for name, grid in grids.items():
+        one = ik.fit_mechanisms(grid, weighting="relative", intervals="wald",
+                                lack_of_fit_alpha=0)
+        assert one.verdict == batch[name].verdict == "ambiguous", name
+        edge = one.ftests.set_index("reduced").loc[one.options.alpha_row(0.2)]
+        # The one-sided test by hand: the signed root of F is Student's t under the edge
+        # (scipy), and the free alpha lies below the edge.
+        assert edge["free_alpha"] < 0.2
+        assert stats.t.sf(np.sqrt(edge["f_value"]), edge["df_den"]) < 0.05 < edge["p_value"]
+        sided = replace(one.options, edge_sides=1)
+        assert decide(one.comparison, one.ftests, sided).verdict == "uncompetitive"
+        assert decide(batch[name].comparison, batch[name].ftests,
+                      sided).verdict == "uncompetitive"

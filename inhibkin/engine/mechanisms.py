@@ -28,6 +28,7 @@ from scipy import stats
 from ..core.bounds import NESTED_FAR_FACTOR, classical_limit
 from ..core.compare import (
     EXACT_FIT_RTOL,
+    F_TEST_COLUMNS,
     Verdict,
     VerdictOptions,
     akaike_weights,
@@ -35,6 +36,7 @@ from ..core.compare import (
     decide_from,
     extension_signs,
     f_test_arrays,
+    free_alpha,
     information_criteria,
 )
 from ..core.determined import DETERMINATION_FACTOR, determined_flags
@@ -378,11 +380,20 @@ def _ftest_frame(models, p_values, c) -> pd.DataFrame:
         n = int(b.n_obs[c])
         # A fixed-alpha row has one parameter fewer than mixed.
         k_small = models[small].n_params if small in models else b.n_params - 1
+        held = small not in MODELS and bool(b.converged[c])
         rows.append({"reduced": small, "full": large, "f_value": float(f_value[c]),
                      "df_num": b.n_params - k_small, "df_den": n - b.n_params,
-                     "p_value": float(p_value[c])})
-    return pd.DataFrame(rows, columns=["reduced", "full", "f_value", "df_num", "df_den",
-                                       "p_value"])
+                     "p_value": float(p_value[c]),
+                     "free_alpha": _free_alpha(b.theta[c], large) if held else np.nan})
+    return pd.DataFrame(rows, columns=F_TEST_COLUMNS)
+
+
+def _free_alpha(theta, law) -> float:
+    """alpha = kiu/kic of ``law`` (mixed or a family's general law) from its log
+    parameters ``theta`` (one compound): :func:`inhibkin.core.compare.free_alpha`."""
+    names = MODELS[law].param_names
+    return free_alpha({"kiu": np.exp(theta[names.index("kiu")]),
+                       "kic": np.exp(theta[names.index("kic")])})
 
 
 def pad(groups):
@@ -612,7 +623,9 @@ def _verdicts(models, p_values, valid, invalid_reason, options):
         out = decide_from(p_value=lambda small, large, c=c: p_of(small, large, c),
                           converged=lambda name, c=c: conv(name, c),
                           aicc=lambda name, c=c: float(models[name]["aicc"][c]),
-                          options=options)
+                          options=options,
+                          free_alpha=lambda law, c=c: _free_alpha(models[law]["theta"][c], law)
+                          if conv(law, c) else np.nan)
         verdict[c], best[c], candidates[c], reason[c] = \
             out.verdict, out.best, out.candidates, out.reason
     return verdict, best, candidates, reason
@@ -1010,7 +1023,9 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
             aicc=lambda name, c=c: float(out[name]["aicc"][c]),
             extended_lack_of_fit_p=lambda name, c=c: p_lof.get((c, name), np.nan),
             options=options, enzyme=given(c), tight_constant=tight[position[c]],
-            lowest_inhibitor=lowest[position[c]])
+            lowest_inhibitor=lowest[position[c]],
+            free_alpha=lambda law, c=c: _free_alpha(out[law]["theta"][c], law)
+            if law in out and bool(out[law]["converged"][c]) else np.nan)
         verdict[c], best[c], candidates[c], reason[c] = \
             decided.verdict, decided.best, decided.candidates, decided.reason
     return lack.sort_values(["compound"], kind="stable", ignore_index=True)

@@ -28,6 +28,7 @@ from ..core.compare import (
     extension_signs,
     f_test,
     f_test_table,
+    free_alpha,
     time_dependent_verdict,
 )
 from ..core.determined import DETERMINATION_FACTOR
@@ -329,6 +330,8 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
                                np.ones((1, len(s)), bool))[0]
     out = decide(
         pattern=pattern, p_value=lambda reduced, full: _p_of(tests, reduced, full),
+        free_alpha=lambda law: free_alpha(every[law].best_values) if law in converged
+        else np.nan,
         converged=lambda name: name in converged,
         aicc=lambda name: float(comparison.loc[name, "aicc"]) if name in converged
         else np.inf,
@@ -540,7 +543,8 @@ def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr, model="mixed",
     if not general.converged:
         return pd.DataFrame([{"reduced": options.alpha_row(value, model), "full": model,
                               "f_value": np.nan, "df_num": 1, "df_den": general.dof,
-                              "p_value": np.nan} for value in options.alpha_values])
+                              "p_value": np.nan, "free_alpha": np.nan}
+                             for value in options.alpha_values])
     law = MODELS[model]
     (ratio,) = law.derived  # alpha = kiu/kic
     p = general.best_values
@@ -561,7 +565,7 @@ def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr, model="mixed",
             f_value, p_value, df_num, df_den = np.nan, np.nan, 1, general.dof
         rows.append({"reduced": options.alpha_row(value, model), "full": model,
                      "f_value": f_value, "df_num": df_num, "df_den": df_den,
-                     "p_value": p_value})
+                     "p_value": p_value, "free_alpha": free_alpha(p)})
     return pd.DataFrame(rows)
 
 
@@ -606,7 +610,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         A one-constant mechanism is called only when the data also reject mixed with
         alpha = kiu/kic held at the edge of the region its name claims (alpha_factor for
         competitive, 1/alpha_factor for uncompetitive, both for noncompetitive); see
-        :mod:`inhibkin.core.compare`.
+        :func:`inhibkin.core.compare.edge_rejected`.
     intervals : {"profile", "wald"}
         Interval method (see :mod:`inhibkin.mechanism.one_model`).
     level : float

@@ -44,6 +44,7 @@ from ..core.compare import (
     decide,
     f_test,
     f_test_table,
+    free_alpha,
     information_criteria,
 )
 from ..core.determined import DETERMINATION_FACTOR, determined_flags
@@ -638,7 +639,7 @@ def _fit_compound(curves, y, *, models, integration, product_ki, intervals, leve
                 f_value, p_value, df_num, df_den = np.nan, np.nan, 1, mixed.dof
             rows.append({"reduced": options.alpha_row(value), "full": "mixed",
                          "f_value": f_value, "df_num": df_num, "df_den": df_den,
-                         "p_value": p_value})
+                         "p_value": p_value, "free_alpha": free_alpha(mixed.best_values)})
         ftests = pd.concat([ftests, pd.DataFrame(rows)], ignore_index=True)
     verdict: Verdict = decide(comparison, ftests, options)
     return verdict, fits, comparison, ftests, w, methods.get(verdict.best or general,
