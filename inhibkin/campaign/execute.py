@@ -14,23 +14,26 @@ import multiprocessing
 from collections import deque
 from concurrent.futures import ProcessPoolExecutor, as_completed
 
+import numpy as np
+
 from ..progress import progress_bar
 
 __all__ = ["run", "grid_chunks", "MAX_ROWS_PER_CHUNK"]
 
-#: A chunk closes at ``chunk_size`` compounds or this many rows, whichever comes first,
-#: so no single task carries a large slice of the table.
+#: A chunk sent to a worker closes at ``chunk_size`` compounds or this many rows,
+#: whichever comes first, so no single task carries a large slice of the table.
 MAX_ROWS_PER_CHUNK = 50_000
 # Passes of the lost chunks over a full local pool before they are run one at a time.
 _PARALLEL_PASSES = 2
 
 
-def grid_chunks(groups, chunk_size):
-    """Consecutive chunks of at most ``chunk_size`` compounds and about
-    ``MAX_ROWS_PER_CHUNK`` rows."""
+def grid_chunks(groups, chunk_size, max_rows=MAX_ROWS_PER_CHUNK):
+    """Consecutive chunks of at most ``chunk_size`` compounds and about ``max_rows``
+    rows (None: no limit on rows, for chunks that are never sent to a worker)."""
+    max_rows = np.inf if max_rows is None else max_rows
     chunk, rows = [], 0
     for compound, frame in groups:
-        if chunk and (len(chunk) >= chunk_size or rows + len(frame) > MAX_ROWS_PER_CHUNK):
+        if chunk and (len(chunk) >= chunk_size or rows + len(frame) > max_rows):
             yield chunk
             chunk, rows = [], 0
         chunk.append((compound, frame))

@@ -21,7 +21,7 @@ from ..validate import check_options
 from . import dose as dose_route
 from . import grid as grid_route
 from .dose import DoseSettings, dose_chunks, dose_row, lost_dose_chunk, split_dose_chunk
-from .execute import grid_chunks, run
+from .execute import MAX_ROWS_PER_CHUNK, grid_chunks, run
 from .grid import REFITS, GridSettings, grid_mechanism, lost_grid_chunk, split_grid_chunk
 from .lazy import LazyFits
 from .options import CampaignOptions
@@ -126,8 +126,9 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         No progress bar (it is also silent when stderr is not a terminal).
     chunk_size : int, optional
         Compounds per task; by default 32 on the lmfit path, and with the batched
-        engine 1,024 in this process or 256 on workers or a cluster. The answers do
-        not depend on it.
+        engine 256 on workers or a cluster, or in this process the table in two
+        chunks of at least 1,024 (each chunk of the engine costs a fixed time of its
+        own). The answers do not depend on it.
     keep_fits : bool
         Keep every fit in :attr:`Campaign.fits` and :attr:`Campaign.potency_fits` (turn
         off at very large scale to save memory; the ranking is the same).
@@ -252,7 +253,8 @@ def _fit_grids(grid: GridTable, compound, rate, options: CampaignOptions, enzyme
     fit_options = options.grid_options() + ((("enzyme", enzyme),) if enzyme else ())
     settings = GridSettings(fitter, grid.substrate, grid.inhibitor, rate, options.sd,
                             grid.substrate_unit, grid.inhibitor_unit, fit_options, batched)
-    chunks = list(grid_chunks(groups, options.chunk_size_for(batched)))
+    chunks = list(grid_chunks(groups, options.chunk_size_for(batched, groups.ngroups),
+                              None if options.serial else MAX_ROWS_PER_CHUNK))
     rows, fits, refits = {}, {}, 0
     for name, row, fit in run(grid_route.fit_grid_chunk, chunks, (settings, options.keep_fits),
                               sizes=[len(c) for c in chunks], split=split_grid_chunk,
@@ -270,7 +272,8 @@ def _fit_doses(dose: DoseTable, compound, role, plate, mechanisms, options: Camp
     frame = dose.frame
     n_curves = int(frame.loc[frame[role] == "sample", compound].nunique())
     batched = options.batched(n_curves)
-    chunks, sizes = dose_chunks(frame, compound, role, plate, options.chunk_size_for(batched))
+    chunks, sizes = dose_chunks(frame, compound, role, plate,
+                                options.chunk_size_for(batched, n_curves))
     potency = dict(options.potency)
     potency.update(intervals=options.fit.intervals, level=options.fit.level)
     settings = DoseSettings(compound, dose.columns, dose.km, dose.enzyme,

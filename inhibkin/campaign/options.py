@@ -34,12 +34,23 @@ DEFAULT_CHUNK_SIZE = 32
 # is then spread over more compounds (about 1.6 times the grid throughput of 32-compound
 # chunks) ...
 BATCHED_CHUNK_SIZE = 256
-# ... or this many with the batched engine in this process, where chunks only pace the
-# progress bar. Each chunk pays a per-call cost of its own (the extended laws, the
-# fixed-alpha tests and the slowest problems' last iterations run once per chunk on a
-# few dozen compounds): 2,000 benchmark grids took 15–18 s in chunks of 256, 13.6 s in
-# chunks of 1,024 and 9.5 s in one batch (measured, one process).
+# ... or, with the batched engine in this process, where chunks only pace the progress
+# bar, at least this many and otherwise the campaign in SERIAL_BATCHED_CHUNKS chunks.
+# Each chunk pays a per-call cost of its own (the extended laws, the fixed-alpha tests
+# and the slowest problems' last iterations run once per chunk on a few dozen
+# compounds): 2,000 benchmark grids took 15–18 s in chunks of 256, 13.6 s in chunks of
+# 1,024 and 9.5 s in one batch; 10,000 took 94 s in chunks of 1,024 against 50 s in one
+# batch (measured, one process, busy machine).
 SERIAL_BATCHED_CHUNK_SIZE = 1024
+SERIAL_BATCHED_CHUNKS = 2
+
+
+
+def serial_chunk_size(n_compounds) -> int:
+    """Compounds per chunk of the batched engine in this process, for a table of
+    ``n_compounds`` (see :data:`SERIAL_BATCHED_CHUNKS`)."""
+    return max(SERIAL_BATCHED_CHUNK_SIZE, -(-n_compounds // SERIAL_BATCHED_CHUNKS))
+
 
 # potency_table's options that fit_campaign sets itself (columns, units, Km, the fitter).
 _POTENCY_OPTIONS_SET_HERE = ("df", "compound", "plate", "role", "concentration", "response",
@@ -157,14 +168,21 @@ class CampaignOptions:
         return self.engine == "batched" or (self.engine == "auto"
                                             and n_compounds >= AUTO_ENGINE_MIN_COMPOUNDS)
 
-    def chunk_size_for(self, batched) -> int:
-        """Compounds per task on the path taken (and where it runs)."""
+    @property
+    def serial(self) -> bool:
+        """Whether the chunks run in this process (no workers, no cluster)."""
+        return self.client is None and (self.workers is None or self.workers <= 1)
+
+    def chunk_size_for(self, batched, n_compounds) -> int:
+        """Compounds per task on the path taken (and where it runs) for a table of
+        ``n_compounds``."""
         if self.chunk_size is not None:
             return self.chunk_size
         if not batched:
             return DEFAULT_CHUNK_SIZE
-        serial = self.client is None and (self.workers is None or self.workers <= 1)
-        return SERIAL_BATCHED_CHUNK_SIZE if serial else BATCHED_CHUNK_SIZE
+        if not self.serial:
+            return BATCHED_CHUNK_SIZE
+        return serial_chunk_size(n_compounds)
 
     def engine_label(self, batched=None) -> str:
         """The engine as asked (``batched=None``) or the path a table took."""

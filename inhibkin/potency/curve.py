@@ -156,25 +156,33 @@ class DoseResponseFit:
     not_determined: tuple = ()
 
     def __post_init__(self):
+        # The parameter table as numbers, read once (and from the plain frame, whose
+        # columns read twice as fast as the read-only one's): a screen reads every
+        # curve's properties, and each read of the table costs as much as this.
+        params = self.params
+        object.__setattr__(self, "_numbers", {
+            name: (float(estimate), bool(fixed) or bool(determined), float(low), float(high))
+            for name, estimate, fixed, determined, low, high in zip(
+                params.index, params["estimate"].to_numpy(), params["fixed"].to_numpy(),
+                params["determined"].to_numpy(), params["ci_low"].to_numpy(),
+                params["ci_high"].to_numpy())})
         # Frozen all the way down: the parameter table and the arrays cannot be edited.
-        object.__setattr__(self, "params", readonly_frame(self.params))
+        object.__setattr__(self, "params", readonly_frame(params))
         for name in ("conc", "response", "fitted", "covariance"):
             object.__setattr__(self, name, readonly_array(getattr(self, name)))
-        # The parameter table as numbers, read once: a screen reads every curve's
-        # properties, and each read of the table costs as much as this.
-        object.__setattr__(self, "_numbers", {
-            name: (float(estimate), bool(fixed) or bool(determined))
-            for name, estimate, fixed, determined in zip(
-                self.params.index, self.params["estimate"].to_numpy(),
-                self.params["fixed"].to_numpy(), self.params["determined"].to_numpy())})
 
     def _value(self, name):
         return self._numbers[name][0]
 
     def _result(self, name):
         """The estimate when the data set it (or it was fixed), else NaN."""
-        estimate, set_ = self._numbers[name]
+        estimate, set_ = self._numbers[name][:2]
         return estimate if set_ else np.nan
+
+    def interval(self, name) -> tuple[float, float]:
+        """(ci_low, ci_high) of parameter ``name`` as :attr:`params` holds them (at
+        ``level``; NaN where the table has none), without a read of the table."""
+        return self._numbers[name][2:]
 
     @property
     def estimates(self) -> dict[str, float]:

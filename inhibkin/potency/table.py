@@ -603,21 +603,21 @@ def _potency_row(name, fit: DoseResponseFit, columns, where, factors, *, low_pla
     s = _per_compound_value(substrate, columns, at, "substrate")
     km_value = _per_compound_value(km, columns, at, "km")
     e = _per_compound_value(enzyme, columns, at, "enzyme")
-    ic50_row = fit.params.loc["ic50"]
-    hill_row = fit.params.loc["hill"]
+    ic50_low, ic50_high = fit.interval("ic50")
+    hill_low, hill_high = fit.interval("hill")
     hill_set = np.isfinite(fit.hill)
     why = "; ".join([fit.class_reason] + [f"{what} (not determined)"
                                           for what in fit.not_determined])
     out = {"status": "ok", "curve_class": fit.curve_class, "reason": why, "ic50": fit.ic50,
            "ic50_low": np.nan, "ic50_high": np.nan, "ic50_bound": fit.ic50_bound,
            "pic50": fit.pic50, "hill": fit.hill,
-           "hill_low": hill_row["ci_low"] if hill_set else np.nan,
-           "hill_high": hill_row["ci_high"] if hill_set else np.nan,
+           "hill_low": hill_low if hill_set else np.nan,
+           "hill_high": hill_high if hill_set else np.nan,
            "top": fit.top, "bottom": fit.bottom, "substrate": s, "km": km_value, "enzyme": e,
            "ki": np.nan, "ki_low": np.nan, "ki_high": np.nan, "ki_bound": None, "pki": np.nan,
            "ki_method": "cheng-prusoff"}
     if not fit.ic50_bound:
-        out["ic50_low"], out["ic50_high"] = ic50_row["ci_low"], ic50_row["ci_high"]
+        out["ic50_low"], out["ic50_high"] = ic50_low, ic50_high
     if any(p in low_plates for p in plates):
         flags.append("low_z_prime")
     if any(p in no_spread for p in plates):

@@ -81,8 +81,12 @@ def z_prime(max_signal, min_signal) -> float:
         When a signal is not a finite number, or either kind has fewer than two wells
         (a standard deviation needs two).
     """
-    hi = _control_signals(max_signal, "max_signal")
-    lo = _control_signals(min_signal, "min_signal")
+    return _z_prime_of(_control_signals(max_signal, "max_signal"),
+                       _control_signals(min_signal, "min_signal"))
+
+
+def _z_prime_of(hi, lo) -> float:
+    """Z' of two checked float arrays of at least two control signals each."""
     window = abs(hi.mean() - lo.mean())
     spread = 3.0 * (hi.std(ddof=1) + lo.std(ddof=1))
     if window == 0:
@@ -175,6 +179,19 @@ def _read(df, *, plate, role, response) -> _Controls:
     return _Controls(df[plate].to_numpy(dtype=object), roles, signal)
 
 
+def _wells_by_plate(plates):
+    """(plate, row numbers of its wells in table order) for every plate, in order of
+    first appearance: one sort of the table instead of a scan of it per plate (a
+    10,000-compound campaign has thousands of plates). A missing plate name matches no
+    well, as an element-wise comparison with it would."""
+    codes, names = pd.factorize(plates, use_na_sentinel=False)
+    order = np.argsort(codes, kind="stable")
+    edges = np.searchsorted(codes[order], np.arange(len(names) + 1))
+    empty = np.zeros(0, dtype=order.dtype)
+    for k, name in enumerate(names):
+        yield name, (empty if pd.isna(name) else order[edges[k]:edges[k + 1]])
+
+
 def _plate_problems(name, hi, lo, *, role, response) -> list[Problem]:
     problems = []
     for kind, values in (("max", hi), ("min", lo)):
@@ -227,17 +244,17 @@ def plate_qc(df, *, plate="plate", role="role", response="signal",
         if not np.any(data.role == kind):
             raise DataError(no_controls(kind, role))
     rows, problems = [], []
-    for name in pd.unique(data.plate):
-        on = data.plate == name
-        hi = data.signal[on & (data.role == "max")]
-        lo = data.signal[on & (data.role == "min")]
+    for name, wells in _wells_by_plate(data.plate):
+        hi = data.signal[wells[data.role[wells] == "max"]]
+        lo = data.signal[wells[data.role[wells] == "min"]]
         found = _plate_problems(name, hi, lo, role=role, response=response)
         problems += found
         row = {"plate": name, "n_max": hi.size, "mean_max": np.nan, "sd_max": np.nan,
                "n_min": lo.size, "mean_min": np.nan, "sd_min": np.nan, "z_prime": np.nan,
                "flagged": True, "problem": "; ".join(str(p) for p in found)}
         if not found:
-            z = z_prime(hi, lo)
+            # hi and lo are checked numbers already (_read, _plate_problems).
+            z = _z_prime_of(hi, lo)
             row.update(mean_max=hi.mean(), sd_max=hi.std(ddof=1), mean_min=lo.mean(),
                        sd_min=lo.std(ddof=1), z_prime=z, flagged=bool(z < threshold))
             if row["sd_max"] == 0 or row["sd_min"] == 0:
