@@ -20,6 +20,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .errors import DataError, InhibkinError, Problem
+from .interrupt import interrupts_recorded
 
 __all__ = ["main", "build_parser", "Subcommand", "SUBCOMMANDS"]
 
@@ -1200,7 +1201,8 @@ def main(argv=None) -> int:
     """Run one subcommand; returns the exit status (0, 1 or 2, see the module notes)."""
     args = build_parser().parse_args(argv)
     try:
-        return args.handler(args)
+        with interrupts_recorded():
+            return args.handler(args)
     except InhibkinError as err:
         print(f"inhibkin {args.command}: {err}", file=sys.stderr)
         return EXIT_UNUSABLE_INPUT

@@ -300,3 +300,27 @@ def test_csv_cut_at_a_line_break_reads_the_rows_before_it(tmp_path, grid_table):
     cut = tmp_path / "cut.csv"
     cut.write_bytes(b"".join(lines[:11]))
     pd.testing.assert_frame_equal(read_table(cut), read_table(path).iloc[:10])
+
+
+def _swallows_an_interrupt(chunk):
+    """A chunk function that, like asteval inside lmfit, turns the Ctrl-C that lands in
+    it into an ordinary error and carries on."""
+    try:
+        os.kill(os.getpid(), signal.SIGINT)
+        time.sleep(0.1)
+    except KeyboardInterrupt:
+        pass
+    return list(chunk)
+
+
+def test_an_interrupt_a_library_swallowed_still_stops_the_campaign():
+    from inhibkin.campaign.execute import run
+    from inhibkin.interrupt import interrupts_recorded
+
+    with interrupts_recorded(), pytest.raises(KeyboardInterrupt):
+        run(_swallows_an_interrupt, [[1, 2], [3]], (), workers=None, client=None,
+            quiet=True, sizes=[2, 1], split=None, lost=None)
+    # Outside the block the previous handler is back: a SIGINT raises as usual.
+    with pytest.raises(KeyboardInterrupt):
+        os.kill(os.getpid(), signal.SIGINT)
+        time.sleep(0.1)

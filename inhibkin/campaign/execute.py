@@ -11,12 +11,12 @@ compound that kills its worker every time comes back failed, never missing.
 from __future__ import annotations
 
 import multiprocessing
-import pickle
 from collections import deque
 from concurrent.futures import ProcessPoolExecutor, as_completed
 
 import numpy as np
 
+from ..interrupt import check as check_interrupt
 from ..progress import progress_bar
 
 __all__ = ["run", "grid_chunks", "MAX_ROWS_PER_CHUNK"]
@@ -58,6 +58,7 @@ def run(function, chunks, arguments, *, workers, client, quiet, sizes, split, lo
     pieces = [{} for _ in chunks]
     with progress_bar(sum(sizes), quiet=quiet, desc="fitting") as bar:
         def done(task, result):
+            check_interrupt()
             k, path, _ = task
             pieces[k][path] = result
             bar.update(len(result))
@@ -137,7 +138,7 @@ def _run_dask(client, function, tasks, arguments, split, lost, done):
     compound given up on by itself is run once more at the end, alone on the cluster,
     where a death can only be its own, and is reported failed if it dies again.
 
-    Each chunk's result travels as one pickle (:func:`_packed`).
+    Each chunk's result travels as one object (:class:`_Packed`).
     """
     from distributed import KilledWorker
     from distributed import as_completed as dask_completed
@@ -150,7 +151,7 @@ def _run_dask(client, function, tasks, arguments, split, lost, done):
         task = futures.pop(future)
         k, path, chunk = task
         try:
-            result = pickle.loads(future.result())
+            result = future.result().items
         except KilledWorker:
             parts = split(chunk)
             if len(parts) > 1:
@@ -164,20 +165,29 @@ def _run_dask(client, function, tasks, arguments, split, lost, done):
         done(task, result)
     for task in sorted(suspects, key=lambda task: task[:2]):
         try:
-            result = pickle.loads(client.submit(_packed, function, task[2], *arguments,
-                                                pure=False).result())
+            result = client.submit(_packed, function, task[2], *arguments,
+                                   pure=False).result().items
         except KilledWorker as err:
             result = lost(task[2], f"the Dask workers running this compound died, the last "
                                    f"time with it alone; the scheduler gave up on it ({err})")
         done(task, result)
 
 
-def _packed(function, chunk, *arguments) -> bytes:
-    """``function(chunk, *arguments)`` pickled as one object, on the worker.
+class _Packed:
+    """A chunk's results as one object, so that Dask pickles them in one piece.
 
     Dask serialises the items of a returned list one by one, so the compounds of a
     chunk, which share one batch of arrays (:class:`inhibkin.campaign.lazy.BatchFit`),
-    would each carry a copy of it: 256 copies a chunk, over 20 GB in the client at
-    10,000 compounds. One pickle keeps the sharing, as the local process pool does.
+    would each carry a copy of it: a chunk's worth of copies, over 20 GB in the client
+    at 10,000 compounds. One object keeps the sharing, as the local process pool does.
     """
-    return pickle.dumps(function(chunk, *arguments), protocol=pickle.HIGHEST_PROTOCOL)
+
+    __slots__ = ("items",)
+
+    def __init__(self, items):
+        self.items = items
+
+
+def _packed(function, chunk, *arguments) -> _Packed:
+    """``function(chunk, *arguments)``, on the worker, as one :class:`_Packed`."""
+    return _Packed(function(chunk, *arguments))
