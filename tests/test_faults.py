@@ -317,10 +317,9 @@ def test_an_interrupt_a_library_swallowed_still_stops_the_campaign():
     from inhibkin.campaign.execute import run
     from inhibkin.interrupt import interrupts_recorded
 
+    previous = signal.getsignal(signal.SIGINT)
     with interrupts_recorded(), pytest.raises(KeyboardInterrupt):
         run(_swallows_an_interrupt, [[1, 2], [3]], (), workers=None, client=None,
             quiet=True, sizes=[2, 1], split=None, lost=None)
-    # Outside the block the previous handler is back: a SIGINT raises as usual.
-    with pytest.raises(KeyboardInterrupt):
-        os.kill(os.getpid(), signal.SIGINT)
-        time.sleep(0.1)
+    # Outside the block the previous handler is back (a test worker's own, whatever it is).
+    assert signal.getsignal(signal.SIGINT) is previous
