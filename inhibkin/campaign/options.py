@@ -45,7 +45,6 @@ SERIAL_BATCHED_CHUNK_SIZE = 1024
 SERIAL_BATCHED_CHUNKS = 2
 
 
-
 def serial_chunk_size(n_compounds) -> int:
     """Compounds per chunk of the batched engine in this process, for a table of
     ``n_compounds`` (see :data:`SERIAL_BATCHED_CHUNKS`)."""

@@ -417,6 +417,7 @@ def decide(comparison: pd.DataFrame, ftests: pd.DataFrame,
 
 
 def _free_alpha_of(ftests: pd.DataFrame, law: str) -> float:
+    """The free alpha of ``law`` written in its fixed-alpha rows (NaN when none)."""
     if "free_alpha" not in ftests.columns:
         return np.nan
     rows = ftests.loc[(ftests["full"] == law) & ~ftests["reduced"].isin(MODELS), "free_alpha"]

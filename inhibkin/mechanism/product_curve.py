@@ -94,9 +94,9 @@ def ode_product(law, params, times, s0, inhibitor, product_ki=None):
     product_ki : float, optional
     """
     general = general_law(law)
-    values = nested_start(law.name, dict(zip(law.param_names, params)), general.name,
-                          np.inf)
-    base = np.array([values[p] for p in general.param_names], dtype=float)
+    in_general = nested_start(law.name, dict(zip(law.param_names, params)), general.name,
+                              np.inf)
+    base = np.array([in_general[p] for p in general.param_names], dtype=float)
     free_enzyme = [general.param_names.index(p) for p in ("km", "kic")]
 
     def rhs(_t, p):
