@@ -4,9 +4,11 @@ import matplotlib.colors as mcolors
 import numpy as np
 import pandas as pd
 import pytest
+from grid_ode import EPSILON_PATH, SUBSTRATE, Mechanism, plate
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 
+from inhibkin import BeerLambert, initial_rates
 from inhibkin.core.logistic import logistic4
 from inhibkin.display import figures
 from inhibkin.mechanism.fit import fit_mechanisms
@@ -96,6 +98,30 @@ def test_global_fit_curve_is_the_fitted_model(fits):
     p = fit.models["mixed"].best_values
     expected = p["vmax"] * s / (p["km"] * (1 + 0 / p["kic"]) + s * (1 + 0 / p["kiu"]))
     np.testing.assert_allclose(curve.get_ydata(), expected, rtol=1e-12)
+
+
+def test_global_fit_of_an_extended_verdict_draws_the_extended_law():
+    # A mass-action plate (tests/grid_ode.py: SES a dead end, Ksi = 3 Km, kic = 1 uM) read
+    # through initial_rates and named by rule 5: the curves are the extended law's own,
+    # v = vmax*S/(km*(1 + I/kic) + S + S**2/ksi) (the textbook law; common practice),
+    # and the title names the law drawn and the verdict with its family.
+    reads, plate_map = plate(Mechanism(kic=1.0, ksi=30.0), 0)
+    table = initial_rates(reads, plate_map, substrate="substrate_uM", inhibitor="inhibitor_uM",
+                          conversion=BeerLambert(EPSILON_PATH * 1e6)).table
+    fit = fit_mechanisms(table, substrate="substrate_uM", inhibitor="inhibitor_uM",
+                         intervals="wald")
+    assert fit.verdict == "competitive with substrate inhibition", fit.reason
+    ax = figures.plot_global_fit(fit)
+    curves = [line for line in ax.lines if len(line.get_xdata()) > len(SUBSTRATE)]
+    assert len(curves) == 6
+    p = fit.models["competitive_si"].best_values
+    x = np.asarray(curves[0].get_xdata())
+    # The first curve is the uninhibited level: the substrate-inhibited law, which falls
+    # at high S where the classical one would not.
+    expected = p["vmax"] * x / (p["km"] + x + x**2 / p["ksi"])
+    np.testing.assert_allclose(curves[0].get_ydata(), expected, rtol=1e-12)
+    assert "competitive_si" in ax.get_title()
+    assert "verdict: competitive with substrate inhibition" in ax.get_title()
 
 
 @pytest.mark.parametrize("function", (figures.plot_double_reciprocal, figures.plot_dixon,
