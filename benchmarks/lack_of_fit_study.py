@@ -10,8 +10,10 @@ and with both (the default 0.01 and the flags as ``initial_rates`` sets them, af
 tight binding the "after" run is made twice: without [E] and with [E] given
 (``enzyme=``); for product inhibition three times more: from initial slopes
 (``initial_rates(method="curve")``) and from integrated rates (``method="integrated"``),
-the rates stage's remedies, and from the first 300 s of the reads only (half the
-product formed in the window: the assay's remedy).
+the rates stage's remedies, from the first 300 s of the reads only (half the
+product formed in the window: the assay's remedy), and by the whole-curve fit with the
+product's constant given (``fit_progress_curves(product_ki=Kp)``, log-Wald intervals;
+rules 1-4, as that fit has no rule 5), the remedy when Kp is known.
 
 Classes, per plate (the issue's definitions): *correct*: the verdict names the true law
 and its inhibition constant (the one a ranking reads) is within 2x of the truth with an
@@ -57,6 +59,8 @@ KCAT_TIGHT = 0.04
 KCAT_EQUILIBRIUM = 1.0
 #: Inhibitor levels of the tight-binding regimes (µM): 0-400 nM, from half of [E] up.
 TIGHT_INHIBITOR = (0.0, 0.025, 0.05, 0.1, 0.2, 0.4)
+#: The run that fits whole progress curves with the product's constant given.
+WHOLE_CURVES = "after, whole curves, Kp given"
 CLASSES = ("correct", "ambiguous", "inadequate", "flagged", "confidently wrong", "other")
 SEED = 14
 
@@ -100,7 +104,7 @@ REGIMES = {
     "product inhibition, Kp = Km/10 (competitive)": Regime(
         Mechanism(kic=1.0, kp=1.0), "competitive", {"ki": 1.0},
         runs=("before", "after", "after, initial slopes", "after, integrated rates",
-              "after, reads to 300 s")),
+              "after, reads to 300 s", WHOLE_CURVES)),
     "product inhibition, Kp = Km/10 (competitive), 0.5 % read noise": Regime(
         Mechanism(kic=1.0, kp=1.0), "competitive", {"ki": 1.0}, read_cv=0.005),
 }
@@ -125,10 +129,25 @@ def rates(regime: Regime, seed: int, method="linear", last_read=np.inf) -> pd.Da
                             conversion=ik.BeerLambert(EPSILON_PATH * 1e6)).table
 
 
+def whole_curves(regime: Regime, seed: int):
+    """One plate of ``regime`` fitted whole, with the product's constant given (µM)."""
+    reads, plate_map = plate(regime.mechanism, seed, inhibitor=regime.inhibitor,
+                             read_cv=regime.read_cv)
+    return ik.fit_progress_curves(reads, plate_map, substrate="substrate_uM",
+                                  inhibitor="inhibitor_uM",
+                                  conversion=ik.BeerLambert(EPSILON_PATH * 1e6),
+                                  product_ki=regime.mechanism.kp, intervals="wald")
+
+
 def _holds(params, name, truth) -> bool:
     """Within 2x of ``truth`` with an interval that contains it."""
     row = params.loc[name]
     return bool(0.5 < row["estimate"] / truth < 2.0 and row["ci_low"] <= truth <= row["ci_high"])
+
+
+def warned(fit) -> bool:
+    """Whether the fit carries a warning on its rates (a whole-curve fit has none)."""
+    return bool(getattr(fit, "warnings", ()))
 
 
 def definite(fit) -> bool:
@@ -149,7 +168,7 @@ def classify(fit, regime: Regime) -> str:
                                                      regime.constants["ki"] * 1e-6)
     if right:
         return "correct"
-    return "flagged" if fit.warnings else "confidently wrong"
+    return "flagged" if warned(fit) else "confidently wrong"
 
 
 def constant_wrong(fit, regime: Regime) -> bool:
@@ -157,7 +176,7 @@ def constant_wrong(fit, regime: Regime) -> bool:
     off or whose interval excludes the truth, with no warning on its rates (a less
     specific name with the right constants, e.g. "partial mixed" on a partial
     noncompetitive truth, is not counted here but is in the confidently-wrong class)."""
-    if not definite(fit) or fit.warnings:
+    if not definite(fit) or warned(fit):
         return False
     params = fit.best_fit.params
     chosen = params.loc[list(MODELS[fit.best].ranking), "estimate"].idxmin()
@@ -166,15 +185,18 @@ def constant_wrong(fit, regime: Regime) -> bool:
 
 def run(regime: Regime, run_name: str, seeds) -> pd.Series:
     """Class fractions of one (regime, run) over ``seeds``."""
-    method, last_read = RATES_ROUTE.get(run_name, ("linear", np.inf))
-    tables = [rates(regime, seed, method, last_read) for seed in seeds]
-    options = {"lack_of_fit_alpha": 0.0} if run_name == "before" else {}
-    if run_name == "before":
-        tables = [table.drop(columns="flags") for table in tables]
-    if run_name == "after, [E] given":
-        options["enzyme"] = f"{regime.mechanism.enzyme * 1e3:g}nM"
-    fits = fit_mechanisms_batch(tables, substrate="substrate_uM", inhibitor="inhibitor_uM",
-                                **options)
+    if run_name == WHOLE_CURVES:
+        fits = [whole_curves(regime, seed) for seed in seeds]
+    else:
+        method, last_read = RATES_ROUTE.get(run_name, ("linear", np.inf))
+        tables = [rates(regime, seed, method, last_read) for seed in seeds]
+        options = {"lack_of_fit_alpha": 0.0} if run_name == "before" else {}
+        if run_name == "before":
+            tables = [table.drop(columns="flags") for table in tables]
+        if run_name == "after, [E] given":
+            options["enzyme"] = f"{regime.mechanism.enzyme * 1e3:g}nM"
+        fits = fit_mechanisms_batch(tables, substrate="substrate_uM",
+                                    inhibitor="inhibitor_uM", **options)
     classes = pd.Series([classify(f, regime) for f in fits])
     named = np.mean([f.verdict == regime.verdict for f in fits])
     family = next(law.family for law in MODELS.values()
@@ -188,14 +210,14 @@ def run(regime: Regime, run_name: str, seeds) -> pd.Series:
                          for f in fits])
     extended = np.mean([f.best is not None and MODELS[f.best].family != "classical"
                         for f in fits])
-    warned = np.mean([bool(f.warnings) for f in fits])
+    flagged = np.mean([warned(f) for f in fits])
     km_missed = [not _holds(f.best_fit.params, "km", KM * 1e-6) for f in fits if definite(f)]
     wrong_constant = np.mean([constant_wrong(f, regime) for f in fits])
     return pd.Series({**{c: float(np.mean(classes == c)) for c in CLASSES},
                       "constant wrong": float(wrong_constant),
                       "right law named": float(named), "right family named": float(in_family),
                       "extended law called": float(extended),
-                      "rates flagged": float(warned),
+                      "rates flagged": float(flagged),
                       "km interval misses": float(np.mean(km_missed)) if km_missed else np.nan})
 
 

@@ -14,6 +14,7 @@ from inhibkin.core.compare import (
     VerdictOptions,
     extension_signs,
 )
+from inhibkin.core.lack_of_fit import ALONG_S, LEVELS_OFF
 from inhibkin.core.models import FAMILIES, MODELS, extension_of
 from inhibkin.engine import fit_mechanisms_batch
 from inhibkin.errors import DataError
@@ -213,6 +214,21 @@ def test_partial_plates_named_partial_by_both_solvers(ode_plates, seed):
         params = fit.best_fit.params["estimate"]
         np.testing.assert_allclose(params["ki"], 1e-6, rtol=ODE_RTOL)
         assert 0.1 < params["beta"] < 0.5  # the chemistry's 0.3
+
+
+def test_an_inadequate_grid_names_the_pattern_its_chemistry_leaves():
+    # Two mass-action plates that no law passes (seed 14000 of docs/lack_of_fit.md, both
+    # solvers): a partial inhibitor's classical fit runs below the rates at the highest
+    # inhibitor level and above them in the middle (inhibition levels off); a classical
+    # inhibitor failing the lack-of-fit test (at its 1 % level) shows no such pattern.
+    partial_plate = _rates(PARTIAL, 14000)
+    potent_plate = _rates(CLASSICAL_POTENT, 14000, inhibitor=TIGHT_INHIBITOR)
+    for fit in _both(partial_plate):
+        assert fit.verdict == "inadequate", fit.reason
+        assert f": {LEVELS_OFF}, and no extended law" in fit.reason
+    for fit in _both(potent_plate):
+        assert fit.verdict == "inadequate", fit.reason
+        assert f": {ALONG_S}, and no extended law" in fit.reason
 
 
 @pytest.mark.parametrize("seed", [0, 1])

@@ -9,7 +9,14 @@ import pytest
 from scipy.integrate import solve_ivp
 
 import inhibkin as ik
-from inhibkin.core.lack_of_fit import pure_error_test, runs_test
+from inhibkin.core.lack_of_fit import (
+    ALONG_S,
+    FALLS_AT_HIGH_S,
+    LEVELS_OFF,
+    pure_error_test,
+    residual_pattern,
+    runs_test,
+)
 from inhibkin.core.models import EXTENDED_MODELS, MODELS
 from inhibkin.engine import fit_mechanisms_batch
 
@@ -61,6 +68,29 @@ def test_runs_test_sees_a_systematic_pattern_and_not_alternation():
     alternating = np.where(s % 2 == 0, 1.0, -1.0)
     assert runs_test(pattern, s, i, mask)[1][0] < 1e-3
     assert runs_test(alternating, s, i, mask)[1][0] > 0.5
+
+
+@pytest.mark.parametrize("law, truth, pattern", [
+    # Partial noncompetitive: v = vmax*S/(km + S)*(1 + beta*I/ki)/(1 + I/ki) levels off at
+    # beta*vmax*S/(km + S); substrate inhibition: v falls past S = sqrt(km*ksi) (the
+    # textbook laws; common practice).
+    ("noncompetitive_partial", {"ki": 3.0, "beta": 0.3}, LEVELS_OFF),
+    ("competitive_si", {"kic": 3.0, "ksi": 300.0}, FALLS_AT_HIGH_S),
+])
+def test_a_classical_fit_leaves_the_pattern_of_the_law_it_misses(law, truth, pattern):
+    s, i = _grid(replicates=2)
+    model = MODELS[law]
+    v = model.rate(s, i, *({"vmax": 10.0, "km": 100.0, **truth}[p] for p in model.param_names))
+    fit = ik.fit_mechanisms(pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v}),
+                            models=("none", "competitive", "uncompetitive", "noncompetitive",
+                                    "mixed"), weighting="uniform", intervals="wald",
+                            lack_of_fit_alpha=0.0)
+    residuals = fit.models[fit.best].residuals
+    found = residual_pattern(residuals[None], s[None], np.ones((1, s.size), bool), i[None])[0]
+    assert found == pattern
+    # Without the inhibitor levels only the substrate pattern can be named.
+    plain = residual_pattern(residuals[None], s[None], np.ones((1, s.size), bool))[0]
+    assert plain == (pattern if pattern == FALLS_AT_HIGH_S else ALONG_S)
 
 
 @pytest.mark.parametrize("name", EXTENDED_MODELS)

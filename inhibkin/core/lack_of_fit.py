@@ -24,7 +24,7 @@ import numpy as np
 from scipy import stats
 
 __all__ = ["LACK_OF_FIT_ALPHA", "pure_error_test", "runs_test", "lack_of_fit",
-           "residual_pattern"]
+           "residual_pattern", "FALLS_AT_HIGH_S", "LEVELS_OFF", "ALONG_S"]
 
 #: Default level of the lack-of-fit test (an option of ``fit_mechanisms``): stricter than
 #: the nested tests' 0.05, because a failed test sends a classical truth to the extended
@@ -131,24 +131,60 @@ def lack_of_fit(residuals, s, i, mask, n_params):
     return method, np.where(use_pure, f_value, z_value), np.where(use_pure, p_pure, p_runs)
 
 
-def residual_pattern(residuals, s, mask) -> np.ndarray:
+#: The residuals' patterns in words (:func:`residual_pattern`).
+FALLS_AT_HIGH_S = "rates fall at the highest substrate levels"
+LEVELS_OFF = "inhibition levels off below full"
+ALONG_S = "the residuals run in patterns along S"
+
+
+#: The levelling-off pattern is named only when the top level's mean residual stands
+#: this many standard errors above the middle levels' (residual scatter of the whole
+#: grid): a classical grid that fails the lack-of-fit test by chance at 0.01 has no
+#: pattern worth a name.
+LEVELS_OFF_Z = 2.0
+
+
+def _top_against_middle(r, x):
+    """Mean residual at the highest level of ``x``, at the levels just below its top
+    third, and the standard error of their difference (None with fewer than three
+    levels)."""
+    levels = np.unique(x)
+    if levels.size < 3:
+        return None
+    at_top = x == levels[-1]
+    middle = levels[: max(1, (2 * levels.size) // 3)]
+    at_middle = np.isin(x, middle[-max(1, middle.size // 2):])
+    se = np.std(r, ddof=1) * np.sqrt(1 / at_top.sum() + 1 / at_middle.sum())
+    return np.mean(r[at_top]), np.mean(r[at_middle]), se
+
+
+def residual_pattern(residuals, s, mask, i=None) -> np.ndarray:
     """What the residuals of each problem do, in words, for the verdict's reason.
 
     "rates fall at the highest substrate levels" when the residuals at the highest
     substrate level are on average negative while those of the level below the top
     third are positive (the shape substrate inhibition leaves on a classical fit);
+    else, with the inhibitor levels ``i`` (same shape as ``s``), "inhibition levels off
+    below full" when the residuals at the highest non-zero inhibitor level are on average
+    positive while those of the inhibited levels below its top third are negative (a
+    classical law drives the rate to zero as I grows; a partial inhibitor's rate levels
+    off, so the fit runs below the data at the top and above them in the middle), the
+    difference at least ``LEVELS_OFF_Z`` standard errors;
     otherwise "the residuals run in patterns along S".
     """
-    out = np.full(residuals.shape[0], "the residuals run in patterns along S", dtype=object)
+    out = np.full(residuals.shape[0], ALONG_S, dtype=object)
     for c in range(residuals.shape[0]):
         keep = mask[c]
-        levels = np.unique(s[c, keep])
-        if levels.size < 3:
-            continue
         r = residuals[c, keep]
-        top = np.mean(r[s[c, keep] == levels[-1]])
-        middle = levels[: max(1, (2 * levels.size) // 3)]
-        below = np.mean(r[np.isin(s[c, keep], middle[-max(1, middle.size // 2):])])
-        if top < 0 < below:
-            out[c] = "rates fall at the highest substrate levels"
+        along_s = _top_against_middle(r, s[c, keep])
+        if along_s is not None and along_s[0] < 0 < along_s[1]:
+            out[c] = FALLS_AT_HIGH_S
+            continue
+        if i is None:
+            continue
+        inhibited = i[c, keep] > 0
+        along_i = _top_against_middle(r[inhibited], i[c, keep][inhibited])
+        if (along_i is not None and along_i[1] < 0 < along_i[0]
+                and along_i[0] - along_i[1] > LEVELS_OFF_Z * along_i[2]):
+            out[c] = LEVELS_OFF
     return out

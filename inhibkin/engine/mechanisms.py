@@ -1007,7 +1007,7 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
     patterns = dict(zip(fail, residual_pattern(
         np.stack([_weighted_residuals(out[best[c]], np.array([c]), s, i, v, mask, w,
                                       relative)[0]
-                  for c in fail]), s[fail], mask[fail])))
+                  for c in fail]), s[fail], mask[fail], i[fail])))
     position = {c: n for n, c in enumerate(compounds)}
 
     def p_of(small, large, c):

@@ -327,7 +327,7 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
     extended_lof = lack_of_fit_rows(every, list(extended), s, i, w, exact_ssr,
                                     relative).set_index("model")
     pattern = residual_pattern((w * fits[verdict.best].residuals)[None], s[None],
-                               np.ones((1, len(s)), bool))[0]
+                               np.ones((1, len(s)), bool), i[None])[0]
     out = decide(
         pattern=pattern, p_value=lambda reduced, full: _p_of(tests, reduced, full),
         free_alpha=lambda law: free_alpha(every[law].best_values) if law in converged
