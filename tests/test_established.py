@@ -1,13 +1,16 @@
 """Issue 14, item 4: an ambiguous verdict still says what the data establish."""
 
 from html import escape
+from types import SimpleNamespace
 
+import pandas as pd
 import pytest
 from grid_ode import EPSILON_PATH, Mechanism, plate
 
 import inhibkin as ik
 from inhibkin.campaign import fit_campaign
 from inhibkin.core.bound import Bound
+from inhibkin.mechanism.established import established
 from inhibkin.mechanism.fit import fit_mechanisms
 from inhibkin.reporting.report import render_report
 from inhibkin.simulate import simulate_grid
@@ -88,3 +91,27 @@ def test_ambiguous_extended_verdict_reads_its_family_s_general_law():
     assert " ksi " in text and " µM [" in text
     # alpha = kiu/kic is a ratio: no concentration unit.
     assert " alpha " in text and " M [" not in text.split(" alpha ")[1].split(";")[0]
+
+
+@pytest.mark.parametrize("general, constant, side", [
+    ("mixed_tb", "enzyme", "<"), ("mixed_partial", "beta", "<"), ("mixed_si", "ksi", ">")])
+def test_a_family_constant_not_determined_is_a_limit_on_its_classical_side(general, constant,
+                                                                           side):
+    # [E] -> 0 and beta -> 0 give the classical law back, ksi -> inf does (the nesting
+    # limits of tests/test_families.py): what the data cannot place is bounded from the
+    # side away from that limit, above for [E] and beta, below for ksi.
+    leading = {"mixed_tb": "competitive_tb", "mixed_partial": "noncompetitive_partial",
+               "mixed_si": "competitive_si"}[general]
+    params = pd.DataFrame(
+        {"estimate": [1.0, 2.0, 0.5, 40.0, 3.0], "ci_low": [0.9, 1.5, 0.4, 30.0, 0.2],
+         "ci_high": [1.1, 2.5, 0.6, 55.0, 45.0],
+         "determined": [True, True, True, True, False]},
+        index=["vmax", "km", "kic", "kiu", constant])
+    model = SimpleNamespace(model=general, converged=True, params=params)
+    fit = SimpleNamespace(verdict="ambiguous", best=leading, models={general: model},
+                          best_fit=model)
+    found = established(fit)
+    assert found.model == general
+    ((name, bound),) = found.bounds
+    assert name == constant and bound.side == side
+    assert bound.value == (45.0 if side == "<" else 0.2)
