@@ -32,9 +32,9 @@ so at high S): on 60 classical plates of tests/grid_ode.py the plate's sum had m
 (measured), so the level holds. The test has little power when the curvature of a well is poorly
 determined: on the mass-action plates of docs/lack_of_fit.md (3 % read noise, ≤ 10 %
 conversion) a product inhibitor with Kp = Km/10 is seldom flagged; with Kp = Km/100 it
-is flagged on most plates. What the flag cannot see it cannot warn about; the remedy for
-a suspected product inhibitor is initial slopes (``method="curve"``) or a progress-curve
-fit with the product's constant.
+is flagged on most plates. What the flag cannot see it cannot warn about; the remedies for
+a suspected product inhibitor are initial slopes (``method="curve"``), shorter reads or a
+progress-curve fit with the product's constant (their figures in docs/lack_of_fit.md).
 """
 
 from __future__ import annotations
@@ -67,7 +67,8 @@ REASON = ("product inhibition: the uninhibited wells' rates fall faster than sub
           "depletion explains (product binding the enzyme, or the enzyme losing activity "
           "during the reads), so the rates were not read at the initial conditions and km "
           "and the inhibition constants read high — use initial slopes "
-          "(method=\"curve\") or fit the progress curves with the product's constant")
+          "(method=\"curve\"), read for a shorter time (less product in the window), or "
+          "fit the progress curves with the product's constant")
 
 # Fewest usable reads for a quadratic with a residual variance worth the name.
 _MIN_READS = 6
