@@ -91,17 +91,26 @@ def true_rates(source, mechanism, plate_map):
     return np.array(out)
 
 
+#: The reads' times (s), as tests/grid_ode.py reads a plate.
+TIMES = READ_INTERVAL * np.arange(N_READS)
+
+
+def line_floor(product):
+    """The standard error (µM/s) of the weighted straight line through every read of a
+    well whose noise-free product is ``product`` (µM at :data:`TIMES`), under the read
+    noise READ_CV × signal of tests/grid_ode.py."""
+    weight = (READ_CV * (BASELINE + EPSILON_PATH * product)) ** -2.0
+    centre = np.sum(weight * TIMES) / np.sum(weight)
+    return 1.0 / np.sqrt(np.sum(weight * (TIMES - centre) ** 2)) / EPSILON_PATH
+
+
 def floor_rates(source, mechanism, curve, plate_map):
-    """Each well's floor (µM/s): the standard error of the weighted straight line through
-    all its noise-free reads, under the read noise READ_CV × signal."""
-    times = READ_INTERVAL * np.arange(N_READS)
+    """Each well's floor (µM/s): :func:`line_floor` of its noise-free reads."""
     out = []
     for s, i, scale in plate_map[["substrate_uM", "inhibitor_uM", "enzyme_scale"]].to_numpy():
-        product = (curve(s, i)(scale * times) if source == "closed form"
-                   else product_curve(mechanism, s, i)(scale * times)[6])
-        weight = (READ_CV * (BASELINE + EPSILON_PATH * product)) ** -2.0
-        centre = np.sum(weight * times) / np.sum(weight)
-        out.append(1.0 / np.sqrt(np.sum(weight * (times - centre) ** 2)) / EPSILON_PATH)
+        product = (curve(s, i)(scale * TIMES) if source == "closed form"
+                   else product_curve(mechanism, s, i)(scale * TIMES)[6])
+        out.append(line_floor(product))
     return np.array(out)
 
 
