@@ -162,10 +162,11 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     started = time.perf_counter()
     table = run()
-    text = section(table, time.perf_counter() - started)
-    print(text)
+    seconds = time.perf_counter() - started
+    text = section(table, seconds)
     if args.out:
         write_section(text, args.out, START, END)
+    print(text)
     return 0
 
 

@@ -7,14 +7,12 @@ polynomial fit for the uncorrected slope.
 """
 
 import numpy as np
-import pandas as pd
 from grid_ode import Mechanism, product_curve
-from scipy.special import lambertw
+from test_integrated_rates import TIMES, mm_product, reads_of
 
 from inhibkin.rates.depletion import depletion_corrected, window_curvature
 from inhibkin.rates.initial import initial_rates
 
-TIMES = np.arange(31) * 20.0  # s, the reads study's schedule
 SUBSTRATE = (2.0, 3.5, 5.0, 10.0, 20.0, 50.0, 100.0)  # µM
 VMAX, KM = 0.002, 10.0  # µM/s, µM (tests/grid_ode.py): 10 % of S = 2 µM in 600 s
 # Noise-free reads: the corrected rate is the true v0 up to the third-order term of
@@ -22,22 +20,6 @@ VMAX, KM = 0.002, 10.0  # µM/s, µM (tests/grid_ode.py): 10 % of S = 2 µM in 6
 SECOND_ORDER_RTOL = 4e-3
 # The uncorrected straight line is low by about c·f/2 (4 % at S = 0.2 × km).
 LOWEST_BIAS_AT_LEAST = 0.03
-
-
-def mm_product(t, s0, vmax, km):
-    """P(t) = S0 − km·W[(S0/km)·exp((S0 − vmax·t)/km)] (Schnell & Mendoza 1997)."""
-    return s0 - km * np.real(lambertw(s0 / km * np.exp((s0 - vmax * t) / km)))
-
-
-def reads_of(curves, substrate, inhibitor=0.0):
-    wells = [f"W{k:03d}" for k in range(len(curves))]
-    reads = pd.DataFrame({"plate": 1, "well": np.repeat(wells, len(TIMES)),
-                          "time": np.tile(TIMES, len(curves)),
-                          "signal": np.concatenate(curves)})
-    plate_map = pd.DataFrame({"plate": 1, "well": wells, "compound": "X",
-                              "substrate": np.asarray(substrate, float),
-                              "inhibitor": inhibitor})
-    return reads, plate_map
 
 
 def linear(reads, plate_map, **units):

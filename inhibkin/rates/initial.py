@@ -984,6 +984,16 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     return InitialRates(table, controls, unmatched, units, options)
 
 
+def _row_kapp(rates, s0, s0_signal, row_of):
+    """Each well's row Kapp as signal and the variance of its logarithm, fitted to
+    ``rates`` (``rate``, ``rate_se``); (None, None) when there are no rows."""
+    kapp_row, log_var_row = row_apparent_km(s0, rates["rate"], rates["rate_se"], row_of)
+    if not len(kapp_row):
+        return None, None
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return kapp_row[row_of] * s0_signal / s0, log_var_row[row_of]
+
+
 def _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal, row_of,
                      min_points):
     """The second pass of ``method="integrated"`` (:mod:`inhibkin.rates.integrated`) over
@@ -995,17 +1005,15 @@ def _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal, row
     out = dict(core)
     fitted = np.zeros(len(s0), dtype=bool)
     for _ in range(ROW_PASSES):
-        kapp_row, log_var_row = row_apparent_km(s0, out["rate"], out["rate_se"], row_of)
-        if not len(kapp_row):
+        kapp_signal, log_var = _row_kapp(out, s0, s0_signal, row_of)
+        if kapp_signal is None:
             break
-        with np.errstate(divide="ignore", invalid="ignore"):
-            kapp_signal = kapp_row[row_of] * s0_signal / s0
         fitting = enough & np.isfinite(kapp_signal)
         if not fitting.any():
             break
         second = integrated_rates(t_grid[fitting], y_grid[fitting], usable[fitting],
                                   s0_signal[fitting], kapp_signal[fitting],
-                                  log_var_row[row_of][fitting], core["rate"][fitting])
+                                  log_var[fitting], core["rate"][fitting])
         good = np.isfinite(second["rate"]) & np.isfinite(second["rate_se"])
         where = np.flatnonzero(fitting)[good]
         out = dict(core)
@@ -1034,13 +1042,11 @@ def _depletion_pass(core, t_grid, valid, s0, s0_signal, row_of):
     beta = window_curvature(t_grid, in_window)
     out = dict(core)
     for _ in range(ROW_PASSES):
-        kapp_row, log_var_row = row_apparent_km(s0, out["rate"], out["rate_se"], row_of)
-        if not len(kapp_row):
+        kapp_signal, log_var = _row_kapp(out, s0, s0_signal, row_of)
+        if kapp_signal is None:
             break
-        with np.errstate(divide="ignore", invalid="ignore"):
-            kapp_signal = kapp_row[row_of] * s0_signal / s0
         rate, se = depletion_corrected(core["rate"], core["rate_se"], beta, s0_signal,
-                                       kapp_signal, log_var_row[row_of])
+                                       kapp_signal, log_var)
         out = dict(core, rate=np.where(core["failed"], core["rate"], rate),
                    rate_se=np.where(core["failed"], core["rate_se"], se))
     return out
