@@ -35,6 +35,7 @@ validate: $(STAMP_TEST)
 	$(BIN)/python -m benchmarks.validation
 	$(BIN)/python -m benchmarks.initial_rate_study --out docs/validation.md
 	$(BIN)/python -m benchmarks.reads_study --out docs/validation.md
+	$(BIN)/python -m benchmarks.edge_power_study --out docs/validation.md
 	$(BIN)/python -m benchmarks.lack_of_fit_study 100
 
 validate-time-dependent: $(STAMP_TEST)

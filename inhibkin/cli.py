@@ -245,7 +245,7 @@ def _fit_options(args) -> dict:
     return dict(compound="compound", units=_units(args.units),
                 weighting=_weighting(args.weighting),
                 intervals=args.intervals, level=args.level, quiet=args.quiet,
-                chunk_size=args.chunk_size, engine=args.engine)
+                chunk_size=args.chunk_size, engine=args.engine, edge_sides=args.edge_sides)
 
 
 def _finish(campaign, output, args) -> int:
@@ -347,12 +347,20 @@ def _fit_arguments(parser, output="ranked table (.csv, .parquet or .xlsx)",
     parser.add_argument("--intervals", choices=("wald", "profile"), default="wald",
                         help="confidence intervals: wald (fast, default) or profile")
     parser.add_argument("--level", type=float, default=0.95, help="confidence level")
+    _edge_sides_argument(parser)
     parser.add_argument("--chunk-size", type=int, default=None,
                         help="compounds per task (default: 32 on the lmfit path; on the "
                              "batched engine 1024 in one process, 256 with workers)")
     parser.add_argument("--engine", choices=("auto", "batched", "lmfit"), default="auto",
                         help="auto: the batched engine for tables of 20 or more compounds "
                              "with wald intervals, else lmfit")
+
+
+def _edge_sides_argument(parser):
+    parser.add_argument("--edge-sides", type=int, choices=(1, 2), default=2,
+                        help="rule 4's test of the alpha edge a one-constant verdict must "
+                             "reject: 2 two-sided (default), 1 one-sided (only when the "
+                             "free alpha lies beyond the edge)")
 
 
 def _dose_arguments(parser):
@@ -503,6 +511,7 @@ def _progress_arguments(parser):
                              "where it holds, else the ODE; closed; ode")
     parser.add_argument("--intervals", choices=("profile", "wald"), default="profile",
                         help="profile-likelihood (default) or log-scale Wald intervals")
+    _edge_sides_argument(parser)
 
 
 def _progress(args) -> int:
@@ -527,7 +536,7 @@ def _progress(args) -> int:
             fit = fit_progress_curves(reads, plate_map, compound_id=name,
                                       integration=args.integration,
                                       product_ki=args.product_ki, intervals=args.intervals,
-                                      **options)
+                                      edge_sides=args.edge_sides, **options)
         except InhibkinError as err:
             rows.append({"compound": name, "verdict": "failed", "best": None,
                          "reason": str(err)})

@@ -66,8 +66,10 @@ def test_closed_form_reads_give_the_true_initial_rate_past_ten_percent_conversio
     assert (integrated["n_points"] == len(TIMES)).all()  # every read, not a window
     assert integrated["conversion"].iloc[0] > 0.3
     assert not integrated["flags"].str.contains("conversion|nonlinear|linear_rate").any()
-    # The linear method on the same wells is capped at 10 % conversion and biased low.
-    assert (linear["rate"].iloc[0] / truth[0] - 1) < -5 * CLOSED_FORM_RTOL
+    # The linear method on the same wells is capped at 10 % conversion: fewer reads, and
+    # its slope is corrected for depletion to second order only (tests/test_depletion.py).
+    assert linear["n_points"].iloc[0] < len(TIMES)
+    np.testing.assert_allclose(linear["rate"], truth, rtol=10 * CLOSED_FORM_RTOL)
 
 
 def test_mass_action_reads_give_the_ode_initial_rate():

@@ -2,6 +2,7 @@
 "options are checked once, before any work")."""
 
 import numpy as np
+import pandas as pd
 import pytest
 
 import inhibkin as ik
@@ -34,6 +35,7 @@ BAD = [
     (dict(alpha=1.5), r"alpha must be a number in \(0, 1\)"),
     (dict(min_delta_aicc=-1), r"min_delta_aicc must be a number in \[0, inf\)"),
     (dict(determination_factor=0.5), r"determination_factor must be a number in \[1, inf\)"),
+    (dict(edge_sides=3), r"edge_sides must be 1 \(one-sided\) or 2 \(two-sided\), not 3"),
 ]
 
 
@@ -101,3 +103,61 @@ def test_fit_options_are_frozen_floats():
     with pytest.raises(AttributeError):
         options.level = 0.5
     assert np.isclose(options.as_dict()["level"], 0.95)
+
+
+@pytest.fixture(scope="module")
+def edge_grids():
+    """Uncompetitive grids with the inhibitor only up to kiu (seeds 4 and 12, as
+    tests/test_drift.py): the two-sided edge test leaves both ambiguous, the one-sided
+    test calls both uncompetitive (its F-test p between 0.05 and 0.10)."""
+    return {f"seed {seed}": ik.simulate_grid(
+        "uncompetitive", vmax=10.0, km=2.0, kiu=2.0, cv=0.10, seed=seed,
+        i=np.array([0.0, 0.4, 0.8, 1.2, 1.6, 2.0])) for seed in (4, 12)}
+
+
+EDGE_VERDICTS = {2: "ambiguous", 1: "uncompetitive"}
+
+
+@pytest.mark.parametrize("sides", [2, 1])
+def test_edge_sides_reaches_the_verdict_of_every_grid_entry(edge_grids, sides):
+    expected = EDGE_VERDICTS[sides]
+    batch = fit_mechanisms_batch(edge_grids, weighting="relative", lack_of_fit_alpha=0,
+                                 edge_sides=sides)
+    for name, grid in edge_grids.items():
+        one = ik.fit_mechanisms(grid, weighting="relative", intervals="wald",
+                                lack_of_fit_alpha=0, edge_sides=sides)
+        assert one.options.edge_sides == batch[name].options.edge_sides == sides
+        assert one.verdict == batch[name].verdict == expected, name
+    table = pd.concat([g.assign(compound=name) for name, g in edge_grids.items()]).rename(
+        columns={"substrate": "substrate_uM", "inhibitor": "inhibitor_uM"})
+    for engine in ("lmfit", "batched"):
+        campaign = fit_campaign(table, quiet=True, engine=engine, weighting="relative",
+                                edge_sides=sides)
+        assert campaign.options["edge_sides"] == sides
+        assert campaign.ranking["verdict"].tolist() == [expected, expected], engine
+
+
+def test_the_command_line_passes_edge_sides_and_checks_it_before_any_work(edge_grids,
+                                                                          tmp_path):
+    from inhibkin.cli import main
+
+    table = pd.concat([g.assign(compound=name) for name, g in edge_grids.items()]).rename(
+        columns={"substrate": "substrate_uM", "inhibitor": "inhibitor_uM"})
+    grid = tmp_path / "grid.csv"
+    table.drop(columns=["true_rate", "replicate"]).to_csv(grid, index=False)
+    for sides, expected in EDGE_VERDICTS.items():
+        out = tmp_path / f"ranked_{sides}.csv"
+        assert main(["mechanism", str(grid), "-o", str(out), "--weighting", "relative",
+                     "--quiet", "--edge-sides", str(sides)]) == 0
+        assert pd.read_csv(out)["verdict"].tolist() == [expected, expected]
+    bad = tmp_path / "bad.csv"
+    with pytest.raises(SystemExit) as stop:
+        main(["mechanism", str(grid), "-o", str(bad), "--edge-sides", "3"])
+    assert stop.value.code == 2
+    assert not bad.exists()
+
+
+def test_fit_progress_curves_checks_edge_sides_before_reading():
+    # The option is refused before the (empty) tables are looked at.
+    with pytest.raises(OptionError, match="edge_sides must be 1"):
+        ik.fit_progress_curves(pd.DataFrame(), pd.DataFrame(), edge_sides=0)

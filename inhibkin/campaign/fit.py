@@ -14,6 +14,7 @@ from __future__ import annotations
 import time
 from functools import partial
 
+from ..core.compare import EDGE_SIDES
 from ..errors import DataError
 from ..mechanism.fit import fit_mechanisms
 from ..units import parse_concentration
@@ -39,7 +40,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                  min_delta_aicc=2.0, determination_factor=10.0, potency_options=None,
                  heavy_atoms="heavy_atoms", logp="logp", engine="auto", workers=None,
                  client=None, quiet=False, chunk_size=None,
-                 keep_fits=True, time_dependent=None) -> Campaign:
+                 keep_fits=True, time_dependent=None, edge_sides=EDGE_SIDES) -> Campaign:
     """Fit every compound of a campaign and rank them by pKi.
 
     Parameters
@@ -83,8 +84,9 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     intervals : {"wald", "profile"}
         Interval method of both the grid and the curve fits; ``wald`` by default at
         campaign scale (see the module notes).
-    level, alpha, min_delta_aicc, determination_factor
-        Passed to the grid engine (see :func:`~inhibkin.mechanism.fit.fit_mechanisms`).
+    level, alpha, min_delta_aicc, determination_factor, edge_sides
+        Passed to the grid engine (see :func:`~inhibkin.mechanism.fit.fit_mechanisms`;
+        ``edge_sides`` 1 makes rule 4's edge test one-sided, 2 by default).
     potency_options : dict, optional
         Further options of :func:`~inhibkin.potency.table.potency_table` (e.g.
         ``default_mechanism``, ``fix_top``, ``tight_binding``).
@@ -146,7 +148,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     ------
     OptionError
         For an option outside its allowed values (weighting, intervals, level, alpha,
-        min_delta_aicc, determination_factor, potency_options, engine, workers,
+        min_delta_aicc, determination_factor, edge_sides, potency_options, engine, workers,
         chunk_size, km missing with a dose-response table), before any work
         (:class:`~inhibkin.campaign.options.CampaignOptions`).
     DataError
@@ -177,7 +179,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         intervals=intervals, level=level, alpha=alpha, min_delta_aicc=min_delta_aicc,
         determination_factor=determination_factor, potency_options=potency_options,
         engine=engine, workers=workers, client=client, chunk_size=chunk_size, quiet=quiet,
-        keep_fits=keep_fits)
+        keep_fits=keep_fits, edge_sides=edge_sides)
     table, dose_response = unique_index(table), unique_index(dose_response)
     # Both tables are checked as wholes before the first fit.
     grid = None if table is None else prepare_grid(
@@ -221,6 +223,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         "level": fit_options.level, "alpha": fit_options.alpha,
         "min_delta_aicc": fit_options.min_delta_aicc,
         "determination_factor": fit_options.determination_factor,
+        "edge_sides": fit_options.edge_sides,
         "z_prime_threshold": options.z_prime_threshold,
         "engine": options.engine_label(),
         "grid_engine": grid_engine, "dose_engine": dose_engine,

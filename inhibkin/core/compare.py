@@ -87,6 +87,8 @@ __all__ = [
     "decide",
     "decide_from",
     "edge_rejected",
+    "EDGE_SIDES",
+    "check_edge_sides",
     "free_alpha",
     "time_dependent_verdict",
     "TIME_DEPENDENT",
@@ -103,6 +105,17 @@ TIME_DEPENDENT = "time_dependent"
 #: What that verdict says, first in its reason.
 TIME_DEPENDENT_REASON = ("time dependent: the inhibited wells' progress curves bend; a "
                          "steady-state Ki is not valid — fit kobs (inhibkin inactivation)")
+
+
+#: Rule 4's edge test by default: two-sided (:func:`edge_rejected`).
+EDGE_SIDES = 2
+
+
+def check_edge_sides(value) -> None:
+    """Raise :class:`~inhibkin.errors.OptionError` unless ``value`` is 1 or 2."""
+    if isinstance(value, bool) or value not in (1, 2):
+        raise OptionError(f"edge_sides must be 1 (one-sided) or 2 (two-sided), not "
+                          f"{value!r}")
 
 
 @dataclass(frozen=True)
@@ -146,12 +159,10 @@ class VerdictOptions:
     alpha_factor: float = 5.0
     lack_of_fit_alpha: float = LACK_OF_FIT_ALPHA
     probe_alpha: float = 1e-3
-    edge_sides: int = 2
+    edge_sides: int = EDGE_SIDES
 
     def __post_init__(self):
-        if self.edge_sides not in (1, 2):
-            raise OptionError(f"edge_sides must be 1 (one-sided) or 2 (two-sided), not "
-                              f"{self.edge_sides!r}")
+        check_edge_sides(self.edge_sides)
 
     def alpha_edges(self, model: str) -> tuple[str, ...]:
         """The fixed-alpha fits (names in the F-test table) that ``model`` must reject."""

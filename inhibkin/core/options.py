@@ -11,6 +11,7 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 
 from ..errors import OptionError
+from .compare import EDGE_SIDES, check_edge_sides
 from .determined import DETERMINATION_FACTOR
 from .lack_of_fit import LACK_OF_FIT_ALPHA
 from .limits import check_options
@@ -49,6 +50,9 @@ class FitOptions:
         Multiple (≥ 1) of the tested range past which a constant is not determined.
     lack_of_fit_alpha : float
         Level (0 ≤ x < 1) of the lack-of-fit test of the verdict's model; 0 turns it off.
+    edge_sides : {1, 2}
+        Rule 4's edge test: 2 (default) two-sided, 1 one-sided
+        (:class:`inhibkin.core.compare.VerdictOptions`).
 
     Raises
     ------
@@ -65,6 +69,7 @@ class FitOptions:
     alpha_factor: float = 5.0
     determination_factor: float = DETERMINATION_FACTOR
     lack_of_fit_alpha: float = LACK_OF_FIT_ALPHA
+    edge_sides: int = EDGE_SIDES
 
     def __post_init__(self):
         if self.weighting not in WEIGHTINGS:
@@ -73,6 +78,7 @@ class FitOptions:
             raise OptionError(f"intervals must be one of {INTERVAL_METHODS}, got "
                               f"{self.intervals!r}")
         check_options({name: getattr(self, name) for name in _NUMERIC}, none_allowed=False)
+        check_edge_sides(self.edge_sides)
         for name in _NUMERIC:
             # Frozen: the checked float replaces what arrived (an int stays a number).
             object.__setattr__(self, name, float(getattr(self, name)))

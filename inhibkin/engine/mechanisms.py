@@ -27,6 +27,7 @@ from scipy import stats
 
 from ..core.bounds import NESTED_FAR_FACTOR, classical_limit
 from ..core.compare import (
+    EDGE_SIDES,
     EXACT_FIT_RTOL,
     F_TEST_COLUMNS,
     Verdict,
@@ -705,7 +706,7 @@ def _nested_start(out, name, rows, far, large="mixed"):
 
 def _fit_chunk(s, i, v, mask, sd, enzyme=None, *, weighting, models, alpha, min_delta_aicc,
                alpha_factor, level, determination_factor, fallback, max_iterations,
-               lack_of_fit_alpha=LACK_OF_FIT_ALPHA) -> MechanismBatch:
+               lack_of_fit_alpha=LACK_OF_FIT_ALPHA, edge_sides=EDGE_SIDES) -> MechanismBatch:
     """Fit one chunk of compounds (the unit of work sent to a worker)."""
     b = s.shape[0]
     need_inhibition = any(m != "none" for m in models)
@@ -754,7 +755,8 @@ def _fit_chunk(s, i, v, mask, sd, enzyme=None, *, weighting, models, alpha, min_
     exact_ssr = EXACT_FIT_RTOL * np.sum((w * np.where(mask, v, 0.0)) ** 2, axis=1)
     p_values = {pair: _f_tests(out, *pair, exact_ssr) for pair in nested_pairs(tuple(out))}
     options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc,
-                             alpha_factor=alpha_factor, lack_of_fit_alpha=lack_of_fit_alpha)
+                             alpha_factor=alpha_factor, lack_of_fit_alpha=lack_of_fit_alpha,
+                             edge_sides=edge_sides)
     if "mixed" in out:
         far = np.zeros(b)
         far[rows] = np.exp(mechanism_log_bounds("mixed", s[rows], i[rows], v[rows],
@@ -1098,7 +1100,7 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
                          level=0.95, determination_factor=DETERMINATION_FACTOR, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None,
                          chunk_size=None, lack_of_fit_alpha=LACK_OF_FIT_ALPHA,
-                         enzyme=None) -> MechanismBatch:
+                         enzyme=None, edge_sides=EDGE_SIDES) -> MechanismBatch:
     """Fit every mechanism to every compound of padded arrays and decide between them.
 
     Parameters
@@ -1139,6 +1141,8 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     enzyme : array_like, shape (B,), optional
         The active enzyme concentration of every compound, in the inhibitor's unit
         (all given, or None): the tight-binding laws hold [E] there.
+    edge_sides : {1, 2}
+        Rule 4's edge test, as :func:`inhibkin.mechanism.fit.fit_mechanisms`.
 
     Returns
     -------
@@ -1148,7 +1152,8 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     """
     FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
                min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
-               determination_factor=determination_factor, lack_of_fit_alpha=lack_of_fit_alpha)
+               determination_factor=determination_factor, lack_of_fit_alpha=lack_of_fit_alpha,
+               edge_sides=edge_sides)
     if weighting in SD_WEIGHTINGS and sd is None:
         raise DataError(f"weighting={weighting!r} needs sd=, the standard deviations (or "
                         "standard errors) of the rates")
@@ -1167,7 +1172,8 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     options = dict(weighting=weighting, models=tuple(models), alpha=alpha,
                    min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor, level=level,
                    determination_factor=determination_factor, fallback=fallback,
-                   max_iterations=max_iterations, lack_of_fit_alpha=lack_of_fit_alpha)
+                   max_iterations=max_iterations, lack_of_fit_alpha=lack_of_fit_alpha,
+                   edge_sides=edge_sides)
     arrays = (s, i, v, mask, sd, enzyme)
     parts = run_chunks(_fit_chunk, arrays, options, client=client, chunk_size=chunk_size)
     return concat_batches(parts)
@@ -1238,7 +1244,8 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
                          alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0, level=0.95,
                          determination_factor=DETERMINATION_FACTOR, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None, chunk_size=None,
-                         lack_of_fit_alpha=LACK_OF_FIT_ALPHA, enzyme=None):
+                         lack_of_fit_alpha=LACK_OF_FIT_ALPHA, enzyme=None,
+                         edge_sides=EDGE_SIDES):
     """:func:`inhibkin.mechanism.fit.fit_mechanisms` (Wald intervals) for many compounds at once.
 
     Parameters
@@ -1254,7 +1261,7 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
         table has a ``rate_se`` column (and ``sd`` is not given), else relative.
     models, alpha, min_delta_aicc, alpha_factor, level, determination_factor : see
         :func:`fit_mechanism_arrays`.
-    fallback, max_iterations, client, chunk_size, lack_of_fit_alpha : see
+    fallback, max_iterations, client, chunk_size, lack_of_fit_alpha, edge_sides : see
         :func:`fit_mechanism_arrays`.
     enzyme : float or str, optional
         As :func:`~inhibkin.mechanism.fit.fit_mechanisms` (a number, text with its unit, or
@@ -1279,7 +1286,8 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
     weighting, sd = resolve_weighting(weighting, (), sd)
     FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
                min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
-               determination_factor=determination_factor, lack_of_fit_alpha=lack_of_fit_alpha)
+               determination_factor=determination_factor, lack_of_fit_alpha=lack_of_fit_alpha,
+               edge_sides=edge_sides)
     need_inhibition = any(m != "none" for m in models)
     groups, labels, errors, enzymes = _as_groups(items, substrate, inhibitor, rate, sd,
                                                  weighting, need_inhibition, enzyme)
@@ -1303,7 +1311,7 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
             alpha_factor=alpha_factor, level=level, determination_factor=determination_factor,
             fallback=fallback, max_iterations=max_iterations, client=client,
             chunk_size=chunk_size, lack_of_fit_alpha=lack_of_fit_alpha,
-            enzyme=enzymes[part] if given[part[0]] else None)
+            enzyme=enzymes[part] if given[part[0]] else None, edge_sides=edge_sides)
         for n, c in enumerate(part):
             fits[c] = batch.mechanism_fit(n, labels[c])
     for c, error in enumerate(errors):

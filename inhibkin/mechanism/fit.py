@@ -17,6 +17,7 @@ import pandas as pd
 
 from ..core.bounds import NESTED_FAR_FACTOR, classical_limit
 from ..core.compare import (
+    EDGE_SIDES,
     EXACT_FIT_RTOL,
     TIGHT_BINDING_FACTOR,
     TIME_DEPENDENT,
@@ -574,7 +575,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                    alpha_factor=5.0, intervals="profile", level=0.95,
                    determination_factor=DETERMINATION_FACTOR, flags="flags",
                    lack_of_fit_alpha=LACK_OF_FIT_ALPHA, enzyme=None,
-                   context=None) -> MechanismFit:
+                   edge_sides=EDGE_SIDES, context=None) -> MechanismFit:
     """Fit every reversible mechanism to one compound's grid and decide between them.
 
     Parameters
@@ -641,6 +642,12 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         :data:`~inhibkin.core.compare.TIGHT_BINDING_FACTOR` (10) × [E] sends the verdict
         to them (Morrison 1969, BBA 185:269). Without [E] they fit it, and a constant
         below the lowest non-zero inhibitor level makes the verdict ``ambiguous``.
+    edge_sides : {1, 2}
+        Rule 4's edge test (:func:`inhibkin.core.compare.edge_rejected`): 2 (default)
+        two-sided; 1 one-sided, the edge rejected only when the free alpha lies beyond
+        it (more correct calls of one-constant truths near an edge, more confidently
+        wrong ones of mixed truths at an edge on badly placed designs; figures of both
+        in docs/validation.md).
     context : str, optional
         Name of the compound, used in error messages.
 
@@ -669,7 +676,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                              alpha=alpha, min_delta_aicc=min_delta_aicc,
                              alpha_factor=alpha_factor,
                              determination_factor=determination_factor,
-                             lack_of_fit_alpha=lack_of_fit_alpha)
+                             lack_of_fit_alpha=lack_of_fit_alpha, edge_sides=edge_sides)
     if weighting == "sd" and sd is None:
         raise DataError("weighting='sd' needs the sd= column of standard deviations", context)
     unknown = [m for m in models if m not in MODELS]
@@ -692,7 +699,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         w = np.ones_like(v)
     options = VerdictOptions(alpha=fit_options.alpha, min_delta_aicc=fit_options.min_delta_aicc,
                              alpha_factor=fit_options.alpha_factor,
-                             lack_of_fit_alpha=fit_options.lack_of_fit_alpha)
+                             lack_of_fit_alpha=fit_options.lack_of_fit_alpha,
+                             edge_sides=fit_options.edge_sides)
     fits: dict[str, ModelFit] = {}
     common = dict(intervals=fit_options.intervals, level=fit_options.level,
                   determination_factor=fit_options.determination_factor)

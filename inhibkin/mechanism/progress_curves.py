@@ -37,6 +37,7 @@ from scipy import optimize, stats
 
 from ..core.bounds import NESTED_FAR_FACTOR
 from ..core.compare import (
+    EDGE_SIDES,
     EXACT_FIT_RTOL,
     Verdict,
     VerdictOptions,
@@ -457,7 +458,8 @@ def fit_progress_curves(reads, plate_map, *, compound_id=None, time="time", sign
                         stoichiometry=1.0, subtract_blanks=True, integration="auto",
                         product_ki=None, models=MODEL_NAMES, intervals="profile",
                         level=0.95, alpha=0.05, min_delta_aicc=2.0, alpha_factor=5.0,
-                        determination_factor=DETERMINATION_FACTOR) -> ProgressCurveFit:
+                        determination_factor=DETERMINATION_FACTOR,
+                        edge_sides=EDGE_SIDES) -> ProgressCurveFit:
     """Fit every mechanism to all reads of all wells of one compound and decide.
 
     Parameters
@@ -490,6 +492,8 @@ def fit_progress_curves(reads, plate_map, *, compound_id=None, time="time", sign
         The verdict's options, as :func:`inhibkin.fit_mechanisms`.
     determination_factor : float
         As :func:`inhibkin.fit_mechanisms`.
+    edge_sides : {1, 2}
+        Rule 4's edge test, as :func:`inhibkin.fit_mechanisms` (default 2, two-sided).
 
     Returns
     -------
@@ -506,7 +510,8 @@ def fit_progress_curves(reads, plate_map, *, compound_id=None, time="time", sign
     """
     _check_options(integration, product_ki, intervals, level, tuple(models))
     options = VerdictOptions(alpha=alpha, min_delta_aicc=min_delta_aicc,
-                             alpha_factor=alpha_factor, lack_of_fit_alpha=0.0)
+                             alpha_factor=alpha_factor, lack_of_fit_alpha=0.0,
+                             edge_sides=edge_sides)
     curves_table = product_curves(reads, plate_map, time=time, signal=signal, plate=plate,
                                   well=well, compound=compound, substrate=substrate,
                                   inhibitor=inhibitor, role=role, time_unit=time_unit,

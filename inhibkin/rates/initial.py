@@ -84,6 +84,7 @@ from ..errors import DataError, Problem, UnitsError
 from ..inputs.columns import find_column
 from ..units import from_molar, normalise_unit, to_molar, to_seconds
 from ..validate import check_columns, normalise_roles, numeric_column, row_kind
+from .depletion import depletion_corrected, window_curvature
 from .integrated import ROW_PASSES, integrated_rates, row_apparent_km
 from .product_inhibition import FLAG as PRODUCT_INHIBITION
 from .product_inhibition import product_inhibition
@@ -924,12 +925,15 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
                            method="linear" if method == "integrated" else method,
                            alpha=alpha, max_bias=max_bias, max_conversion=max_conversion,
                            min_points=min_points) if n_wells else None
-        if method == "integrated" and n_wells:
+        if method in ("integrated", "linear") and n_wells:
             row_of = pd.factorize(pd.MultiIndex.from_arrays(
                 [plate_map[compound].astype(str).to_numpy()[wells_rated],
                  i_map[wells_rated]]))[0]
-            core = _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal,
-                                    row_of, min_points)
+            # The integrated pass starts from (and falls back to) the linear rates.
+            core = _depletion_pass(core, t_grid, valid, s0, s0_signal, row_of)
+            if method == "integrated":
+                core = _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0,
+                                        s0_signal, row_of, min_points)
         rows = _assemble(core, t_grid, raw_grid, code, no_blank_read, conversion, n_wells,
                          options=options)
         if n_wells:
@@ -980,6 +984,16 @@ def initial_rates(reads, plate_map, *, time="time", signal="signal", plate="plat
     return InitialRates(table, controls, unmatched, units, options)
 
 
+def _row_kapp(rates, s0, s0_signal, row_of):
+    """Each well's row Kapp as signal and the variance of its logarithm, fitted to
+    ``rates`` (``rate``, ``rate_se``); (None, None) when there are no rows."""
+    kapp_row, log_var_row = row_apparent_km(s0, rates["rate"], rates["rate_se"], row_of)
+    if not len(kapp_row):
+        return None, None
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return kapp_row[row_of] * s0_signal / s0, log_var_row[row_of]
+
+
 def _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal, row_of,
                      min_points):
     """The second pass of ``method="integrated"`` (:mod:`inhibkin.rates.integrated`) over
@@ -991,17 +1005,15 @@ def _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal, row
     out = dict(core)
     fitted = np.zeros(len(s0), dtype=bool)
     for _ in range(ROW_PASSES):
-        kapp_row, log_var_row = row_apparent_km(s0, out["rate"], out["rate_se"], row_of)
-        if not len(kapp_row):
+        kapp_signal, log_var = _row_kapp(out, s0, s0_signal, row_of)
+        if kapp_signal is None:
             break
-        with np.errstate(divide="ignore", invalid="ignore"):
-            kapp_signal = kapp_row[row_of] * s0_signal / s0
         fitting = enough & np.isfinite(kapp_signal)
         if not fitting.any():
             break
         second = integrated_rates(t_grid[fitting], y_grid[fitting], usable[fitting],
                                   s0_signal[fitting], kapp_signal[fitting],
-                                  log_var_row[row_of][fitting], core["rate"][fitting])
+                                  log_var[fitting], core["rate"][fitting])
         good = np.isfinite(second["rate"]) & np.isfinite(second["rate_se"])
         where = np.flatnonzero(fitting)[good]
         out = dict(core)
@@ -1016,6 +1028,27 @@ def _integrated_pass(core, t_grid, y_grid, valid, ceiling_at, s0, s0_signal, row
     out["nonlinear"] = core["nonlinear"] & ~fitted
     out["curve_fitted"] = fitted
     out["linear_rate"] = ~fitted & ~core["failed"]
+    return out
+
+
+def _depletion_pass(core, t_grid, valid, s0, s0_signal, row_of):
+    """``method="linear"``: each window's slope with its depletion bias removed by the
+    row's apparent km (:mod:`inhibkin.rates.depletion`); the rows' Kapp is estimated
+    again from the corrected rates, :data:`ROW_PASSES` times in all. Wells whose
+    substrate is unknown as signal keep the slope."""
+    if not np.isfinite(s0_signal).any():
+        return core
+    in_window = valid & (np.arange(t_grid.shape[1])[None, :] <= core["position_end"][:, None])
+    beta = window_curvature(t_grid, in_window)
+    out = dict(core)
+    for _ in range(ROW_PASSES):
+        kapp_signal, log_var = _row_kapp(out, s0, s0_signal, row_of)
+        if kapp_signal is None:
+            break
+        rate, se = depletion_corrected(core["rate"], core["rate_se"], beta, s0_signal,
+                                       kapp_signal, log_var)
+        out = dict(core, rate=np.where(core["failed"], core["rate"], rate),
+                   rate_se=np.where(core["failed"], core["rate_se"], se))
     return out
 
 
