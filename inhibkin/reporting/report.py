@@ -123,14 +123,17 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
     }
     if detailed:
         section["fit"].update(
-            overview=png_image(figures.plot_mechanism_overview(fit, units=units), dpi),
-            residuals=png_image(figures.plot_residual_grid(fit, units=units), dpi),
-            diagnostics=png_image(figures.plot_diagnostics(fit, units=units), dpi))
+            overview=png_image(figures.plot_mechanism_overview(fit, units=units,
+                                                               layout="fixed"), dpi),
+            residuals=png_image(figures.plot_residual_grid(fit, units=units, layout="fixed"),
+                                dpi),
+            diagnostics=png_image(figures.plot_diagnostics(fit, units=units, layout="fixed"),
+                                  dpi))
     return section
 
 
 def _dose_image(fit, conc_unit, dpi) -> dict:
-    fig, axes = figures.new_figure(size=(3.4, 2.6))
+    fig, axes = figures.new_figure(size=(3.4, 2.6), margins=figures.DOSE_MARGINS)
     figures.plot_dose_response(fit, conc_unit=conc_unit, ax=axes[0, 0])
     return png_image(fig, dpi)
 
