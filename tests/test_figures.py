@@ -6,6 +6,7 @@ import pandas as pd
 import pytest
 from grid_ode import EPSILON_PATH, SUBSTRATE, Mechanism, plate
 from matplotlib.axes import Axes
+from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from inhibkin import BeerLambert, initial_rates
@@ -214,3 +215,28 @@ def test_dose_response_without_fit_shows_points_and_reason():
     ax = figures.plot_dose_response(frame, conc_unit="µM", reason="plate SCR-9 has no controls")
     assert "plate SCR-9 has no controls" in _texts(ax)
     assert len(ax.collections) == 2  # the wells with compound, and the one without
+
+
+@pytest.mark.parametrize("function", FIGURE_FUNCTIONS)
+def test_fixed_layout_keeps_every_label_inside_the_figure(fits, function):
+    # The report's figures are laid out by fixed margins, not measured: every axes'
+    # drawn extent (tick labels, axis labels, titles) stays inside the figure and no
+    # two panels' extents overlap, on the mechanism with the longest names shown.
+    fig = function(fits["mixed"], units=UNITS, layout="fixed")
+    assert fig.get_layout_engine() is None
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    renderer = canvas.get_renderer()
+    inside = fig.bbox
+    boxes = [ax.get_tightbbox(renderer) for ax in fig.axes]
+    for box in boxes:
+        assert box.x0 >= inside.x0 and box.x1 <= inside.x1
+        assert box.y0 >= inside.y0 and box.y1 <= inside.y1
+    for k, a in enumerate(boxes):
+        for b in boxes[k + 1:]:
+            assert not a.overlaps(b)
+
+
+def test_unknown_layout_is_refused(fits):
+    with pytest.raises(ValueError, match="layout"):
+        figures.plot_diagnostics(fits["mixed"], layout="tight")

@@ -117,6 +117,12 @@ class LogisticBatch:
     iterations : numpy.ndarray of int
     start : numpy.ndarray, shape (B, 4)
         The automatic starting values used.
+    stopped_at : numpy.ndarray, shape (B, 4)
+        Where the solver stopped, converged or not (the last accepted point of a fit that
+        ran out of iterations or stalled; NaN where it never started): what a caller may
+        still classify when nothing a minimum sets is reported (an inactive curve).
+    stopped_ssr : numpy.ndarray, shape (B,)
+        The SSR at ``stopped_at`` (NaN where not computable).
     level : float
     """
 
@@ -134,12 +140,14 @@ class LogisticBatch:
     reason: np.ndarray = field(repr=False)
     iterations: np.ndarray = field(repr=False)
     start: np.ndarray = field(repr=False)
+    stopped_at: np.ndarray = field(repr=False)
+    stopped_ssr: np.ndarray = field(repr=False)
     level: float = 0.95
     names: tuple[str, ...] = PARAM_NAMES
 
     batch_fields = ("estimate", "se", "ci_low", "ci_high", "free", "covariance", "ssr",
                     "n_obs", "n_params", "converged", "status", "reason", "iterations",
-                    "start")
+                    "start", "stopped_at", "stopped_ssr")
 
     def __len__(self) -> int:
         return len(self.ssr)
@@ -211,9 +219,13 @@ def _fit_chunk(x, y, mask, weights, top, bottom, lower, upper, start, *, level,
     t = stats.t.ppf(0.5 + level / 2, dof_levels)[which.reshape(-1)][:, None]
     estimate = np.where(ok[:, None], result.theta, np.nan)
     se = np.where(ok[:, None] & free, se, np.nan)
+    # A problem that never ran (bad data, too few points) stopped nowhere.
+    ran = np.isfinite(result.ssr) & ~few_levels
+    stopped_at = np.where(ran[:, None], result.theta, np.nan)
     return LogisticBatch(estimate, se, estimate - t * se, estimate + t * se, free,
                          result.covariance, np.where(ok, result.ssr, np.nan), result.n_obs,
-                         result.n_free, ok, status, reason, result.iterations, start, level)
+                         result.n_free, ok, status, reason, result.iterations, start,
+                         stopped_at, np.where(ran, result.ssr, np.nan), level)
 
 
 def fit_logistic_batch(x, y, mask=None, *, fix_top=None, fix_bottom=None, weights=None,

@@ -89,6 +89,10 @@ PARTIAL_EFFICACY_FRACTION = 0.2
 LOG_IC50_MARGIN = 4.0
 HILL_MAX = 20.0
 
+#: Rows and columns of :attr:`DoseResponseFit.params`.
+PARAMETER_ROWS = ("top", "bottom", "ic50", "log_ic50", "pic50", "hill")
+PARAMETER_COLUMNS = ("estimate", "se", "ci_low", "ci_high", "fixed", "determined")
+
 
 # --------------------------------------------------------------------------- 4PL fit
 
@@ -99,10 +103,9 @@ class DoseResponseFit:
     Attributes
     ----------
     compound : str or None
-    params : pandas.DataFrame
-        Rows top, bottom, ic50, log_ic50, pic50, hill; columns estimate, se, ci_low,
-        ci_high (at ``level``), fixed, determined. IC50 in the concentration's unit;
-        pic50 = −log10(IC50) (a pIC50 proper when the unit is molar).
+    parameter_values : numpy.ndarray, shape (6, 6)
+        The numbers of :attr:`params` (rows :data:`PARAMETER_ROWS`, columns
+        :data:`PARAMETER_COLUMNS`; fixed and determined as 1.0 / 0.0).
     flags : tuple of str
         Keys of :data:`FLAGS`.
     ic50_bound : Bound or None
@@ -134,7 +137,7 @@ class DoseResponseFit:
     """
 
     compound: str | None
-    params: pd.DataFrame
+    parameter_values: np.ndarray = field(repr=False)
     flags: tuple
     ic50_bound: Bound | None
     n_obs: int
@@ -156,20 +159,34 @@ class DoseResponseFit:
     not_determined: tuple = ()
 
     def __post_init__(self):
-        # The parameter table as numbers, read once (and from the plain frame, whose
-        # columns read twice as fast as the read-only one's): a screen reads every
-        # curve's properties, and each read of the table costs as much as this.
-        params = self.params
+        # The parameter numbers by name, read once: a screen reads every curve's
+        # properties. The table itself (``params``) is built on first read: a campaign
+        # holds one fit per curve and most are never displayed (a DataFrame costs about
+        # as much as the rest of the fit).
+        values = readonly_array(np.asarray(self.parameter_values, dtype=float))
+        object.__setattr__(self, "parameter_values", values)
         object.__setattr__(self, "_numbers", {
             name: (float(estimate), bool(fixed) or bool(determined), float(low), float(high))
-            for name, estimate, fixed, determined, low, high in zip(
-                params.index, params["estimate"].to_numpy(), params["fixed"].to_numpy(),
-                params["determined"].to_numpy(), params["ci_low"].to_numpy(),
-                params["ci_high"].to_numpy())})
-        # Frozen all the way down: the parameter table and the arrays cannot be edited.
-        object.__setattr__(self, "params", readonly_frame(params))
+            for name, (estimate, _, low, high, fixed, determined) in zip(PARAMETER_ROWS,
+                                                                         values.tolist())})
+        # Frozen all the way down: the arrays cannot be edited.
         for name in ("conc", "response", "fitted", "covariance"):
             object.__setattr__(self, name, readonly_array(getattr(self, name)))
+
+    @property
+    def params(self) -> pd.DataFrame:
+        """Rows top, bottom, ic50, log_ic50, pic50, hill; columns estimate, se, ci_low,
+        ci_high (at ``level``), fixed, determined. IC50 in the concentration's unit;
+        pic50 = −log10(IC50) (a pIC50 proper when the unit is molar). Read-only."""
+        table = self.__dict__.get("_params")
+        if table is None:
+            values = self.parameter_values
+            table = readonly_frame(pd.DataFrame(
+                {name: (values[:, j] != 0) if name in ("fixed", "determined") else values[:, j]
+                 for j, name in enumerate(PARAMETER_COLUMNS)},
+                index=pd.Index(PARAMETER_ROWS, name="parameter")))
+            object.__setattr__(self, "_params", table)
+        return table
 
     def _value(self, name):
         return self._numbers[name][0]
@@ -399,16 +416,9 @@ def _build_dose_response(curve: Curve, phi, ssr, converged, message, *, conc, co
     rows["log_ic50"][5] = ic50_row[5]
     rows["ic50"] = ic50_row
     rows["pic50"] = [-theta[j], se[j], -high[j], -low[j], fixed[j], ic50_row[5]]
-    order = ["top", "bottom", "ic50", "log_ic50", "pic50", "hill"]
-    # Built column by column from typed arrays (a screen builds one per curve).
-    table = list(zip(*(rows[r] for r in order)))
-    params = pd.DataFrame(
-        {name: np.array(values, dtype=bool if name in ("fixed", "determined") else float)
-         for name, values in zip(("estimate", "se", "ci_low", "ci_high", "fixed",
-                                  "determined"), table)},
-        index=pd.Index(order, name="parameter"))
+    values = np.array([rows[r] for r in PARAMETER_ROWS], dtype=float)
     fitted = curve.model(curve.x, *theta)
-    return DoseResponseFit(compound, params, tuple(flags), bound, n, k, dof, ssr,
+    return DoseResponseFit(compound, values, tuple(flags), bound, n, k, dof, ssr,
                            float(np.sqrt(ssr / dof)) if dof > 0 else np.nan, converged,
                            message, level, method, conc, curve.y, fitted, covariance,
                            tuple(np.asarray(PARAM_NAMES)[curve.free]), kind, class_reason,

@@ -356,16 +356,29 @@ class EngineFitter:
         batch = fit_logistic_batch(x, y, mask, fix_top=options["fix_top"],
                                    fix_bottom=options["fix_bottom"], lower=lower,
                                    upper=upper, start=start, level=options["level"])
+        # An inactive curve reports nothing its minimum sets (its efficacy is read off
+        # the data), so any finite solution settles it, converged or not: a fit that ran
+        # out of iterations or stalled on a flat surface is classified, in arrays, where
+        # it stopped; only a curve that would be active there goes to the lmfit path.
+        converged = batch.converged
+        point = np.where(converged[:, None], batch.estimate, batch.stopped_at)
+        class_options = options["class_options"]
+        classes = classify_curves(
+            x, y, mask, point, n_free=batch.n_params,
+            full_activity=class_options.get("full_activity"),
+            zero_activity=class_options.get("zero_activity", 0.0), hill_limit=_HILL_MAX,
+            falling_only=True, rules=class_options.get("curve_rules", DEFAULT_RULES))
+        settled = converged | ((classes.curve_class == "inactive")
+                               & np.isfinite(batch.stopped_ssr)
+                               & np.all(np.isfinite(point), axis=1))
         out = {}
         for k, row in enumerate(rows):
             name = names[row]
-            fit = self._fit(curves[name], dict(zip(batch.names, batch.estimate[k])),
-                            batch.reason[k], name, options["fix_top"], options["fix_bottom"],
-                            options["level"], options["class_options"], batch.converged[k])
-            # An inactive curve reports nothing its minimum sets (its efficacy is read
-            # off the data), so any finite solution settles it, converged or not.
-            if batch.converged[k] or (fit.curve_class == "inactive" and np.isfinite(fit.ssr)):
-                out[name] = fit
+            if settled[k]:
+                out[name] = self._fit(curves[name], dict(zip(batch.names, point[k])),
+                                      batch.reason[k], name, options["fix_top"],
+                                      options["fix_bottom"], options["level"], class_options,
+                                      converged[k], classes=classes.subset([k]))
             else:
                 self.refitted.append(name)
                 out.update(_default_fitter({name: curves[name]}, **options))

@@ -9,7 +9,7 @@ text, never run.
 The report scales with the campaign: every compound gets its tables and small SVG
 sketches drawn from the fit's numbers (:mod:`inhibkin.display.sketch`, milliseconds each); the
 full matplotlib figures (base64 PNG, about a second each) are drawn only for the
-compounds chosen by ``detail`` (the five best ranked by default, see
+compounds chosen by ``detail`` (the three best ranked by default, see
 :func:`select_detail`). Nothing is refitted: intervals are the campaign's own.
 
 :func:`fit_html`, :func:`dose_response_html` and :func:`campaign_html`, the compact
@@ -66,8 +66,11 @@ CAUTIONS = (
 _TD_CURVE_POINTS = 30
 # Dose-response sketches in the report's gallery (the most potent first); the table lists all.
 _MAX_POTENCY_FIGURES = 24
-#: Compounds drawn with the full matplotlib figures unless ``detail`` says otherwise.
-DEFAULT_DETAIL = "top:5"
+#: Compounds drawn with the full matplotlib figures unless ``detail`` says otherwise: the
+#: three best ranked, the ones a reader checks first (each costs about a second, against
+#: milliseconds for a sketched compound: `make bench` prints the report's cost with the
+#: three and with the five best in full; flagged compounds and IDs are one option away).
+DEFAULT_DETAIL = "top:3"
 # The rules ``detail`` understands besides compound IDs and ``top:N``.
 _DETAIL_RULES = ("all", "none", "flagged")
 
@@ -123,14 +126,17 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
     }
     if detailed:
         section["fit"].update(
-            overview=png_image(figures.plot_mechanism_overview(fit, units=units), dpi),
-            residuals=png_image(figures.plot_residual_grid(fit, units=units), dpi),
-            diagnostics=png_image(figures.plot_diagnostics(fit, units=units), dpi))
+            overview=png_image(figures.plot_mechanism_overview(fit, units=units,
+                                                               layout="fixed"), dpi),
+            residuals=png_image(figures.plot_residual_grid(fit, units=units, layout="fixed"),
+                                dpi),
+            diagnostics=png_image(figures.plot_diagnostics(fit, units=units, layout="fixed"),
+                                  dpi))
     return section
 
 
 def _dose_image(fit, conc_unit, dpi) -> dict:
-    fig, axes = figures.new_figure(size=(3.4, 2.6))
+    fig, axes = figures.new_figure(size=(3.4, 2.6), margins=figures.DOSE_MARGINS)
     figures.plot_dose_response(fit, conc_unit=conc_unit, ax=axes[0, 0])
     return png_image(fig, dpi)
 
@@ -518,7 +524,7 @@ def report(campaign, path, *, potency=None, rates=None, time_dependent=None,
         not the size they are shown at.
     detail : str or sequence of str
         The compounds drawn with the full matplotlib figures (about a second each):
-        ``"top:N"`` (the N best ranked; default ``"top:5"``), ``"flagged"``, ``"all"``,
+        ``"top:N"`` (the N best ranked; default ``"top:3"``), ``"flagged"``, ``"all"``,
         ``"none"``, compound IDs, or several of these (their union); see
         :func:`select_detail`.
     quiet : bool
