@@ -869,7 +869,7 @@ def _report_arguments(parser):
     parser.add_argument("--detail", action="append", metavar="WHICH",
                         help="compounds drawn with the full figures (about a second each; "
                              "every compound gets tables and small sketches): top:N (the N "
-                             "best ranked; default top:3), flagged, all, none, or a "
+                             "best ranked; default top:5), flagged, all, none, or a "
                              "compound ID; repeatable, the union is drawn")
     _fit_arguments(parser, output="the HTML report (.html)")
     _rate_column_argument(parser)

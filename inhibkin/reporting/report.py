@@ -9,7 +9,7 @@ text, never run.
 The report scales with the campaign: every compound gets its tables and small SVG
 sketches drawn from the fit's numbers (:mod:`inhibkin.display.sketch`, milliseconds each); the
 full matplotlib figures (base64 PNG, about a second each) are drawn only for the
-compounds chosen by ``detail`` (the three best ranked by default, see
+compounds chosen by ``detail`` (the five best ranked by default, see
 :func:`select_detail`). Nothing is refitted: intervals are the campaign's own.
 
 :func:`fit_html`, :func:`dose_response_html` and :func:`campaign_html`, the compact
@@ -67,10 +67,10 @@ _TD_CURVE_POINTS = 30
 # Dose-response sketches in the report's gallery (the most potent first); the table lists all.
 _MAX_POTENCY_FIGURES = 24
 #: Compounds drawn with the full matplotlib figures unless ``detail`` says otherwise: the
-#: three best ranked, the ones a reader checks first (each costs about a second, against
+#: five best ranked, the ones a reader checks first (each costs about a second, against
 #: milliseconds for a sketched compound: `make bench` prints the report's cost with the
-#: three and with the five best in full; flagged compounds and IDs are one option away).
-DEFAULT_DETAIL = "top:3"
+#: five and with the three best in full; flagged compounds and IDs are one option away).
+DEFAULT_DETAIL = "top:5"
 # The rules ``detail`` understands besides compound IDs and ``top:N``.
 _DETAIL_RULES = ("all", "none", "flagged")
 
@@ -524,7 +524,7 @@ def report(campaign, path, *, potency=None, rates=None, time_dependent=None,
         not the size they are shown at.
     detail : str or sequence of str
         The compounds drawn with the full matplotlib figures (about a second each):
-        ``"top:N"`` (the N best ranked; default ``"top:3"``), ``"flagged"``, ``"all"``,
+        ``"top:N"`` (the N best ranked; default ``"top:5"``), ``"flagged"``, ``"all"``,
         ``"none"``, compound IDs, or several of these (their union); see
         :func:`select_detail`.
     quiet : bool
