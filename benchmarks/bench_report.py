@@ -48,8 +48,11 @@ def main(smoke: bool = False) -> str:
     """Seconds and bytes of the report beside the ranking of the same campaign."""
     n = _SMOKE if smoke else _FULL
     grid, _ = simulate_campaign(n, seed=_SEED, cv=_CV)
-    rank_s, rank_cpu, campaign = _timed(fit_campaign, grid, intervals="wald", engine="batched",
-                              quiet=True)
+
+    def ranked():
+        return fit_campaign(grid, intervals="wald", engine="batched", quiet=True)
+
+    rank_s, rank_cpu, campaign = _timed(ranked)
     first = campaign.ranking["compound"].head(_IN_FULL)
     small = type(campaign)(ranking=campaign.ranking.head(_IN_FULL),
                            fits={c: campaign.fits[c] for c in first if c in campaign.fits},
@@ -66,11 +69,16 @@ def main(smoke: bool = False) -> str:
                                     ("top:3 in full", campaign, "top:3"),
                                     ("every compound in full", small, "all")):
             path = Path(folder) / "report.html"
+            if which is not small:
+                # A campaign's per-compound fits are built on first read and kept: each
+                # report gets a freshly ranked campaign, as `inhibkin report` would, so
+                # that it pays for building them (the ranking is the same every time).
+                which = ranked()
             seconds, cpu, _ = _timed(report, which, path, detail=detail)
             count = len(which.ranking)
             per_compound[detail] = cpu / count
             ratio = (f"{(rank_s + seconds) / rank_s:.2f}x wall, "
-                     f"{(rank_cpu + cpu) / rank_cpu:.2f}x CPU" if which is campaign else "-")
+                     f"{(rank_cpu + cpu) / rank_cpu:.2f}x CPU" if which is not small else "-")
             lines.append(f"{name:<28}{count:>10}{seconds:>8.2f}{cpu:>8.2f}{ratio:>28}"
                          f"{path.stat().st_size / count / 1e3:>13.1f}")
     lines.append(f"CPU per compound: sketched {1e3 * per_compound['none']:.1f} ms, in full "
