@@ -330,11 +330,18 @@ class MechanismBatch:
 _LACK_COLUMNS = pd.DataFrame(columns=["compound", "model", "method", "statistic", "p_value"])
 
 
+@functools.lru_cache(maxsize=256)
+def _labels(names: tuple, name: str) -> pd.Index:
+    """One Index per tuple of labels, shared by every compound's table (an Index is
+    immutable; building a string Index costs about as much as the table's numbers)."""
+    return pd.Index(names, name=name)
+
+
 def _model_fit(m: ModelBatch, c, s, i, v, level) -> ModelFit:
     """The ModelFit of compound ``c`` from the arrays (what fit_model would return)."""
     params = pd.DataFrame({"estimate": m.estimate[c], "se": m.se[c], "ci_low": m.ci_low[c],
                            "ci_high": m.ci_high[c], "determined": m.determined[c]},
-                          index=pd.Index(m.names, name="parameter"))
+                          index=_labels(tuple(m.names), "parameter"))
     k = MODELS[m.model].n_params
     n = len(v)
     if m.converged[c]:
@@ -368,7 +375,7 @@ def _comparison_frame(models, c) -> pd.DataFrame:
         "n_params": [models[n].n_params for n in names],
         "ssr": column("ssr"), "aic": column("aic"), "aicc": aicc, "bic": column("bic"),
         "delta_aicc": delta, "akaike_weight": weight, "converged": conv,
-    }, index=pd.Index(names, name="model"))
+    }, index=_labels(tuple(names), "model"))
 
 
 def _ftest_frame(models, p_values, c) -> pd.DataFrame:
