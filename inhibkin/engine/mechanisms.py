@@ -53,6 +53,7 @@ from ..core.models import (
     nested_start,
 )
 from ..core.options import FitOptions
+from ..core.readonly import ReadOnlyFrame
 from ..core.starts import extra_start
 from ..core.weighting import (
     DEFAULT_WEIGHTING,
@@ -309,19 +310,31 @@ class MechanismBatch:
         return [self.mechanism_fit(c, None if data_index is None else data_index[c])
                 for c in range(len(self))]
 
+    @functools.cached_property
+    def _lack_of_fit_split(self):
+        """The lack-of-fit table without its compound column, the row order that groups
+        it by compound and each compound's edges in that order (split once: a campaign
+        builds its compounds' fits one at a time, and filtering the whole table for each
+        cost more than the rest of the fit)."""
+        lack = _LACK_COLUMNS if self.lack_of_fit is None else self.lack_of_fit
+        compound = lack["compound"].to_numpy(dtype=np.int64)
+        order = np.argsort(compound, kind="stable")
+        edges = np.searchsorted(compound[order], np.arange(len(self) + 1))
+        return lack.drop(columns="compound"), order, edges
+
     def mechanism_fit(self, c, labels=None) -> MechanismFit:
         """The :class:`~inhibkin.mechanism.fit.MechanismFit` of compound ``c`` (row
         labels of its points ``labels``, default 0..n−1), built from the arrays."""
         keep = self.mask[c]
         s, i, v, w = self.s[c][keep], self.i[c][keep], self.v[c][keep], self.weights[c][keep]
-        lack = _LACK_COLUMNS if self.lack_of_fit is None else self.lack_of_fit
-        lack = lack[lack["compound"] == c].drop(columns="compound").reset_index(drop=True)
+        table, order, edges = self._lack_of_fit_split
+        lack = table.iloc[order[edges[c]:edges[c + 1]]].reset_index(drop=True)
         models = {name: self.models[name] for name in self.shown_models(c, set(lack["model"]))}
         fits = {name: _model_fit(m, c, s, i, v, self.level) for name, m in models.items()}
         comparison = _comparison_frame(models, c)
         ftests = _ftest_frame(models, self.p_values, c)
-        data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},
-                            index=labels)
+        data = ReadOnlyFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},
+                             index=labels)
         return MechanismFit(self.verdict[c], self.best[c], self.candidates[c], self.reason[c],
                             fits, comparison, ftests, data, self.weighting, self.options,
                             lack)
@@ -339,7 +352,9 @@ def _labels(names: tuple, name: str) -> pd.Index:
 
 def _model_fit(m: ModelBatch, c, s, i, v, level) -> ModelFit:
     """The ModelFit of compound ``c`` from the arrays (what fit_model would return)."""
-    params = pd.DataFrame({"estimate": m.estimate[c], "se": m.se[c], "ci_low": m.ci_low[c],
+    # Built read-only (ModelFit keeps it as it is): a second construction per table cost
+    # about as much as the first.
+    params = ReadOnlyFrame({"estimate": m.estimate[c], "se": m.se[c], "ci_low": m.ci_low[c],
                            "ci_high": m.ci_high[c], "determined": m.determined[c]},
                           index=_labels(tuple(m.names), "parameter"))
     k = MODELS[m.model].n_params
@@ -370,7 +385,7 @@ def _comparison_frame(models, c) -> pd.DataFrame:
     finite = np.isfinite(aicc)
     delta = aicc - np.nanmin(aicc) if finite.any() else np.full(len(names), np.nan)
     weight = akaike_weights(aicc)
-    return pd.DataFrame({
+    return ReadOnlyFrame({
         "n_obs": [int(models[n].n_obs[c]) for n in names],
         "n_params": [models[n].n_params for n in names],
         "ssr": column("ssr"), "aic": column("aic"), "aicc": aicc, "bic": column("bic"),
@@ -393,7 +408,7 @@ def _ftest_frame(models, p_values, c) -> pd.DataFrame:
                      "df_num": b.n_params - k_small, "df_den": n - b.n_params,
                      "p_value": float(p_value[c]),
                      "free_alpha": _free_alpha(b.theta[c], large) if held else np.nan})
-    return pd.DataFrame(rows, columns=F_TEST_COLUMNS)
+    return ReadOnlyFrame(rows, columns=F_TEST_COLUMNS)
 
 
 def _free_alpha(theta, law) -> float:
