@@ -35,6 +35,8 @@ _FULL = {"curves": 100_000, "grids": 10_000, "curve_fit_subset": 2_000, "lmfit_c
          "lmfit_grid_subset": 150, "agreement": 1_000}
 _SMOKE = {"curves": 300, "grids": 12, "curve_fit_subset": 30, "lmfit_curve_subset": 10,
           "lmfit_grid_subset": 4, "agreement": 0}
+#: Runs of each side of the 4PL ratio; the best is kept.
+_SHORT_REPEATS = 3
 # Targets of issue 7.
 _TARGET_4PL_RATIO = 50.0
 _TARGET_4PL_SECONDS = 10.0
@@ -75,10 +77,16 @@ def _grids(n, rng):
     return s, i, v, [MODEL_NAMES[k] for k in kind]
 
 
-def _timed(job):
-    start = time.perf_counter()
-    out = job()
-    return time.perf_counter() - start, out
+def _timed(job, repeats=1):
+    """(seconds, result) of ``job``: the best of ``repeats`` runs (a run of under a
+    second is at the mercy of whatever else the machine does; the best is the least
+    disturbed, common practice for timing)."""
+    best = np.inf
+    for _ in range(repeats):
+        start = time.perf_counter()
+        out = job()
+        best = min(best, time.perf_counter() - start)
+    return best, out
 
 
 def _peak_bytes(job):
@@ -181,11 +189,12 @@ def main(smoke: bool = False) -> str:
 
     x, y = _curves(size["curves"], rng)
     n = size["curves"]
-    t_engine, fit = _timed(lambda: fit_logistic_batch(x, y))
+    # The two sides of the 4PL ratio each take under a second: best of three, both.
+    t_engine, fit = _timed(lambda: fit_logistic_batch(x, y), _SHORT_REPEATS)
     t_loose, _ = _timed(lambda: fit_logistic_batch(x, y, ftol=_CURVE_FIT_TOL,
-                                                    xtol=_CURVE_FIT_TOL))
+                                                    xtol=_CURVE_FIT_TOL), _SHORT_REPEATS)
     sub = size["curve_fit_subset"]
-    t_cf, _ = _timed(lambda: _curve_fit_loop(x[:sub], y[:sub]))
+    t_cf, _ = _timed(lambda: _curve_fit_loop(x[:sub], y[:sub]), _SHORT_REPEATS)
     sub_lm = size["lmfit_curve_subset"]
     t_lm, _ = _timed(lambda: _lmfit_curve_loop(x[:sub_lm], y[:sub_lm]))
     r_engine, row_engine = _rate_row("engine", n, t_engine)
