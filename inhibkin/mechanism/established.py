@@ -27,6 +27,7 @@ __all__ = ["Established", "established"]
 # Ratios and fractions (alpha = kiu/kic, beta), written without a concentration unit.
 _UNITLESS = ("alpha", "beta")
 
+
 @dataclass(frozen=True)
 class Established:
     """The leading mechanism, its determined constants and the bounds on the others.
@@ -111,5 +112,3 @@ def _limit(row, role) -> Bound | None:
         return Bound("<", high) if math.isfinite(high) and high > 0 else None
     low = float(row["ci_low"])
     return Bound(">", low) if math.isfinite(low) and low > 0 else None
-
-
