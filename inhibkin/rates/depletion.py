@@ -48,9 +48,8 @@ def window_curvature(t, in_window):
     in_window : numpy.ndarray of bool, shape (wells, reads)
         The reads of each well's window.
     """
-    w = in_window.astype(float)
     tt = np.where(in_window, t, 0.0)
-    n = w.sum(axis=1)
+    n = in_window.sum(axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
         centre = tt.sum(axis=1) / n
         d = np.where(in_window, tt - centre[:, None], 0.0)
