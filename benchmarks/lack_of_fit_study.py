@@ -7,8 +7,9 @@ grid in duplicate, turned into initial rates by ``initial_rates`` (default linea
 windows) and fitted by the batched engine (default weighting: rate_se + variance model)
 with rule 5 off (``lack_of_fit_alpha=0``) and the rates stage's flags dropped (before),
 and with both (the default 0.01 and the flags as ``initial_rates`` sets them, after). For
-tight binding the "after" run is made twice: without [E] and with [E] given
-(``enzyme=``); for product inhibition three times more: from initial slopes
+tight binding the "after" run is made three times: without [E], with [E] given
+(``enzyme=``, held) and with [E] given and fitted from it (``fit_enzyme=True``); for
+product inhibition three times more: from initial slopes
 (``initial_rates(method="curve")``) and from integrated rates (``method="integrated"``),
 the rates stage's remedies, from the first 300 s of the reads only (half the
 product formed in the window: the assay's remedy), and by the whole-curve fit with the
@@ -92,7 +93,8 @@ REGIMES = {
     "tight binding, [E] = 5 Ki (competitive)": Regime(
         Mechanism(kic=0.01, enzyme=0.05, kcat=KCAT_TIGHT, k_1=1000.0 - KCAT_TIGHT),
         "competitive, tight binding", {"ki": 0.01},
-        inhibitor=TIGHT_INHIBITOR, runs=("before", "after", "after, [E] given")),
+        inhibitor=TIGHT_INHIBITOR,
+        runs=("before", "after", "after, [E] given", "after, [E] given and fitted")),
     "substrate inhibition, Ksi = 3 Km (competitive)": Regime(
         Mechanism(kic=1.0, ksi=30.0), "competitive with substrate inhibition", {"ki": 1.0}),
     "partial, beta = 0.3 (noncompetitive)": Regime(
@@ -193,8 +195,10 @@ def run(regime: Regime, run_name: str, seeds) -> pd.Series:
         options = {"lack_of_fit_alpha": 0.0} if run_name == "before" else {}
         if run_name == "before":
             tables = [table.drop(columns="flags") for table in tables]
-        if run_name == "after, [E] given":
+        if run_name.startswith("after, [E] given"):
             options["enzyme"] = f"{regime.mechanism.enzyme * 1e3:g}nM"
+            # The same information as the held run's; the fit starts from it.
+            options["fit_enzyme"] = run_name.endswith("fitted")
         fits = fit_mechanisms_batch(tables, substrate="substrate_uM",
                                     inhibitor="inhibitor_uM", **options)
     classes = pd.Series([classify(f, regime) for f in fits])

@@ -308,12 +308,14 @@ def _both_plain(data, **options):
 FITTED_START = "100nM"
 
 
-@pytest.mark.parametrize("seed", [0, 1, 2])
-def test_tight_binding_plates_with_enzyme_fitted_hold_the_truth(ode_plates, seed):
+@pytest.mark.parametrize("plate_index", [0, 1, 2])  # seeds 0, 1, 5 of the fixture
+def test_tight_binding_plates_with_enzyme_fitted_hold_the_truth(ode_plates, plate_index):
     # ODE plates (mass action, 3 % read noise) through initial_rates: with [E] fitted
     # from a start 2x off, its interval holds the chemistry's 50 nM and Ki is within 2x of
-    # its 10 nM (the issue's own bar), on both solvers.
-    for fit in _both(ode_plates["tight"][seed], enzyme=FITTED_START, fit_enzyme=True):
+    # its 10 nM (the issue's own bar), on both solvers. Measured: [E] 57, 38, 37 nM, kic
+    # 9.9, 10.9, 11.1 nM, the same from a start of 25 nM.
+    for fit in _both(ode_plates["tight"][plate_index], enzyme=FITTED_START,
+                     fit_enzyme=True):
         assert fit.verdict == "competitive, tight binding", fit.reason
         assert "[E] fitted" in fit.reason
         params = fit.best_fit.params
