@@ -38,14 +38,15 @@ The verdict follows the nesting of the models (see :func:`decide`):
    family is named when mixed's form of it beats mixed by the nested F-test and its
    verdict's model passes the lack-of-fit test (the lowest AICc among those that do).
    Otherwise the verdict is ``inadequate``, naming the residuals' pattern, and no
-   constant is a result. With the active enzyme
-   concentration given, a classical constant within ``TIGHT_BINDING_FACTOR`` (10) × [E]
-   sends the grid to its tight-binding laws ([E] held) whatever the lack-of-fit test
-   says. The general law of every family (with [E] fitted when it is not given) is
-   fitted for every inhibited grid: one that beats mixed at ``probe_alpha`` (0.001; the
-   tight-binding law with [E] fitted at ``alpha`` when the classical constant is below
-   the lowest non-zero inhibitor level) sends the grid to that family too, and makes the
-   verdict ``ambiguous`` when no law of it fits.
+   constant is a result. With the active enzyme concentration given, a classical
+   constant within ``TIGHT_BINDING_FACTOR`` (10) × [E] sends the grid to its
+   tight-binding laws ([E] held; with ``fit_enzyme``, fitted from the given value, and
+   the family then also passes by its F-test against mixed) whatever the lack-of-fit
+   test says. The general law of every family (with [E] fitted when it is not given)
+   is fitted for every inhibited grid: one that beats mixed at ``probe_alpha`` (0.001;
+   the tight-binding law with [E] fitted at ``alpha`` when the classical constant is
+   below the lowest non-zero inhibitor level) sends the grid to that family too, and
+   makes the verdict ``ambiguous`` when no law of it fits.
 6. *Were the rates steady-state rates at all?* When the rates stage flagged inhibited
    wells ``time_dependent`` (their progress curves bend beyond substrate depletion:
    :mod:`inhibkin.rates.time_dependence`), every rate law above is the wrong model and
