@@ -200,7 +200,9 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         z_prime_threshold=options.z_prime_threshold)
     grid_e = None if grid is None else grid_enzyme(enzyme, grid.table)
     if grid is not None:
-        check_fit_enzyme(options.fit.fit_enzyme, grid_e, "grid table")
+        check_fit_enzyme(options.fit.fit_enzyme, grid_e, "grid table",
+                         "enzyme= as a number in M or text with its unit: the grid route "
+                         "reads no per-compound column")
     started = time.perf_counter()
     declared = {}
     grid_rows, grid_fits, grid_refits, grid_engine = {}, {}, 0, ""

@@ -98,7 +98,8 @@ class FitOptions:
         return asdict(self)
 
 
-def check_fit_enzyme(fit_enzyme, enzyme, context=None) -> None:
+def check_fit_enzyme(fit_enzyme, enzyme, context=None,
+                     sources="enzyme=, or a column enzyme_<unit>") -> None:
     """Refuse ``fit_enzyme=True`` without an active enzyme concentration.
 
     Without [E] the tight-binding laws fit it anyway (from the automatic start), so the
@@ -106,12 +107,22 @@ def check_fit_enzyme(fit_enzyme, enzyme, context=None) -> None:
     not (a forgotten ``enzyme=`` or ``enzyme_<unit>`` column), which a silent no-op would
     hide.
 
+    Parameters
+    ----------
+    fit_enzyme : bool
+    enzyme : float or None
+        The [E] found for the fit (None: none).
+    context : str, optional
+        What was being fitted, put in front of the message.
+    sources : str
+        Where the entry reads [E] from, named in the message.
+
     Raises
     ------
     OptionError
         When ``fit_enzyme`` is true and ``enzyme`` is None.
     """
     if fit_enzyme and enzyme is None:
-        raise OptionError("fit_enzyme=True needs the active enzyme concentration "
-                          "(enzyme=, or a column enzyme_<unit>): it is the fit's start; "
-                          "without it [E] is fitted in the tight-binding laws anyway", context)
+        raise OptionError(f"fit_enzyme=True needs the active enzyme concentration "
+                          f"({sources}): it is the fit's start; without it [E] is fitted "
+                          "in the tight-binding laws anyway", context)
