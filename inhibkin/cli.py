@@ -694,22 +694,32 @@ def _enzyme_conc_argument(parser):
                         help="active enzyme concentration of the grid fits, with its unit "
                              "(e.g. 50nM): the tight-binding laws hold [E] there, and a Ki "
                              "within 10 x [E] is fitted in its tight-binding form")
+    parser.add_argument("--fit-enzyme", action="store_true",
+                        help="fit [E] in the tight-binding laws, starting at --enzyme-conc, "
+                             "instead of holding it there (reported with its interval)")
 
 
 def _grid_enzyme(args) -> dict:
-    """enzyme= for fit_campaign from --enzyme-conc (the grid fits' [E]), checked against a
-    dose stage's --enzyme: one campaign has one active enzyme concentration."""
+    """enzyme= (and fit_enzyme=) for fit_campaign from --enzyme-conc (the grid fits' [E])
+    and --fit-enzyme, checked against a dose stage's --enzyme: one campaign has one
+    active enzyme concentration. --fit-enzyme needs an [E] to start from."""
+    from .errors import OptionError
     from .units import parse_concentration
 
     text = getattr(args, "enzyme_conc", None)
+    fit = {"fit_enzyme": True} if getattr(args, "fit_enzyme", False) else {}
+    if fit and text is None and not isinstance(_km(getattr(args, "enzyme", None)), float):
+        raise OptionError(Problem("--fit-enzyme", None, None,
+                                  "needs the active enzyme concentration to start from: "
+                                  "give --enzyme-conc (e.g. 50nM)"))
     if text is None:
-        return {}
+        return fit
     value = parse_concentration(text)
     other = _km(getattr(args, "enzyme", None))
     if other is not None and other != value:
         raise DataError(Problem("--enzyme-conc", None, text,
                                 f"differs from --enzyme {args.enzyme}: give one of them"))
-    return {"enzyme": value}
+    return {"enzyme": value, **fit}
 
 
 def _rate_column_argument(parser):

@@ -36,6 +36,7 @@ BAD = [
     (dict(min_delta_aicc=-1), r"min_delta_aicc must be a number in \[0, inf\)"),
     (dict(determination_factor=0.5), r"determination_factor must be a number in \[1, inf\)"),
     (dict(edge_sides=3), r"edge_sides must be 1 \(one-sided\) or 2 \(two-sided\), not 3"),
+    (dict(fit_enzyme="yes"), "fit_enzyme must be True or False, got 'yes'"),
 ]
 
 

@@ -15,6 +15,7 @@ import time
 from functools import partial
 
 from ..core.compare import EDGE_SIDES
+from ..core.options import check_fit_enzyme
 from ..errors import DataError
 from ..mechanism.fit import fit_mechanisms
 from ..units import parse_concentration
@@ -40,7 +41,8 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
                  min_delta_aicc=2.0, determination_factor=10.0, potency_options=None,
                  heavy_atoms="heavy_atoms", logp="logp", engine="auto", workers=None,
                  client=None, quiet=False, chunk_size=None,
-                 keep_fits=True, time_dependent=None, edge_sides=EDGE_SIDES) -> Campaign:
+                 keep_fits=True, time_dependent=None, edge_sides=EDGE_SIDES,
+                 fit_enzyme=False) -> Campaign:
     """Fit every compound of a campaign and rank them by pKi.
 
     Parameters
@@ -72,7 +74,8 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         Active enzyme concentration (a number in M, text with its unit, or a column of the
         dose-response table with a declared unit): enables the dose route's tight-binding
         flag, and a number or text is the [E] of every grid fit (its tight-binding laws
-        hold it; see :func:`~inhibkin.mechanism.fit.fit_mechanisms`).
+        hold it, or fit it from it with ``fit_enzyme``; see
+        :func:`~inhibkin.mechanism.fit.fit_mechanisms`).
     units : dict, optional
         Units declared as an option, e.g. ``{"substrate": "uM", "inhibitor": "nM"}``.
     weighting : {None, "relative", "uniform", "sd", "rate_se"}
@@ -87,6 +90,11 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     level, alpha, min_delta_aicc, determination_factor, edge_sides
         Passed to the grid engine (see :func:`~inhibkin.mechanism.fit.fit_mechanisms`;
         ``edge_sides`` 1 makes rule 4's edge test one-sided, 2 by default).
+    fit_enzyme : bool
+        The grid fits' tight-binding laws fit [E] from the given ``enzyme`` (a number
+        or text: the grid route reads no per-compound column) instead of holding it,
+        on every engine (:func:`~inhibkin.mechanism.fit.fit_mechanisms`). With a grid
+        table and no such [E], an ``OptionError`` before any work.
     potency_options : dict, optional
         Further options of :func:`~inhibkin.potency.table.potency_table` (e.g.
         ``default_mechanism``, ``fix_top``, ``tight_binding``).
@@ -148,8 +156,9 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
     ------
     OptionError
         For an option outside its allowed values (weighting, intervals, level, alpha,
-        min_delta_aicc, determination_factor, edge_sides, potency_options, engine, workers,
-        chunk_size, km missing with a dose-response table), before any work
+        min_delta_aicc, determination_factor, edge_sides, fit_enzyme (also without [E]),
+        potency_options, engine, workers, chunk_size, km missing with a dose-response
+        table), before any work
         (:class:`~inhibkin.campaign.options.CampaignOptions`).
     DataError
         Only for problems of a whole table (not a DataFrame, a column named twice, a
@@ -179,7 +188,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         intervals=intervals, level=level, alpha=alpha, min_delta_aicc=min_delta_aicc,
         determination_factor=determination_factor, potency_options=potency_options,
         engine=engine, workers=workers, client=client, chunk_size=chunk_size, quiet=quiet,
-        keep_fits=keep_fits, edge_sides=edge_sides)
+        keep_fits=keep_fits, edge_sides=edge_sides, fit_enzyme=fit_enzyme)
     table, dose_response = unique_index(table), unique_index(dose_response)
     # Both tables are checked as wholes before the first fit.
     grid = None if table is None else prepare_grid(
@@ -189,6 +198,11 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         dose_response, compound=compound, inhibitor=inhibitor, substrate=substrate,
         plate=plate, role=role, response=response, km=km, enzyme=enzyme, units=units,
         z_prime_threshold=options.z_prime_threshold)
+    grid_e = None if grid is None else grid_enzyme(enzyme, grid.table)
+    if grid is not None:
+        check_fit_enzyme(options.fit.fit_enzyme, grid_e, "grid table",
+                         "enzyme= as a number in M or text with its unit: the grid route "
+                         "reads no per-compound column")
     started = time.perf_counter()
     declared = {}
     grid_rows, grid_fits, grid_refits, grid_engine = {}, {}, 0, ""
@@ -196,7 +210,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         declared.update({f"grid {substrate}": grid.substrate_unit,
                          f"grid {inhibitor}": grid.inhibitor_unit})
         grid_rows, grid_fits, grid_refits, grid_engine = _fit_grids(
-            grid, compound, rate, options, grid_enzyme(enzyme, grid.table))
+            grid, compound, rate, options, grid_e)
     dose_rows, potency_fits, dose_refits, dose_engine = {}, {}, 0, ""
     plates = plates_frame(None)
     if dose is not None:
@@ -223,7 +237,7 @@ def fit_campaign(table=None, *, dose_response=None, compound="compound",
         "level": fit_options.level, "alpha": fit_options.alpha,
         "min_delta_aicc": fit_options.min_delta_aicc,
         "determination_factor": fit_options.determination_factor,
-        "edge_sides": fit_options.edge_sides,
+        "edge_sides": fit_options.edge_sides, "fit_enzyme": fit_options.fit_enzyme,
         "z_prime_threshold": options.z_prime_threshold,
         "engine": options.engine_label(),
         "grid_engine": grid_engine, "dose_engine": dose_engine,

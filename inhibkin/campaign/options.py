@@ -127,7 +127,7 @@ class CampaignOptions:
               intervals="wald", level=0.95, alpha=0.05, min_delta_aicc=2.0,
               determination_factor=10.0, potency_options=None, engine="auto",
               workers=None, client=None, chunk_size=None, quiet=False,
-              keep_fits=True, edge_sides=EDGE_SIDES) -> CampaignOptions:
+              keep_fits=True, edge_sides=EDGE_SIDES, fit_enzyme=False) -> CampaignOptions:
         """The checked options of one ``fit_campaign`` call.
 
         ``grid_columns`` (the grid table's headers) settles the default weighting;
@@ -151,7 +151,8 @@ class CampaignOptions:
         weighting, sd = resolve_weighting(weighting, grid_columns, sd)
         fit = FitOptions(weighting=weighting, intervals=intervals, level=level, alpha=alpha,
                          min_delta_aicc=min_delta_aicc,
-                         determination_factor=determination_factor, edge_sides=edge_sides)
+                         determination_factor=determination_factor, edge_sides=edge_sides,
+                         fit_enzyme=fit_enzyme)
         potency = _potency_options(potency_options)
         return cls(fit=fit, sd=sd if weighting in SD_WEIGHTINGS else None, engine=engine,
                    potency=potency,

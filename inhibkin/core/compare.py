@@ -38,14 +38,15 @@ The verdict follows the nesting of the models (see :func:`decide`):
    family is named when mixed's form of it beats mixed by the nested F-test and its
    verdict's model passes the lack-of-fit test (the lowest AICc among those that do).
    Otherwise the verdict is ``inadequate``, naming the residuals' pattern, and no
-   constant is a result. With the active enzyme
-   concentration given, a classical constant within ``TIGHT_BINDING_FACTOR`` (10) × [E]
-   sends the grid to its tight-binding laws ([E] held) whatever the lack-of-fit test
-   says. The general law of every family (with [E] fitted when it is not given) is
-   fitted for every inhibited grid: one that beats mixed at ``probe_alpha`` (0.001; the
-   tight-binding law with [E] fitted at ``alpha`` when the classical constant is below
-   the lowest non-zero inhibitor level) sends the grid to that family too, and makes the
-   verdict ``ambiguous`` when no law of it fits.
+   constant is a result. With the active enzyme concentration given, a classical
+   constant within ``TIGHT_BINDING_FACTOR`` (10) × [E] sends the grid to its
+   tight-binding laws ([E] held; with ``fit_enzyme``, fitted from the given value, and
+   the family then also passes by its F-test against mixed) whatever the lack-of-fit
+   test says. The general law of every family (with [E] fitted when it is not given)
+   is fitted for every inhibited grid: one that beats mixed at ``probe_alpha`` (0.001;
+   the tight-binding law with [E] fitted at ``alpha`` when the classical constant is
+   below the lowest non-zero inhibitor level) sends the grid to that family too, and
+   makes the verdict ``ambiguous`` when no law of it fits.
 6. *Were the rates steady-state rates at all?* When the rates stage flagged inhibited
    wells ``time_dependent`` (their progress curves bend beyond substrate depletion:
    :mod:`inhibkin.rates.time_dependence`), every rate law above is the wrong model and
@@ -565,7 +566,8 @@ def _family_verdict(family, *, p_value, converged, aicc, options, free_alpha):
     return out, ext
 
 
-def extension_signs(gains, tight_constant, lowest_inhibitor, options, enzyme=None):
+def extension_signs(gains, tight_constant, lowest_inhibitor, options, enzyme=None,
+                    fit_enzyme=False):
     """The families whose general law the data ask for, without a lack-of-fit failure.
 
     Parameters
@@ -579,6 +581,9 @@ def extension_signs(gains, tight_constant, lowest_inhibitor, options, enzyme=Non
     enzyme : float, optional
         [E] when given (the tight-binding law then adds no constant, so it has no test;
         :data:`TIGHT_BINDING_FACTOR` decides instead).
+    fit_enzyme : bool
+        [E] given but fitted (from it): the tight-binding law adds [E], and its gain
+        counts at ``options.probe_alpha`` as every family's does.
 
     Returns
     -------
@@ -588,8 +593,9 @@ def extension_signs(gains, tight_constant, lowest_inhibitor, options, enzyme=Non
         classical constant lies below :data:`TIGHT_BINDING_LOWEST_FACTOR` × the lowest
         non-zero inhibitor level.
     """
+    held = enzyme is not None and not fit_enzyme
     out = [name for name, p in gains.items()
-           if p < options.probe_alpha and not (name == "tight_binding" and enzyme is not None)]
+           if p < options.probe_alpha and not (name == "tight_binding" and held)]
     if (enzyme is None and "tight_binding" not in out
             and tight_constant < TIGHT_BINDING_LOWEST_FACTOR * lowest_inhibitor
             and gains.get("tight_binding", np.nan) < options.alpha):
@@ -597,10 +603,23 @@ def extension_signs(gains, tight_constant, lowest_inhibitor, options, enzyme=Non
     return tuple(out)
 
 
+def enzyme_words(fitted) -> str:
+    """A fitted [E] in words: ``[E] = 48.2 [35.1, 66.0]``, or its upper limit when not
+    determined (``[E] < 81.2 not excluded``: its classical limit is zero)."""
+    if fitted is None:
+        return "[E] not fitted"
+    estimate, low, high, determined = fitted
+    if determined:
+        return f"[E] = {estimate:.3g} [{low:.3g}, {high:.3g}]"
+    if np.isfinite(high) and high > 0:
+        return f"[E] < {high:.3g} not excluded"
+    return "[E] not determined"
+
+
 def decide_extended(classical: Verdict, *, lack_of_fit_p, pattern, p_value, converged, aicc,
                     extended_lack_of_fit_p, options: VerdictOptions, enzyme=None,
-                    tight_constant=np.nan, lowest_inhibitor=np.nan,
-                    free_alpha=lambda law: np.nan) -> Verdict:
+                    fit_enzyme=False, tight_constant=np.nan, lowest_inhibitor=np.nan,
+                    free_alpha=lambda law: np.nan, fitted_enzyme=lambda law: None) -> Verdict:
     """Rule 5: keep the classical verdict, name an extended law, or say ``inadequate``.
 
     Parameters
@@ -620,12 +639,21 @@ def decide_extended(classical: Verdict, *, lack_of_fit_p, pattern, p_value, conv
     enzyme : float, optional
         The active enzyme concentration given (inhibitor's unit): the tight-binding laws
         were fitted with [E] held there, and :data:`TIGHT_BINDING_FACTOR` applies.
+    fit_enzyme : bool
+        The tight-binding laws fitted [E] from the given ``enzyme``: the family then
+        passes by its F-test against mixed, as the others do, or by the 10 × [E] rule
+        (on the given [E]) alone; the reason says [E] was fitted.
     tight_constant : float
         The classical verdict's tightest inhibition constant (NaN for none).
     lowest_inhibitor : float
         The lowest non-zero inhibitor level.
     free_alpha : callable
         As :func:`decide_from`, for each family's general law (NaN where not fitted).
+    fitted_enzyme : callable
+        ``fitted_enzyme(law) -> (estimate, ci_low, ci_high, determined)``, a
+        tight-binding law's fitted [E] (None where not fitted), for the reason's words
+        with ``fit_enzyme``: its value and interval, or its upper limit when the data
+        do not determine it.
 
     Notes
     -----
@@ -657,9 +685,11 @@ def decide_extended(classical: Verdict, *, lack_of_fit_p, pattern, p_value, conv
     passing = []
     for family in FAMILIES.values():
         general = extension_of("mixed", family.name)
-        held = family.name == "tight_binding" and enzyme is not None
+        given = family.name == "tight_binding" and enzyme is not None
+        held = given and not fit_enzyme
         p_general = gains[family.name]
-        if not converged(general) or not (held or p_general < options.alpha):
+        if not converged(general) or not (held or (given and tight)
+                                          or p_general < options.alpha):
             continue
         out, ext = _family_verdict(family.name, p_value=p_value, converged=converged,
                                    aicc=aicc, options=options, free_alpha=free_alpha)
@@ -669,9 +699,14 @@ def decide_extended(classical: Verdict, *, lack_of_fit_p, pattern, p_value, conv
         p_best = extended_lack_of_fit_p(best)
         if p_best < level:
             continue
-        needed = (f"[E] = {enzyme:.3g} is given" if held else
-                  f"{family.parameter} is needed (F-test of mixed against {general} "
-                  f"p = {p_general:.3g})")
+        test = f"F-test of mixed against {general} p = {p_general:.3g}"
+        if held:
+            needed = f"[E] = {enzyme:.3g} is given"
+        elif given:
+            needed = (f"[E] fitted, started at the given {enzyme:.3g} "
+                      f"({enzyme_words(fitted_enzyme(best))}; {test})")
+        else:
+            needed = f"{family.parameter} is needed ({test})"
         why = f"{lof}; {needed} and {best} passes (p = {p_best:.3g})"
         if out.verdict == "ambiguous":
             names = tuple(ext.get(m, m) for m in out.candidates)

@@ -52,7 +52,7 @@ from ..core.models import (
     nested_pairs,
     nested_start,
 )
-from ..core.options import FitOptions
+from ..core.options import FitOptions, check_fit_enzyme
 from ..core.readonly import ReadOnlyFrame
 from ..core.starts import extra_start
 from ..core.weighting import (
@@ -487,8 +487,9 @@ def _solve_model(name, s, i, v, mask, w, rows, theta0, lower, upper, max_iterati
                     free=free)
 
 
-def _empty_model(name, b, n_obs, enzyme=None):
-    """Empty result arrays of ``name``; a given [E] is not counted among its parameters."""
+def _empty_model(name, b, n_obs, enzyme=None, fit_enzyme=False):
+    """Empty result arrays of ``name``; a given [E] is not counted among its parameters
+    (unless ``fit_enzyme``)."""
     law = MODELS[name]
     names = law.column_names
     k, m = law.n_params, len(names)
@@ -498,7 +499,7 @@ def _empty_model(name, b, n_obs, enzyme=None):
                 theta=np.full((b, k), np.nan), log_covariance=np.full((b, k, k), np.nan),
                 ssr=np.full(b, np.nan), loglik=np.full(b, np.nan), aic=np.full(b, np.nan),
                 aicc=np.full(b, np.nan), bic=np.full(b, np.nan), n_obs=n_obs.copy(),
-                n_params=k - (enzyme is not None and "enzyme" in law.roles),
+                n_params=k - (enzyme is not None and not fit_enzyme and "enzyme" in law.roles),
                 converged=np.zeros(b, bool),
                 status=np.zeros(b, np.int8), reason=np.full(b, "not fitted", dtype=object),
                 iterations=np.zeros(b, np.int64), fallback=np.zeros(b, bool))
@@ -655,14 +656,15 @@ def _verdicts(models, p_values, valid, invalid_reason, options):
 
 
 def _fixed_alpha_tests(out, s, i, v, mask, w, rows, far, exact_ssr, options,
-                       max_iterations, fallback, model="mixed", enzyme=None):
+                       max_iterations, fallback, model="mixed", enzyme=None, fit_enzyme=False):
     """F-tests of mixed (or a family's general law, ``model``) with alpha held at each
     edge against the same law free, for every compound of ``rows``: the lmfit path's
     fixed-alpha tests (:func:`inhibkin.mechanism.one_model.fixed_alpha_ssr`) over the
     same starts (the law's solution, then each nested law's of its family), the best
     successful SSR winning. With ``fallback``, a compound none of whose starts converged
     is refitted by the lmfit path from the same starts. With ``enzyme`` (shape (B,)), a
-    tight-binding law's [E] is held at it. NaN for compounds outside ``rows``."""
+    tight-binding law's [E] is held at it (fitted with ``fit_enzyme``). NaN for
+    compounds outside ``rows``."""
     general = out[model]
     law = MODELS[model]
     kiu = law.param_names.index("kiu")
@@ -684,7 +686,7 @@ def _fixed_alpha_tests(out, s, i, v, mask, w, rows, far, exact_ssr, options,
             if not ok.any():
                 continue
             use = sub[ok]
-            lower, upper, free, _ = _bounds(model, s, i, v, mask, use, enzyme)
+            lower, upper, free, _ = _bounds(model, s, i, v, mask, use, enzyme, fit_enzyme)
             lower, upper = np.delete(lower, kiu, axis=1), np.delete(upper, kiu, axis=1)
             free = None if free is None else np.delete(free, kiu, axis=1)
             theta0 = np.clip(start[ok], lower + _START_MARGIN, upper - _START_MARGIN)
@@ -702,7 +704,7 @@ def _fixed_alpha_tests(out, s, i, v, mask, w, rows, far, exact_ssr, options,
                 held = [{**x, "kiu": value * x["kic"]} for x in held]
                 given = None if enzyme is None else float(enzyme[c])
                 best_ssr[c] = fixed_alpha_ssr(s[c, keep], i[c, keep], v[c, keep], w[c, keep],
-                                              value, held, model, given)
+                                              value, held, model, given, fit_enzyme)
         tests[(options.alpha_row(value, model), model)] = _f_test_arrays(
             best_ssr, np.isfinite(best_ssr), general["n_params"] - 1, general, exact_ssr)
     return tests
@@ -728,7 +730,8 @@ def _nested_start(out, name, rows, far, large="mixed"):
 
 def _fit_chunk(s, i, v, mask, sd, enzyme=None, *, weighting, models, alpha, min_delta_aicc,
                alpha_factor, level, determination_factor, fallback, max_iterations,
-               lack_of_fit_alpha=LACK_OF_FIT_ALPHA, edge_sides=EDGE_SIDES) -> MechanismBatch:
+               lack_of_fit_alpha=LACK_OF_FIT_ALPHA, edge_sides=EDGE_SIDES,
+               fit_enzyme=False) -> MechanismBatch:
     """Fit one chunk of compounds (the unit of work sent to a worker)."""
     b = s.shape[0]
     need_inhibition = any(m != "none" for m in models)
@@ -753,8 +756,8 @@ def _fit_chunk(s, i, v, mask, sd, enzyme=None, *, weighting, models, alpha, min_
         sum_log_w = np.sum(np.where(mask, np.log(np.where(mask, w, 1.0)), 0.0), axis=1)
     out: dict[str, dict] = {}
     for name in models:
-        res = _empty_model(name, b, n_obs, enzyme)
-        lower, upper, free, held = _bounds(name, s, i, v, mask, rows, enzyme)
+        res = _empty_model(name, b, n_obs, enzyme, fit_enzyme)
+        lower, upper, free, held = _bounds(name, s, i, v, mask, rows, enzyme, fit_enzyme)
         start = np.log(mechanism_starts(name, s[rows], i[rows], v[rows], mask[rows], w[rows],
                                         held))
         result = _solve_model(name, s, i, v, mask, w, rows, start, lower, upper,
@@ -789,7 +792,7 @@ def _fit_chunk(s, i, v, mask, sd, enzyme=None, *, weighting, models, alpha, min_
                                                   options)
     lack = _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w,
                       rows, n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
-                      max_iterations, weighting == "relative", enzyme, fallback)
+                      max_iterations, weighting == "relative", enzyme, fallback, fit_enzyme)
     for c in np.flatnonzero(~valid):
         for res in out.values():
             res["reason"][c] = f"not fitted: {invalid_reason[c]}"
@@ -822,30 +825,34 @@ def _lack_rows(res, rows, s, i, v, mask, w, exact_ssr, relative):
                          "statistic": statistic, "p_value": p_value})
 
 
-def _bounds(name, s, i, v, mask, rows, enzyme=None):
+def _bounds(name, s, i, v, mask, rows, enzyme=None, fit_enzyme=False):
     """Log bounds of ``name`` for the compounds ``rows``, the free mask (None: all free)
-    and the held [E] (None): with ``enzyme`` given, a tight-binding law's [E] is held
-    there, as :func:`inhibkin.mechanism.one_model.fit_model` holds it."""
+    and the given [E] (None), the start's: with ``enzyme`` given, a tight-binding law's
+    [E] is held there, as :func:`inhibkin.mechanism.one_model.fit_model` holds it, or
+    only starts there with ``fit_enzyme``."""
     law = MODELS[name]
     lower, upper = mechanism_log_bounds(name, s[rows], i[rows], v[rows], mask[rows])
     if enzyme is None or "enzyme" not in law.roles:
         return lower, upper, None, None
     j = law.roles.index("enzyme")
     held = enzyme[rows]
+    if fit_enzyme:
+        return lower, upper, None, held
     lower[:, j] = upper[:, j] = np.log(held)
     free = np.ones(lower.shape, bool)
     free[:, j] = False
     return lower, upper, free, held
 
 
-def _solve_extended(name, out, s, i, v, mask, w, rows, max_iterations, enzyme=None):
+def _solve_extended(name, out, s, i, v, mask, w, rows, max_iterations, enzyme=None,
+                    fit_enzyme=False):
     """Extended law ``name`` for the compounds ``rows`` from the starts of
     :func:`inhibkin.mechanism.fit.extended_starts` (automatic; the classical solution with
     the family's constant at its start and at its classical limit; each nested law of
     the family's solution), the best SSR winning. With ``enzyme`` (shape (B,)), a
-    tight-binding law's [E] is held at it."""
+    tight-binding law's [E] is held at it (with ``fit_enzyme``, the automatic start's)."""
     law = MODELS[name]
-    lower, upper, free, held = _bounds(name, s, i, v, mask, rows, enzyme)
+    lower, upper, free, held = _bounds(name, s, i, v, mask, rows, enzyme, fit_enzyme)
     starts = [np.log(mechanism_starts(name, s[rows], i[rows], v[rows], mask[rows], w[rows],
                                       held))]
     classical = out[law.extends]
@@ -895,7 +902,7 @@ def _tight_binding_inputs(out, best, i, mask, rows):
 
 
 def _refit_extended(res, name, rows, s, i, v, mask, w, out, level, determination_factor,
-                    enzyme):
+                    enzyme, fit_enzyme=False):
     """Refit with the lmfit path, from :func:`inhibkin.mechanism.fit.extended_starts`, the
     compounds of ``rows`` whose extended law ``name`` the engine did not converge."""
     for c in rows[~res["converged"][rows]]:
@@ -905,31 +912,35 @@ def _refit_extended(res, name, rows, s, i, v, mask, w, out, level, determination
         fits = {m: _model_fit(ModelBatch(**out[m]), c, sc, ic, vc, level) for m in out}
         fit = fit_model(name, sc, ic, vc, wc, intervals="wald", level=level,
                         determination_factor=determination_factor, enzyme=given,
+                        fit_enzyme=fit_enzyme,
                         starts=extended_starts(name, fits, sc, ic, vc, wc, given))
         _fill_from_lmfit(res, c, fit)
 
 
 def _extension_gains(out, best, s, i, v, mask, w, rows, n_obs, exact_ssr, options, level,
-                     determination_factor, max_iterations, enzyme, fallback=False):
+                     determination_factor, max_iterations, enzyme, fallback=False,
+                     fit_enzyme=False):
     """Per family, the p-values (shape (B,)) of the F-test of mixed against the family's
     general law, for the compounds ``rows`` whose verdict names inhibition (NaN elsewhere,
-    and for tight binding with [E] given): :func:`inhibkin.mechanism.fit.extension_gains`."""
+    and for tight binding with [E] held; with ``fit_enzyme`` its probe starts from the
+    given [E]): :func:`inhibkin.mechanism.fit.extension_gains`."""
     gains = {family: np.full(s.shape[0], np.nan) for family in FAMILIES}
     if options.lack_of_fit_alpha <= 0 or "mixed" not in out:
         return gains
     probe_rows = rows[(best[rows] != "none") & out["mixed"]["converged"][rows]]
     for family in FAMILIES:
-        if not probe_rows.size or (family == "tight_binding" and enzyme is not None):
+        start = enzyme if family == "tight_binding" else None
+        if not probe_rows.size or (start is not None and not fit_enzyme):
             continue
         name = extension_of("mixed", family)
         probe = _empty_model(name, s.shape[0], n_obs)
         result, lower, upper = _solve_extended(name, out, s, i, v, mask, w, probe_rows,
-                                               max_iterations)
+                                               max_iterations, start, True)
         _fill_from_engine(probe, name, probe_rows, result, s, i, mask, lower, upper, level,
                           determination_factor)
         if fallback:
             _refit_extended(probe, name, probe_rows, s, i, v, mask, w, out, level,
-                            determination_factor, enzyme)
+                            determination_factor, start, True)
         # As inhibkin.mechanism.fit.extension_gains: mixed's SSR is no larger than any
         # nested law's, and a gain below the exact-fit scale is rounding.
         lowest = functools.reduce(np.fmin, [np.where(out[n]["converged"], out[n]["ssr"], np.nan)
@@ -943,7 +954,7 @@ def _extension_gains(out, best, s, i, v, mask, w, rows, n_obs, exact_ssr, option
 
 def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, w, rows,
                n_obs, sum_log_w, exact_ssr, options, level, determination_factor,
-               max_iterations, relative, enzyme=None, fallback=False):
+               max_iterations, relative, enzyme=None, fallback=False, fit_enzyme=False):
     """Rule 5 of :mod:`inhibkin.core.compare` for every compound, as
     :func:`inhibkin.mechanism.fit.extended_verdict` applies it to one: the lack-of-fit test
     of the verdict's model; the extended laws of every family fitted (by the engine) for
@@ -963,13 +974,13 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
     given = (lambda c: None) if enzyme is None else (lambda c: float(enzyme[c]))
     gains = _extension_gains(out, best, s, i, v, mask, w, compounds, n_obs, exact_ssr,
                              options, level, determination_factor, max_iterations, enzyme,
-                             fallback)
+                             fallback, fit_enzyme)
     due = np.array([options.lack_of_fit_alpha > 0
                     and (p_tested[c] < options.lack_of_fit_alpha
                          or needs_tight_binding(tight[n], given(c))
                          or (best[c] != "none" and bool(extension_signs(
                              {f: p[c] for f, p in gains.items()}, tight[n], lowest[n],
-                             options, given(c)))))
+                             options, given(c), fit_enzyme))))
                     for n, c in enumerate(compounds)], bool)
     fail = compounds[due]
     for n, c in enumerate(compounds):
@@ -981,7 +992,7 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
             lack_of_fit_p=p_tested[c], pattern="", p_value=lambda a, b: np.nan,
             converged=lambda m: False, aicc=lambda m: np.inf,
             extended_lack_of_fit_p=lambda m: np.nan, options=options, enzyme=given(c),
-            tight_constant=tight[n], lowest_inhibitor=lowest[n])
+            fit_enzyme=fit_enzyme, tight_constant=tight[n], lowest_inhibitor=lowest[n])
         verdict[c], best[c], candidates[c], reason[c] = \
             decided.verdict, decided.best, decided.candidates, decided.reason
     b = s.shape[0]
@@ -989,15 +1000,15 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
     # Every chunk carries every extended law (empty where no compound tried it), so the
     # chunks join key by key.
     for name in order:
-        res = _empty_model(name, b, n_obs, enzyme)
+        res = _empty_model(name, b, n_obs, enzyme, fit_enzyme)
         if fail.size:
             result, lower, upper = _solve_extended(name, out, s, i, v, mask, w, fail,
-                                                   max_iterations, enzyme)
+                                                   max_iterations, enzyme, fit_enzyme)
             _fill_from_engine(res, name, fail, result, s, i, mask, lower, upper, level,
                               determination_factor)
             if fallback:
                 _refit_extended(res, name, fail, s, i, v, mask, w, out, level,
-                                determination_factor, enzyme)
+                                determination_factor, enzyme, fit_enzyme)
             tables.append(_lack_rows(res, fail[res["converged"][fail]], s, i, v, mask, w,
                                      exact_ssr, relative))
         criteria = information_criteria(res["ssr"], n_obs, res["n_params"], sum_log_w)
@@ -1023,7 +1034,7 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
                         :, MODELS[general].param_names.index("kic")]) / NESTED_FAR_FACTOR
             p_values.update(_fixed_alpha_tests(out, s, i, v, mask, w, fail, far, exact_ssr,
                                                options, max_iterations, fallback, general,
-                                               enzyme))
+                                               enzyme, fit_enzyme))
     if not fail.size:
         return tested
     lack = pd.concat(tables, ignore_index=True)
@@ -1046,13 +1057,26 @@ def _rule_five(out, p_values, verdict, best, candidates, reason, s, i, v, mask, 
             converged=lambda name, c=c: name in out and bool(out[name]["converged"][c]),
             aicc=lambda name, c=c: float(out[name]["aicc"][c]),
             extended_lack_of_fit_p=lambda name, c=c: p_lof.get((c, name), np.nan),
-            options=options, enzyme=given(c), tight_constant=tight[position[c]],
+            options=options, enzyme=given(c), fit_enzyme=fit_enzyme,
+            tight_constant=tight[position[c]],
             lowest_inhibitor=lowest[position[c]],
             free_alpha=lambda law, c=c: _free_alpha(out[law]["theta"][c], law)
-            if law in out and bool(out[law]["converged"][c]) else np.nan)
+            if law in out and bool(out[law]["converged"][c]) else np.nan,
+            fitted_enzyme=lambda law, c=c: _fitted_enzyme(out.get(law), c))
         verdict[c], best[c], candidates[c], reason[c] = \
             decided.verdict, decided.best, decided.candidates, decided.reason
     return lack.sort_values(["compound"], kind="stable", ignore_index=True)
+
+
+def _fitted_enzyme(res, c):
+    """(estimate, ci_low, ci_high, determined) of compound ``c``'s [E] in the
+    tight-binding result arrays ``res`` (None when not converged), as
+    :func:`inhibkin.mechanism.fit.extended_verdict` reads it from one fit."""
+    if res is None or not res["converged"][c] or "enzyme" not in res["names"]:
+        return None
+    j = res["names"].index("enzyme")
+    return (float(res["estimate"][c, j]), float(res["ci_low"][c, j]),
+            float(res["ci_high"][c, j]), bool(res["determined"][c, j]))
 
 
 class _Combined:
@@ -1122,7 +1146,7 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
                          level=0.95, determination_factor=DETERMINATION_FACTOR, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None,
                          chunk_size=None, lack_of_fit_alpha=LACK_OF_FIT_ALPHA,
-                         enzyme=None, edge_sides=EDGE_SIDES) -> MechanismBatch:
+                         enzyme=None, edge_sides=EDGE_SIDES, fit_enzyme=False) -> MechanismBatch:
     """Fit every mechanism to every compound of padded arrays and decide between them.
 
     Parameters
@@ -1165,6 +1189,9 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
         (all given, or None): the tight-binding laws hold [E] there.
     edge_sides : {1, 2}
         Rule 4's edge test, as :func:`inhibkin.mechanism.fit.fit_mechanisms`.
+    fit_enzyme : bool
+        With ``enzyme``: the tight-binding laws fit [E] from it, as
+        :func:`inhibkin.mechanism.fit.fit_mechanisms` (``OptionError`` without ``enzyme``).
 
     Returns
     -------
@@ -1175,7 +1202,8 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
     FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
                min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
                determination_factor=determination_factor, lack_of_fit_alpha=lack_of_fit_alpha,
-               edge_sides=edge_sides)
+               edge_sides=edge_sides, fit_enzyme=fit_enzyme)
+    check_fit_enzyme(fit_enzyme, enzyme)
     if weighting in SD_WEIGHTINGS and sd is None:
         raise DataError(f"weighting={weighting!r} needs sd=, the standard deviations (or "
                         "standard errors) of the rates")
@@ -1195,7 +1223,7 @@ def fit_mechanism_arrays(s, i, v, mask=None, *, sd=None, weighting=DEFAULT_WEIGH
                    min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor, level=level,
                    determination_factor=determination_factor, fallback=fallback,
                    max_iterations=max_iterations, lack_of_fit_alpha=lack_of_fit_alpha,
-                   edge_sides=edge_sides)
+                   edge_sides=edge_sides, fit_enzyme=bool(fit_enzyme))
     arrays = (s, i, v, mask, sd, enzyme)
     parts = run_chunks(_fit_chunk, arrays, options, client=client, chunk_size=chunk_size)
     return concat_batches(parts)
@@ -1267,7 +1295,7 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
                          determination_factor=DETERMINATION_FACTOR, fallback=True,
                          max_iterations=lm.MAX_ITERATIONS, client=None, chunk_size=None,
                          lack_of_fit_alpha=LACK_OF_FIT_ALPHA, enzyme=None,
-                         edge_sides=EDGE_SIDES):
+                         edge_sides=EDGE_SIDES, fit_enzyme=False):
     """:func:`inhibkin.mechanism.fit.fit_mechanisms` (Wald intervals) for many compounds at once.
 
     Parameters
@@ -1288,6 +1316,11 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
     enzyme : float or str, optional
         As :func:`~inhibkin.mechanism.fit.fit_mechanisms` (a number, text with its unit, or
         a column; a table's ``enzyme_<unit>`` column is read when it is None).
+    fit_enzyme : bool
+        As :func:`~inhibkin.mechanism.fit.fit_mechanisms`: the tight-binding laws fit [E]
+        from each compound's given value. An ``OptionError`` when no compound has [E];
+        a compound without it (no ``enzyme_<unit>`` column in its table) is fitted as
+        without [E], which fits it anyway.
 
     Returns
     -------
@@ -1309,10 +1342,12 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
     FitOptions(weighting=weighting, intervals="wald", level=level, alpha=alpha,
                min_delta_aicc=min_delta_aicc, alpha_factor=alpha_factor,
                determination_factor=determination_factor, lack_of_fit_alpha=lack_of_fit_alpha,
-               edge_sides=edge_sides)
+               edge_sides=edge_sides, fit_enzyme=fit_enzyme)
     need_inhibition = any(m != "none" for m in models)
     groups, labels, errors, enzymes = _as_groups(items, substrate, inhibitor, rate, sd,
                                                  weighting, need_inhibition, enzyme)
+    given = np.isfinite(enzymes)
+    check_fit_enzyme(fit_enzyme, enzyme if enzyme is not None or given.any() else None)
     if not groups:
         return {} if is_mapping else []
     s, i, v, sdv, mask = pad(groups)
@@ -1322,7 +1357,6 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
     fits = [None] * len(groups)
     # Compounds with [E] given and without it are two batches: a given [E] is held, so
     # their tight-binding laws have one fitted parameter fewer.
-    given = np.isfinite(enzymes)
     for part in (np.flatnonzero(~given), np.flatnonzero(given)):
         if not part.size:
             continue
@@ -1333,7 +1367,8 @@ def fit_mechanisms_batch(tables_or_arrays, *, substrate="substrate", inhibitor="
             alpha_factor=alpha_factor, level=level, determination_factor=determination_factor,
             fallback=fallback, max_iterations=max_iterations, client=client,
             chunk_size=chunk_size, lack_of_fit_alpha=lack_of_fit_alpha,
-            enzyme=enzymes[part] if given[part[0]] else None, edge_sides=edge_sides)
+            enzyme=enzymes[part] if given[part[0]] else None, edge_sides=edge_sides,
+            fit_enzyme=bool(fit_enzyme) and bool(given[part[0]]))
         for n, c in enumerate(part):
             fits[c] = batch.mechanism_fit(n, labels[c])
     for c, error in enumerate(errors):

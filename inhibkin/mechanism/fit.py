@@ -35,7 +35,7 @@ from ..core.compare import (
 from ..core.determined import DETERMINATION_FACTOR
 from ..core.lack_of_fit import LACK_OF_FIT_ALPHA, lack_of_fit, residual_pattern
 from ..core.models import EXTENDED_MODELS, FAMILIES, MODEL_NAMES, MODELS, extension_of, nested_start
-from ..core.options import FitOptions
+from ..core.options import FitOptions, check_fit_enzyme
 from ..core.readonly import readonly_frame, readonly_mapping
 from ..core.starts import extra_start, log_bounds, mechanism_starts, starting_values
 from ..core.weighting import (
@@ -283,10 +283,11 @@ def tight_binding_inputs(fits, best, i):
 
 
 def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_ssr,
-                     relative=False, enzyme=None):
+                     relative=False, enzyme=None, fit_enzyme=False):
     """Rule 5 of :mod:`inhibkin.core.compare` on one compound: the lack-of-fit test of the
     verdict's model and, when it fails (or the tight-binding rule applies), the extended
-    laws of every family fitted and decided.
+    laws of every family fitted and decided (a given [E] held, or fitted from it with
+    ``fit_enzyme``).
 
     Returns the verdict, every fit, the F-tests of the new pairs and the lack-of-fit rows.
     """
@@ -298,9 +299,11 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
     p_lof = float(tested["p_value"].iloc[0])
     tight, lowest = tight_binding_inputs(fits, verdict.best, i)
     decide = partial(decide_extended, verdict, lack_of_fit_p=p_lof, options=options,
-                     enzyme=enzyme, tight_constant=tight, lowest_inhibitor=lowest)
+                     enzyme=enzyme, fit_enzyme=fit_enzyme, tight_constant=tight,
+                     lowest_inhibitor=lowest)
     signs = verdict.best != "none" and extension_signs(
-        extension_gains(fits, s, i, v, w, exact_ssr, enzyme), tight, lowest, options, enzyme)
+        extension_gains(fits, s, i, v, w, exact_ssr, enzyme, fit_enzyme), tight, lowest,
+        options, enzyme, fit_enzyme)
     if not (p_lof < options.lack_of_fit_alpha or needs_tight_binding(tight, enzyme) or signs):
         out = decide(pattern="", p_value=lambda a, b: np.nan, converged=lambda m: False,
                      aicc=lambda m: np.inf, extended_lack_of_fit_p=lambda m: np.nan)
@@ -309,15 +312,15 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
     for name in EXTENDED_MODELS:
         law = MODELS[name]
         if law.extends in fits and name not in extended:
+            starts = extended_starts(name, {**fits, **extended}, s, i, v, w, enzyme)
             extended[name] = fit_model(name, s, i, v, w, enzyme=enzyme,
-                                       starts=extended_starts(name, {**fits, **extended},
-                                                              s, i, v, w, enzyme), **common)
+                                       fit_enzyme=fit_enzyme, starts=starts, **common)
     every = {**fits, **extended}
     every = {name: every[name] for name in MODELS if name in every}
     # Every nested pair, then the classical fixed-alpha tests (rule 4), then each
     # family's own (rule 4 within the family, for its verdict).
     family_alpha = [_fixed_alpha_tests(every, s, i, v, w, options, exact_ssr, general,
-                                       enzyme)
+                                       enzyme, fit_enzyme)
                     for general in (extension_of("mixed", f) for f in FAMILIES)
                     if general in every]
     tests = pd.concat([f_test_table(every, exact_ssr=exact_ssr),
@@ -337,25 +340,37 @@ def extended_verdict(verdict, fits, ftests, s, i, v, w, options, common, exact_s
         aicc=lambda name: float(comparison.loc[name, "aicc"]) if name in converged
         else np.inf,
         extended_lack_of_fit_p=lambda name: float(extended_lof.loc[name, "p_value"])
-        if name in extended_lof.index else np.nan)
+        if name in extended_lof.index else np.nan,
+        fitted_enzyme=lambda law: _fitted_enzyme(every.get(law)))
     rows = pd.concat([tested, extended_lof.reset_index()], ignore_index=True)
     return out, every, tests, rows
 
 
-def extension_gains(fits, s, i, v, w, exact_ssr, enzyme=None) -> dict:
+def _fitted_enzyme(fit):
+    """(estimate, ci_low, ci_high, determined) of a converged tight-binding fit's [E]."""
+    if fit is None or not fit.converged or "enzyme" not in fit.params.index:
+        return None
+    row = fit.params.loc["enzyme"]
+    return (float(row["estimate"]), float(row["ci_low"]), float(row["ci_high"]),
+            bool(row["determined"]))
+
+
+def extension_gains(fits, s, i, v, w, exact_ssr, enzyme=None, fit_enzyme=False) -> dict:
     """Per family, the p-value of the F-test of mixed against the family's general law (a
-    quick probe with Wald intervals; [E] fitted; NaN when mixed did not converge, and for
-    tight binding with [E] given, which adds no constant)."""
+    quick probe with Wald intervals; [E] fitted, from the given [E] with ``fit_enzyme``;
+    NaN when mixed did not converge, and for tight binding with [E] held, which adds no
+    constant)."""
     mixed = fits.get("mixed")
     gains = {}
     for family in FAMILIES:
         name = extension_of("mixed", family)
-        if mixed is None or not mixed.converged or (family == "tight_binding"
-                                                    and enzyme is not None):
+        held = family == "tight_binding" and enzyme is not None and not fit_enzyme
+        if mixed is None or not mixed.converged or held:
             gains[family] = np.nan
             continue
-        probe = fit_model(name, s, i, v, w, intervals="wald",
-                          starts=extended_starts(name, fits, s, i, v, w))
+        start = enzyme if family == "tight_binding" else None
+        probe = fit_model(name, s, i, v, w, intervals="wald", enzyme=start, fit_enzyme=True,
+                          starts=extended_starts(name, fits, s, i, v, w, start))
         # Mixed's SSR is no larger than that of any law nested in it (an optimiser that
         # stopped short on a ridge can leave it above); a gain below the exact-fit scale
         # is rounding (noise-free data), not a gain.
@@ -533,7 +548,7 @@ def mixed_starts(fits, s, i, v, w) -> list[dict]:
 
 
 def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr, model="mixed",
-                       enzyme=None) -> pd.DataFrame:
+                       enzyme=None, fit_enzyme=False) -> pd.DataFrame:
     """F-tests of mixed (or a family's general law, ``model``) with alpha held at each
     edge of :meth:`VerdictOptions.alpha_values` against the same law free (1 numerator
     df): rule 4 of the verdict, within the family's own laws for an extended one.
@@ -558,7 +573,7 @@ def _fixed_alpha_tests(fits, s, i, v, w, options, exact_ssr, model="mixed",
     rows = []
     for value in options.alpha_values:
         held = [{**x, ratio.numerator: value * x[ratio.denominator]} for x in starts]
-        ssr = fixed_alpha_ssr(s, i, v, w, value, held, model, enzyme)
+        ssr = fixed_alpha_ssr(s, i, v, w, value, held, model, enzyme, fit_enzyme)
         if np.isfinite(ssr):
             f_value, p_value, df_num, df_den = f_test(ssr if ssr > exact_ssr else 0.0,
                                                       general.dof + 1, ssr_full, general.dof)
@@ -574,7 +589,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                    weighting=None, models=MODEL_NAMES, alpha=0.05, min_delta_aicc=2.0,
                    alpha_factor=5.0, intervals="profile", level=0.95,
                    determination_factor=DETERMINATION_FACTOR, flags="flags",
-                   lack_of_fit_alpha=LACK_OF_FIT_ALPHA, enzyme=None,
+                   lack_of_fit_alpha=LACK_OF_FIT_ALPHA, enzyme=None, fit_enzyme=False,
                    edge_sides=EDGE_SIDES, context=None) -> MechanismFit:
     """Fit every reversible mechanism to one compound's grid and decide between them.
 
@@ -642,6 +657,15 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
         :data:`~inhibkin.core.compare.TIGHT_BINDING_FACTOR` (10) × [E] sends the verdict
         to them (Morrison 1969, BBA 185:269). Without [E] they fit it, and a constant
         below the lowest non-zero inhibitor level makes the verdict ``ambiguous``.
+    fit_enzyme : bool
+        False (default): a given [E] is held. True: the tight-binding laws fit [E]
+        (within positive bounds, inhibitor's unit), the given value as the start: [E] is
+        then a fitted parameter, reported with its interval (or as an upper limit when
+        the data do not determine it), the tight-binding family must beat mixed by its
+        F-test unless the 10 × [E] rule (on the given [E]) sends the verdict there, and
+        the verdict's reason says "[E] fitted". It needs [E]: without it the
+        tight-binding laws fit [E] anyway, so asking is taken as a forgotten [E]
+        (:func:`inhibkin.core.options.check_fit_enzyme`, an ``OptionError``).
     edge_sides : {1, 2}
         Rule 4's edge test (:func:`inhibkin.core.compare.edge_rejected`): 2 (default)
         two-sided; 1 one-sided, the edge rejected only when the free alpha lies beyond
@@ -676,7 +700,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                              alpha=alpha, min_delta_aicc=min_delta_aicc,
                              alpha_factor=alpha_factor,
                              determination_factor=determination_factor,
-                             lack_of_fit_alpha=lack_of_fit_alpha, edge_sides=edge_sides)
+                             lack_of_fit_alpha=lack_of_fit_alpha, edge_sides=edge_sides,
+                             fit_enzyme=fit_enzyme)
     if weighting == "sd" and sd is None:
         raise DataError("weighting='sd' needs the sd= column of standard deviations", context)
     unknown = [m for m in models if m not in MODELS]
@@ -688,6 +713,7 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                                        need_inhibition=need_inhibition, context=context,
                                        allow_zero_sd=weighting == "rate_se")
     enzyme = enzyme_concentration(df, enzyme, units["inhibitor"], context)
+    check_fit_enzyme(fit_options.fit_enzyme, enzyme, context)
     if weighting == "rate_se":
         everywhere = np.ones((1, len(v)), bool)
         w = rate_se_weights(s[None], i[None], v[None], sigma[None], everywhere)[0]
@@ -706,7 +732,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
                   determination_factor=fit_options.determination_factor)
     for name in models:
         starts = mixed_starts(fits, s, i, v, w) if name == "mixed" else None
-        fits[name] = fit_model(name, s, i, v, w, starts=starts, enzyme=enzyme, **common)
+        fits[name] = fit_model(name, s, i, v, w, starts=starts, enzyme=enzyme,
+                               fit_enzyme=fit_options.fit_enzyme, **common)
     # The table order is the models' own order, whatever order they were fitted in.
     fits = {name: fits[name] for name in MODELS if name in fits}
     comparison = comparison_table(fits)
@@ -719,7 +746,8 @@ def fit_mechanisms(df, *, substrate="substrate", inhibitor="inhibitor", rate="ra
     verdict, every, tests, lack = extended_verdict(verdict, fits, ftests, s, i, v, w, options,
                                                    common, exact_ssr,
                                                    relative=weighting == "relative",
-                                                   enzyme=enzyme)
+                                                   enzyme=enzyme,
+                                                   fit_enzyme=fit_options.fit_enzyme)
     if tests is not None:
         fits, comparison, ftests = every, comparison_table(every), tests
     data = pd.DataFrame({"substrate": s, "inhibitor": i, "rate": v, "weight": w},

@@ -170,15 +170,15 @@ class _Problem:
         return -self.w[:, None] * law.jacobian(self.s, self.i, *p) * p[None, :]
 
 
-def _make_problem(model, s, i, v, w, enzyme=None) -> _Problem:
+def _make_problem(model, s, i, v, w, enzyme=None, fit_enzyme=False) -> _Problem:
     """The problem of ``model``; with ``enzyme`` given, a tight-binding law's [E] is held
-    there (its log is the only value between its bounds)."""
+    there (its log is the only value between its bounds), unless ``fit_enzyme``."""
     bounds = log_bounds(model, s, i, v)
     law = MODELS[model]
     lower = np.array([bounds[n][0] for n in law.param_names])
     upper = np.array([bounds[n][1] for n in law.param_names])
     held = ()
-    if enzyme is not None and "enzyme" in law.roles:
+    if enzyme is not None and not fit_enzyme and "enzyme" in law.roles:
         j = law.roles.index("enzyme")
         lower[j] = upper[j] = np.log(enzyme)
         held = (j,)
@@ -313,7 +313,8 @@ def _failed_fit(model, n_obs, message, level, method) -> ModelFit:
 
 
 def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile", level=0.95,
-              determination_factor=DETERMINATION_FACTOR, enzyme=None) -> ModelFit:
+              determination_factor=DETERMINATION_FACTOR, enzyme=None,
+              fit_enzyme=False) -> ModelFit:
     """Fit one rate law to one compound's points (inputs already validated).
 
     Parameters
@@ -340,6 +341,11 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
         is held there (not counted among the fitted parameters; reported with no
         standard error or interval, and as not determined, being given). Ignored by the
         other laws.
+    fit_enzyme : bool
+        With ``enzyme``: fit [E] instead (within its positive log bounds,
+        :mod:`inhibkin.core.bounds`), ``enzyme`` its value in the automatic start; it is
+        then counted, and reported with its interval, or as an upper limit when the data
+        do not determine it.
 
     Returns
     -------
@@ -351,7 +357,7 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
     law = MODELS[model]
     n = len(v)
     w = np.ones(n) if weights is None else np.asarray(weights, dtype=float)
-    problem = _make_problem(model, s, i, v, w, enzyme)
+    problem = _make_problem(model, s, i, v, w, enzyme, fit_enzyme)
     k = law.n_params
     n_free = k - len(problem.held)
     if n < n_free:
@@ -359,6 +365,8 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
                            level, intervals)
     if starts is None:
         starts = [starting_values(model, s, i, v, w)]
+        if enzyme is not None and "enzyme" in law.roles:
+            starts = [{**starts[0], law.param_names[law.roles.index("enzyme")]: enzyme}]
     if problem.held:
         starts = [{**start, **{law.param_names[j]: enzyme for j in problem.held}}
                   for start in starts]
@@ -408,7 +416,8 @@ def fit_model(model, s, i, v, weights=None, *, starts=None, intervals="profile",
                     level, intervals, covariance)
 
 
-def fixed_alpha_ssr(s, i, v, weights, alpha, starts, model="mixed", enzyme=None) -> float:
+def fixed_alpha_ssr(s, i, v, weights, alpha, starts, model="mixed", enzyme=None,
+                    fit_enzyme=False) -> float:
     """Weighted SSR of the mixed model (or a family's general law, ``model``) with
     alpha = kiu/kic held at ``alpha``.
 
@@ -416,10 +425,11 @@ def fixed_alpha_ssr(s, i, v, weights, alpha, starts, model="mixed", enzyme=None)
     (dicts of the model's parameters); the best successful SSR is returned, NaN when none
     converged. This is the constrained fit behind the verdict's check that the data
     place alpha where a mechanism's name claims (:mod:`inhibkin.core.compare`, rule 4).
-    With ``enzyme``, a tight-binding law's [E] is held there, as :func:`fit_model`
-    holds it.
+    With ``enzyme``, a tight-binding law's [E] is held there (fitted with
+    ``fit_enzyme``), as :func:`fit_model` does.
     """
-    problem = _make_problem(model, s, i, v, np.asarray(weights, dtype=float), enzyme)
+    problem = _make_problem(model, s, i, v, np.asarray(weights, dtype=float), enzyme,
+                            fit_enzyme)
     names = MODELS[model].param_names
     tie, offset = ratio_tie(MODELS[model], alpha)  # alpha = kiu/kic
     best = np.nan
