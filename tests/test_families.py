@@ -386,3 +386,21 @@ def test_fitted_enzyme_same_through_the_campaign_and_the_command_line(ode_plates
     assert main(["mechanism", str(grid_file), "-o", str(tmp_path / "x.csv"),
                  "--fit-enzyme"]) == 2
     assert not (tmp_path / "x.csv").exists()
+
+
+@pytest.mark.parametrize("fit_enzyme, expected_enzyme", [(False, 8.0), (True, 4.0)])
+def test_engine_fallback_refit_keeps_the_given_enzyme(fit_enzyme, expected_enzyme):
+    # One engine iteration cannot converge, so the lmfit path refits the tight-binding law
+    # (fallback); it must treat [E] as the engine does: held at the given 8, or fitted
+    # from it back to the truth, 4 (noise-free Morrison competitive law; Morrison 1969,
+    # BBA 185:269). Before, the refit dropped [E] and fitted it free whatever was asked.
+    s, i = _grid()
+    v = MODELS["competitive_tb"].rate(s, i, 10.0, 100.0, 3.0, 4.0)
+    options = dict(models=("competitive", "competitive_tb"), weighting="uniform",
+                   lack_of_fit_alpha=0.0, enzyme=np.array([8.0]), fit_enzyme=fit_enzyme)
+    refitted = fit_mechanism_arrays(s[None], i[None], v[None], max_iterations=1,
+                                    **options).models["competitive_tb"]
+    engine = fit_mechanism_arrays(s[None], i[None], v[None], **options).models["competitive_tb"]
+    assert refitted.fallback[0] and not engine.fallback[0]
+    np.testing.assert_allclose(refitted.estimate[0, 3], expected_enzyme, rtol=RECOVERY_RTOL)
+    np.testing.assert_allclose(refitted.estimate[0], engine.estimate[0], rtol=RECOVERY_RTOL)

@@ -771,7 +771,8 @@ def _fit_chunk(s, i, v, mask, sd, enzyme=None, *, weighting, models, alpha, min_
                           determination_factor)
         if fallback:
             for c in rows[~result.converged]:
-                _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor)
+                _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor,
+                       enzyme, fit_enzyme)
         criteria = information_criteria(res["ssr"], n_obs, res["n_params"], sum_log_w)
         res.update((key, criteria[key]) for key in ("loglik", "aic", "aicc", "bic"))
         out[name] = res
@@ -1128,16 +1129,21 @@ def _mixed_multistart(out, s, i, v, mask, w, rows, first, lower, upper, far, max
     return best
 
 
-def _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor):
-    """Refit one (compound, model) with the lmfit path after the engine failed."""
+def _refit(res, name, c, s, i, v, mask, w, out, level, determination_factor, enzyme=None,
+           fit_enzyme=False):
+    """Refit one (compound, model) with the lmfit path after the engine failed; a
+    tight-binding law keeps the compound's given [E] (``enzyme``, shape (B,)), held or,
+    with ``fit_enzyme``, as its start, as the engine had it."""
     keep = mask[c]
     sc, ic, vc, wc = s[c, keep], i[c, keep], v[c, keep], w[c, keep]
     starts = None
     if name == "mixed":
         fits = {m: _model_fit(ModelBatch(**out[m]), c, sc, ic, vc, level) for m in out}
         starts = mixed_starts(fits, sc, ic, vc, wc)
+    given = None if enzyme is None else float(enzyme[c])
     fit = fit_model(name, sc, ic, vc, wc, starts=starts, intervals="wald", level=level,
-                    determination_factor=determination_factor)
+                    determination_factor=determination_factor, enzyme=given,
+                    fit_enzyme=fit_enzyme and given is not None)
     _fill_from_lmfit(res, c, fit)
 
 
