@@ -160,8 +160,11 @@ def test_zero_substrate_is_left_out_of_reciprocal_views():
                          i=I_LEVELS, seed=SEED)
     ax = figures.plot_double_reciprocal(data)
     assert "S = 0" in ax.get_title()
-    for collection in ax.collections:
-        assert np.all(np.isfinite(collection.get_offsets()))
+    # The cell means are marker lines (no line between them), one per inhibitor level.
+    points = [line for line in ax.lines if line.get_linestyle() == "None"]
+    assert len(points) == len(I_LEVELS)
+    for line in points:
+        assert np.all(np.isfinite(line.get_xydata()))
 
 
 def test_level_palette_lightness_is_monotone():

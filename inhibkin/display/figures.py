@@ -42,6 +42,7 @@ import numpy as np
 import pandas as pd
 import seaborn as sns
 from matplotlib.figure import Figure
+from matplotlib.ticker import LogLocator
 
 from ..core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian
 from ..core.models import MODELS
@@ -99,6 +100,8 @@ _WRAP = 48
 # drawn with before. They are drawn as a line's markers: a marker line costs less to build
 # and draw than a scatter's collection, and the residual grid draws a hundred of them.
 _MARKER_SIZE = 4.0
+# The same for the cell means of the linearised views (18 pt², as their scatters were).
+_CELL_MARKER_SIZE = float(np.sqrt(18.0))
 # Normal quantile of the default 95 % band (common practice: 1.96 for a two-sided 95 %).
 _Z95 = 1.959963984540054
 
@@ -422,7 +425,26 @@ def plot_residuals(fit, *, model=None, against="fitted", units=None, ax=None):
                 label=_fmt_level(level, units.inhibitor))
     if against == "substrate" and np.all(x > 0):
         ax.set_xscale("log")
+        ax.xaxis.set_minor_locator(_InViewLogLocator(subs="auto"))
     return ax
+
+
+class _InViewLogLocator(LogLocator):
+    """The minor ticks of a log axis, only those inside its view.
+
+    matplotlib's LogLocator returns every tick of each decade the view touches, beyond
+    both ends too, and the axis builds a tick (two lines, two labels, a grid line) for
+    each before it drops those outside: a third of a residual grid's minor ticks. The
+    ticks drawn are the same; the tolerance is the one the axis keeps ticks by.
+    """
+
+    def __call__(self):
+        ticks = np.asarray(super().__call__(), dtype=float)
+        low, high = sorted(np.log10(self.axis.get_view_interval()))
+        slack = 1e-10 * max(high - low, 1e-300)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            at = np.log10(ticks)
+        return ticks[(at >= low - slack) & (at <= high + slack)]
 
 
 def plot_residual_grid(fit, *, models=None, units=None, layout="constrained") -> Figure:
@@ -673,9 +695,10 @@ def _linearised(fit_or_data, *, by, x_of, y_of, name, xlabel, ylabel, series_lab
     for k, level in enumerate(levels):
         cell = cells[cells[by] == level]
         s, i = cell["s"].to_numpy(), cell["i"].to_numpy()
-        ax.scatter(x_of(s, i), y_of(s, cell["mean"].to_numpy()), color=colours[k], s=18,
-                   edgecolor="0.15", linewidth=0.4,
-                   marker=LEVEL_MARKERS[k % len(LEVEL_MARKERS)], label=series_label(level))
+        ax.plot(x_of(s, i), y_of(s, cell["mean"].to_numpy()), linestyle="none",
+                color=colours[k], markersize=_CELL_MARKER_SIZE, markeredgecolor="0.15",
+                markeredgewidth=0.4, marker=LEVEL_MARKERS[k % len(LEVEL_MARKERS)],
+                label=series_label(level))
         if len(cell):
             if by == "i":
                 s_line, i_line = np.geomspace(s.min(), s.max(), 50), np.full(50, level)

@@ -102,8 +102,6 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
     if fit is None:
         return section
     best = fit.best_fit
-    comparison = fit.comparison.copy()
-    comparison["converged"] = ["yes" if c else "no" for c in comparison["converged"]]
     section["fit"] = {
         "verdict": fit.verdict, "reason": fit.reason, "best": fit.best,
         # Which family of laws the verdict's model belongs to, and its equation.
@@ -112,7 +110,9 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
         "candidates": ", ".join(fit.candidates), "basis": fit.basis,
         "weighting": fit.weighting,
         "alpha": fit.options.alpha, "min_delta_aicc": fit.options.min_delta_aicc,
-        "comparison": table_cells(comparison),
+        # Its converged column as yes / no (a copy of the table to rewrite it cost more
+        # than the cells).
+        "comparison": table_cells(fit.comparison, yes_no=True),
         "ftests": table_cells(fit.ftests, index=False),
         "params": (parameter_cells(best, molar=molar)
                    if best is not None and best.converged else None),
