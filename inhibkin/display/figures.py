@@ -57,6 +57,7 @@ __all__ = [
     "level_palette",
     "model_colours",
     "new_figure",
+    "FigurePool",
     "Margins",
     "LAYOUTS",
     "DOSE_MARGINS",
@@ -221,6 +222,58 @@ def _margins(layout, fixed: Margins) -> Margins | None:
     if layout not in LAYOUTS:
         raise ValueError(f"layout must be one of {LAYOUTS}, got {layout!r}")
     return fixed if layout == "fixed" else None
+
+
+class FigurePool:
+    """Figures kept from one call of a multi-panel view to the next, their data cleared.
+
+    A panel's ticks are the dearest part of a report figure to build (each is two lines,
+    two labels and a grid line: about a quarter of the CPU of one compound's figures); a
+    figure kept and cleared of its data keeps its ticks, and the next compound is drawn
+    on it. The pixels are those of a new figure (tests/test_figures.py checks). For
+    figures saved one at a time, as the report does: the next call of the same view
+    draws over the figure the last one returned.
+    """
+
+    def __init__(self):
+        self._figures = {}
+
+    def figure(self, nrows=1, ncols=1, *, size=_PANEL_SIZE, margins=None, **kwargs):
+        """:func:`new_figure`'s figure and axes, the kept ones when there are."""
+        key = (nrows, ncols, tuple(size), margins, tuple(sorted(kwargs.items())))
+        kept = self._figures.get(key)
+        if kept is None:
+            kept = self._figures[key] = new_figure(nrows, ncols, size=size, margins=margins,
+                                                   **kwargs)
+            return kept
+        for ax in kept[1].flat:
+            _clear_data(ax)
+        return kept
+
+
+def _clear_data(ax) -> None:
+    """``ax`` as a view function finds a new panel, its ticks kept (not ``ax.clear()``,
+    which builds them again): no artists, legend, titles or labels; linear scales and
+    the limits of a new axes."""
+    for artist in [*ax.lines, *ax.collections, *ax.patches, *ax.texts, *ax.images]:
+        artist.remove()
+    if ax.legend_ is not None:
+        ax.legend_.remove()
+    ax.containers.clear()
+    ax.set_title("")
+    ax.set_xlabel("")
+    ax.set_ylabel("")
+    ax.set_xscale("linear")
+    ax.set_yscale("linear")
+    # A new axes' limits, the right way up, and autoscaled from the next data (a panel
+    # that gets none, as on a failed fit, keeps these).
+    ax.relim()
+    ax.set_xlim(0.0, 1.0, auto=True)
+    ax.set_ylim(0.0, 1.0, auto=True)
+
+
+def _figure(pool, *args, **kwargs):
+    return new_figure(*args, **kwargs) if pool is None else pool.figure(*args, **kwargs)
 
 
 # The multi-panel figures' fixed margins (inches): room for two-line panel titles, the
@@ -447,7 +500,8 @@ class _InViewLogLocator(LogLocator):
         return ticks[(at >= low - slack) & (at <= high + slack)]
 
 
-def plot_residual_grid(fit, *, models=None, units=None, layout="constrained") -> Figure:
+def plot_residual_grid(fit, *, models=None, units=None, layout="constrained",
+                       pool=None) -> Figure:
     """Residuals of every converged model: against fitted (top row), substrate (bottom).
 
     Parameters
@@ -458,6 +512,8 @@ def plot_residual_grid(fit, *, models=None, units=None, layout="constrained") ->
     units : AxisUnits, optional
     layout : {"constrained", "fixed"}
         See :data:`LAYOUTS`.
+    pool : FigurePool, optional
+        Draw on the figure the pool kept from the last call (see :class:`FigurePool`).
 
     Returns
     -------
@@ -465,7 +521,7 @@ def plot_residual_grid(fit, *, models=None, units=None, layout="constrained") ->
         One column per model; the y axis is shared so the models compare at a glance.
     """
     names = list(models) if models is not None else list(fit.models)
-    fig, axes = new_figure(2, len(names), size=(3.0, 2.5), sharey=True,
+    fig, axes = _figure(pool, 2, len(names), size=(3.0, 2.5), sharey=True,
                            margins=_margins(layout, _RESIDUAL_GRID_MARGINS))
     for k, name in enumerate(names):
         plot_residuals(fit, model=name, against="fitted", units=units, ax=axes[0, k])
@@ -763,10 +819,11 @@ def plot_s_over_v(fit_or_data, *, units=None, ax=None):
                               units.label("S / rate", unit), units=units, ax=ax)
 
 
-def plot_diagnostics(fit_or_data, *, units=None, layout="constrained") -> Figure:
+def plot_diagnostics(fit_or_data, *, units=None, layout="constrained", pool=None) -> Figure:
     """The three linearised views side by side (diagnostic only); ``layout``: see
-    :data:`LAYOUTS`."""
-    fig, axes = new_figure(1, 3, size=(4.0, 3.4), margins=_margins(layout, _DIAGNOSTIC_MARGINS))
+    :data:`LAYOUTS`; ``pool``: see :class:`FigurePool`."""
+    fig, axes = _figure(pool, 1, 3, size=(4.0, 3.4),
+                        margins=_margins(layout, _DIAGNOSTIC_MARGINS))
     plot_double_reciprocal(fit_or_data, units=units, ax=axes[0, 0])
     plot_dixon(fit_or_data, units=units, ax=axes[0, 1])
     plot_s_over_v(fit_or_data, units=units, ax=axes[0, 2])
@@ -774,7 +831,8 @@ def plot_diagnostics(fit_or_data, *, units=None, layout="constrained") -> Figure
     return fig
 
 
-def plot_mechanism_overview(fit, *, units=None, log_x=False, layout="constrained") -> Figure:
+def plot_mechanism_overview(fit, *, units=None, log_x=False, layout="constrained",
+                            pool=None) -> Figure:
     """Global fit, model support and the best model's residuals in one figure.
 
     Parameters
@@ -785,12 +843,15 @@ def plot_mechanism_overview(fit, *, units=None, log_x=False, layout="constrained
         Log-scaled substrate axis on the global fit.
     layout : {"constrained", "fixed"}
         See :data:`LAYOUTS`.
+    pool : FigurePool, optional
+        Draw on the figure the pool kept from the last call (see :class:`FigurePool`).
 
     Returns
     -------
     matplotlib.figure.Figure
     """
-    fig, axes = new_figure(1, 3, size=(4.2, 3.5), margins=_margins(layout, _OVERVIEW_MARGINS))
+    fig, axes = _figure(pool, 1, 3, size=(4.2, 3.5),
+                        margins=_margins(layout, _OVERVIEW_MARGINS))
     plot_global_fit(fit, units=units, log_x=log_x, ax=axes[0, 0])
     plot_akaike_weights(fit, ax=axes[0, 1])
     plot_residuals(fit, units=units, ax=axes[0, 2])
