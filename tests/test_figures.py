@@ -160,8 +160,11 @@ def test_zero_substrate_is_left_out_of_reciprocal_views():
                          i=I_LEVELS, seed=SEED)
     ax = figures.plot_double_reciprocal(data)
     assert "S = 0" in ax.get_title()
-    for collection in ax.collections:
-        assert np.all(np.isfinite(collection.get_offsets()))
+    # The cell means are marker lines (no line between them), one per inhibitor level.
+    points = [line for line in ax.lines if line.get_linestyle() == "None"]
+    assert len(points) == len(I_LEVELS)
+    for line in points:
+        assert np.all(np.isfinite(line.get_xydata()))
 
 
 def test_level_palette_lightness_is_monotone():
@@ -240,3 +243,23 @@ def test_fixed_layout_keeps_every_label_inside_the_figure(fits, function):
 def test_unknown_layout_is_refused(fits):
     with pytest.raises(ValueError, match="layout"):
         figures.plot_diagnostics(fits["mixed"], layout="tight")
+
+
+def _pixels(fig):
+    canvas = FigureCanvasAgg(fig)
+    canvas.draw()
+    return np.asarray(canvas.buffer_rgba()).copy()
+
+
+@pytest.mark.parametrize("function", FIGURE_FUNCTIONS)
+def test_a_pooled_figure_draws_the_pixels_of_a_new_one(fits, failed_fit, function):
+    # The report draws each compound on the figure kept from the last (FigurePool): every
+    # mechanism, then a failed fit (notes instead of curves), then one with curves again.
+    pool = figures.FigurePool()
+    order = [*fits.values(), failed_fit, fits["mixed"], fits["none"]]
+    for fit in order:
+        fresh = _pixels(function(fit, units=UNITS, layout="fixed"))
+        pooled = function(fit, units=UNITS, layout="fixed", pool=pool)
+        assert np.array_equal(_pixels(pooled), fresh)
+    # One figure per view, reused: its axes are the same objects each time.
+    assert function(fits["mixed"], units=UNITS, layout="fixed", pool=pool) is pooled

@@ -37,10 +37,12 @@ import io
 import textwrap
 from dataclasses import dataclass
 
+import matplotlib as mpl
 import numpy as np
 import pandas as pd
 import seaborn as sns
 from matplotlib.figure import Figure
+from matplotlib.ticker import LogLocator
 
 from ..core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian
 from ..core.models import MODELS
@@ -55,6 +57,7 @@ __all__ = [
     "level_palette",
     "model_colours",
     "new_figure",
+    "FigurePool",
     "Margins",
     "LAYOUTS",
     "DOSE_MARGINS",
@@ -94,6 +97,12 @@ _PANEL_SIZE = (4.8, 3.6)
 _NOTEBOOK_DPI = 100
 # Characters per line of a reason written on a failed figure.
 _WRAP = 48
+# Marker size (points across) of the residual points: the 16 pt² of the scatter they were
+# drawn with before. They are drawn as a line's markers: a marker line costs less to build
+# and draw than a scatter's collection, and the residual grid draws a hundred of them.
+_MARKER_SIZE = 4.0
+# The same for the cell means of the linearised views (18 pt², as their scatters were).
+_CELL_MARKER_SIZE = float(np.sqrt(18.0))
 # Normal quantile of the default 95 % band (common practice: 1.96 for a two-sided 95 %).
 _Z95 = 1.959963984540054
 
@@ -197,8 +206,14 @@ def new_figure(nrows=1, ncols=1, *, size=_PANEL_SIZE, margins: Margins | None = 
     constrained layout, or by ``margins`` when given."""
     fig = NotebookFigure(figsize=(size[0] * ncols, size[1] * nrows),
                          layout="constrained" if margins is None else None)
-    axes = fig.subplots(nrows, ncols, squeeze=False, **kwargs)
-    if margins is not None:
+    if margins is None:
+        axes = fig.subplots(nrows, ncols, squeeze=False, **kwargs)
+    else:
+        # Titles at the top edge of their panels (plus the usual pad), not placed above
+        # whatever the panel draws there: nothing is drawn there, and the search measures
+        # every x tick label of the panel at each draw (about a tenth of a report figure).
+        with mpl.rc_context({"axes.titley": 1.0}):
+            axes = fig.subplots(nrows, ncols, squeeze=False, **kwargs)
         margins.apply(fig, nrows, ncols)
     return fig, axes
 
@@ -207,6 +222,58 @@ def _margins(layout, fixed: Margins) -> Margins | None:
     if layout not in LAYOUTS:
         raise ValueError(f"layout must be one of {LAYOUTS}, got {layout!r}")
     return fixed if layout == "fixed" else None
+
+
+class FigurePool:
+    """Figures kept from one call of a multi-panel view to the next, their data cleared.
+
+    A panel's ticks are the dearest part of a report figure to build (each is two lines,
+    two labels and a grid line: about a quarter of the CPU of one compound's figures); a
+    figure kept and cleared of its data keeps its ticks, and the next compound is drawn
+    on it. The pixels are those of a new figure (tests/test_figures.py checks). For
+    figures saved one at a time, as the report does: the next call of the same view
+    draws over the figure the last one returned.
+    """
+
+    def __init__(self):
+        self._figures = {}
+
+    def figure(self, nrows=1, ncols=1, *, size=_PANEL_SIZE, margins=None, **kwargs):
+        """:func:`new_figure`'s figure and axes, the kept ones when there are."""
+        key = (nrows, ncols, tuple(size), margins, tuple(sorted(kwargs.items())))
+        kept = self._figures.get(key)
+        if kept is None:
+            kept = self._figures[key] = new_figure(nrows, ncols, size=size, margins=margins,
+                                                   **kwargs)
+            return kept
+        for ax in kept[1].flat:
+            _clear_data(ax)
+        return kept
+
+
+def _clear_data(ax) -> None:
+    """``ax`` as a view function finds a new panel, its ticks kept (not ``ax.clear()``,
+    which builds them again): no artists, legend, titles or labels; linear scales and
+    the limits of a new axes."""
+    for artist in [*ax.lines, *ax.collections, *ax.patches, *ax.texts, *ax.images]:
+        artist.remove()
+    if ax.legend_ is not None:
+        ax.legend_.remove()
+    ax.containers.clear()
+    ax.set_title("")
+    ax.set_xlabel("")
+    ax.set_ylabel("")
+    ax.set_xscale("linear")
+    ax.set_yscale("linear")
+    # A new axes' limits, the right way up, and autoscaled from the next data (a panel
+    # that gets none, as on a failed fit, keeps these).
+    ax.relim()
+    ax.set_xlim(0.0, 1.0, auto=True)
+    ax.set_ylim(0.0, 1.0, auto=True)
+
+
+def _figure(pool, *args, **kwargs):
+    return new_figure(*args, **kwargs) if pool is None else pool.figure(*args, **kwargs)
 
 
 # The multi-panel figures' fixed margins (inches): room for two-line panel titles, the
@@ -405,15 +472,36 @@ def plot_residuals(fit, *, model=None, against="fitted", units=None, ax=None):
         units.substrate_factor
     for k, level in enumerate(levels):
         on = i_shown == level
-        ax.scatter(x[on], m.residuals[on], color=colours[k], s=16,
-                   marker=LEVEL_MARKERS[k % len(LEVEL_MARKERS)], edgecolor="0.15",
-                   linewidth=0.4, label=_fmt_level(level, units.inhibitor))
+        ax.plot(x[on], m.residuals[on], linestyle="none", color=colours[k],
+                markersize=_MARKER_SIZE, marker=LEVEL_MARKERS[k % len(LEVEL_MARKERS)],
+                markeredgecolor="0.15", markeredgewidth=0.4,
+                label=_fmt_level(level, units.inhibitor))
     if against == "substrate" and np.all(x > 0):
         ax.set_xscale("log")
+        ax.xaxis.set_minor_locator(_InViewLogLocator(subs="auto"))
     return ax
 
 
-def plot_residual_grid(fit, *, models=None, units=None, layout="constrained") -> Figure:
+class _InViewLogLocator(LogLocator):
+    """The minor ticks of a log axis, only those inside its view.
+
+    matplotlib's LogLocator returns every tick of each decade the view touches, beyond
+    both ends too, and the axis builds a tick (two lines, two labels, a grid line) for
+    each before it drops those outside: a third of a residual grid's minor ticks. The
+    ticks drawn are the same; the tolerance is the one the axis keeps ticks by.
+    """
+
+    def __call__(self):
+        ticks = np.asarray(super().__call__(), dtype=float)
+        low, high = sorted(np.log10(self.axis.get_view_interval()))
+        slack = 1e-10 * max(high - low, 1e-300)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            at = np.log10(ticks)
+        return ticks[(at >= low - slack) & (at <= high + slack)]
+
+
+def plot_residual_grid(fit, *, models=None, units=None, layout="constrained",
+                       pool=None) -> Figure:
     """Residuals of every converged model: against fitted (top row), substrate (bottom).
 
     Parameters
@@ -424,6 +512,8 @@ def plot_residual_grid(fit, *, models=None, units=None, layout="constrained") ->
     units : AxisUnits, optional
     layout : {"constrained", "fixed"}
         See :data:`LAYOUTS`.
+    pool : FigurePool, optional
+        Draw on the figure the pool kept from the last call (see :class:`FigurePool`).
 
     Returns
     -------
@@ -431,7 +521,7 @@ def plot_residual_grid(fit, *, models=None, units=None, layout="constrained") ->
         One column per model; the y axis is shared so the models compare at a glance.
     """
     names = list(models) if models is not None else list(fit.models)
-    fig, axes = new_figure(2, len(names), size=(3.0, 2.5), sharey=True,
+    fig, axes = _figure(pool, 2, len(names), size=(3.0, 2.5), sharey=True,
                            margins=_margins(layout, _RESIDUAL_GRID_MARGINS))
     for k, name in enumerate(names):
         plot_residuals(fit, model=name, against="fitted", units=units, ax=axes[0, k])
@@ -661,9 +751,10 @@ def _linearised(fit_or_data, *, by, x_of, y_of, name, xlabel, ylabel, series_lab
     for k, level in enumerate(levels):
         cell = cells[cells[by] == level]
         s, i = cell["s"].to_numpy(), cell["i"].to_numpy()
-        ax.scatter(x_of(s, i), y_of(s, cell["mean"].to_numpy()), color=colours[k], s=18,
-                   edgecolor="0.15", linewidth=0.4,
-                   marker=LEVEL_MARKERS[k % len(LEVEL_MARKERS)], label=series_label(level))
+        ax.plot(x_of(s, i), y_of(s, cell["mean"].to_numpy()), linestyle="none",
+                color=colours[k], markersize=_CELL_MARKER_SIZE, markeredgecolor="0.15",
+                markeredgewidth=0.4, marker=LEVEL_MARKERS[k % len(LEVEL_MARKERS)],
+                label=series_label(level))
         if len(cell):
             if by == "i":
                 s_line, i_line = np.geomspace(s.min(), s.max(), 50), np.full(50, level)
@@ -728,10 +819,11 @@ def plot_s_over_v(fit_or_data, *, units=None, ax=None):
                               units.label("S / rate", unit), units=units, ax=ax)
 
 
-def plot_diagnostics(fit_or_data, *, units=None, layout="constrained") -> Figure:
+def plot_diagnostics(fit_or_data, *, units=None, layout="constrained", pool=None) -> Figure:
     """The three linearised views side by side (diagnostic only); ``layout``: see
-    :data:`LAYOUTS`."""
-    fig, axes = new_figure(1, 3, size=(4.0, 3.4), margins=_margins(layout, _DIAGNOSTIC_MARGINS))
+    :data:`LAYOUTS`; ``pool``: see :class:`FigurePool`."""
+    fig, axes = _figure(pool, 1, 3, size=(4.0, 3.4),
+                        margins=_margins(layout, _DIAGNOSTIC_MARGINS))
     plot_double_reciprocal(fit_or_data, units=units, ax=axes[0, 0])
     plot_dixon(fit_or_data, units=units, ax=axes[0, 1])
     plot_s_over_v(fit_or_data, units=units, ax=axes[0, 2])
@@ -739,7 +831,8 @@ def plot_diagnostics(fit_or_data, *, units=None, layout="constrained") -> Figure
     return fig
 
 
-def plot_mechanism_overview(fit, *, units=None, log_x=False, layout="constrained") -> Figure:
+def plot_mechanism_overview(fit, *, units=None, log_x=False, layout="constrained",
+                            pool=None) -> Figure:
     """Global fit, model support and the best model's residuals in one figure.
 
     Parameters
@@ -750,12 +843,15 @@ def plot_mechanism_overview(fit, *, units=None, log_x=False, layout="constrained
         Log-scaled substrate axis on the global fit.
     layout : {"constrained", "fixed"}
         See :data:`LAYOUTS`.
+    pool : FigurePool, optional
+        Draw on the figure the pool kept from the last call (see :class:`FigurePool`).
 
     Returns
     -------
     matplotlib.figure.Figure
     """
-    fig, axes = new_figure(1, 3, size=(4.2, 3.5), margins=_margins(layout, _OVERVIEW_MARGINS))
+    fig, axes = _figure(pool, 1, 3, size=(4.2, 3.5),
+                        margins=_margins(layout, _OVERVIEW_MARGINS))
     plot_global_fit(fit, units=units, log_x=log_x, ax=axes[0, 0])
     plot_akaike_weights(fit, ax=axes[0, 1])
     plot_residuals(fit, units=units, ax=axes[0, 2])

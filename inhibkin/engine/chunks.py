@@ -13,6 +13,8 @@ import dataclasses
 import numpy as np
 import pandas as pd
 
+from .allocation import engine_thresholds
+
 __all__ = ["DEFAULT_CHUNK_SIZE", "run_chunks", "concat_batches"]
 
 #: Problems per chunk on a client when no chunk size is given: large enough that numpy,
@@ -21,7 +23,8 @@ DEFAULT_CHUNK_SIZE = 2000
 
 
 def _call(func, piece, options):
-    return func(*piece, **options)
+    with engine_thresholds():
+        return func(*piece, **options)
 
 
 def run_chunks(func, arrays, options, *, client=None, chunk_size=None) -> list:

@@ -88,9 +88,10 @@ def _units_of(campaign, rate_unit, display) -> figures.AxisUnits:
 
 
 def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
-                       dose_fit=None, dose_unit="", molar=False) -> dict:
+                       dose_fit=None, dose_unit="", molar=False, pool=None) -> dict:
     """One compound's part of the report: tables and sketches always, the matplotlib
-    figures only when ``detailed``."""
+    figures only when ``detailed`` (drawn on the figures of ``pool``, a
+    :class:`~inhibkin.display.figures.FigurePool`, and saved at once)."""
     section = {"anchor": anchor, "compound": str(compound), "row": row, "fit": None,
                "detailed": detailed, "dose": None}
     if dose_fit is not None:
@@ -102,8 +103,6 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
     if fit is None:
         return section
     best = fit.best_fit
-    comparison = fit.comparison.copy()
-    comparison["converged"] = ["yes" if c else "no" for c in comparison["converged"]]
     section["fit"] = {
         "verdict": fit.verdict, "reason": fit.reason, "best": fit.best,
         # Which family of laws the verdict's model belongs to, and its equation.
@@ -112,7 +111,9 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
         "candidates": ", ".join(fit.candidates), "basis": fit.basis,
         "weighting": fit.weighting,
         "alpha": fit.options.alpha, "min_delta_aicc": fit.options.min_delta_aicc,
-        "comparison": table_cells(comparison),
+        # Its converged column as yes / no (a copy of the table to rewrite it cost more
+        # than the cells).
+        "comparison": table_cells(fit.comparison, yes_no=True),
         "ftests": table_cells(fit.ftests, index=False),
         "params": (parameter_cells(best, molar=molar)
                    if best is not None and best.converged else None),
@@ -126,12 +127,12 @@ def _mechanism_section(anchor, compound, fit, row, units, dpi, *, detailed,
     }
     if detailed:
         section["fit"].update(
-            overview=png_image(figures.plot_mechanism_overview(fit, units=units,
-                                                               layout="fixed"), dpi),
-            residuals=png_image(figures.plot_residual_grid(fit, units=units, layout="fixed"),
-                                dpi),
-            diagnostics=png_image(figures.plot_diagnostics(fit, units=units, layout="fixed"),
-                                  dpi))
+            overview=png_image(figures.plot_mechanism_overview(
+                fit, units=units, layout="fixed", pool=pool), dpi),
+            residuals=png_image(figures.plot_residual_grid(
+                fit, units=units, layout="fixed", pool=pool), dpi),
+            diagnostics=png_image(figures.plot_diagnostics(
+                fit, units=units, layout="fixed", pool=pool), dpi))
     return section
 
 
@@ -405,13 +406,15 @@ def render_report(campaign, *, potency=None, rates=None, time_dependent=None,
     else:
         dose_fits, dose_unit = getattr(campaign, "potency_fits", {}) or {}, "M"
     sections = []
+    # The compounds drawn in full share one figure of each view (their ticks kept).
+    pool = figures.FigurePool()
     with progress_bar(len(ranking), quiet=quiet, desc="report") as bar:
         for c, r in zip(ranking["compound"], ranking.to_dict("records")):
             sections.append(_mechanism_section(anchors[c], c, fits.get(c), r, axis_units, dpi,
                                                detailed=c in detailed,
                                                dose_fit=dose_fits.get(c),
                                                dose_unit=dose_unit,
-                                               molar=molar))
+                                               molar=molar, pool=pool))
             bar.update()
     flagged = ranking[ranking["flags"].astype(str) != ""][["compound", "status", "flags"]]
     failed = ranking[ranking["status"] == "failed"][["compound", "reason"]]
