@@ -5,8 +5,8 @@ import pytest
 from inhibkin.engine import allocation
 
 
-class _RecordingLibc:
-    """Stands in for glibc: records mallopt and malloc_trim calls."""
+class _FakeLibc:
+    """Stands in for glibc: lists the mallopt and malloc_trim calls made."""
 
     def __init__(self):
         self.calls = []
@@ -22,7 +22,7 @@ class _RecordingLibc:
 
 @pytest.fixture
 def libc(monkeypatch):
-    fake = _RecordingLibc()
+    fake = _FakeLibc()
     monkeypatch.setattr(allocation, "_glibc", lambda: fake)
     return fake
 

@@ -46,6 +46,7 @@ from matplotlib.ticker import LogLocator
 
 from ..core.logistic import PARAM_NAMES, logistic4, logistic4_jacobian
 from ..core.models import MODELS
+from ..errors import OptionError
 from ..units import from_molar
 
 __all__ = [
@@ -220,7 +221,7 @@ def new_figure(nrows=1, ncols=1, *, size=_PANEL_SIZE, margins: Margins | None = 
 
 def _margins(layout, fixed: Margins) -> Margins | None:
     if layout not in LAYOUTS:
-        raise ValueError(f"layout must be one of {LAYOUTS}, got {layout!r}")
+        raise OptionError(f"layout must be one of {LAYOUTS}, got {layout!r}")
     return fixed if layout == "fixed" else None
 
 
